@@ -1,0 +1,39 @@
+"""popdens: population-density predictions for populations of noisy spiking neurons.
+
+Units at every public boundary: time in ms, potentials (and drives) in mV,
+rates and hazards in Hz.
+"""
+
+from __future__ import annotations
+
+__version__ = "0.1.0"
+
+from . import drive, hazard  # noqa: E402
+from .exceptions import ConvergenceError, ExpressionError, PopdensError, ScenarioError  # noqa: E402
+from .models import EIF, LIF, PIF, QIF, CustomNeuron  # noqa: E402
+from .montecarlo import montecarlo  # noqa: E402
+from .noise import EscapeNoise, Population, WhiteNoise  # noqa: E402
+from .result import Result, load_result  # noqa: E402
+from .simulate import simulate  # noqa: E402
+
+__all__ = sorted([
+    "ConvergenceError",
+    "CustomNeuron",
+    "EIF",
+    "EscapeNoise",
+    "ExpressionError",
+    "LIF",
+    "PIF",
+    "PopdensError",
+    "Population",
+    "QIF",
+    "Result",
+    "ScenarioError",
+    "WhiteNoise",
+    "__version__",
+    "drive",
+    "hazard",
+    "load_result",
+    "montecarlo",
+    "simulate",
+])

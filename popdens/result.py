@@ -1,0 +1,206 @@
+"""The one result type returned by every time-domain computation."""
+
+from __future__ import annotations
+
+import json
+import os
+import tempfile
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+__all__ = ["Result", "load_result"]
+
+STATUS_OK = 0
+STATUS_FAILED = -1
+
+
+def _atomic_write(path: Path, write) -> None:
+    """Write via a temporary file in the same folder and rename (never half-written)."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            write(fh)
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
+def _jsonable(x: Any):
+    if isinstance(x, dict):
+        return {str(k): _jsonable(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_jsonable(v) for v in x]
+    if isinstance(x, np.ndarray):
+        return x.tolist()
+    if isinstance(x, (np.floating, np.integer)):
+        return x.item()
+    if isinstance(x, (str, int, float, bool)) or x is None:
+        return x
+    return repr(x)
+
+
+@dataclass(frozen=True, eq=False)
+class Result:
+    """Outcome of a simulation (density solver or Monte Carlo).
+
+    Attributes
+    ----------
+    t : ndarray, shape (n_times,)
+        Output times (ms), starting at 0.
+    rate : ndarray, shape (n_times,)
+        Population rate (Hz).  ``rate[0]`` is the instantaneous rate of the
+        initial state; ``rate[k]`` for k >= 1 is the mean rate over
+        ``(t[k-1], t[k]]``.
+    mean_u : ndarray, shape (n_times,)
+        Mean membrane potential at ``t`` (mV), refractory neurons counted at reset.
+    refractory_fraction : ndarray, shape (n_times,)
+        Fraction of neurons in their absolute refractory period at ``t``.
+    drive : ndarray, shape (n_times,)
+        The input drive at ``t`` (mV).
+    method : str
+        Which computation produced the result.
+    status : int
+        0 on success, -1 if the computation stopped early (see ``message``).
+    message : str
+        Human-readable reason for the status.
+    dt : float
+        Internal time step (ms).
+    n_steps : int
+        Number of internal steps taken.
+    snapshot_t : ndarray, shape (n_snapshots,) or None
+        Times (ms) of density snapshots.
+    snapshots : ndarray, shape (n_snapshots, n_bins) or None
+        Density snapshots: age density (1/ms) or membrane-potential density
+        (1/mV) on ``axis``.
+    axis : ndarray, shape (n_bins,) or None
+        Age (ms) or membrane potential (mV) of each density bin.
+    axis_name : str
+        ``"age (ms)"`` or ``"u (mV)"``.
+    spike_times, spike_ids : ndarray or None
+        Monte Carlo only, on request: spike times (ms) and neuron indices.
+    n_neurons : int or None
+        Monte Carlo only: population size.
+    diagnostics : dict
+        Wall time (s), popdens version, mass error, counters, settings.
+    """
+
+    t: np.ndarray
+    rate: np.ndarray
+    mean_u: np.ndarray
+    refractory_fraction: np.ndarray
+    drive: np.ndarray
+    method: str
+    population: Any = None
+    status: int = STATUS_OK
+    message: str = "completed"
+    dt: float = float("nan")
+    n_steps: int = 0
+    snapshot_t: np.ndarray | None = None
+    snapshots: np.ndarray | None = None
+    axis: np.ndarray | None = None
+    axis_name: str = ""
+    spike_times: np.ndarray | None = None
+    spike_ids: np.ndarray | None = None
+    n_neurons: int | None = None
+    diagnostics: dict = field(default_factory=dict)
+
+    @property
+    def success(self) -> bool:
+        return self.status == STATUS_OK
+
+    def isis(self) -> np.ndarray:
+        """Inter-spike intervals (ms) pooled over neurons (Monte Carlo with spikes recorded)."""
+        if self.spike_times is None or self.spike_ids is None:
+            raise ValueError("no spikes were recorded; call montecarlo(..., record_spikes=True)")
+        order = np.lexsort((self.spike_times, self.spike_ids))
+        ids = self.spike_ids[order]
+        ts = self.spike_times[order]
+        same = ids[1:] == ids[:-1]
+        return np.diff(ts)[same]
+
+    def rate_standard_error(self) -> np.ndarray:
+        """Poisson standard error of a Monte Carlo rate per output bin (Hz).
+
+        Uses the variance of a spike count, approximately its mean for a
+        large population of independent neurons in a short bin (common
+        practice).
+        """
+        if self.n_neurons is None:
+            raise ValueError("standard errors exist only for Monte Carlo results")
+        width = np.diff(self.t, prepend=np.nan) * 1e-3
+        return np.sqrt(np.maximum(self.rate, 0.0) / (self.n_neurons * width))
+
+    def __repr__(self) -> str:
+        pop = self.population
+        who = f"{type(pop.neuron).__name__}/{type(pop.noise).__name__}" if pop is not None else "?"
+        rmean = float(np.mean(self.rate[1:])) if self.rate.size > 1 else float("nan")
+        return (
+            f"<Result {self.method} {who}: {self.t.size} times to {self.t[-1]:g} ms, dt={self.dt:g} ms, "
+            f"mean rate {rmean:.4g} Hz, status={self.status} ({self.message})>"
+        )
+
+    # ----------------------------------------------------------- output
+    def to_csv(self, path: str | Path, *, header_extra: dict | None = None) -> Path:
+        """Write ``t, rate, mean_u, refractory_fraction, drive`` as CSV (atomic).
+
+        The header lines (``#``) record units, method, version and parameters.
+        """
+        path = Path(path)
+        meta = {"method": self.method, "status": self.status, "message": self.message,
+                "dt_ms": self.dt, **(header_extra or {})}
+        if self.population is not None:
+            meta["neuron"] = {"model": type(self.population.neuron).__name__, **self.population.neuron.parameters()}
+        meta["version"] = self.diagnostics.get("version")
+        lines = ["# popdens result; " + json.dumps(_jsonable(meta), sort_keys=True)]
+        lines.append("t_ms,rate_hz,mean_u_mv,refractory_fraction,drive_mv")
+        arr = np.column_stack([self.t, self.rate, self.mean_u, self.refractory_fraction, self.drive])
+        body = "\n".join(",".join(f"{x:.12g}" for x in row) for row in arr)
+        text = "\n".join(lines) + "\n" + body + "\n"
+        _atomic_write(path, lambda fh: fh.write(text.encode("utf-8")))
+        return path
+
+    def save(self, path: str | Path) -> Path:
+        """Save arrays (``.npz``) with JSON metadata; reload with :func:`load_result`."""
+        path = Path(path)
+        if path.suffix != ".npz":
+            path = path.with_suffix(".npz")
+        arrays = {k: getattr(self, k) for k in ("t", "rate", "mean_u", "refractory_fraction", "drive")}
+        for k in ("snapshot_t", "snapshots", "axis", "spike_times", "spike_ids"):
+            if getattr(self, k) is not None:
+                arrays[k] = getattr(self, k)
+        meta = {"method": self.method, "status": self.status, "message": self.message, "dt": self.dt,
+                "n_steps": self.n_steps, "axis_name": self.axis_name, "n_neurons": self.n_neurons,
+                "diagnostics": _jsonable(self.diagnostics),
+                "population": repr(self.population)}
+        arrays["_meta"] = np.frombuffer(json.dumps(meta).encode("utf-8"), dtype=np.uint8)
+
+        def write(fh):
+            np.savez_compressed(fh, **arrays)
+
+        _atomic_write(path, write)
+        return path
+
+    def plot(self, ax=None, **kwargs):
+        """Plot the population rate over time; returns the matplotlib Axes."""
+        from .plotting import plot_rate
+
+        return plot_rate(self, ax=ax, **kwargs)
+
+
+def load_result(path: str | Path) -> Result:
+    """Load a result written by :meth:`Result.save` (population kept as text)."""
+    with np.load(Path(path), allow_pickle=False) as data:
+        meta = json.loads(bytes(data["_meta"]).decode("utf-8"))
+        kw = {k: data[k] for k in data.files if k != "_meta"}
+    return Result(method=meta["method"], status=meta["status"], message=meta["message"], dt=meta["dt"],
+                  n_steps=meta["n_steps"], axis_name=meta["axis_name"], n_neurons=meta["n_neurons"],
+                  diagnostics={**meta["diagnostics"], "population": meta["population"]}, **kw)

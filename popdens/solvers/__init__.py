@@ -1,0 +1,48 @@
+"""Density solvers and their registry.
+
+``METHODS`` maps method names to solver classes; ``DEFAULT_METHOD`` maps the
+noise model to the solver used when no method is given.
+"""
+
+from __future__ import annotations
+
+from ..noise import EscapeNoise, WhiteNoise
+from ._base import SolverBase
+from .refractory import RefractoryDensitySolver
+
+__all__ = ["METHODS", "DEFAULT_METHOD", "SolverBase", "RefractoryDensitySolver", "resolve_method"]
+
+METHODS: dict[str, type[SolverBase]] = {
+    "refractory-density": RefractoryDensitySolver,
+}
+
+DEFAULT_METHOD: dict[type, str] = {
+    EscapeNoise: "refractory-density",
+}
+
+#: Noise model each method solves.
+NOISE_OF_METHOD: dict[str, type] = {
+    "refractory-density": EscapeNoise,
+}
+
+
+def resolve_method(population, method) -> type[SolverBase]:
+    """Solver class for ``method`` (a name, a class or None for the default)."""
+    noise_type = type(population.noise)
+    if method is None:
+        if noise_type not in DEFAULT_METHOD:
+            raise ValueError(f"no density solver is available for {noise_type.__name__} yet")
+        method = DEFAULT_METHOD[noise_type]
+    if isinstance(method, type) and issubclass(method, SolverBase):
+        return method
+    if method not in METHODS:
+        raise ValueError(f"`method` must be one of {sorted(METHODS)}, got {method!r}")
+    if NOISE_OF_METHOD[method] is not noise_type:
+        raise ValueError(
+            f"`method` {method!r} solves {NOISE_OF_METHOD[method].__name__} populations, "
+            f"but the population has {noise_type.__name__}"
+        )
+    return METHODS[method]
+
+
+_ = WhiteNoise  # referenced by DEFAULT_METHOD once the diffusive solver is registered

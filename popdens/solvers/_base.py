@@ -1,0 +1,96 @@
+"""The solver contract shared by the density solvers.
+
+Rules for implementers
+----------------------
+1. A solver is constructed from a population, the internal step ``dt``
+   (ms) and method options; it owns its state and never prints, plots,
+   writes files or chooses output times.
+2. ``initialize(mu0, sigma0, initial)`` sets the state at t = 0 for the
+   initial drive ``mu0`` (mV) (and noise ``sigma0`` for diffusive noise).
+3. ``advance(mu, sigma)`` takes the drive at the step boundaries of a block
+   of steps, ``mu`` of shape ``(n + 1,)`` (mV, from the current time), and
+   advances ``n`` steps.  It calls the private ``_advance_impl`` which
+   returns per-step arrays ``rate`` (Hz, mean over each step), ``mean_u``
+   (mV, at the step end), ``refractory`` (fraction at the step end) and a
+   ``(success, message)`` pair.  ``advance`` does the bookkeeping (time,
+   counters, status).
+4. Numerical failure (non-finite values, loss of mass) is reported through
+   ``status``/``message``; misuse raises ``ValueError``.
+5. ``density()`` returns the current density on ``axis`` (for snapshots),
+   ``mass()`` the total probability (1 up to round-off).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..result import STATUS_FAILED, STATUS_OK
+
+__all__ = ["SolverBase"]
+
+
+class SolverBase:
+    """Base class of density solvers (see the module docstring for the contract)."""
+
+    #: Name used in results and in the method registry.
+    method_name = "base"
+    #: Label of the density axis.
+    axis_name = ""
+
+    def __init__(self, population, dt: float):
+        self.population = population
+        self.dt = float(dt)
+        self.t = 0.0
+        self.n_steps = 0
+        self.status = STATUS_OK
+        self.message = "running"
+
+    # -- to implement ----------------------------------------------------
+    def initialize(self, mu0: float, sigma0: float | None, initial) -> None:  # pragma: no cover
+        raise NotImplementedError
+
+    def _advance_impl(self, mu: np.ndarray, sigma: np.ndarray | None):  # pragma: no cover
+        raise NotImplementedError
+
+    def instantaneous_rate(self, mu: float, sigma: float | None) -> float:  # pragma: no cover
+        raise NotImplementedError
+
+    def mean_potential(self) -> float:  # pragma: no cover
+        raise NotImplementedError
+
+    def refractory_fraction(self) -> float:  # pragma: no cover
+        raise NotImplementedError
+
+    def density(self) -> np.ndarray:  # pragma: no cover
+        raise NotImplementedError
+
+    @property
+    def axis(self) -> np.ndarray:  # pragma: no cover
+        raise NotImplementedError
+
+    def mass(self) -> float:  # pragma: no cover
+        raise NotImplementedError
+
+    def diagnostics(self) -> dict:
+        return {}
+
+    # -- bookkeeping -------------------------------------------------------
+    def advance(self, mu: np.ndarray, sigma: np.ndarray | None = None):
+        """Advance ``len(mu) - 1`` steps; see the module docstring."""
+        if self.status != STATUS_OK:
+            raise RuntimeError(f"solver has failed before: {self.message}")
+        mu = np.ascontiguousarray(mu, dtype=float)
+        n = mu.size - 1
+        if sigma is not None:
+            sigma = np.ascontiguousarray(sigma, dtype=float)
+        rate, mean_u, refr, (ok, msg) = self._advance_impl(mu, sigma)
+        done = rate.size
+        self.n_steps += done
+        self.t += done * self.dt
+        if not ok:
+            self.status = STATUS_FAILED
+            self.message = msg
+        elif done != n:  # pragma: no cover - defensive
+            self.status = STATUS_FAILED
+            self.message = f"solver advanced {done} of {n} steps"
+        return rate, mean_u, refr

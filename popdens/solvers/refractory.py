@@ -1,0 +1,392 @@
+"""Refractory-density (age-structured) solver for escape-noise populations.
+
+State
+-----
+The population is described by the probability mass :math:`m_j` of
+neurons whose age (time since their last spike) is :math:`a_j = j\\,\\Delta t`,
+on Lagrangian age bins that move with time: one step later, every bin is
+one bin older, so there is no numerical diffusion in age.  Each bin carries
+its own membrane potential :math:`u_j`, integrated from ``reset`` under the
+actual input history (held at reset during the absolute refractory period).
+The last bin collects all neurons older than ``max_age``; neurons entering
+it are merged with mass-weighted potential, so total mass is conserved to
+round-off.
+
+Step
+----
+Over one step each bin survives with probability
+
+.. math:: s_j = \\exp\\Big(-\\int h(u_j(t))\\,dt\\Big)
+
+(not :math:`1 - h\\,\\Delta t`), the integral evaluated by the trapezoidal rule
+over the part of the step that lies after the refractory period.  The mass
+that fires, :math:`\\sum_j m_j (1 - s_j)`, is the population activity of the
+step and re-enters at age 0.  The potential uses the exact exponential step
+for the LIF (exact for a drive linear within the step), the exact step for
+the PIF and Heun's method for other drifts.  With a spike cut-off (EIF,
+QIF, custom with ``cutoff``) a bin whose potential reaches the cut-off fires
+entirely.
+
+References
+----------
+Gerstner, W. (2000). Population dynamics of spiking neurons: fast
+transients, asynchronous states, and locking. Neural Comput. 12:43.
+Chizhov, A. V. & Graham, L. J. (2007). Population model of hippocampal
+pyramidal neurons, linking a refractory density approach to conductance-based
+neurons. Phys. Rev. E 75:011924.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+
+from .. import _validation as v
+from .._kernels import MS_TO_S, NO_REFCOUNT, advance_potential, drift_value, hazard_value, survival
+from ..models import CODE_LIF
+from ._base import SolverBase
+
+__all__ = ["RefractoryDensitySolver"]
+
+#: Default span of explicit age bins beyond the refractory period, in
+#: membrane time constants: after 10 tau_m the potentials of neurons of
+#: different ages differ by exp(-10) ~ 5e-5 of their initial spread (LIF),
+#: so merging them into the last bin changes nothing measurable.
+DEFAULT_MEMORY_TAUS = 10.0
+#: Iterations and tolerance for the stationary potential of the last bin.
+OLD_BIN_MAX_ITER = 10_000
+OLD_BIN_TOL = 1e-13
+#: Relative tolerance (in units of dt) for deciding whether the refractory
+#: period ends at a step boundary (guards against round-off in j*dt).
+AGE_TOL = 1e-9
+
+
+@numba.njit(cache=True, nogil=True, inline="always")
+def _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
+              hcode, hpar, hops, hargs, theta, uses_slope,
+              age0, tau_ref, dt, e_dt, u, h_cached, mu0, mu1, stack, xbuf):  # pragma: no cover
+    """Advance one bin over one step.
+
+    Returns ``(u_new, h_new, H)``: the potential (mV) and hazard (Hz) at the
+    step end and the integrated hazard ``H`` (dimensionless, ``inf`` at a
+    spike cut-off) over the free part of the step, so the survival is
+    ``exp(-H)``.
+    """
+    free = age0 + dt - tau_ref
+    tol = AGE_TOL * dt
+    if free <= tol:
+        return reset, 0.0, 0.0
+    if free >= dt - tol:
+        free = dt
+        if age0 - tau_ref < tol:
+            # refractoriness ended exactly at the start of the step
+            d0 = 0.0
+            if uses_slope:
+                d0 = (drift_value(ncode, npar, nops, nargs, u, stack, xbuf) + mu0) / tau_m
+            h_start = hazard_value(hcode, hpar, hops, hargs, u, theta, d0, stack, xbuf)
+        else:
+            h_start = h_cached
+        if ncode == CODE_LIF:
+            slope_mu = (mu1 - mu0) / dt
+            c = u - (npar[0] + mu0) + tau_m * slope_mu
+            u_new = (npar[0] + mu1) - tau_m * slope_mu + c * e_dt
+        else:
+            u_new = advance_potential(ncode, npar, nops, nargs, tau_m, u, dt, mu0, mu1, stack, xbuf)
+    else:
+        # the refractory period ends inside this step: start at reset
+        mus = mu1 - (mu1 - mu0) * free / dt
+        d0 = 0.0
+        if uses_slope:
+            d0 = (drift_value(ncode, npar, nops, nargs, reset, stack, xbuf) + mus) / tau_m
+        h_start = hazard_value(hcode, hpar, hops, hargs, reset, theta, d0, stack, xbuf)
+        u_new = advance_potential(ncode, npar, nops, nargs, tau_m, reset, free, mus, mu1, stack, xbuf)
+    d1 = 0.0
+    if uses_slope:
+        d1 = (drift_value(ncode, npar, nops, nargs, u_new, stack, xbuf) + mu1) / tau_m
+    h_new = hazard_value(hcode, hpar, hops, hargs, u_new, theta, d1, stack, xbuf)
+    if has_cutoff and u_new >= boundary:
+        return boundary, h_new, math.inf
+    return u_new, h_new, 0.5 * (h_start + h_new) * free * MS_TO_S
+
+
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def _advance(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
+             hcode, hpar, hops, hargs, theta, uses_slope, tau_ref, dt,
+             m, u, h, head, old, mu, out_rate, out_mean_u, out_refr, stack, xbuf):  # pragma: no cover
+    """Advance ``len(mu) - 1`` steps in place; returns (head, steps_done, ok)."""
+    n_bins = m.shape[0]
+    e_dt = math.exp(-dt / tau_m)
+    n = mu.shape[0] - 1
+    for k in range(n):
+        mu0 = mu[k]
+        mu1 = mu[k + 1]
+        fired = 0.0
+        mean_u = 0.0
+        refr = 0.0
+        # oldest explicit bin (age index n_bins-1), merged into `old` below
+        u_last = 0.0
+        ms_last = 0.0
+        for j in range(n_bins):
+            p = head + j
+            if p >= n_bins:
+                p -= n_bins
+            mj = m[p]
+            un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
+                                      hcode, hpar, hops, hargs, theta, uses_slope,
+                                      j * dt, tau_ref, dt, e_dt, u[p], h[p], mu0, mu1, stack, xbuf)
+            s = survival(big_h)
+            fired += mj * (1.0 - s)
+            ms = mj * s
+            if j == n_bins - 1:
+                u_last = un
+                ms_last = ms
+            else:
+                m[p] = ms
+                u[p] = un
+                h[p] = hn
+                mean_u += ms * un
+                if (j + 1) * dt < tau_ref - AGE_TOL * dt:
+                    refr += ms
+        # the bin of all older neurons (always past refractoriness)
+        un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
+                                  hcode, hpar, hops, hargs, theta, uses_slope,
+                                  tau_ref + dt, tau_ref, dt, e_dt, old[1], old[2], mu0, mu1, stack, xbuf)
+        s = survival(big_h)
+        fired += old[0] * (1.0 - s)
+        m_old = old[0] * s + ms_last
+        if m_old > 0.0:
+            u_old = (old[0] * s * un + ms_last * u_last) / m_old
+        else:
+            u_old = un
+        d1 = 0.0
+        if uses_slope:
+            d1 = (drift_value(ncode, npar, nops, nargs, u_old, stack, xbuf) + mu1) / tau_m
+        old[0] = m_old
+        old[1] = u_old
+        old[2] = hazard_value(hcode, hpar, hops, hargs, u_old, theta, d1, stack, xbuf)
+        mean_u += m_old * u_old
+        # newborn bin at age 0 takes the slot of the merged one
+        head -= 1
+        if head < 0:
+            head += n_bins
+        m[head] = fired
+        u[head] = reset
+        if tau_ref > 0.0:
+            h[head] = 0.0
+            refr += fired
+        else:
+            d1 = 0.0
+            if uses_slope:
+                d1 = (drift_value(ncode, npar, nops, nargs, reset, stack, xbuf) + mu1) / tau_m
+            h[head] = hazard_value(hcode, hpar, hops, hargs, reset, theta, d1, stack, xbuf)
+        mean_u += fired * reset
+        out_rate[k] = fired / (dt * MS_TO_S)
+        out_mean_u[k] = mean_u
+        out_refr[k] = refr
+        if not (math.isfinite(fired) and math.isfinite(mean_u)):
+            return head, k + 1, False
+    return head, n, True
+
+
+@numba.njit(cache=True, nogil=True)
+def _trajectory(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
+                hcode, hpar, hops, hargs, theta, uses_slope, tau_ref, dt, n_bins, mu,
+                stack, xbuf):  # pragma: no cover
+    """Free trajectory from reset at constant ``mu``: potentials, cached hazards and survivals per bin."""
+    us = np.empty(n_bins + 1)
+    hs = np.empty(n_bins + 1)
+    ss = np.empty(n_bins)
+    e_dt = math.exp(-dt / tau_m)
+    us[0] = reset
+    d0 = 0.0
+    if uses_slope:
+        d0 = (drift_value(ncode, npar, nops, nargs, reset, stack, xbuf) + mu) / tau_m
+    hs[0] = 0.0 if tau_ref > 0.0 else hazard_value(hcode, hpar, hops, hargs, reset, theta, d0, stack, xbuf)
+    for j in range(n_bins):
+        un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
+                                  hcode, hpar, hops, hargs, theta, uses_slope,
+                                  j * dt, tau_ref, dt, e_dt, us[j], hs[j], mu, mu, stack, xbuf)
+        us[j + 1] = un
+        hs[j + 1] = hn
+        ss[j] = math.exp(-big_h)
+    return us, hs, ss
+
+
+@numba.njit(cache=True, nogil=True)
+def _old_bin_map(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
+                 hcode, hpar, hops, hargs, theta, uses_slope, tau_ref, dt, U, H, mu, stack, xbuf):  # pragma: no cover
+    e_dt = math.exp(-dt / tau_m)
+    un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
+                              hcode, hpar, hops, hargs, theta, uses_slope,
+                              tau_ref + dt, tau_ref, dt, e_dt, U, H, mu, mu, stack, xbuf)
+    return un, hn, math.exp(-big_h)
+
+
+class RefractoryDensitySolver(SolverBase):
+    """Age-structured population density for escape noise (see module docstring).
+
+    Parameters
+    ----------
+    population : Population
+        Neuron model with :class:`~popdens.EscapeNoise`.
+    dt : float
+        Time step and age-bin width (ms).
+    max_age : float, optional
+        Age (ms) beyond which neurons share one bin; default
+        ``refractory + 10 * tau_m``.
+    """
+
+    method_name = "refractory-density"
+    axis_name = "age (ms)"
+
+    def __init__(self, population, dt: float, max_age: float | None = None):
+        super().__init__(population, dt)
+        nrn = population.neuron
+        hz = population.noise.hazard
+        if max_age is None:
+            max_age = nrn.refractory + DEFAULT_MEMORY_TAUS * nrn.tau_m
+        max_age = v.positive("max_age", max_age)
+        n_bins = int(math.ceil(max_age / self.dt))
+        n_bins = max(n_bins, int(math.floor(nrn.refractory / self.dt)) + 2)
+        self.n_bins = n_bins
+        self.max_age = n_bins * self.dt
+        self._nargs = (
+            nrn.code, np.ascontiguousarray(nrn.kernel_params, dtype=float), nrn.program[0], nrn.program[1],
+            float(nrn.tau_m), float(nrn.reset), float(nrn.boundary), bool(nrn.has_cutoff),
+            hz.code, np.ascontiguousarray(hz.kernel_params, dtype=float), hz.program[0], hz.program[1],
+            float(nrn.threshold), bool(hz.uses_slope), float(nrn.refractory), self.dt,
+        )
+        size = max(nrn.program[0].size, hz.program[0].size) + 2
+        self._stack = np.empty(size)
+        self._xbuf = np.zeros(3)
+        self.m = np.zeros(n_bins)
+        self.u = np.full(n_bins, float(nrn.reset))
+        self.h = np.zeros(n_bins)
+        self.head = 0
+        self.old = np.zeros(3)  # mass, potential, cached hazard of the last bin
+        self._mu_now = 0.0
+
+    # ----------------------------------------------------------------- init
+    def initialize(self, mu0: float, sigma0=None, initial="stationary") -> None:
+        """Set the state at t = 0.
+
+        ``initial`` is ``"stationary"`` (the exact stationary state of the
+        discrete scheme at constant drive ``mu0``), ``"synchronous"`` (all
+        neurons have just fired) or an array of age densities (1/ms) on the
+        age bins ``axis`` (normalised here).
+        """
+        us, hs, ss = _trajectory(*self._nargs, self.n_bins, float(mu0), self._stack, self._xbuf)
+        self.head = 0
+        self._mu_now = float(mu0)
+        self.u[:] = us[: self.n_bins]
+        self.h[:] = hs[: self.n_bins]
+        if isinstance(initial, str) and initial == "stationary":
+            surv = np.concatenate([[1.0], np.cumprod(ss)])  # survival to each bin start
+            inflow = surv[self.n_bins]  # mass per unit m_0 entering the last bin each step
+            U, H, s_old = self._old_bin_fixed_point(us[self.n_bins], hs[self.n_bins], float(mu0))
+            explicit = surv[: self.n_bins]
+            if 1.0 - s_old > 0.0:
+                tail = inflow / (1.0 - s_old)
+                m0 = 1.0 / (explicit.sum() + tail)
+                self.m[:] = m0 * explicit
+                self.old[:] = (m0 * tail, U, H)
+            else:  # nobody ever fires: all mass has aged into the last bin
+                self.m[:] = 0.0
+                self.old[:] = (1.0, U, H)
+        elif isinstance(initial, str) and initial == "synchronous":
+            self.m[:] = 0.0
+            self.m[0] = 1.0
+            self.old[:] = (0.0, us[self.n_bins], hs[self.n_bins])
+        elif isinstance(initial, str):
+            raise ValueError(f"`initial` must be 'stationary', 'synchronous' or an array, got {initial!r}")
+        else:
+            dens = np.asarray(initial, dtype=float)
+            if dens.shape != (self.n_bins + 1,):
+                raise ValueError(f"`initial` age density must have shape ({self.n_bins + 1},) "
+                                 f"matching `axis`, got {dens.shape}")
+            if not np.all(np.isfinite(dens)) or np.any(dens < 0) or dens.sum() <= 0:
+                raise ValueError("`initial` age density must be finite, non-negative and not all zero")
+            mass = dens / dens.sum()
+            self.m[:] = mass[: self.n_bins]
+            self.old[:] = (mass[self.n_bins], us[self.n_bins], hs[self.n_bins])
+
+    def _old_bin_fixed_point(self, u_in: float, h_in: float, mu: float):
+        """Stationary potential of the last bin: U = s(U) Phi(U) + (1 - s(U)) u_in."""
+        U, H = u_in, h_in
+        for _ in range(OLD_BIN_MAX_ITER):
+            un, hn, s = _old_bin_map(*self._nargs, U, H, mu, self._stack, self._xbuf)
+            # u_in is already the advanced potential of the bin that merges in
+            U_new = s * un + (1.0 - s) * u_in
+            # hazard cached at the merged potential, as in the step kernel
+            H_new = float(self.population.noise.hazard.rate(
+                U_new, self.population.neuron.threshold,
+                self.population.neuron.velocity(U_new, mu)))
+            if abs(U_new - U) <= OLD_BIN_TOL * max(1.0, abs(U)):
+                U, H = U_new, H_new
+                break
+            U, H = U_new, H_new
+        _, _, s = _old_bin_map(*self._nargs, U, H, mu, self._stack, self._xbuf)
+        return U, H, s
+
+    # ----------------------------------------------------------------- step
+    def _advance_impl(self, mu, sigma):
+        n = mu.size - 1
+        rate = np.empty(n)
+        mean_u = np.empty(n)
+        refr = np.empty(n)
+        head, done, ok = _advance(*self._nargs, self.m, self.u, self.h, self.head, self.old, mu,
+                                  rate, mean_u, refr, self._stack, self._xbuf)
+        self.head = int(head)
+        self._mu_now = float(mu[done])
+        msg = "" if ok else f"non-finite rate or potential at t = {self.t + done * self.dt:g} ms"
+        return rate[:done], mean_u[:done], refr[:done], (bool(ok), msg)
+
+    # ------------------------------------------------------------ observers
+    def _ordered(self) -> tuple[np.ndarray, np.ndarray]:
+        idx = (self.head + np.arange(self.n_bins)) % self.n_bins
+        return np.append(self.m[idx], self.old[0]), np.append(self.u[idx], self.old[1])
+
+    @property
+    def axis(self) -> np.ndarray:
+        """Age (ms) of each bin; the last bin holds every neuron older than ``max_age``."""
+        return np.arange(self.n_bins + 1) * self.dt
+
+    def density(self) -> np.ndarray:
+        """Age density (1/ms) on :attr:`axis` (the last entry: mass of the last bin / dt)."""
+        m, _ = self._ordered()
+        return m / self.dt
+
+    def potentials(self) -> np.ndarray:
+        """Membrane potential (mV) of each age bin."""
+        return self._ordered()[1]
+
+    def mass(self) -> float:
+        return float(self.m.sum() + self.old[0])
+
+    def mean_potential(self) -> float:
+        m, u = self._ordered()
+        return float(np.dot(m, u))
+
+    def refractory_fraction(self) -> float:
+        m, _ = self._ordered()
+        ages = self.axis
+        return float(m[:-1][ages[:-1] < self.population.neuron.refractory].sum())
+
+    def instantaneous_rate(self, mu: float, sigma=None) -> float:
+        nrn = self.population.neuron
+        hz = self.population.noise.hazard
+        m, u = self._ordered()
+        ages = self.axis
+        free = ages >= nrn.refractory
+        free[-1] = True
+        hval = hz.rate(u, nrn.threshold, nrn.velocity(u, mu)) * free
+        if nrn.has_cutoff:
+            hval = np.where(u >= nrn.boundary, np.inf, hval)
+        with np.errstate(invalid="ignore"):
+            r = float(np.sum(np.where(m > 0, m * hval, 0.0)))
+        return r
+
+    def diagnostics(self) -> dict:
+        return {"n_bins": self.n_bins + 1, "max_age_ms": self.max_age}
