@@ -16,23 +16,14 @@ import math
 import numba
 import numpy as np
 
-from ._kernels import NO_REFCOUNT, drift_value, hazard_value
-from .solvers.refractory import _bin_step
+from ._kernels import NO_REFCOUNT
+from .solvers.refractory import _bin_step, _newborn
 
 
 @numba.njit(cache=True, nogil=True)
 def seed_compiled_rng(seed):  # pragma: no cover - compiled
     """Seed the random generator used inside compiled kernels."""
     np.random.seed(seed)
-
-
-@numba.njit(cache=True, nogil=True)
-def _reset_hazard(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta,
-                  uses_slope, mu, stack, xbuf):  # pragma: no cover - compiled
-    d = 0.0
-    if uses_slope:
-        d = (drift_value(ncode, npar, nops, nargs, reset, stack, xbuf) + mu) / tau_m
-    return hazard_value(hcode, hpar, hops, hargs, reset, theta, d, stack, xbuf)
 
 
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
@@ -66,18 +57,15 @@ def run_escape(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
             if lam[i] >= thr[i]:
                 count += 1
                 if record:
-                    spk_t[n_spk] = t0 + (k + 1) * dt
+                    spk_t[n_spk] = t0 + (k + 0.5) * dt  # midpoint of the step (unbiased)
                     spk_i[n_spk] = i
                     n_spk += 1
-                u[i] = reset
-                age[i] = 0.0
+                # fired, on average, half a step ago (see refractory._newborn)
+                u[i], h[i] = _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs,
+                                      theta, uses_slope, tau_ref, dt, mu1, stack, xbuf)
+                age[i] = 0.5 * dt
                 lam[i] = 0.0
                 thr[i] = np.random.exponential(1.0)
-                if tau_ref > 0.0:
-                    h[i] = 0.0
-                else:
-                    h[i] = _reset_hazard(ncode, npar, nops, nargs, tau_m, reset,
-                                         hcode, hpar, hops, hargs, theta, uses_slope, mu1, stack, xbuf)
             else:
                 u[i] = un
                 h[i] = hn

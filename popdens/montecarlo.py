@@ -16,6 +16,7 @@ import numpy as np
 from . import __version__
 from . import _validation as v
 from ._mc_escape import run_escape, seed_compiled_rng
+from .solvers.refractory import _newborn
 from ._recording import block_ends, downsample, make_grid
 from .drive import as_drive
 from .noise import EscapeNoise, Population, WhiteNoise
@@ -82,14 +83,12 @@ class _EscapeEnsemble:
 
     def start_synchronous(self, population, mu0):
         """All neurons fire at t = 0: reset, age 0, fresh integrated hazard."""
-        nrn = population.neuron
-        self.u[:] = nrn.reset
-        self.age[:] = 0.0
+        u0, h0 = _newborn(*self.args[:6], *self.args[8:14], self.args[14], self.dt, float(mu0),
+                          self.stack, self.xbuf)
+        self.u[:] = u0
+        self.h[:] = h0
+        self.age[:] = 0.5 * self.dt  # as the density solver: fired within the step before t = 0
         self.lam[:] = 0.0
-        if nrn.refractory > 0:
-            self.h[:] = 0.0
-        else:
-            self.h[:] = population.noise.hazard.rate(self.u, nrn.threshold, nrn.velocity(self.u, mu0))
 
     def mean_potential(self):
         return float(self.u.mean())

@@ -3,7 +3,9 @@
 State
 -----
 The population is described by the probability mass :math:`m_j` of
-neurons whose age (time since their last spike) is :math:`a_j = j\\,\\Delta t`,
+neurons whose age (time since their last spike) is :math:`a_j = (j + 1/2)\\,\\Delta t`
+(spikes are spread over the step in which they occur, so on average a
+neuron that fired in the last step has age dt/2),
 on Lagrangian age bins that move with time: one step later, every bin is
 one bin older, so there is no numerical diffusion in age.  Each bin carries
 its own membrane potential :math:`u_j`, integrated from ``reset`` under the
@@ -111,6 +113,26 @@ def _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
     return u_new, h_new, 0.5 * (h_start + h_new) * free * MS_TO_S
 
 
+@numba.njit(cache=True, nogil=True, inline="always")
+def _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta, uses_slope,
+             tau_ref, dt, mu1, stack, xbuf):  # pragma: no cover
+    """Potential (mV) and hazard (Hz) of neurons that fired during the step just ended.
+
+    They fired on average half a step ago, so they enter with age dt/2: held
+    at reset while refractory, then integrated freely for the rest of that
+    half step.  This midpoint convention removes the O(dt) delay that
+    placing every spike at the end of its step would add to each interval.
+    """
+    free = 0.5 * dt - tau_ref
+    if free <= 0.0:
+        return reset, 0.0
+    un = advance_potential(ncode, npar, nops, nargs, tau_m, reset, free, mu1, mu1, stack, xbuf)
+    d1 = 0.0
+    if uses_slope:
+        d1 = (drift_value(ncode, npar, nops, nargs, un, stack, xbuf) + mu1) / tau_m
+    return un, hazard_value(hcode, hpar, hops, hargs, un, theta, d1, stack, xbuf)
+
+
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
 def _advance(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
              hcode, hpar, hops, hargs, theta, uses_slope, tau_ref, dt,
@@ -135,7 +157,7 @@ def _advance(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
             mj = m[p]
             un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                                       hcode, hpar, hops, hargs, theta, uses_slope,
-                                      j * dt, tau_ref, dt, e_dt, u[p], h[p], mu0, mu1, stack, xbuf)
+                                      (j + 0.5) * dt, tau_ref, dt, e_dt, u[p], h[p], mu0, mu1, stack, xbuf)
             s = survival(big_h)
             fired += mj * (1.0 - s)
             ms = mj * s
@@ -147,7 +169,7 @@ def _advance(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                 u[p] = un
                 h[p] = hn
                 mean_u += ms * un
-                if (j + 1) * dt < tau_ref - AGE_TOL * dt:
+                if (j + 1.5) * dt < tau_ref - AGE_TOL * dt:
                     refr += ms
         # the bin of all older neurons (always past refractoriness)
         un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
@@ -171,17 +193,14 @@ def _advance(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
         head -= 1
         if head < 0:
             head += n_bins
+        unb, hnb = _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta,
+                            uses_slope, tau_ref, dt, mu1, stack, xbuf)
         m[head] = fired
-        u[head] = reset
-        if tau_ref > 0.0:
-            h[head] = 0.0
+        u[head] = unb
+        h[head] = hnb
+        if 0.5 * dt < tau_ref - AGE_TOL * dt:
             refr += fired
-        else:
-            d1 = 0.0
-            if uses_slope:
-                d1 = (drift_value(ncode, npar, nops, nargs, reset, stack, xbuf) + mu1) / tau_m
-            h[head] = hazard_value(hcode, hpar, hops, hargs, reset, theta, d1, stack, xbuf)
-        mean_u += fired * reset
+        mean_u += fired * unb
         out_rate[k] = fired / (dt * MS_TO_S)
         out_mean_u[k] = mean_u
         out_refr[k] = refr
@@ -199,15 +218,12 @@ def _trajectory(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
     hs = np.empty(n_bins + 1)
     ss = np.empty(n_bins)
     e_dt = math.exp(-dt / tau_m)
-    us[0] = reset
-    d0 = 0.0
-    if uses_slope:
-        d0 = (drift_value(ncode, npar, nops, nargs, reset, stack, xbuf) + mu) / tau_m
-    hs[0] = 0.0 if tau_ref > 0.0 else hazard_value(hcode, hpar, hops, hargs, reset, theta, d0, stack, xbuf)
+    us[0], hs[0] = _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta,
+                            uses_slope, tau_ref, dt, mu, stack, xbuf)
     for j in range(n_bins):
         un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                                   hcode, hpar, hops, hargs, theta, uses_slope,
-                                  j * dt, tau_ref, dt, e_dt, us[j], hs[j], mu, mu, stack, xbuf)
+                                  (j + 0.5) * dt, tau_ref, dt, e_dt, us[j], hs[j], mu, mu, stack, xbuf)
         us[j + 1] = un
         hs[j + 1] = hn
         ss[j] = math.exp(-big_h)
@@ -350,8 +366,8 @@ class RefractoryDensitySolver(SolverBase):
 
     @property
     def axis(self) -> np.ndarray:
-        """Age (ms) of each bin; the last bin holds every neuron older than ``max_age``."""
-        return np.arange(self.n_bins + 1) * self.dt
+        """Age (ms) of each bin, ``(j + 1/2) dt``; the last bin holds every neuron older than ``max_age``."""
+        return (np.arange(self.n_bins + 1) + 0.5) * self.dt
 
     def density(self) -> np.ndarray:
         """Age density (1/ms) on :attr:`axis` (the last entry: mass of the last bin / dt)."""
@@ -372,14 +388,15 @@ class RefractoryDensitySolver(SolverBase):
     def refractory_fraction(self) -> float:
         m, _ = self._ordered()
         ages = self.axis
-        return float(m[:-1][ages[:-1] < self.population.neuron.refractory].sum())
+        tau_ref = self.population.neuron.refractory
+        return float(m[:-1][ages[:-1] < tau_ref - AGE_TOL * self.dt].sum())
 
     def instantaneous_rate(self, mu: float, sigma=None) -> float:
         nrn = self.population.neuron
         hz = self.population.noise.hazard
         m, u = self._ordered()
         ages = self.axis
-        free = ages >= nrn.refractory
+        free = ages >= nrn.refractory - AGE_TOL * self.dt
         free[-1] = True
         hval = hz.rate(u, nrn.threshold, nrn.velocity(u, mu)) * free
         if nrn.has_cutoff:
