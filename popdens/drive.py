@@ -221,8 +221,9 @@ class Sum(Drive):
 
     def _evaluate(self, t):
         out = np.zeros(t.shape)
-        for d in self.terms:
-            out = out + d._evaluate(t)
+        with np.errstate(over="ignore", invalid="ignore"):  # non-finite drives are reported by the solvers
+            for d in self.terms:
+                out = out + d._evaluate(t)
         return out
 
     @property
