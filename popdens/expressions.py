@@ -113,7 +113,8 @@ class Expression:
 
     def __call__(self, *values):
         """Evaluate vectorised with numpy; one argument per variable."""
-        out = self._func(*values)
+        with np.errstate(all="ignore"):  # non-finite values are checked by the callers
+            out = self._func(*values)
         shape = np.broadcast(*[np.asarray(v) for v in values]).shape if values else ()
         return np.broadcast_to(np.asarray(out, dtype=float), shape).copy() if shape else float(out)
 
