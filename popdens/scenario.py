@@ -1,0 +1,265 @@
+"""Scenario files (TOML): a strict schema loaded into the same objects the Python API uses.
+
+Top-level tables
+----------------
+``[scenario]``  title, output folder (relative to the scenario file), notes
+``[neuron]``    ``model`` = "LIF" | "EIF" | "QIF" | "PIF" | "custom" and that model's parameters
+``[noise]``     ``kind`` = "escape" with a ``[noise.hazard]`` table, or "white" with ``sigma`` (mV)
+``[input]``     ``shape`` = "constant" | "step" | "pulse" | "ramp" | "sine" | "trace" and its parameters
+``[run]``       ``t_end``, ``dt``, ``record_interval`` (ms), ``montecarlo_neurons``, ``seed``
+
+Unknown keys are rejected with the nearest valid key suggested; each error
+names the file, the table, the key, the value and what was expected.
+Expressions (custom drift or escape function) go through the safe parser.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import math
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from . import drive as drive_mod
+from . import hazard as hazard_mod
+from .exceptions import ExpressionError, ScenarioError
+from .models import EIF, LIF, PIF, QIF, CustomNeuron
+from .noise import EscapeNoise, Population, WhiteNoise
+
+__all__ = ["Scenario", "load_scenario", "parse_scenario"]
+
+NEURON_MODELS = {
+    "LIF": (LIF, {"tau_m", "threshold", "reset", "refractory", "rest"}, {"rest"}),
+    "EIF": (EIF, {"tau_m", "soft_threshold", "slope_factor", "cutoff", "reset", "refractory", "rest"}, {"rest"}),
+    "QIF": (QIF, {"tau_m", "critical", "cutoff", "reset", "refractory", "rest"}, {"rest"}),
+    "PIF": (PIF, {"tau_m", "threshold", "reset", "refractory"}, set()),
+    "custom": (CustomNeuron, {"drift", "tau_m", "threshold", "reset", "refractory", "parameters", "cutoff", "rest"},
+               {"parameters", "cutoff", "rest"}),
+}
+HAZARDS = {
+    "exponential": (hazard_mod.Exponential, {"rate", "width"}),
+    "linear": (hazard_mod.Linear, {"slope"}),
+    "erf": (hazard_mod.ErfEscape, {"max_rate", "width"}),
+    "arrhenius-current": (hazard_mod.ArrheniusCurrent, {"sigma", "tau", "c1", "c2"}),
+    "custom": (hazard_mod.CustomEscape, {"expression", "parameters"}),
+}
+INPUTS = {
+    "constant": (drive_mod.Constant, {"mu"}),
+    "step": (drive_mod.Step, {"t", "before", "after"}),
+    "pulse": (drive_mod.Pulse, {"t", "duration", "base", "amplitude"}),
+    "ramp": (drive_mod.Ramp, {"t_start", "t_stop", "start", "stop"}),
+    "sine": (drive_mod.Sine, {"mean", "amplitude", "frequency", "phase"}),
+    "trace": (None, {"file", "times", "values"}),
+}
+RUN_KEYS = {"t_end", "dt", "record_interval", "montecarlo_neurons", "seed"}
+SCENARIO_KEYS = {"title", "output", "notes"}
+TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run"}
+#: Largest accepted number of Monte Carlo neurons in a scenario.
+MAX_NEURONS = 10_000_000
+
+
+@dataclass(frozen=True)
+class Scenario:
+    """A validated scenario: the objects a script would build by hand."""
+
+    source: Path
+    title: str
+    output: Path
+    population: Population
+    drive: drive_mod.Drive
+    t_end: float
+    dt: float | None
+    record_interval: float | None
+    montecarlo_neurons: int
+    seed: int
+    digest: str
+    raw: dict
+
+
+def _err(src, table, key, value, expected) -> ScenarioError:
+    where = f"[{table}]" if table else "top level"
+    k = f" key `{key}`" if key else ""
+    return ScenarioError(f"{src}: {where}{k} = {value!r}: expected {expected}")
+
+
+def _check_keys(src, table, data: dict, allowed: set, required: set = frozenset()):
+    if not isinstance(data, dict):
+        raise _err(src, table, None, data, "a table")
+    for key in data:
+        if key not in allowed:
+            near = difflib.get_close_matches(str(key), sorted(allowed), n=1)
+            hint = f"; did you mean `{near[0]}`?" if near else f"; valid keys: {sorted(allowed)}"
+            raise ScenarioError(f"{src}: [{table}] unknown key `{key}`{hint}")
+    for key in sorted(required):
+        if key not in data:
+            raise ScenarioError(f"{src}: [{table}] missing key `{key}`")
+
+
+def _number(src, table, key, value) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(float(value)):
+        raise _err(src, table, key, value, "a finite number")
+    return float(value)
+
+
+def _build(src, table, cls, params: dict):
+    try:
+        return cls(**params)
+    except ExpressionError as exc:
+        raise ScenarioError(f"{src}: [{table}] {exc}") from None
+    except (ValueError, TypeError) as exc:
+        raise ScenarioError(f"{src}: [{table}] {exc}") from None
+
+
+def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
+    """Validate a scenario given as a dict (as read from TOML)."""
+    src = str(source)
+    _check_keys(src, "", data, TOP_LEVEL, {"neuron", "noise", "input", "run"})
+    meta = data.get("scenario", {})
+    _check_keys(src, "scenario", meta, SCENARIO_KEYS)
+    title = meta.get("title", Path(src).stem)
+    if not isinstance(title, str):
+        raise _err(src, "scenario", "title", title, "a string")
+    out = meta.get("output", f"{Path(src).stem}-output")
+    if not isinstance(out, str) or not out.strip():
+        raise _err(src, "scenario", "output", out, "a folder name")
+    out_path = Path(out)
+    if out_path.is_absolute() or ".." in out_path.parts:
+        raise _err(src, "scenario", "output", out, "a relative folder inside the scenario's folder")
+
+    # neuron
+    nd = dict(data["neuron"]) if isinstance(data["neuron"], dict) else data["neuron"]
+    if not isinstance(nd, dict):
+        raise _err(src, "neuron", None, nd, "a table")
+    model = nd.pop("model", None)
+    if model not in NEURON_MODELS:
+        raise _err(src, "neuron", "model", model, f"one of {sorted(NEURON_MODELS)}")
+    cls, allowed, optional = NEURON_MODELS[model]
+    _check_keys(src, "neuron", nd, allowed, allowed - optional)
+    params = {}
+    for k, val in nd.items():
+        if k == "drift":
+            if not isinstance(val, str):
+                raise _err(src, "neuron", k, val, "an expression string")
+            params[k] = val
+        elif k == "parameters":
+            if not isinstance(val, dict):
+                raise _err(src, "neuron", k, val, "a table of named numbers")
+            params[k] = {str(pk): _number(src, "neuron.parameters", pk, pv) for pk, pv in val.items()}
+        else:
+            params[k] = _number(src, "neuron", k, val)
+    neuron = _build(src, "neuron", cls, params)
+
+    # noise
+    no = data["noise"]
+    if not isinstance(no, dict):
+        raise _err(src, "noise", None, no, "a table")
+    kind = no.get("kind")
+    if kind == "escape":
+        _check_keys(src, "noise", no, {"kind", "hazard"}, {"kind", "hazard"})
+        hz = dict(no["hazard"]) if isinstance(no["hazard"], dict) else no["hazard"]
+        if not isinstance(hz, dict):
+            raise _err(src, "noise.hazard", None, hz, "a table")
+        shape = hz.pop("shape", None)
+        if shape not in HAZARDS:
+            raise _err(src, "noise.hazard", "shape", shape, f"one of {sorted(HAZARDS)}")
+        hcls, hallowed = HAZARDS[shape]
+        required = hallowed - {"parameters"}
+        _check_keys(src, "noise.hazard", hz, hallowed, required)
+        hp = {}
+        for k, val in hz.items():
+            if k == "expression":
+                if not isinstance(val, str):
+                    raise _err(src, "noise.hazard", k, val, "an expression string")
+                hp[k] = val
+            elif k == "parameters":
+                if not isinstance(val, dict):
+                    raise _err(src, "noise.hazard", k, val, "a table of named numbers")
+                hp[k] = {str(pk): _number(src, "noise.hazard.parameters", pk, pv) for pk, pv in val.items()}
+            else:
+                hp[k] = _number(src, "noise.hazard", k, val)
+        noise = EscapeNoise(_build(src, "noise.hazard", hcls, hp))
+    elif kind == "white":
+        _check_keys(src, "noise", no, {"kind", "sigma"}, {"kind", "sigma"})
+        noise = _build(src, "noise", WhiteNoise, {"sigma": _number(src, "noise", "sigma", no["sigma"])})
+    else:
+        raise _err(src, "noise", "kind", kind, "'escape' or 'white'")
+    population = Population(neuron, noise)
+
+    # input
+    inp = dict(data["input"]) if isinstance(data["input"], dict) else data["input"]
+    if not isinstance(inp, dict):
+        raise _err(src, "input", None, inp, "a table")
+    shape = inp.pop("shape", None)
+    if shape not in INPUTS:
+        raise _err(src, "input", "shape", shape, f"one of {sorted(INPUTS)}")
+    dcls, dallowed = INPUTS[shape]
+    if shape == "trace":
+        _check_keys(src, "input", inp, dallowed)
+        if "file" in inp:
+            f = inp["file"]
+            if not isinstance(f, str) or Path(f).is_absolute() or ".." in Path(f).parts:
+                raise _err(src, "input", "file", f, "a CSV file name relative to the scenario")
+            try:
+                drv = drive_mod.Trace.from_csv(Path(src).parent / f)
+            except (OSError, ValueError) as exc:
+                raise ScenarioError(f"{src}: [input] key `file`: {exc}") from None
+        else:
+            ts, vs = inp.get("times"), inp.get("values")
+            if not isinstance(ts, list) or not isinstance(vs, list):
+                raise ScenarioError(f"{src}: [input] a trace needs `file`, or `times` and `values` lists")
+            drv = _build(src, "input", drive_mod.Trace,
+                         {"times": [_number(src, "input", "times", x) for x in ts],
+                          "values": [_number(src, "input", "values", x) for x in vs]})
+    else:
+        _check_keys(src, "input", inp, dallowed, dallowed - {"phase"})
+        drv = _build(src, "input", dcls, {k: _number(src, "input", k, val) for k, val in inp.items()})
+
+    # run
+    run = data["run"]
+    _check_keys(src, "run", run, RUN_KEYS, {"t_end"})
+    t_end = _number(src, "run", "t_end", run["t_end"])
+    dt = _number(src, "run", "dt", run["dt"]) if "dt" in run else None
+    rec = _number(src, "run", "record_interval", run["record_interval"]) if "record_interval" in run else None
+    n_mc = run.get("montecarlo_neurons", 0)
+    if isinstance(n_mc, bool) or not isinstance(n_mc, int) or not 0 <= n_mc <= MAX_NEURONS:
+        raise _err(src, "run", "montecarlo_neurons", n_mc, f"an integer from 0 to {MAX_NEURONS}")
+    seed = run.get("seed", 0)
+    if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+        raise _err(src, "run", "seed", seed, "a non-negative integer")
+    digest = hashlib.sha256(repr(sorted(_flatten(data))).encode()).hexdigest()[:16]
+    return Scenario(source=Path(src), title=title, output=out_path, population=population, drive=drv,
+                    t_end=t_end, dt=dt, record_interval=rec, montecarlo_neurons=n_mc, seed=seed,
+                    digest=digest, raw=data)
+
+
+def _flatten(d: Any, prefix=""):
+    if isinstance(d, dict):
+        for k, v in d.items():
+            yield from _flatten(v, f"{prefix}.{k}")
+    else:
+        yield (prefix, repr(d))
+
+
+def load_scenario(path: str | Path) -> Scenario:
+    """Read and validate a scenario file.
+
+    Raises
+    ------
+    ScenarioError
+        For unreadable files, TOML syntax errors and schema violations.
+    """
+    path = Path(path)
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise ScenarioError(f"{path}: cannot read: {exc.strerror or exc}") from None
+    try:
+        data = tomllib.loads(raw.decode("utf-8"))
+    except UnicodeDecodeError:
+        raise ScenarioError(f"{path}: not UTF-8 text") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise ScenarioError(f"{path}: TOML syntax error: {exc}") from None
+    return parse_scenario(data, path)
