@@ -8,21 +8,25 @@ from __future__ import annotations
 
 from ..noise import EscapeNoise, WhiteNoise
 from ._base import SolverBase
+from .fokker_planck import FokkerPlanckSolver
 from .refractory import RefractoryDensitySolver
 
-__all__ = ["METHODS", "DEFAULT_METHOD", "SolverBase", "RefractoryDensitySolver", "resolve_method"]
+__all__ = ["METHODS", "DEFAULT_METHOD", "SolverBase", "FokkerPlanckSolver", "RefractoryDensitySolver", "resolve_method"]
 
 METHODS: dict[str, type[SolverBase]] = {
     "refractory-density": RefractoryDensitySolver,
+    "fokker-planck": FokkerPlanckSolver,
 }
 
 DEFAULT_METHOD: dict[type, str] = {
     EscapeNoise: "refractory-density",
+    WhiteNoise: "fokker-planck",
 }
 
 #: Noise model each method solves.
 NOISE_OF_METHOD: dict[str, type] = {
     "refractory-density": EscapeNoise,
+    "fokker-planck": WhiteNoise,
 }
 
 
@@ -44,5 +48,3 @@ def resolve_method(population, method) -> type[SolverBase]:
         )
     return METHODS[method]
 
-
-_ = WhiteNoise  # referenced by DEFAULT_METHOD once the diffusive solver is registered

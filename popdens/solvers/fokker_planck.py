@@ -1,0 +1,446 @@
+"""Fokker--Planck solver for populations with Gaussian white-noise input.
+
+Equation
+--------
+With ``tau_m du = (F(u) + mu) dt + sigma sqrt(tau_m) dW`` the density
+``p(u, t)`` (1/mV) obeys
+
+.. math:: \\partial_t p = -\\partial_u J,\\qquad
+          J = A(u,t)\\,p - D(t)\\,\\partial_u p + \\text{reinjection},
+
+with ``A = (F(u) + mu)/tau_m`` (mV/ms) and ``D = sigma**2/(2 tau_m)``
+(mV^2/ms), an absorbing boundary ``p = 0`` at the neuron's ``boundary``
+(threshold or spike cut-off) and a reflecting boundary ``J = 0`` at the
+lower end ``u_min``.  The outgoing flux at the boundary is the population
+rate; the same probability re-enters at ``reset`` after the absolute
+refractory period ``tau_ref``.
+
+Discretisation
+--------------
+Finite volumes on a non-uniform grid (:mod:`popdens.grids`) refined near
+the boundary and near reset, with the reset potential at a cell centre.
+Face fluxes use the exponentially fitted Scharfetter--Gummel form
+(Scharfetter & Gummel 1969; Chang & Cooper 1970; Il'in 1969)
+
+.. math:: J_{i+1/2} = \\frac{D}{d}\\,[B(-P)\\,p_i - B(P)\\,p_{i+1}],\\qquad
+          P = A\\,d/D,\\quad B(x) = x/(e^x - 1),
+
+exact for a locally constant drift, positive coefficients for any cell
+Peclet number (so backward Euler keeps the density non-negative), and
+conservative: the total mass changes only by the boundary outflow and the
+reinjection.  Time stepping is implicit: backward Euler or the
+second-order, L-stable TR-BDF2 (Bank et al. 1985; Hosea & Shampine 1996),
+one tridiagonal solve per (sub)step.  The drive and noise amplitude are
+interpolated linearly between step boundaries.
+
+Refractoriness
+--------------
+The mass leaving in a step (spikes spread uniformly over the step) is
+stored in a delay buffer and re-enters the reset cell, spread over the
+step(s) that the delayed interval overlaps.  When ``tau_ref < dt`` part of
+a step's outflow re-enters within the same step; that coupling is solved
+exactly by a rank-one (Sherman--Morrison) correction, a second back
+substitution with the same factorisation.  Density plus buffer mass is
+conserved to round-off.
+
+References
+----------
+Scharfetter, D. L. & Gummel, H. K. (1969). IEEE Trans. Electron Devices 16:64.
+Chang, J. S. & Cooper, G. (1970). J. Comput. Phys. 6:1.
+Bank, R. E. et al. (1985). IEEE Trans. Electron Devices 32:1992 (TR-BDF2).
+Brunel, N. & Hakim, V. (1999). Neural Comput. 11:1621.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+
+from .. import _validation as v
+from .._kernels import MS_TO_S, NO_REFCOUNT
+from ..grids import Grid, refined_grid
+from ._base import SolverBase
+
+__all__ = ["FokkerPlanckSolver"]
+
+SCHEME_BE, SCHEME_TRBDF2 = 0, 1
+SCHEMES = {"backward-euler": SCHEME_BE, "tr-bdf2": SCHEME_TRBDF2}
+#: TR-BDF2 stage fraction 2 - sqrt(2) (Hosea & Shampine 1996).
+GAMMA = 2.0 - math.sqrt(2.0)
+#: Default distance of the automatic lower boundary below min(reset, rest + mu0),
+#: in stationary standard deviations sigma/sqrt(2): the free-membrane Gaussian
+#: tail beyond 8 std is exp(-32) ~ 1e-14.
+LOWER_STDS = 8.0
+#: Relative tolerance (in units of dt) when splitting the refractory delay into steps.
+DELAY_TOL = 1e-9
+#: Rescaling threshold of the stationary backward recursion (avoids overflow).
+RESCALE_ABOVE = 1e200
+
+
+@numba.njit(cache=True, nogil=True, inline="always")
+def _bern(x):  # pragma: no cover - compiled
+    """Bernoulli function B(x) = x / (exp(x) - 1) for x >= 0."""
+    if x < 1e-5:
+        return 1.0 - 0.5 * x + x * x / 12.0
+    if x > 700.0:
+        return 0.0
+    return x / math.expm1(x)
+
+
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def _coefficients(ff, dist, mu, sigma, tau_m, alpha, beta):  # pragma: no cover - compiled
+    """Face coefficients: J_{i+1/2} = alpha_i p_i - beta_i p_{i+1} (mV/ms)."""
+    dd = sigma * sigma / (2.0 * tau_m)
+    for i in range(ff.shape[0]):
+        a = (ff[i] + mu) / tau_m
+        g = dd / dist[i]
+        x = a * dist[i] / dd
+        if x >= 0.0:
+            b = g * _bern(x)
+            beta[i] = b
+            alpha[i] = b + a
+        else:
+            al = g * _bern(-x)
+            alpha[i] = al
+            beta[i] = al - a
+
+
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def _solve(h, inv_delta, alpha, beta, rhs, r, phi, out, cp, z):  # pragma: no cover - compiled
+    """Solve (H/delta + K) p = rhs + e_r * phi * alpha_last * p_last into ``out``.
+
+    Thomas algorithm; with ``phi > 0`` a second right-hand side e_r and a
+    Sherman--Morrison correction (same factorisation).
+    """
+    n = h.shape[0]
+    # forward sweep: row i has lower -alpha[i-1], diag, upper -beta[i]
+    diag = h[0] * inv_delta + alpha[0]
+    up = -beta[0]
+    cp[0] = up / diag
+    out[0] = rhs[0] / diag
+    if phi > 0.0:
+        z[0] = (1.0 if r == 0 else 0.0) / diag
+    for i in range(1, n):
+        low = -alpha[i - 1]
+        diag = h[i] * inv_delta + alpha[i] + beta[i - 1] - low * cp[i - 1]
+        if i < n - 1:
+            cp[i] = -beta[i] / diag
+        out[i] = (rhs[i] - low * out[i - 1]) / diag
+        if phi > 0.0:
+            z[i] = ((1.0 if i == r else 0.0) - low * z[i - 1]) / diag
+    for i in range(n - 2, -1, -1):
+        out[i] -= cp[i] * out[i + 1]
+        if phi > 0.0:
+            z[i] -= cp[i] * z[i + 1]
+    if phi > 0.0:
+        g = phi * alpha[n - 1]
+        s = g * out[n - 1] / (1.0 - g * z[n - 1])
+        for i in range(n):
+            out[i] += s * z[i]
+
+
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def _advance(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay, frac,
+             p, buf, head, mu, sigma, out_rate, out_mean_u, out_refr,
+             a0, b0, a1, b1, rhs, pg, cp, z):  # pragma: no cover - compiled
+    """Advance ``len(mu) - 1`` steps in place; returns (head, steps_done, ok)."""
+    n = h.shape[0]
+    nb = buf.shape[0]
+    n_steps = mu.shape[0] - 1
+    phi = (1.0 - frac) if n_delay == 0 else 0.0
+    g = GAMMA
+    wa = 1.0 / (g * (2.0 - g))
+    wb = (1.0 - g) * (1.0 - g) / (g * (2.0 - g))
+    wc = (1.0 - g) / (2.0 - g)
+    _coefficients(ff, dist, mu[0], sigma[0], tau_m, a0, b0)
+    for k in range(n_steps):
+        q = buf[head] / dt  # known reinjection rate during this step (1/ms)
+        buf[head] = 0.0
+        if scheme == SCHEME_BE:
+            _coefficients(ff, dist, mu[k + 1], sigma[k + 1], tau_m, a1, b1)
+            inv = 1.0 / dt
+            for i in range(n):
+                rhs[i] = h[i] * p[i] * inv
+            rhs[r] += q
+            _solve(h, inv, a1, b1, rhs, r, phi, p, cp, z)
+            outflow = dt * a1[n - 1] * p[n - 1]
+        else:
+            mug = mu[k] + g * (mu[k + 1] - mu[k])
+            sgg = sigma[k] + g * (sigma[k + 1] - sigma[k])
+            _coefficients(ff, dist, mug, sgg, tau_m, a1, b1)
+            d1 = 0.5 * g * dt
+            inv = 1.0 / d1
+            j_n = a0[n - 1] * p[n - 1]
+            # explicit half of the trapezoid: H p / d1 - K_n p + sources at t_n
+            for i in range(n):
+                kp = a0[i] * p[i]
+                if i < n - 1:
+                    kp -= b0[i] * p[i + 1]
+                if i > 0:
+                    kp -= a0[i - 1] * p[i - 1] - b0[i - 1] * p[i]
+                rhs[i] = h[i] * p[i] * inv - kp
+            rhs[r] += 2.0 * q + phi * j_n
+            _solve(h, inv, a1, b1, rhs, r, phi, pg, cp, z)
+            j_g = a1[n - 1] * pg[n - 1]
+            _coefficients(ff, dist, mu[k + 1], sigma[k + 1], tau_m, a1, b1)
+            inv = 1.0 / (wc * dt)
+            for i in range(n):
+                rhs[i] = h[i] * (wa * pg[i] - wb * p[i]) * inv
+            rhs[r] += q
+            _solve(h, inv, a1, b1, rhs, r, phi, p, cp, z)
+            outflow = dt * ((j_n + j_g) * (0.5 / (2.0 - g)) + wc * a1[n - 1] * p[n - 1])
+        for i in range(n):
+            a0[i] = a1[i]
+            b0[i] = b1[i]
+        # schedule the reinjection of this step's outflow
+        if n_delay == 0:
+            buf[(head + 1) % nb] += frac * outflow
+        else:
+            buf[(head + n_delay) % nb] += (1.0 - frac) * outflow
+            buf[(head + n_delay + 1) % nb] += frac * outflow
+        head = (head + 1) % nb
+        refr = 0.0
+        for j in range(nb):
+            refr += buf[j]
+        su = 0.0
+        for i in range(n):
+            su += h[i] * p[i] * centres[i]
+        out_rate[k] = outflow / (dt * MS_TO_S)
+        out_mean_u[k] = su + refr * reset
+        out_refr[k] = refr
+        if not (math.isfinite(outflow) and math.isfinite(su)):
+            return head, k + 1, False
+    return head, n_steps, True
+
+
+@numba.njit(cache=True, nogil=True)
+def _stationary(alpha, beta, r, p):  # pragma: no cover - compiled
+    """Stationary density of the discrete operator, up to a factor; returns the flux.
+
+    Backward recursion from the boundary: the face flux is constant (= J)
+    above the reset cell and zero below it (Brunel & Hakim 1999 integrate
+    the continuous equation the same way).
+    """
+    n = p.shape[0]
+    jv = 1.0
+    p[n - 1] = jv / alpha[n - 1]
+    for i in range(n - 2, -1, -1):
+        f = jv if i >= r else 0.0
+        p[i] = (f + beta[i] * p[i + 1]) / alpha[i]
+        if p[i] > RESCALE_ABOVE:
+            for j in range(i, n):
+                p[j] *= 1.0 / RESCALE_ABOVE
+            jv *= 1.0 / RESCALE_ABOVE
+    return jv
+
+
+class FokkerPlanckSolver(SolverBase):
+    """Finite-volume Fokker--Planck solver for white-noise populations (see module docstring).
+
+    Parameters
+    ----------
+    population : Population
+        Neuron model with :class:`~popdens.WhiteNoise`.
+    dt : float
+        Time step (ms).
+    scheme : {"tr-bdf2", "backward-euler"}
+        Time stepping: second order (default) or first order.  Backward
+        Euler keeps the density non-negative for every ``dt``.
+    n_cells : int
+        Approximate number of potential cells (default 400).
+    refinement : float
+        Ratio of coarsest to finest cell width (default 10).
+    u_min : float, optional
+        Lower (reflecting) boundary (mV).  Default: ``LOWER_STDS`` stationary
+        standard deviations ``sigma/sqrt(2)`` below ``min(reset, rest + min(mu0, 0))``,
+        with ``sigma`` the initial noise amplitude.
+    grid : Grid, optional
+        A ready grid (overrides ``n_cells``, ``refinement``, ``u_min``); its
+        upper edge must be the neuron's boundary.
+    """
+
+    method_name = "fokker-planck"
+    axis_name = "membrane potential (mV)"
+    default_dt = 0.1
+
+    def __init__(self, population, dt: float, scheme: str = "tr-bdf2", n_cells: int = 400,
+                 refinement: float = 10.0, u_min: float | None = None, grid: Grid | None = None):
+        super().__init__(population, dt)
+        if scheme not in SCHEMES:
+            raise ValueError(f"`scheme` must be one of {sorted(SCHEMES)}, got {scheme!r}")
+        self.scheme = scheme
+        self.n_cells_option = v.positive_int("n_cells", n_cells)
+        self.refinement = float(refinement)
+        nrn = population.neuron
+        if u_min is not None:
+            u_min = v.as_finite_float("u_min", u_min)
+            v.less_than("u_min", u_min, "reset", float(nrn.reset))
+        self.u_min_option = u_min
+        if grid is not None:
+            if not isinstance(grid, Grid):
+                raise ValueError(f"`grid` must be a popdens.grids.Grid, got {grid!r}")
+            if abs(grid.upper - nrn.boundary) > 1e-12 * max(1.0, abs(nrn.boundary)):
+                raise ValueError(f"`grid` must end at the neuron's boundary {nrn.boundary!r} mV, "
+                                 f"got {grid.upper!r}")
+        self.grid = grid
+        tau_ref = float(nrn.refractory)
+        steps = tau_ref / self.dt
+        n_delay = int(math.floor(steps + DELAY_TOL))
+        frac = steps - n_delay
+        if frac < DELAY_TOL:
+            frac = 0.0
+        self.n_delay, self.frac = n_delay, frac
+        self.buf = np.zeros(n_delay + 2)
+        self.head = 0
+        self.p = None
+
+    # ----------------------------------------------------------------- grid
+    def _build(self, mu0: float, sigma0: float) -> None:
+        nrn = self.population.neuron
+        if self.grid is None:
+            lo = self.u_min_option
+            if lo is None:
+                base = min(float(nrn.reset), float(nrn.rest) + min(float(mu0), 0.0))
+                lo = base - LOWER_STDS * sigma0 / math.sqrt(2.0)
+            self.grid = refined_grid(lo, nrn.boundary, nrn.reset, self.n_cells_option, self.refinement)
+        gr = self.grid
+        c = np.array(gr.centres)
+        e = np.array(gr.edges)
+        n = c.size
+        self._h = np.array(gr.widths)
+        self._c = c
+        # distances between neighbouring centres, and centre -> boundary for the last face
+        self._dist = np.append(np.diff(c), e[-1] - c[-1])
+        faces = np.append(e[1:-1], 0.5 * (c[-1] + e[-1]))
+        self._ff = np.ascontiguousarray(nrn.drift(faces), dtype=float)
+        if not np.all(np.isfinite(self._ff)):
+            raise ValueError("the neuron's drift is not finite on the grid")
+        self._r = int(gr.reset_cell)
+        self._scratch = [np.zeros(n) for _ in range(8)]
+        self.p = np.zeros(n)
+
+    def _args(self):
+        nrn = self.population.neuron
+        return (self._ff, self._dist, self._h, self._c, float(nrn.tau_m), float(nrn.reset), self._r,
+                SCHEMES[self.scheme], self.dt, self.n_delay, self.frac)
+
+    def _schedule_fired(self, mass: float, steps_ago: int) -> None:
+        """Put into the buffer the part of ``mass``, fired (uniformly) in the step
+        ``steps_ago`` >= 1 steps before the current one, that has not re-entered yet."""
+        nb = self.buf.size
+        for j, w in ((self.n_delay - steps_ago, 1.0 - self.frac), (self.n_delay + 1 - steps_ago, self.frac)):
+            if w == 0.0:
+                continue
+            if j >= 0:  # otherwise it has re-entered already (it is part of p)
+                self.buf[(self.head + j) % nb] += mass * w
+
+    # ----------------------------------------------------------------- init
+    def initialize(self, mu0: float, sigma0: float, initial="stationary") -> None:
+        """Set the state at t = 0.
+
+        ``initial``: ``"stationary"`` (the stationary state of the discrete
+        operator at drive ``mu0`` (mV) and noise ``sigma0`` (mV)),
+        ``"synchronous"`` (every neuron fires at t = 0 and enters
+        refractoriness; without refractoriness a delta at reset) or an
+        array: a density (1/mV) on :attr:`axis` (normalised here; no
+        refractory mass).
+        """
+        if sigma0 is None or not sigma0 > 0:
+            raise ValueError(f"the noise amplitude must be > 0 mV, got {sigma0!r}")
+        if self.p is None:
+            self._build(float(mu0), float(sigma0))
+        self.buf[:] = 0.0
+        self.head = 0
+        self.p[:] = 0.0
+        if isinstance(initial, str) and initial == "stationary":
+            a, b = self._scratch[0], self._scratch[1]
+            _coefficients(self._ff, self._dist, float(mu0), float(sigma0), float(self.population.neuron.tau_m), a, b)
+            jv = _stationary(a, b, self._r, self.p)
+            tau_ref = self.population.neuron.refractory
+            total = float(np.dot(self._h, self.p)) + jv * tau_ref
+            self.p /= total
+            flux = jv / total  # 1/ms
+            for i in range(self.n_delay + 1):
+                self._schedule_fired(flux * self.dt, i + 1)
+        elif isinstance(initial, str) and initial == "synchronous":
+            # fired at t = 0 exactly: re-enter at tau_ref, i.e. spread over the step(s) around it
+            self._schedule_synchronous()
+        elif isinstance(initial, str):
+            raise ValueError(f"`initial` must be 'stationary', 'synchronous' or an array, got {initial!r}")
+        else:
+            dens = np.asarray(initial, dtype=float)
+            if dens.shape != self.p.shape:
+                raise ValueError(f"`initial` density must have shape {self.p.shape} matching `axis`, got {dens.shape}")
+            if not np.all(np.isfinite(dens)) or np.any(dens < 0) or np.dot(dens, self._h) <= 0:
+                raise ValueError("`initial` density must be finite, non-negative and not all zero")
+            self.p[:] = dens / np.dot(dens, self._h)
+
+    def _schedule_synchronous(self) -> None:
+        tau_ref = self.population.neuron.refractory
+        x = tau_ref / self.dt - 0.5  # reinjection spread over step j has mean time (j + 1/2) dt
+        if tau_ref == 0.0:
+            self.p[self._r] = 1.0 / self._h[self._r]
+            return
+        j0 = int(math.floor(x))
+        w1 = x - j0
+        for j, w in ((j0, 1.0 - w1), (j0 + 1, w1)):
+            if w <= 0.0:
+                continue
+            if j < 0:
+                self.p[self._r] += w / self._h[self._r]
+            else:
+                self.buf[(self.head + j) % self.buf.size] += w
+
+    # ----------------------------------------------------------------- step
+    def _advance_impl(self, mu, sigma):
+        if self.p is None:
+            raise RuntimeError("call initialize() first")
+        if sigma is None or sigma.shape != mu.shape:
+            raise ValueError("`sigma` (mV) must be given at the same step boundaries as `mu`")
+        if not np.all(sigma > 0):
+            return np.empty(0), np.empty(0), np.empty(0), (False, "the noise amplitude must stay > 0 mV")
+        n = mu.size - 1
+        rate = np.empty(n)
+        mean_u = np.empty(n)
+        refr = np.empty(n)
+        s = self._scratch
+        head, done, ok = _advance(*self._args(), self.p, self.buf, self.head, mu, sigma, rate, mean_u, refr,
+                                  s[0], s[1], s[2], s[3], s[4], s[5], s[6], s[7])
+        self.head = int(head)
+        msg = "" if ok else f"non-finite density at t = {self.t + done * self.dt:g} ms"
+        return rate[:done], mean_u[:done], refr[:done], (bool(ok), msg)
+
+    # ------------------------------------------------------------ observers
+    @property
+    def axis(self) -> np.ndarray:
+        """Cell centres (mV)."""
+        if self.p is None:
+            raise RuntimeError("the grid is built by initialize()")
+        return self._c
+
+    def density(self) -> np.ndarray:
+        """Density (1/mV) of the non-refractory neurons on :attr:`axis` (cell averages)."""
+        return self.p.copy()
+
+    def mass(self) -> float:
+        return float(np.dot(self._h, self.p) + self.buf.sum())
+
+    def mean_potential(self) -> float:
+        return float(np.dot(self._h * self._c, self.p) + self.buf.sum() * self.population.neuron.reset)
+
+    def refractory_fraction(self) -> float:
+        return float(self.buf.sum())
+
+    def instantaneous_rate(self, mu: float, sigma: float) -> float:
+        """Outgoing flux at the boundary (Hz) for drive ``mu`` (mV) and noise ``sigma`` (mV)."""
+        a, b = np.zeros(self.p.size), np.zeros(self.p.size)
+        _coefficients(self._ff, self._dist, float(mu), float(sigma), float(self.population.neuron.tau_m), a, b)
+        return float(a[-1] * self.p[-1] / MS_TO_S)
+
+    def diagnostics(self) -> dict:
+        if self.p is None:
+            return {}
+        return {"n_cells": int(self.p.size), "u_min_mV": self.grid.lower, "scheme": self.scheme,
+                "min_cell_mV": float(self._h.min()), "max_cell_mV": float(self._h.max())}
