@@ -16,7 +16,7 @@ from .noise import EscapeNoise, Population, WhiteNoise  # noqa: E402
 from .result import Result, load_result  # noqa: E402
 from .simulate import simulate  # noqa: E402
 
-__all__ = sorted([
+__all__ = [
     "ConvergenceError",
     "CustomNeuron",
     "EIF",
@@ -36,4 +36,4 @@ __all__ = sorted([
     "load_result",
     "montecarlo",
     "simulate",
-])
+]

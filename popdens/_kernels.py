@@ -11,7 +11,6 @@ from __future__ import annotations
 import math
 
 import numba
-import numpy as np
 
 from .expressions import evaluate_program
 from .hazard import CODE_ARRHENIUS, CODE_ERF, CODE_EXP, CODE_LINEAR, MAX_EXPONENT

@@ -18,7 +18,6 @@ cut-off (EIF, QIF), the point where the potential has diverged.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import ClassVar, Mapping
 
