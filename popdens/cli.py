@@ -57,7 +57,7 @@ def main(argv: list[str] | None = None) -> int:
         from .runner import run_scenario
 
         summary = run_scenario(sc, args.out, overwrite=args.overwrite, progress=False if args.quiet else None)
-        print(f"wrote {summary['output']}: prediction.csv, rate.png, rate.svg, summary.json"
+        print(f"wrote {summary['output']}: prediction.csv, rate.png, rate.svg, summary.json, report.html"
               + (", montecarlo.csv" if "montecarlo" in summary else ""))
         p = summary["prediction"]
         print(f"  {p['method']}: peak {p['peak_rate_hz']:.4g} Hz, final {p['final_rate_hz']:.4g} Hz "

@@ -65,6 +65,7 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
                                      "diagnostics": mc.diagnostics}
         _figures(pred, mc, tmp)
         (tmp / "summary.json").write_text(json.dumps(_jsonable(summary), indent=2, sort_keys=True) + "\n")
+        (tmp / "report.html").write_text(_html_report(scenario, summary, tmp), encoding="utf-8")
         if dest.exists():
             shutil.rmtree(dest)
         tmp.rename(dest)
@@ -88,3 +89,50 @@ def _figures(pred, mc, folder: Path) -> None:
     for ext in ("png", "svg"):
         fig.savefig(folder / f"rate.{ext}", dpi=150)
     plt.close(fig)
+
+
+def _html_report(scenario: Scenario, summary: dict, folder: Path) -> str:
+    """A self-contained HTML page: figure embedded, parameters, settings, diagnostics, caution."""
+    import base64
+    import html
+
+    png = base64.b64encode((folder / "rate.png").read_bytes()).decode("ascii")
+    pop = scenario.population
+
+    def table(rows):
+        body = "".join(f"<tr><th>{html.escape(str(k))}</th><td>{html.escape(str(v))}</td></tr>" for k, v in rows)
+        return f"<table>{body}</table>"
+
+    neuron_rows = [("model", type(pop.neuron).__name__), *pop.neuron.parameters().items()]
+    noise = pop.noise
+    noise_rows = [("noise", type(noise).__name__)]
+    if hasattr(noise, "hazard"):
+        noise_rows += [("escape function", type(noise.hazard).__name__), *noise.hazard.parameters().items()]
+    else:
+        noise_rows += [("sigma (mV)", noise.sigma)]
+    run_rows = [("t_end (ms)", scenario.t_end), ("dt (ms)", summary["prediction"]["diagnostics"]["dt_ms"]),
+                ("record interval (ms)", scenario.record_interval or "every step"),
+                ("Monte Carlo neurons", scenario.montecarlo_neurons), ("seed", scenario.seed)]
+    diag_rows = [(f"prediction: {k}", v) for k, v in summary["prediction"]["diagnostics"].items()]
+    if "montecarlo" in summary:
+        diag_rows += [("Monte Carlo: bins within 4 SE", f"{100 * summary['montecarlo']['fraction_within_4_se']:.1f}%")]
+        diag_rows += [(f"Monte Carlo: {k}", v) for k, v in summary["montecarlo"]["diagnostics"].items()]
+    title = html.escape(scenario.title)
+    return f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8"><title>{title}</title>
+<style>body{{font-family:sans-serif;max-width:60em;margin:2em auto;color:#222}}
+table{{border-collapse:collapse;margin:0.5em 0 1.5em}}th,td{{border:1px solid #ccc;padding:0.2em 0.6em;text-align:left}}
+.caution{{background:#fff4e0;border-left:4px solid #e0a000;padding:0.6em}}</style></head>
+<body><h1>{title}</h1>
+<p>Scenario <code>{html.escape(str(scenario.source.name))}</code> (hash {scenario.digest}), popdens {__version__}.</p>
+<p class="caution">These are predictions of a model of neurons, from a research tool. They are not a basis for
+clinical or safety decisions.</p>
+<h2>Population rate</h2>
+<img alt="population rate over time, with the drive beneath" src="data:image/png;base64,{png}" style="max-width:100%">
+<p>Units: time ms, rate Hz, potentials and drive mV. Tables: <code>prediction.csv</code>{", <code>montecarlo.csv</code>" if "montecarlo" in summary else ""}.</p>
+<h2>Neuron</h2>{table(neuron_rows)}
+<h2>Noise</h2>{table(noise_rows)}
+<h2>Numerical settings</h2>{table(run_rows)}
+<h2>Diagnostics</h2>{table(diag_rows)}
+</body></html>
+"""

@@ -51,8 +51,25 @@ def test_run_writes_outputs_and_refuses_to_overwrite(tmp_path, capsys):
     p = write(tmp_path, BASE.replace("[run]", "[run]\nmontecarlo_neurons = 2000\nseed = 1"))
     assert main(["run", str(p), "--quiet"]) == 0
     out = tmp_path / "out"
-    for f in ("prediction.csv", "montecarlo.csv", "rate.png", "rate.svg", "summary.json"):
+    for f in ("prediction.csv", "montecarlo.csv", "rate.png", "rate.svg", "summary.json", "report.html"):
         assert (out / f).stat().st_size > 0, f
+    # the report parses as HTML and embeds its figure as a PNG
+    from html.parser import HTMLParser
+
+    class Images(HTMLParser):
+        srcs: list = []
+
+        def handle_starttag(self, tag, attrs):
+            if tag == "img":
+                self.srcs.append(dict(attrs)["src"])
+
+    parser = Images()
+    parser.feed((out / "report.html").read_text())
+    assert len(parser.srcs) == 1 and parser.srcs[0].startswith("data:image/png;base64,")
+    import base64
+
+    assert base64.b64decode(parser.srcs[0].split(",", 1)[1])[:8] == b"\x89PNG\r\n\x1a\n"
+    assert "not a basis for\nclinical or safety decisions" in (out / "report.html").read_text()
     summary = json.loads((out / "summary.json").read_text())
     assert summary["prediction"]["status"] == 0 and summary["montecarlo"]["n_neurons"] == 2000
     head = (out / "prediction.csv").read_text().splitlines()[0]
