@@ -141,15 +141,15 @@ def test_pif_rate_from_synchronous_start_is_inverse_gaussian_renewal_density():
     err = np.abs(res.rate[1:] - ref)
     print(f"PIF first passage: max error {err.max():.3g} Hz of peak {ref.max():.3g} Hz")
     assert err.max() <= 1e-3 * ref.max()
-    # before second passages matter (P(second spike < 12 ms) < 1e-6) the rate is the
+    # before second passages matter (P(second spike < 8 ms) < 1e-6) the rate is the
     # first-passage density alone: inverse Gaussian (Gerstein & Mandelbrot 1964)
     c = PIF_CASE
     a, v, s2 = c["threshold"] - c["reset"], c["mu"] / c["tau_m"], c["sigma"] ** 2 / c["tau_m"]
     lam = a * a / s2
-    second = stats.invgauss((2 * a / v) / (4 * lam), scale=4 * lam).cdf(12.0)
+    second = stats.invgauss((2 * a / v) / (4 * lam), scale=4 * lam).cdf(8.0)
     assert second < 1e-6
     first = np.diff(stats.invgauss((a / v) / lam, scale=lam).cdf(res.t)) / np.diff(res.t) * 1000.0
-    early = res.t[1:] <= 12.0
+    early = res.t[1:] <= 8.0
     assert np.all(np.abs(res.rate[1:][early] - first[early]) <= 1e-3 * ref.max())
 
 
