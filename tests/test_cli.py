@@ -144,3 +144,22 @@ def test_shipped_scenarios_run(tmp_path, path):
     # reduced settings: fewer Monte Carlo neurons
     local.write_text(text.replace("montecarlo_neurons = 100000", "montecarlo_neurons = 5000"))
     assert main(["run", str(local), "--quiet"]) == 0
+
+
+def test_step_command_matches_api(tmp_path, capsys):
+    import numpy as np
+
+    import popdens
+
+    out = tmp_path / "step.csv"
+    argv = ["step", "--neuron", "model=LIF", "tau_m=10", "threshold=20", "reset=0", "refractory=2",
+            "--noise", "kind=escape", "shape=exponential", "rate=20", "width=2",
+            "--before", "15", "--after", "20", "--at", "20", "--t-end", "60", "--csv", str(out)]
+    assert main(argv) == 0
+    data = np.loadtxt(out, delimiter=",", skiprows=2)
+    pop = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 2.0),
+                             popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0)))
+    ref = popdens.simulate(pop, popdens.drive.Step(20.0, 15.0, 20.0), 60.0, record_interval=1.0)
+    np.testing.assert_allclose(data[:, 1], ref.rate, rtol=1e-10)
+    assert main(argv[:-2] + ["--neuron", "model=LIF", "tau_m=-1", "threshold=20", "reset=0", "refractory=2"]) == 2
+    assert "`tau_m`" in capsys.readouterr().err
