@@ -113,6 +113,23 @@ def _build(src, table, cls, params: dict):
         raise ScenarioError(f"{src}: [{table}] {exc}") from None
 
 
+def _model_params(src, table, items: dict, text_key: str) -> dict:
+    """Numbers, one expression string (``text_key``) and a ``parameters`` table of named numbers."""
+    params = {}
+    for k, val in items.items():
+        if k == text_key:
+            if not isinstance(val, str):
+                raise _err(src, table, k, val, "an expression string")
+            params[k] = val
+        elif k == "parameters":
+            if not isinstance(val, dict):
+                raise _err(src, table, k, val, "a table of named numbers")
+            params[k] = {str(pk): _number(src, f"{table}.parameters", pk, pv) for pk, pv in val.items()}
+        else:
+            params[k] = _number(src, table, k, val)
+    return params
+
+
 def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     """Validate a scenario given as a dict (as read from TOML)."""
     src = str(source)
@@ -138,19 +155,7 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
         raise _err(src, "neuron", "model", model, f"one of {sorted(NEURON_MODELS)}")
     cls, allowed, optional = NEURON_MODELS[model]
     _check_keys(src, "neuron", nd, allowed, allowed - optional)
-    params = {}
-    for k, val in nd.items():
-        if k == "drift":
-            if not isinstance(val, str):
-                raise _err(src, "neuron", k, val, "an expression string")
-            params[k] = val
-        elif k == "parameters":
-            if not isinstance(val, dict):
-                raise _err(src, "neuron", k, val, "a table of named numbers")
-            params[k] = {str(pk): _number(src, "neuron.parameters", pk, pv) for pk, pv in val.items()}
-        else:
-            params[k] = _number(src, "neuron", k, val)
-    neuron = _build(src, "neuron", cls, params)
+    neuron = _build(src, "neuron", cls, _model_params(src, "neuron", nd, text_key="drift"))
 
     # noise
     no = data["noise"]
@@ -168,18 +173,7 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
         hcls, hallowed = HAZARDS[shape]
         required = hallowed - {"parameters"}
         _check_keys(src, "noise.hazard", hz, hallowed, required)
-        hp = {}
-        for k, val in hz.items():
-            if k == "expression":
-                if not isinstance(val, str):
-                    raise _err(src, "noise.hazard", k, val, "an expression string")
-                hp[k] = val
-            elif k == "parameters":
-                if not isinstance(val, dict):
-                    raise _err(src, "noise.hazard", k, val, "a table of named numbers")
-                hp[k] = {str(pk): _number(src, "noise.hazard.parameters", pk, pv) for pk, pv in val.items()}
-            else:
-                hp[k] = _number(src, "noise.hazard", k, val)
+        hp = _model_params(src, "noise.hazard", hz, text_key="expression")
         noise = EscapeNoise(_build(src, "noise.hazard", hcls, hp))
     elif kind == "white":
         _check_keys(src, "noise", no, {"kind", "sigma"}, {"kind", "sigma"})
