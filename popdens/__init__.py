@@ -15,6 +15,7 @@ from .montecarlo import montecarlo  # noqa: E402
 from .noise import EscapeNoise, Population, WhiteNoise  # noqa: E402
 from .result import Result, load_result  # noqa: E402
 from .simulate import simulate  # noqa: E402
+from .linear_response import transfer  # noqa: E402
 
 __all__ = [
     "ConvergenceError",
@@ -36,4 +37,5 @@ __all__ = [
     "load_result",
     "montecarlo",
     "simulate",
+    "transfer",
 ]
