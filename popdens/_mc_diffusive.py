@@ -38,6 +38,9 @@ __all__ = ["DiffusiveEnsemble"]
 
 #: Tolerance (in units of dt) for the end of the refractory period.
 REF_TOL = 1e-9
+#: Bridge exponents above this are not sampled: the crossing probability
+#: exp(-40) ~ 4e-18 is far below anything a finite ensemble can resolve.
+BRIDGE_SKIP = 40.0
 
 
 @numba.njit(cache=True, nogil=True, inline="always")
@@ -96,8 +99,9 @@ def run_diffusive(ncode, npar, nops, nargs, tau_m, reset, boundary, tau_ref, dt,
             u1 = _move(ncode, npar, nops, nargs, tau_m, u0, h, ms, mu1, sigma, stack, xbuf)
             fired = u1 >= boundary
             if not fired and bridge:
-                pc = math.exp(-2.0 * (boundary - u0) * (boundary - u1) / (s2 * h))
-                fired = np.random.random() < pc
+                x = 2.0 * (boundary - u0) * (boundary - u1) / (s2 * h)
+                if x < BRIDGE_SKIP:
+                    fired = np.random.random() < math.exp(-x)
             if fired:
                 count += 1
                 if record:
