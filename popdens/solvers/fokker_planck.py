@@ -255,7 +255,10 @@ class FokkerPlanckSolver(SolverBase):
     u_min : float, optional
         Lower (reflecting) boundary (mV).  Default: ``LOWER_STDS`` stationary
         standard deviations ``sigma/sqrt(2)`` below ``min(reset, rest + min(mu0, 0))``,
-        with ``sigma`` the initial noise amplitude.
+        with ``sigma`` the initial noise amplitude.  For drives that later fall
+        well below ``mu0`` or noise that grows well above its initial value,
+        set ``u_min`` (diagnostic ``mass_lowest_cell`` shows whether the
+        reflecting boundary is felt).
     grid : Grid, optional
         A ready grid (overrides ``n_cells``, ``refinement``, ``u_min``); its
         upper edge must be the neuron's boundary.
@@ -443,4 +446,5 @@ class FokkerPlanckSolver(SolverBase):
         if self.p is None:
             return {}
         return {"n_cells": int(self.p.size), "u_min_mV": self.grid.lower, "scheme": self.scheme,
-                "min_cell_mV": float(self._h.min()), "max_cell_mV": float(self._h.max())}
+                "min_cell_mV": float(self._h.min()), "max_cell_mV": float(self._h.max()),
+                "mass_lowest_cell": float(self._h[0] * self.p[0])}
