@@ -243,7 +243,7 @@ def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
                     sympy.GreaterThan: OP_GE,
                 }[type(rel)]
             )
-            walk(sympy.sympify(val))  # val is a sympy Integer already, not text
+            emit(OP_CONST, float(val))  # val is the number 1 from the comparison's Piecewise
             emit(OP_MUL)
             if other != 0:
                 raise ExpressionError("unsupported piecewise form")

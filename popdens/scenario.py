@@ -113,6 +113,17 @@ def _build(src, table, cls, params: dict):
         raise ScenarioError(f"{src}: [{table}] {exc}") from None
 
 
+def _select(src, table, value, selector: str, registry: dict):
+    """Copy of a table without its selector key, the selected name and its registry entry."""
+    if not isinstance(value, dict):
+        raise _err(src, table, None, value, "a table")
+    items = dict(value)
+    name = items.pop(selector, None)
+    if name not in registry:
+        raise _err(src, table, selector, name, f"one of {sorted(registry)}")
+    return items, name, registry[name]
+
+
 def _model_params(src, table, items: dict, text_key: str) -> dict:
     """Numbers, one expression string (``text_key``) and a ``parameters`` table of named numbers."""
     params = {}
@@ -147,13 +158,7 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
         raise _err(src, "scenario", "output", out, "a relative folder inside the scenario's folder")
 
     # neuron
-    nd = dict(data["neuron"]) if isinstance(data["neuron"], dict) else data["neuron"]
-    if not isinstance(nd, dict):
-        raise _err(src, "neuron", None, nd, "a table")
-    model = nd.pop("model", None)
-    if model not in NEURON_MODELS:
-        raise _err(src, "neuron", "model", model, f"one of {sorted(NEURON_MODELS)}")
-    cls, allowed, optional = NEURON_MODELS[model]
+    nd, _, (cls, allowed, optional) = _select(src, "neuron", data["neuron"], "model", NEURON_MODELS)
     _check_keys(src, "neuron", nd, allowed, allowed - optional)
     neuron = _build(src, "neuron", cls, _model_params(src, "neuron", nd, text_key="drift"))
 
@@ -164,13 +169,7 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     kind = no.get("kind")
     if kind == "escape":
         _check_keys(src, "noise", no, {"kind", "hazard"}, {"kind", "hazard"})
-        hz = dict(no["hazard"]) if isinstance(no["hazard"], dict) else no["hazard"]
-        if not isinstance(hz, dict):
-            raise _err(src, "noise.hazard", None, hz, "a table")
-        shape = hz.pop("shape", None)
-        if shape not in HAZARDS:
-            raise _err(src, "noise.hazard", "shape", shape, f"one of {sorted(HAZARDS)}")
-        hcls, hallowed = HAZARDS[shape]
+        hz, _, (hcls, hallowed) = _select(src, "noise.hazard", no["hazard"], "shape", HAZARDS)
         required = hallowed - {"parameters"}
         _check_keys(src, "noise.hazard", hz, hallowed, required)
         hp = _model_params(src, "noise.hazard", hz, text_key="expression")
@@ -183,13 +182,7 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     population = Population(neuron, noise)
 
     # input
-    inp = dict(data["input"]) if isinstance(data["input"], dict) else data["input"]
-    if not isinstance(inp, dict):
-        raise _err(src, "input", None, inp, "a table")
-    shape = inp.pop("shape", None)
-    if shape not in INPUTS:
-        raise _err(src, "input", "shape", shape, f"one of {sorted(INPUTS)}")
-    dcls, dallowed = INPUTS[shape]
+    inp, shape, (dcls, dallowed) = _select(src, "input", data["input"], "shape", INPUTS)
     if shape == "trace":
         _check_keys(src, "input", inp, dallowed)
         if "file" in inp:

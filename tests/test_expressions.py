@@ -20,6 +20,8 @@ from popdens.expressions import evaluate_program, parse_expression
     ],
 )
 def test_numpy_and_compiled_evaluation_agree_with_python(text, expected):
+    # reference: the same formula written directly with numpy / Python math, and the identities
+    # erf + erfc = 1 and cos^2 + sin^2 = 1 (common practice)
     f = parse_expression(text, ["u"], {"rest": -65.0, "vt": -50.0})
     stack = np.empty(f.program[0].size + 1)
     for u in (-70.0, -3.0, 0.5, 2.0, 7.0):
@@ -64,7 +66,7 @@ def test_derivative():
     f = parse_expression("a*u**3 + exp(u)", ["u"], {"a": 2.0})
     d = f.derivative("u")
     u = np.array([0.0, 1.0, 2.0])
-    np.testing.assert_allclose(d(u), 6 * u**2 + np.exp(u))
+    np.testing.assert_allclose(d(u), 6 * u**2 + np.exp(u))  # d/du (a u^3 + e^u), by hand (common practice)
 
 
 def test_bad_parameters():

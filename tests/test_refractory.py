@@ -107,16 +107,18 @@ def test_mean_waiting_time_shrinks_toward_zero_above_threshold():
     assert means[-1] < 0.01 * means[0]
 
 
+def observed_orders(d, dts, dt_ref):
+    """Orders log2(e(dt)/e(dt/2)) of the RMS rate error against a fine-dt reference run."""
+    pop = lif_pop()
+    ref = popdens.simulate(pop, d, t_end=50.0, dt=dt_ref, record_interval=0.5)
+    errs = [np.sqrt(np.mean((popdens.simulate(pop, d, t_end=50.0, dt=dt, record_interval=0.5).rate[1:]
+                             - ref.rate[1:]) ** 2)) for dt in dts]
+    return errs, np.log2(np.array(errs[:-1]) / np.array(errs[1:]))
+
+
 def test_convergence_order_in_dt_smooth_drive(capsys):
     """Halving dt against a fine reference: observed order ~2 for a smooth drive."""
-    pop = lif_pop()
-    d = drive.Sine(mean=18.0, amplitude=4.0, frequency=40.0)
-    ref = popdens.simulate(pop, d, t_end=50.0, dt=0.003125, record_interval=0.5)
-    errs = []
-    for dt in (0.1, 0.05, 0.025):
-        r = popdens.simulate(pop, d, t_end=50.0, dt=dt, record_interval=0.5)
-        errs.append(np.sqrt(np.mean((r.rate[1:] - ref.rate[1:]) ** 2)))
-    orders = np.log2(np.array(errs[:-1]) / np.array(errs[1:]))
+    errs, orders = observed_orders(drive.Sine(mean=18.0, amplitude=4.0, frequency=40.0), (0.1, 0.05, 0.025), 0.003125)
     with capsys.disabled():
         print(f"\nrefractory-density: RMS errors {errs}, observed orders {orders}")
     assert np.all(orders > 1.8)
@@ -124,14 +126,7 @@ def test_convergence_order_in_dt_smooth_drive(capsys):
 
 def test_convergence_order_with_step_drive_is_at_least_one():
     """A discontinuous drive is represented linearly within one step: first order."""
-    pop = lif_pop()
-    d = drive.Step(t=10.0, before=15.0, after=20.0)
-    ref = popdens.simulate(pop, d, t_end=50.0, dt=0.00625, record_interval=0.5)
-    errs = []
-    for dt in (0.25, 0.125, 0.0625):
-        r = popdens.simulate(pop, d, t_end=50.0, dt=dt, record_interval=0.5)
-        errs.append(np.sqrt(np.mean((r.rate[1:] - ref.rate[1:]) ** 2)))
-    orders = np.log2(np.array(errs[:-1]) / np.array(errs[1:]))
+    _, orders = observed_orders(drive.Step(t=10.0, before=15.0, after=20.0), (0.25, 0.125, 0.0625), 0.00625)
     assert np.all(orders > 0.9)
 
 
