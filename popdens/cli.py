@@ -1,4 +1,5 @@
-"""Command line: ``popdens run``, ``popdens check``, ``popdens catalogue``.
+"""Command line: ``popdens run``, ``check``, ``catalogue``, and the one-off analyses
+``step``, ``gain``, ``stationary`` and ``transfer``.
 
 Exit codes: 0 success, 2 bad input (no traceback), 1 internal failure.
 """
@@ -31,10 +32,7 @@ def _parser() -> argparse.ArgumentParser:
                         description="Example: popdens step --neuron model=LIF tau_m=10 threshold=20 reset=0 "
                                     "refractory=2 --noise kind=escape shape=exponential rate=20 width=2 "
                                     "--before 15 --after 20 --at 50 --t-end 200")
-    st.add_argument("--neuron", nargs="+", required=True, metavar="KEY=VALUE",
-                    help="neuron table entries, as in a scenario's [neuron]")
-    st.add_argument("--noise", nargs="+", required=True, metavar="KEY=VALUE",
-                    help="kind=escape with the [noise.hazard] entries (shape=..., ...), or kind=white sigma=...")
+    _population_flags(st)
     st.add_argument("--before", type=float, required=True, help="drive before the step (mV)")
     st.add_argument("--after", type=float, required=True, help="drive after the step (mV)")
     st.add_argument("--at", type=float, required=True, help="time of the step (ms)")
@@ -42,7 +40,170 @@ def _parser() -> argparse.ArgumentParser:
     st.add_argument("--dt", type=float, default=None, help="time step (ms)")
     st.add_argument("--every", type=float, default=1.0, help="output interval (ms), default 1")
     st.add_argument("--csv", help="write the result to this CSV file instead of printing it")
+
+    g = sub.add_parser("gain", help="one-off gain curve (stationary rate against mean drive)",
+                       description="Example: popdens gain --neuron model=LIF tau_m=20 threshold=20 reset=10 "
+                                   "refractory=2 --noise kind=white sigma=4 --mu 5:30:26 --sigma 2 4 6")
+    _population_flags(g)
+    g.add_argument("--mu", required=True, metavar="START:STOP:POINTS",
+                   help="mean drives (mV): a range START:STOP:POINTS (linear) or a comma list")
+    g.add_argument("--sigma", nargs="+", type=float, metavar="MV",
+                   help="white noise only: one curve per noise level (mV)")
+    _output_flags(g, "gain curve")
+
+    sa = sub.add_parser("stationary", help="one-off stationary statistics: rate, ISI CV, mean potential",
+                        description="Example: popdens stationary --neuron model=LIF tau_m=10 threshold=20 "
+                                    "reset=0 refractory=2 --noise kind=escape shape=exponential rate=20 "
+                                    "width=2 --mu 15,18,21")
+    _population_flags(sa)
+    sa.add_argument("--mu", required=True, metavar="LIST", help="mean drive(s) (mV): a number or a comma list")
+    _output_flags(sa, "ISI densities")
+
+    tr = sub.add_parser("transfer", help="one-off transfer function (rate response per unit input modulation)",
+                        description="Example: popdens transfer --neuron model=LIF tau_m=20 threshold=20 "
+                                    "reset=10 refractory=2 --noise kind=white sigma=4 --mu 18 "
+                                    "--freq 1:1000:40")
+    _population_flags(tr)
+    tr.add_argument("--mu", required=True, type=float, help="stationary mean drive (mV)")
+    tr.add_argument("--freq", required=True, metavar="START:STOP:POINTS",
+                    help="frequencies (Hz): a log-spaced range START:STOP:POINTS or a comma list")
+    tr.add_argument("--modulate", choices=("mean", "noise"), default="mean",
+                    help="modulated input: the mean drive (default) or the noise intensity (white noise)")
+    _output_flags(tr, "transfer function")
     return p
+
+
+def _population_flags(p) -> None:
+    p.add_argument("--neuron", nargs="+", required=True, metavar="KEY=VALUE",
+                   help="neuron table entries, as in a scenario's [neuron] (see `popdens catalogue`)")
+    p.add_argument("--noise", nargs="+", required=True, metavar="KEY=VALUE",
+                   help="kind=escape with the [noise.hazard] entries (shape=..., ...), or kind=white sigma=...")
+
+
+def _output_flags(p, what: str) -> None:
+    p.add_argument("--csv", help="write the table to this CSV file instead of printing it")
+    p.add_argument("--plot", metavar="FILE", help=f"save a figure of the {what} (.png, .svg or .pdf)")
+
+
+def _values(text: str, flag: str, spacing: str) -> "np.ndarray":
+    """``START:STOP:POINTS`` (linear or log spacing) or a comma list → array."""
+    import numpy as np
+
+    from .analyses import MAX_POINTS
+
+    try:
+        if ":" in text:
+            lo, hi, n = text.split(":")
+            lo, hi, n = float(lo), float(hi), int(n)
+            if not 1 <= n <= MAX_POINTS:
+                raise ValueError
+            if spacing == "log":
+                if lo <= 0 or hi <= 0:
+                    raise ValueError
+                return np.geomspace(lo, hi, n)
+            return np.linspace(lo, hi, n)
+        out = np.array([float(x) for x in text.split(",")])
+    except ValueError:
+        kind = "log-spaced, positive bounds" if spacing == "log" else "linear"
+        raise ScenarioError(f"{flag} {text!r}: expected START:STOP:POINTS ({kind}, 1 to {MAX_POINTS} points) "
+                            "or a comma-separated list of numbers") from None
+    if not np.all(np.isfinite(out)):
+        raise ScenarioError(f"{flag} {text!r}: values must be finite")
+    return out
+
+
+def _flag_population(args):
+    """The validated population described by ``--neuron`` and ``--noise``."""
+    from .scenario import parse_scenario
+
+    neuron = _key_values(args.neuron, "--neuron")
+    noise = _key_values(args.noise, "--noise")
+    if noise.get("kind") == "escape":
+        noise = {"kind": "escape", "hazard": {k: v for k, v in noise.items() if k != "kind"}}
+    # validated through the scenario schema, so flags and files accept the same entries
+    sc = parse_scenario({"neuron": neuron, "noise": noise, "stationary": {"mu": 0.0}}, "command line")
+    return sc.population
+
+
+def _emit(args, columns: dict, header: dict, fig=None) -> None:
+    import matplotlib.pyplot as plt
+
+    from .analyses import describe_population, write_table
+
+    if args.csv:
+        write_table(args.csv, columns, {**header, "population": describe_population(args.population),
+                                        "popdens_version": __version__})
+        print(f"wrote {args.csv}")
+    else:
+        print("# " + " ".join(columns))
+        for row in zip(*columns.values()):
+            print(" ".join(f"{x:.6g}" for x in row))
+    if fig is not None:
+        if args.plot:
+            fig.savefig(args.plot, dpi=150)
+            print(f"wrote {args.plot}")
+        plt.close(fig)
+
+
+def _analysis_command(args) -> int:
+    import numpy as np
+
+    from .analyses import GainCurve, StationaryStats, TransferCurve
+
+    args.population = pop = _flag_population(args)
+    white = hasattr(pop.noise, "sigma")
+    try:
+        if args.command == "gain":
+            if args.sigma and not white:
+                raise ScenarioError("--sigma applies to white noise only (--noise kind=white)")
+            if args.sigma and min(args.sigma) <= 0:
+                raise ScenarioError(f"--sigma {args.sigma}: noise levels must be positive (mV)")
+            curve = GainCurve(_values(args.mu, "--mu", "linear"), tuple(args.sigma) if args.sigma else (None,))
+            rates = curve.compute(pop)
+            cols = {"mu_mV": curve.mu}
+            for s, row in zip(curve.sigmas, rates):
+                cols["rate_Hz" if s is None else f"rate_Hz_sigma_{s:g}mV"] = row
+            fig = None
+            if args.plot:
+                from .plotting import plot_gain
+
+                labels = None if curve.sigmas == (None,) else [f"sigma = {s:g} mV" for s in curve.sigmas]
+                fig = plot_gain(curve.mu, rates, labels=labels).figure
+            _emit(args, cols, {"units": "mu mV, rate Hz"}, fig)
+        elif args.command == "stationary":
+            st = StationaryStats(_values(args.mu, "--mu", "linear"))
+            states = st.compute(pop)
+            cols = {"mu_mV": st.mu, "rate_Hz": np.array([s.rate for s in states]),
+                    "cv": np.array([s.cv for s in states]), "mean_u_mV": np.array([s.mean_u for s in states])}
+            fig = None
+            if args.plot:
+                from .plotting import _axes, plot_isi
+
+                ax = _axes(None)
+                for m, s in zip(st.mu, states):
+                    plot_isi(s.isi_t, s.isi_density, ax=ax, label=f"mu = {m:g} mV")
+                ax.legend(frameon=False)
+                fig = ax.figure
+            _emit(args, cols, {"units": "mu mV, rate Hz, cv 1, mean_u mV"}, fig)
+        else:
+            if args.modulate == "noise" and not white:
+                raise ScenarioError("--modulate noise needs white noise (--noise kind=white)")
+            tc = TransferCurve(args.mu, _values(args.freq, "--freq", "log"), args.modulate)
+            if np.any(tc.freqs < 0):
+                raise ScenarioError(f"--freq {args.freq!r}: frequencies must be >= 0 (Hz)")
+            chi = tc.compute(pop)
+            cols = {"frequency_Hz": tc.freqs, "abs": np.abs(chi), "phase_rad": np.angle(chi),
+                    "real": chi.real, "imag": chi.imag}
+            fig = None
+            if args.plot:
+                from .plotting import plot_transfer
+
+                fig = plot_transfer(tc.freqs, chi, unit=tc.unit)
+            _emit(args, cols, {"units": f"frequency Hz, transfer {tc.unit} ({tc.modulate} modulation)",
+                               "stationary_drive_mV": args.mu}, fig)
+    except ValueError as exc:  # out-of-domain values found by the numerical modules
+        raise ScenarioError(f"command line: {exc}") from None
+    return 0
 
 
 def _key_values(items, flag):
@@ -109,19 +270,31 @@ def main(argv: list[str] | None = None) -> int:
             return 0
         if args.command == "step":
             return _step_command(args)
+        if args.command in ("gain", "stationary", "transfer"):
+            return _analysis_command(args)
         sc = load_scenario(args.scenario)
         if args.command == "check":
+            parts = [f"{sc.t_end:g} ms run"] if sc.runs_in_time else []
+            parts += [f"[{name}]" for name, _ in sc.analyses]
             print(f"{args.scenario}: OK ({sc.title}; {type(sc.population.neuron).__name__}, "
-                  f"{type(sc.population.noise).__name__}, {sc.t_end:g} ms)")
+                  f"{type(sc.population.noise).__name__}; {', '.join(parts)})")
             return 0
         from .runner import run_scenario
 
         summary = run_scenario(sc, args.out, overwrite=args.overwrite, progress=False if args.quiet else None)
-        print(f"wrote {summary['output']}: prediction.csv, rate.png, rate.svg, summary.json, report.html"
-              + (", montecarlo.csv" if "montecarlo" in summary else ""))
-        p = summary["prediction"]
-        print(f"  {p['method']}: peak {p['peak_rate_hz']:.4g} Hz, final {p['final_rate_hz']:.4g} Hz "
-              f"({p['diagnostics']['wall_time_s']:.3g} s)")
+        print(f"wrote {summary['output']}: {', '.join(summary['files'])}")
+        if "prediction" in summary:
+            p = summary["prediction"]
+            print(f"  {p['method']}: peak {p['peak_rate_hz']:.4g} Hz, final {p['final_rate_hz']:.4g} Hz "
+                  f"({p['diagnostics']['wall_time_s']:.3g} s)")
+        if "gain" in summary:
+            g = summary["gain"]
+            print(f"  gain: {g['points']} drives, rates {g['min_rate_hz']:.4g} to {g['max_rate_hz']:.4g} Hz")
+        for st in summary.get("stationary", {}).get("states", []):
+            print(f"  stationary at mu = {st['mu_mV']:g} mV: {st['rate_hz']:.6g} Hz, ISI CV {st['cv']:.4g}")
+        if "transfer" in summary:
+            print(f"  transfer: {summary['transfer']['frequencies']} frequencies ({summary['transfer']['modulate']} "
+                  "modulation)")
         if "montecarlo" in summary:
             m = summary["montecarlo"]
             print(f"  Monte Carlo N={m['n_neurons']}: {100 * m['fraction_within_4_se']:.1f}% of bins within "

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_rate", "plot_comparison"]
+__all__ = ["plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate", "plot_transfer"]
 
 
 def _axes(ax):
@@ -45,3 +45,109 @@ def plot_comparison(prediction, montecarlo, n_se: float = 2.0):
     axd.set_xlabel("time (ms)")
     ax.set_xlim(float(np.min(t)), float(np.max(t)))
     return fig
+
+
+def plot_gain(mu, rates, labels=None, ax=None, title=None):
+    """A family of gain curves: stationary rate (Hz) against mean drive (mV).
+
+    Parameters
+    ----------
+    mu : array_like, shape (n,)
+        Mean drives (mV).
+    rates : array_like, shape (n,) or (n_curves, n)
+        Stationary rates (Hz), one row per curve.
+    labels : sequence of str, optional
+        One legend entry per curve.
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+    """
+    ax = _axes(ax)
+    mu = np.asarray(mu, dtype=float)
+    rates = np.atleast_2d(np.asarray(rates, dtype=float))
+    for i, row in enumerate(rates):
+        ax.plot(mu, row, lw=1.6, label=None if labels is None else labels[i])
+    ax.set_xlabel("mean drive mu (mV)")
+    ax.set_ylabel("stationary rate (Hz)")
+    if labels is not None:
+        ax.legend(frameon=False, loc="upper left")
+    if title:
+        ax.set_title(title)
+    return ax
+
+
+def plot_transfer(freqs, chi, labels=None, unit="Hz/mV"):
+    """Transfer-function magnitude and phase against frequency, on log axes.
+
+    Parameters
+    ----------
+    freqs : array_like, shape (n,)
+        Frequencies (Hz), > 0 for the log axis (zero is dropped).
+    chi : array_like of complex, shape (n,) or (n_curves, n)
+        Transfer function values (``unit``).
+    labels : sequence of str, optional
+    unit : str
+        Unit of the magnitude axis.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        With two Axes: magnitude (top) and phase in degrees (bottom).
+    """
+    import matplotlib.pyplot as plt
+
+    f = np.asarray(freqs, dtype=float)
+    chi = np.atleast_2d(np.asarray(chi, dtype=complex))
+    keep = f > 0
+    fig, (axm, axp) = plt.subplots(2, 1, figsize=(6.5, 5.0), sharex=True, constrained_layout=True)
+    for i, row in enumerate(chi):
+        lab = None if labels is None else labels[i]
+        axm.loglog(f[keep], np.abs(row[keep]), lw=1.6, label=lab)
+        axp.semilogx(f[keep], np.degrees(np.unwrap(np.angle(row[keep]))), lw=1.6, label=lab)
+    axm.set_ylabel(f"|transfer| ({unit})")
+    axp.set_ylabel("phase (degrees)")
+    axp.set_xlabel("frequency (Hz)")
+    axp.axhline(0.0, color="0.7", lw=0.8)
+    if labels is not None:
+        axm.legend(frameon=False, loc="best")
+    return fig
+
+
+def plot_isi(t, density, ax=None, label=None, **kwargs):
+    """ISI density (1/ms) against interval (ms); returns the Axes."""
+    ax = _axes(ax)
+    ax.plot(np.asarray(t, dtype=float), np.asarray(density, dtype=float), lw=1.6, label=label, **kwargs)
+    ax.set_xlabel("interspike interval (ms)")
+    ax.set_ylabel("ISI density (1/ms)")
+    ax.set_ylim(bottom=0.0)
+    return ax
+
+
+def plot_density_map(result, ax=None, cmap="magma"):
+    """Heat map of the density snapshots of a time-domain result over time.
+
+    The result must have been computed with ``snapshot_interval``.  The
+    colour is the age density (1/ms) or membrane-potential density (1/mV).
+
+    Returns
+    -------
+    matplotlib.axes.Axes
+    """
+    if result.snapshots is None or result.snapshot_t is None or len(result.snapshot_t) < 2:
+        raise ValueError("the result holds fewer than two density snapshots; pass `snapshot_interval` "
+                         "to popdens.simulate")
+    ax = _axes(ax)
+    dens = np.asarray(result.snapshots, dtype=float)
+    axis = np.asarray(result.axis, dtype=float)
+    is_age = result.axis_name.startswith("age")
+    if is_age:  # the last age bin collects every neuron older than the grid: not a density, not drawn
+        dens, axis = dens[:, :-1], axis[:-1]
+        ax.set_title(f"neurons older than {axis[-1]:.4g} ms not drawn", fontsize="small", loc="right")
+    mesh = ax.pcolormesh(np.asarray(result.snapshot_t), axis, dens.T, shading="nearest",
+                         cmap=cmap, rasterized=True)
+    unit = "1/ms" if is_age else "1/mV"
+    ax.figure.colorbar(mesh, ax=ax, label=f"density ({unit})")
+    ax.set_xlabel("time (ms)")
+    ax.set_ylabel(result.axis_name)
+    return ax

@@ -20,7 +20,7 @@ __all__ = ["run_scenario"]
 
 def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwrite: bool = False,
                  progress: bool | None = None) -> dict:
-    """Run ``scenario``: density prediction, and the Monte Carlo twin if requested.
+    """Run ``scenario``: the time-domain prediction (and Monte Carlo twin) and the analyses it names.
 
     Outputs go to a temporary folder next to the destination, which is renamed
     into place only when complete, so an interrupted run leaves no partial
@@ -37,35 +37,25 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
     dest.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{dest.name}.", dir=dest.parent))
     try:
-        pred = simulate(scenario.population, scenario.drive, scenario.t_end, scenario.dt,
-                        record_interval=scenario.record_interval, progress=progress)
         header = {"scenario": str(scenario.source.name), "scenario_sha256_16": scenario.digest,
-                  "units": "t ms, rate Hz, u mV, drive mV"}
-        pred.to_csv(tmp / "prediction.csv", header_extra=header)
+                  "popdens_version": __version__}
         summary = {
             "title": scenario.title,
             "scenario": str(scenario.source),
             "scenario_sha256_16": scenario.digest,
             "version": __version__,
             "caution": "model predictions for a research tool; not for clinical or safety decisions",
-            "prediction": {"method": pred.method, "status": pred.status, "message": pred.message,
-                           "peak_rate_hz": float(np.max(pred.rate)), "final_rate_hz": float(pred.rate[-1]),
-                           "diagnostics": pred.diagnostics},
         }
-        mc = None
-        if scenario.montecarlo_neurons:
-            mc = montecarlo(scenario.population, scenario.drive, scenario.t_end, scenario.montecarlo_neurons,
-                            dt=pred.dt, seed=scenario.seed, record_interval=scenario.record_interval,
-                            progress=progress)
-            mc.to_csv(tmp / "montecarlo.csv", header_extra=header)
-            se = mc.rate_standard_error()[1:]
-            z = np.abs(mc.rate[1:] - pred.rate[1:]) / np.maximum(se, 1e-12)
-            summary["montecarlo"] = {"n_neurons": mc.n_neurons, "seed": scenario.seed,
-                                     "fraction_within_4_se": float(np.mean(z <= 4.0)),
-                                     "diagnostics": mc.diagnostics}
-        _figures(pred, mc, tmp)
+        figures = []  # (file name, caption) pairs for the report
+        if scenario.runs_in_time:
+            figures += _time_domain(scenario, tmp, header, summary, progress)
+        for name, analysis in scenario.analyses:
+            summary[name] = analysis.write(scenario.population, tmp, header)
+            png = next(f for f in summary[name]["figures"] if f.endswith(".png"))
+            figures.append((png, CAPTIONS[name]))
+        summary["files"] = sorted(p.name for p in tmp.iterdir()) + ["report.html", "summary.json"]
         (tmp / "summary.json").write_text(json.dumps(_jsonable(summary), indent=2, sort_keys=True) + "\n")
-        (tmp / "report.html").write_text(_html_report(scenario, summary, tmp), encoding="utf-8")
+        (tmp / "report.html").write_text(_html_report(scenario, summary, tmp, figures), encoding="utf-8")
         if dest.exists():
             shutil.rmtree(dest)
         tmp.rename(dest)
@@ -76,10 +66,40 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
     return summary
 
 
-def _figures(pred, mc, folder: Path) -> None:
+#: Report captions of the analysis figures.
+CAPTIONS = {"gain": "Gain function: stationary rate against mean drive",
+            "stationary": "Stationary interspike-interval densities",
+            "transfer": "Transfer function: magnitude and phase against frequency"}
+
+
+def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, progress) -> list:
+    """The density prediction, and the Monte Carlo twin if requested; returns the report figures."""
+    pred = simulate(scenario.population, scenario.drive, scenario.t_end, scenario.dt,
+                    record_interval=scenario.record_interval, snapshot_interval=scenario.snapshot_interval,
+                    progress=progress)
+    header = {**header, "units": "t ms, rate Hz, u mV, drive mV"}
+    pred.to_csv(tmp / "prediction.csv", header_extra=header)
+    summary["prediction"] = {"method": pred.method, "status": pred.status, "message": pred.message,
+                             "peak_rate_hz": float(np.max(pred.rate)), "final_rate_hz": float(pred.rate[-1]),
+                             "diagnostics": pred.diagnostics}
+    mc = None
+    if scenario.montecarlo_neurons:
+        mc = montecarlo(scenario.population, scenario.drive, scenario.t_end, scenario.montecarlo_neurons,
+                        dt=pred.dt, seed=scenario.seed, record_interval=scenario.record_interval,
+                        progress=progress)
+        mc.to_csv(tmp / "montecarlo.csv", header_extra=header)
+        se = mc.rate_standard_error()[1:]
+        z = np.abs(mc.rate[1:] - pred.rate[1:]) / np.maximum(se, 1e-12)
+        summary["montecarlo"] = {"n_neurons": mc.n_neurons, "seed": scenario.seed,
+                                 "fraction_within_4_se": float(np.mean(z <= 4.0)),
+                                 "diagnostics": mc.diagnostics}
+    return _figures(pred, mc, tmp)
+
+
+def _figures(pred, mc, folder: Path) -> list:
     import matplotlib.pyplot as plt
 
-    from .plotting import plot_comparison, plot_rate
+    from .plotting import plot_comparison, plot_density_map, plot_rate
 
     if mc is not None:
         fig = plot_comparison(pred, mc)
@@ -89,15 +109,29 @@ def _figures(pred, mc, folder: Path) -> None:
     for ext in ("png", "svg"):
         fig.savefig(folder / f"rate.{ext}", dpi=150)
     plt.close(fig)
+    out = [("rate.png", "Population rate over time, with the drive beneath"
+            + (" (solver against the Monte Carlo twin)" if mc is not None else ""))]
+    if pred.snapshots is not None and len(pred.snapshot_t) >= 2:
+        ax = plot_density_map(pred)
+        for ext in ("png", "svg"):
+            ax.figure.savefig(folder / f"density.{ext}", dpi=150)
+        plt.close(ax.figure)
+        out.append(("density.png", f"Density over time ({pred.axis_name})"))
+    return out
 
 
-def _html_report(scenario: Scenario, summary: dict, folder: Path) -> str:
-    """A self-contained HTML page: figure embedded, parameters, settings, diagnostics, caution."""
+def _html_report(scenario: Scenario, summary: dict, folder: Path, figures: list) -> str:
+    """A self-contained HTML page: figures embedded, parameters, settings, diagnostics, caution."""
     import base64
     import html
 
-    png = base64.b64encode((folder / "rate.png").read_bytes()).decode("ascii")
     pop = scenario.population
+    sections = []
+    for name, caption in figures:
+        png = base64.b64encode((folder / name).read_bytes()).decode("ascii")
+        sections.append(f"<h2>{html.escape(caption)}</h2>\n<img alt=\"{html.escape(caption)}\" "
+                        f"src=\"data:image/png;base64,{png}\" style=\"max-width:100%\">")
+    tables = [f for f in summary["files"] if f.endswith(".csv")]
 
     def table(rows):
         body = "".join(f"<tr><th>{html.escape(str(k))}</th><td>{html.escape(str(v))}</td></tr>" for k, v in rows)
@@ -110,10 +144,17 @@ def _html_report(scenario: Scenario, summary: dict, folder: Path) -> str:
         noise_rows += [("escape function", type(noise.hazard).__name__), *noise.hazard.parameters().items()]
     else:
         noise_rows += [("sigma (mV)", noise.sigma)]
-    run_rows = [("t_end (ms)", scenario.t_end), ("dt (ms)", summary["prediction"]["diagnostics"]["dt_ms"]),
-                ("record interval (ms)", scenario.record_interval or "every step"),
-                ("Monte Carlo neurons", scenario.montecarlo_neurons), ("seed", scenario.seed)]
-    diag_rows = [(f"prediction: {k}", v) for k, v in summary["prediction"]["diagnostics"].items()]
+    run_rows, diag_rows = [], []
+    if "prediction" in summary:
+        run_rows = [("t_end (ms)", scenario.t_end), ("dt (ms)", summary["prediction"]["diagnostics"]["dt_ms"]),
+                    ("record interval (ms)", scenario.record_interval or "every step"),
+                    ("Monte Carlo neurons", scenario.montecarlo_neurons), ("seed", scenario.seed)]
+        diag_rows = [(f"prediction: {k}", v) for k, v in summary["prediction"]["diagnostics"].items()]
+    for name, _ in scenario.analyses:
+        run_rows += [(f"{name}: {k}", v) for k, v in summary[name].items() if k not in ("figures", "states")]
+        for st in summary[name].get("states", []):
+            run_rows.append((f"{name}: mu = {st['mu_mV']:g} mV",
+                             f"rate {st['rate_hz']:.6g} Hz, CV {st['cv']:.4g}, mean u {st['mean_u_mV']:.4g} mV"))
     if "montecarlo" in summary:
         diag_rows += [("Monte Carlo: bins within 4 SE", f"{100 * summary['montecarlo']['fraction_within_4_se']:.1f}%")]
         diag_rows += [(f"Monte Carlo: {k}", v) for k, v in summary["montecarlo"]["diagnostics"].items()]
@@ -127,12 +168,12 @@ table{{border-collapse:collapse;margin:0.5em 0 1.5em}}th,td{{border:1px solid #c
 <p>Scenario <code>{html.escape(str(scenario.source.name))}</code> (hash {scenario.digest}), popdens {__version__}.</p>
 <p class="caution">These are predictions of a model of neurons, from a research tool. They are not a basis for
 clinical or safety decisions.</p>
-<h2>Population rate</h2>
-<img alt="population rate over time, with the drive beneath" src="data:image/png;base64,{png}" style="max-width:100%">
-<p>Units: time ms, rate Hz, potentials and drive mV. Tables: <code>prediction.csv</code>{", <code>montecarlo.csv</code>" if "montecarlo" in summary else ""}.</p>
+{chr(10).join(sections)}
+<p>Units: time ms, rate Hz, potentials and drive mV, frequency Hz. Tables:
+{", ".join(f"<code>{html.escape(t)}</code>" for t in tables)} (their header lines state the units of each column).</p>
 <h2>Neuron</h2>{table(neuron_rows)}
 <h2>Noise</h2>{table(noise_rows)}
-<h2>Numerical settings</h2>{table(run_rows)}
-<h2>Diagnostics</h2>{table(diag_rows)}
+<h2>Numerical settings and analyses</h2>{table(run_rows)}
+{"<h2>Diagnostics</h2>" + table(diag_rows) if diag_rows else ""}
 </body></html>
 """

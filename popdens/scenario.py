@@ -6,7 +6,12 @@ Top-level tables
 ``[neuron]``    ``model`` = "LIF" | "EIF" | "QIF" | "PIF" | "custom" and that model's parameters
 ``[noise]``     ``kind`` = "escape" with a ``[noise.hazard]`` table, or "white" with ``sigma`` (mV)
 ``[input]``     ``shape`` = "constant" | "step" | "pulse" | "ramp" | "sine" | "trace" and its parameters
-``[run]``       ``t_end``, ``dt``, ``record_interval`` (ms), ``montecarlo_neurons``, ``seed``
+``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``
+``[gain]``, ``[stationary]``, ``[transfer]``  steady-state and linear-response analyses
+                (see :mod:`popdens.analyses`)
+
+``[neuron]`` and ``[noise]`` are required, and at least one analysis: a
+time-domain run (``[input]`` with ``[run]``) or an analysis table.
 
 Unknown keys are rejected with the nearest valid key suggested; each error
 names the file, the table, the key, the value and what was expected.
@@ -25,6 +30,7 @@ from typing import Any
 
 from . import drive as drive_mod
 from . import hazard as hazard_mod
+from .analyses import ANALYSIS_TABLES, parse_analyses
 from .exceptions import ExpressionError, ScenarioError
 from .models import EIF, LIF, PIF, QIF, CustomNeuron
 from .noise import EscapeNoise, Population, WhiteNoise
@@ -54,9 +60,9 @@ INPUTS = {
     "sine": (drive_mod.Sine, {"mean", "amplitude", "frequency", "phase"}),
     "trace": (None, {"file", "times", "values"}),
 }
-RUN_KEYS = {"t_end", "dt", "record_interval", "montecarlo_neurons", "seed"}
+RUN_KEYS = {"t_end", "dt", "record_interval", "snapshot_interval", "montecarlo_neurons", "seed"}
 SCENARIO_KEYS = {"title", "output", "notes"}
-TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run"}
+TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run"} | set(ANALYSIS_TABLES)
 #: Largest accepted number of Monte Carlo neurons in a scenario.
 MAX_NEURONS = 10_000_000
 
@@ -69,14 +75,22 @@ class Scenario:
     title: str
     output: Path
     population: Population
-    drive: drive_mod.Drive
-    t_end: float
+    drive: drive_mod.Drive | None
+    t_end: float | None
     dt: float | None
     record_interval: float | None
     montecarlo_neurons: int
     seed: int
     digest: str
     raw: dict
+    snapshot_interval: float | None = None
+    #: ``(table name, analysis object)`` pairs, see :mod:`popdens.analyses`
+    analyses: tuple = ()
+
+    @property
+    def runs_in_time(self) -> bool:
+        """Whether the scenario asks for a time-domain run (``[input]`` and ``[run]``)."""
+        return self.t_end is not None
 
 
 def _err(src, table, key, value, expected) -> ScenarioError:
@@ -144,7 +158,13 @@ def _model_params(src, table, items: dict, text_key: str) -> dict:
 def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     """Validate a scenario given as a dict (as read from TOML)."""
     src = str(source)
-    _check_keys(src, "", data, TOP_LEVEL, {"neuron", "noise", "input", "run"})
+    _check_keys(src, "", data, TOP_LEVEL, {"neuron", "noise"})
+    if ("input" in data) != ("run" in data):
+        missing = "run" if "input" in data else "input"
+        raise ScenarioError(f"{src}: a time-domain run needs both [input] and [run]; [{missing}] is missing")
+    if "run" not in data and not any(k in data for k in ANALYSIS_TABLES):
+        raise ScenarioError(f"{src}: nothing to compute: add [input] and [run] for a time-domain run, or one "
+                            f"of the analysis tables {', '.join('[' + k + ']' for k in ANALYSIS_TABLES)}")
     meta = data.get("scenario", {})
     _check_keys(src, "scenario", meta, SCENARIO_KEYS)
     title = meta.get("title", Path(src).stem)
@@ -181,6 +201,13 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
         raise _err(src, "noise", "kind", kind, "'escape' or 'white'")
     population = Population(neuron, noise)
 
+    analyses = parse_analyses(src, data, white=isinstance(noise, WhiteNoise))
+    digest = hashlib.sha256(repr(sorted(_flatten(data))).encode()).hexdigest()[:16]
+    if "run" not in data:
+        return Scenario(source=Path(src), title=title, output=out_path, population=population, drive=None,
+                        t_end=None, dt=None, record_interval=None, montecarlo_neurons=0, seed=0,
+                        digest=digest, raw=data, analyses=analyses)
+
     # input
     inp, shape, (dcls, dallowed) = _select(src, "input", data["input"], "shape", INPUTS)
     if shape == "trace":
@@ -210,16 +237,16 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     t_end = _number(src, "run", "t_end", run["t_end"])
     dt = _number(src, "run", "dt", run["dt"]) if "dt" in run else None
     rec = _number(src, "run", "record_interval", run["record_interval"]) if "record_interval" in run else None
+    snap = _number(src, "run", "snapshot_interval", run["snapshot_interval"]) if "snapshot_interval" in run else None
     n_mc = run.get("montecarlo_neurons", 0)
     if isinstance(n_mc, bool) or not isinstance(n_mc, int) or not 0 <= n_mc <= MAX_NEURONS:
         raise _err(src, "run", "montecarlo_neurons", n_mc, f"an integer from 0 to {MAX_NEURONS}")
     seed = run.get("seed", 0)
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise _err(src, "run", "seed", seed, "a non-negative integer")
-    digest = hashlib.sha256(repr(sorted(_flatten(data))).encode()).hexdigest()[:16]
     return Scenario(source=Path(src), title=title, output=out_path, population=population, drive=drv,
                     t_end=t_end, dt=dt, record_interval=rec, montecarlo_neurons=n_mc, seed=seed,
-                    digest=digest, raw=data)
+                    digest=digest, raw=data, snapshot_interval=snap, analyses=analyses)
 
 
 def _flatten(d: Any, prefix=""):
