@@ -28,6 +28,8 @@ def _parser() -> argparse.ArgumentParser:
     c = sub.add_parser("check", help="validate a scenario file without running it")
     c.add_argument("scenario")
     sub.add_parser("catalogue", help="list neuron models, escape functions and input shapes with their parameters")
+    b = sub.add_parser("bench", help="run benchmarks (speed against the Monte Carlo twin, printed ratios)")
+    b.add_argument("names", nargs="*", metavar="NAME", help="benchmarks to run (default: list them)")
     st = sub.add_parser("step", help="one-off step response from flags, without a scenario file",
                         description="Example: popdens step --neuron model=LIF tau_m=10 threshold=20 reset=0 "
                                     "refractory=2 --noise kind=escape shape=exponential rate=20 width=2 "
@@ -267,6 +269,20 @@ def main(argv: list[str] | None = None) -> int:
             print("input shapes ([input] shape = ...; mV, ms, Hz):")
             for name, (_, keys) in INPUTS.items():
                 print(f"  {name:9s} {', '.join(sorted(keys))}")
+            return 0
+        if args.command == "bench":
+            from . import benchmarks
+
+            names = benchmarks.available()
+            if not args.names:
+                print("benchmarks (run with `popdens bench NAME`): " + ", ".join(names))
+                return 0
+            unknown = [n for n in args.names if n not in names]
+            if unknown:
+                raise ScenarioError(f"unknown benchmark {unknown[0]!r}; available: {', '.join(names)}")
+            for n in args.names:
+                print(f"== {n}")
+                benchmarks.run(n)
             return 0
         if args.command == "step":
             return _step_command(args)

@@ -163,3 +163,11 @@ def test_step_command_matches_api(tmp_path, capsys):
     np.testing.assert_allclose(data[:, 1], ref.rate, rtol=1e-10)
     assert main(argv[:-2] + ["--neuron", "model=LIF", "tau_m=-1", "threshold=20", "reset=0", "refractory=2"]) == 2
     assert "`tau_m`" in capsys.readouterr().err
+
+
+def test_bench_lists_and_rejects_unknown_names(capsys):
+    assert main(["bench"]) == 0
+    listed = capsys.readouterr().out
+    assert "refractory" in listed and "fokker_planck" in listed
+    assert main(["bench", "no_such_benchmark"]) == 2
+    assert "unknown benchmark" in capsys.readouterr().err

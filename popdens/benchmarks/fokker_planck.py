@@ -9,7 +9,7 @@ dt / 8), and the speed ratio at equal accuracy.  Monte Carlo error falls as
 rate is also compared with the Siegert formula (Siegert 1951; Brunel &
 Hakim 1999).
 
-Run:  python benchmarks/bench_fokker_planck.py
+Run:  popdens bench fokker_planck
 """
 
 from __future__ import annotations

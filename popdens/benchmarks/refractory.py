@@ -7,7 +7,7 @@ ratio at equal accuracy.  Monte Carlo error falls as 1/sqrt(N) (independent
 neurons), so reaching the solver's error would take (err_MC/err_solver)^2
 times the measured Monte Carlo time.
 
-Run:  python benchmarks/bench_refractory.py
+Run:  popdens bench refractory
 """
 
 from __future__ import annotations
