@@ -287,7 +287,7 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     return _renewal_rates_hz(population, mus)
 
 
-def gain_slope(population, mu, *, sigma=None) -> np.ndarray:
+def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     """Derivative of the gain function, d(rate)/d(mu) (Hz/mV), at each drive in ``mu``.
 
     Exact for the white-noise LIF (derivative of the Siegert formula);
@@ -301,17 +301,20 @@ def gain_slope(population, mu, *, sigma=None) -> np.ndarray:
         Drives (mV).
     sigma : float, optional
         White-noise amplitude override (mV).
+    method : str
+        As in :func:`gain`.
     """
     _check_population(population)
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
+    m = _resolve_method(population, method)
     nrn = population.neuron
-    if sg is not None and nrn.code == CODE_LIF:
+    if m == "siegert":
         _, d_mu, _ = siegert_slopes(mus, sg, nrn.tau_m, nrn.threshold, nrn.reset, nrn.refractory, nrn.rest)
         return d_mu * 1000.0
     h = SLOPE_STEP_MV
     stencil = np.stack([mus - 2 * h, mus - h, mus + h, mus + 2 * h])
-    r = gain(population, stencil, sigma=sigma)
+    r = gain(population, stencil, sigma=sigma, method=m)
     return (8.0 * (r[2] - r[1]) - (r[3] - r[0])) / (12.0 * h)
 
 
