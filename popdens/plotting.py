@@ -5,7 +5,8 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate", "plot_transfer"]
+__all__ = ["plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate", "plot_steady_state",
+           "plot_transfer"]
 
 
 def _axes(ax):
@@ -151,3 +152,24 @@ def plot_density_map(result, ax=None, cmap="magma"):
     ax.set_xlabel("time (ms)")
     ax.set_ylabel(result.axis_name)
     return ax
+
+
+def plot_steady_state(state):
+    """ISI density (1/ms) and the stationary potential (1/mV) or age (1/ms) density of a
+    :class:`~popdens.steady_state.SteadyState`; returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(9.0, 3.5), constrained_layout=True)
+    ax1.plot(state.isi_t, state.isi_density)
+    ax1.set_xlabel("interval (ms)")
+    ax1.set_ylabel("ISI density (1/ms)")
+    ax1.set_title(f"rate {state.rate:.4g} Hz, CV {state.cv:.3g}")
+    if state.density is not None:
+        ax2.plot(state.u, state.density)
+        ax2.set_xlabel("membrane potential (mV)")
+        ax2.set_ylabel("density (1/mV)")
+    else:
+        ax2.plot(state.age, state.age_density)
+        ax2.set_xlabel("age (ms)")
+        ax2.set_ylabel("age density (1/ms)")
+    return fig
