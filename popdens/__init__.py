@@ -9,13 +9,16 @@ from __future__ import annotations
 __version__ = "0.1.0"
 
 from . import drive, hazard  # noqa: E402
-from .exceptions import ConvergenceError, ExpressionError, PopdensError, ScenarioError  # noqa: E402
+from .exceptions import (ConvergenceError, ExpressionError, PopdensError, ScenarioError,  # noqa: E402
+                         UnreachableTargetError)
 from .models import EIF, LIF, PIF, QIF, CustomNeuron  # noqa: E402
 from .montecarlo import montecarlo  # noqa: E402
 from .noise import EscapeNoise, Population, WhiteNoise  # noqa: E402
 from .result import Result, load_result  # noqa: E402
 from .simulate import simulate  # noqa: E402
 from .linear_response import transfer  # noqa: E402
+from .steady_state import (SteadyState, drive_and_noise_for, drive_for_rate, gain, gain_slope,  # noqa: E402
+                           stationary)
 
 __all__ = [
     "ConvergenceError",
@@ -30,12 +33,19 @@ __all__ = [
     "QIF",
     "Result",
     "ScenarioError",
+    "SteadyState",
+    "UnreachableTargetError",
     "WhiteNoise",
     "__version__",
     "drive",
+    "drive_and_noise_for",
+    "drive_for_rate",
+    "gain",
+    "gain_slope",
     "hazard",
     "load_result",
     "montecarlo",
     "simulate",
+    "stationary",
     "transfer",
 ]

@@ -31,6 +31,12 @@ width = 2.0
 """
 
 
+def read_table(path):
+    """Rows of a popdens CSV table (``#`` header lines and the column-name line skipped)."""
+    lines = [ln for ln in path.read_text().splitlines() if not ln.startswith("#")]
+    return np.array([[float(x) for x in ln.split(",")] for ln in lines[1:]])
+
+
 def write(tmp_path, text):
     p = tmp_path / "s.toml"
     p.write_text(text, encoding="utf-8")
@@ -100,3 +106,62 @@ def test_transfer_command_prints_and_rejects_bad_ranges(capsys):
     assert "positive bounds" in capsys.readouterr().err
     assert main(["transfer", *flags, "--freq", "1:10:3", "--modulate", "noise"]) == 2
     assert "white noise" in capsys.readouterr().err
+
+
+WHITE_LIF = """
+[scenario]
+output = "out"
+[neuron]
+model = "LIF"
+tau_m = 20.0
+threshold = 20.0
+reset = 10.0
+refractory = 2.0
+[noise]
+kind = "white"
+sigma = 4.0
+[gain]
+mu = {from = 10.0, to = 30.0, points = 5}
+sigma = [2.0, 4.0]
+[stationary]
+mu = [15.0, 25.0]
+"""
+
+
+def _siegert_quad(mu, sigma, tau_m=20.0, theta=20.0, reset=10.0, t_ref=2.0):
+    """Siegert formula by adaptive quadrature (Siegert 1951; Brunel & Hakim 1999), in Hz."""
+    from scipy.integrate import quad
+    from scipy.special import erfcx
+
+    lo, hi = (reset - mu) / sigma, (theta - mu) / sigma
+    val, _ = quad(lambda x: erfcx(-x), lo, hi, epsabs=0, epsrel=1e-12, limit=200)
+    return 1000.0 / (t_ref + tau_m * np.sqrt(np.pi) * val)
+
+
+def test_gain_and_stationary_tables_match_the_api_and_the_siegert_formula(tmp_path, capsys):
+    p = write(tmp_path, WHITE_LIF)
+    assert main(["run", str(p), "--quiet"]) == 0
+    out = tmp_path / "out"
+    for f in ("gain.csv", "gain.png", "gain.svg", "stationary.csv", "isi.png", "isi.svg", "report.html"):
+        assert (out / f).stat().st_size > 0, f
+    g = read_table(out / "gain.csv")
+    sc = load_scenario(p)
+    for col, sigma in ((1, 2.0), (2, 4.0)):
+        pop = popdens.Population(sc.population.neuron, popdens.WhiteNoise(sigma))
+        np.testing.assert_allclose(g[:, col], popdens.gain(pop, g[:, 0]), rtol=1e-11)  # file == script
+        ref = [_siegert_quad(m, sigma) for m in g[:, 0]]
+        np.testing.assert_allclose(g[:, col], ref, rtol=1e-7)  # Siegert formula by quadrature
+    st = read_table(out / "stationary.csv")
+    np.testing.assert_allclose(st[:, 1], [_siegert_quad(m, 4.0) for m in (15.0, 25.0)], rtol=1e-7)
+    assert np.all((st[:, 2] > 0) & (st[:, 2] < 1.2))  # ISI CV of a noisy LIF: positive, near or below 1
+
+
+def test_gain_command_matches_the_siegert_formula(capsys):
+    flags = ["--neuron", "model=LIF", "tau_m=20", "threshold=20", "reset=10", "refractory=2",
+             "--noise", "kind=white", "sigma=4"]
+    assert main(["gain", *flags, "--mu", "12,18,24"]) == 0
+    rows = [ln.split() for ln in capsys.readouterr().out.splitlines() if not ln.startswith("#")]
+    np.testing.assert_allclose([float(r[1]) for r in rows], [_siegert_quad(m, 4.0) for m in (12, 18, 24)],
+                               rtol=1e-5)  # 6 digits printed; Siegert formula by quadrature
+    assert main(["gain", *flags, "--mu", "1:2:3", "--sigma", "-1"]) == 2
+    assert "positive" in capsys.readouterr().err
