@@ -43,15 +43,31 @@ def _mpmath():
     return mpmath
 
 
+def _siegert_mp(mp, neuron, mu, sigma2):
+    """Siegert rate (Hz) as an mpmath number, for drive ``mu`` (mV) and ``sigma2`` (mV^2)."""
+    sd = mp.sqrt(sigma2)
+    yt = (neuron.threshold - neuron.rest - mu) / sd
+    yr = (neuron.reset - neuron.rest - mu) / sd
+    integral = mp.quad(lambda x: mp.exp(x * x) * mp.erfc(-x), [yr, yt])
+    return 1000 / (neuron.refractory + neuron.tau_m * mp.sqrt(mp.pi) * integral)
+
+
 def siegert_rate(neuron, mu: float, sigma: float) -> float:
     """Stationary rate (Hz) of the white-noise LIF (Siegert 1951; Brunel & Hakim 1999)."""
     mp = _mpmath()
     with mp.workdps(DIGITS):
-        yt = (neuron.threshold - neuron.rest - mu) / mp.mpf(sigma)
-        yr = (neuron.reset - neuron.rest - mu) / mp.mpf(sigma)
-        integral = mp.quad(lambda x: mp.exp(x * x) * mp.erfc(-x), [yr, yt])
-        mean_isi = neuron.refractory + neuron.tau_m * mp.sqrt(mp.pi) * integral  # ms
-        return float(1000 / mean_isi)
+        return float(_siegert_mp(mp, neuron, mp.mpf(mu), mp.mpf(sigma) ** 2))
+
+
+def siegert_slope(neuron, mu: float, sigma: float, modulate: str = "mean") -> float:
+    """d(rate)/d(mu) (Hz/mV) or d(rate)/d(sigma^2) (Hz/mV^2) of the Siegert rate, by mpmath."""
+    mp = _mpmath()
+    with mp.workdps(DIGITS):
+        if modulate == "mean":
+            d = mp.diff(lambda m: _siegert_mp(mp, neuron, m, mp.mpf(sigma) ** 2), mp.mpf(mu))
+        else:
+            d = mp.diff(lambda s2: _siegert_mp(mp, neuron, mp.mpf(mu), s2), mp.mpf(sigma) ** 2)
+        return float(d)
 
 
 def lif_response(neuron, mu: float, sigma: float, s, modulate: str = "mean") -> np.ndarray:
