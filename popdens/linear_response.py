@@ -50,10 +50,11 @@ from .progress import Progress
 
 __all__ = ["transfer", "response_kernel", "linear_rate_response", "laplace_to_freq", "stationary_rate"]
 
-#: Age step (ms) of the renewal quadrature grid, at most; refined for fast membranes.
-AGE_STEP_MS = 0.01
+#: Age step (ms) of the renewal quadrature grid, at most (measured: second order, 6e-6 relative
+#: at 1 kHz for tau_m = 10 ms); refined for fast membranes.
+AGE_STEP_MS = 0.02
 #: Ages per membrane time constant, at least.
-AGES_PER_TAU = 500
+AGES_PER_TAU = 250
 #: The age grid ends where the survivor function falls below this ...
 SURVIVOR_FLOOR = 1e-13
 #: ... or where the free trajectory has converged to within this (mV); beyond, closed-form tails.
@@ -81,15 +82,17 @@ class _AgeGrid:
         nrn, hz = population.neuron, population.noise.hazard
         da = min(AGE_STEP_MS, nrn.tau_m / AGES_PER_TAU)
         a_max = nrn.refractory + 20.0 * nrn.tau_m
+        tref = float(nrn.refractory)
         while True:
-            ages = np.arange(0.0, a_max + 0.5 * da, da)
+            # ages start at the end of the refractory period: before it the hazard and the
+            # membrane response vanish and S0 = 1, so the integrals there are exact
+            ages = tref + np.arange(0.0, a_max - tref + 0.5 * da, da)
             u0 = free_trajectory(nrn, mu, ages)
             if nrn.has_cutoff and np.any(u0 >= nrn.boundary):
                 raise ValueError(
                     f"at `mu` = {mu!r} mV the free trajectory reaches the cut-off; the linear response of "
                     "deterministic crossings is not supported by the escape-noise transfer function")
-            free = ages >= nrn.refractory - 1e-9 * da
-            h0 = np.where(free, hz.rate(u0, nrn.threshold), 0.0) * 1e-3  # 1/ms
+            h0 = np.asarray(hz.rate(u0, nrn.threshold), dtype=float) * 1e-3  # 1/ms
             cum = np.concatenate([[0.0], np.cumsum(0.5 * (h0[1:] + h0[:-1]) * da)])
             surv = np.exp(-cum)
             below = np.nonzero(surv < SURVIVOR_FLOOR)[0]
@@ -99,8 +102,7 @@ class _AgeGrid:
             off = np.abs(u0 - u0[-1]) >= CONVERGED_MV
             n_tau = int(math.ceil(nrn.tau_m / da))
             if slope_inf < 0 and ages.size > n_tau and not np.any(off[-n_tau:]) and h0[-1] > 0:
-                conv = int(np.nonzero(off)[0][-1]) + 1 if np.any(off) else 0
-                conv = max(conv, int(math.ceil(nrn.refractory / da)) + 2)
+                conv = max(int(np.nonzero(off)[0][-1]) + 1 if np.any(off) else 0, 2)
                 if end is None or conv < end:
                     end, tail = conv, True
             if end is not None:
@@ -112,9 +114,8 @@ class _AgeGrid:
         self.da, self.ages, self.u0, self.h0, self.surv = da, ages[:n], u0[:n], h0[:n], surv[:n]
         self.tail = tail
         self.tail_slope = slope_inf
-        self.hu = np.where(free[:n], hz.slope(self.u0, nrn.threshold), 0.0) * 1e-3  # 1/(ms mV)
+        self.hu = np.asarray(hz.slope(self.u0, nrn.threshold), dtype=float) * 1e-3  # 1/(ms mV)
         self.gslope = np.asarray(nrn.drift_slope(0.5 * (self.u0[1:] + self.u0[:-1])), dtype=float) / nrn.tau_m
-        self.free_step = free[:n - 1].copy()
         w = np.full(n, da)
         w[0] = w[-1] = 0.5 * da
         self.weights = w
@@ -125,7 +126,8 @@ class _AgeGrid:
         a_c = self.ages[-1]
         self.isi_second = float(np.sum(w * self.ages ** 2 * p0)) + (
             sc * (a_c ** 2 + 2.0 * a_c / hc + 2.0 / hc ** 2) if tail else 0.0)
-        self.survivor_integral = float(np.sum(w * self.surv)) + (sc / hc if tail else 0.0)
+        self.survivor_integral = tref + float(np.sum(w * self.surv)) + (sc / hc if tail else 0.0)
+        self.tref = tref
 
     def sweep(self, s, tau_m):
         s = np.ascontiguousarray(np.asarray(s, dtype=complex).ravel())
@@ -138,7 +140,7 @@ class _AgeGrid:
             raise ValueError("complex `freqs` decay faster than the stationary ISI density: need growth rate "
                              f"Re(lambda) > {1000.0 * math.log(SURVIVOR_FLOOR / 1e-10) / self.ages[-1]:.6g} 1/s")
         out = np.empty((s.size, 2), dtype=complex)
-        _renewal_sweep(s, self.da, float(tau_m), self.hu, self.h0, self.surv, self.gslope, self.free_step,
+        _renewal_sweep(s, self.tref, self.da, float(tau_m), self.hu, self.h0, self.surv, self.gslope,
                        self.tail, self.tail_slope, out)
         return out[:, 0], out[:, 1]
 
@@ -275,7 +277,7 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
     integration agrees with the closed form for the LIF to ~1e-6 relative
     from 1 Hz to 1 kHz; its grid error is second order in the step before
     extrapolation.  The renewal path uses an age step of
-    ``min(0.01 ms, tau_m/500)``.
+    ``min(0.02 ms, tau_m/250)``.
 
     Examples
     --------
