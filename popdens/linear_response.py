@@ -277,10 +277,12 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
     Notes
     -----
     Accuracy (measured, see ``tests/test_linear_response.py``): threshold
-    integration agrees with the closed form for the LIF to ~1e-6 relative
-    from 1 Hz to 1 kHz; its grid error is second order in the step before
-    extrapolation.  The renewal path uses an age step of
-    ``min(0.02 ms, tau_m/250)``.
+    integration (200 and 400 nodes per mV of sigma, extrapolated) agrees with
+    the closed form for the LIF from 1 Hz to 1 kHz to 5e-11 ... 8e-6 relative
+    across sub- and suprathreshold regimes; before extrapolation its error is
+    second order in the step.  The renewal path (age step
+    ``min(0.02 ms, tau_m/250)``, trapezoidal, second order) is within 6e-6
+    of a 4x finer grid at 1 kHz.
 
     Examples
     --------
