@@ -16,7 +16,8 @@ from .montecarlo import montecarlo  # noqa: E402
 from .noise import EscapeNoise, Population, WhiteNoise  # noqa: E402
 from .result import Result, load_result  # noqa: E402
 from .simulate import simulate  # noqa: E402
-from .linear_response import transfer  # noqa: E402
+from .linear_response import linear_rate_response, response_kernel, transfer  # noqa: E402
+from .spectra import population_rate_spectrum, spike_train_spectrum  # noqa: E402
 from .steady_state import (SteadyState, drive_and_noise_for, drive_for_rate, gain, gain_slope,  # noqa: E402
                            stationary)
 
@@ -43,9 +44,13 @@ __all__ = [
     "gain",
     "gain_slope",
     "hazard",
+    "linear_rate_response",
     "load_result",
     "montecarlo",
+    "population_rate_spectrum",
+    "response_kernel",
     "simulate",
+    "spike_train_spectrum",
     "stationary",
     "transfer",
 ]

@@ -17,7 +17,8 @@ Tables
     ``mu``: one drive (mV) or a list of drives.
 ``[transfer]``
     ``mu``: the stationary drive (mV); ``frequencies`` (Hz): a list or a
-    range table; ``modulate``: ``"mean"`` (default) or ``"noise"``.
+    range table; ``modulate``: ``"mean"`` (default, Hz/mV), ``"noise"`` (the
+    variance sigma^2, Hz/mV^2) or ``"sigma"`` (Hz/mV), the last two for white noise.
 """
 
 from __future__ import annotations
@@ -208,7 +209,9 @@ class TransferCurve:
 
     @property
     def unit(self) -> str:
-        return "Hz/mV" if self.modulate == "mean" else "Hz/mV^2"
+        from .linear_response import MODULATIONS
+
+        return MODULATIONS[self.modulate]
 
     def compute(self, population) -> np.ndarray:
         from .linear_response import transfer
@@ -256,10 +259,10 @@ def _parse_transfer(src, table, data, white):
     if np.any(freqs < 0):
         raise _err(src, table, "frequencies", data["frequencies"], "frequencies >= 0 (Hz)")
     modulate = data.get("modulate", "mean")
-    if modulate not in ("mean", "noise"):
-        raise _err(src, table, "modulate", modulate, "'mean' or 'noise'")
-    if modulate == "noise" and not white:
-        raise _err(src, table, "modulate", modulate, "'mean' ('noise' needs [noise] kind = 'white')")
+    if modulate not in ("mean", "noise", "sigma"):
+        raise _err(src, table, "modulate", modulate, "'mean', 'noise' (sigma^2) or 'sigma'")
+    if modulate != "mean" and not white:
+        raise _err(src, table, "modulate", modulate, f"'mean' ('{modulate}' needs [noise] kind = 'white')")
     return TransferCurve(mu, freqs, modulate)
 
 

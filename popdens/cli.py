@@ -69,8 +69,9 @@ def _parser() -> argparse.ArgumentParser:
     tr.add_argument("--mu", required=True, type=float, help="stationary mean drive (mV)")
     tr.add_argument("--freq", required=True, metavar="START:STOP:POINTS",
                     help="frequencies (Hz): a log-spaced range START:STOP:POINTS or a comma list")
-    tr.add_argument("--modulate", choices=("mean", "noise"), default="mean",
-                    help="modulated input: the mean drive (default) or the noise intensity (white noise)")
+    tr.add_argument("--modulate", choices=("mean", "noise", "sigma"), default="mean",
+                    help="modulated input: the mean drive (default, Hz/mV), the noise variance sigma^2 "
+                         "(Hz/mV^2) or the noise amplitude sigma (Hz/mV); the last two for white noise")
     _output_flags(tr, "transfer function")
     return p
 
@@ -188,8 +189,8 @@ def _analysis_command(args) -> int:
                 fig = ax.figure
             _emit(args, cols, {"units": "mu mV, rate Hz, cv 1, mean_u mV"}, fig)
         else:
-            if args.modulate == "noise" and not white:
-                raise ScenarioError("--modulate noise needs white noise (--noise kind=white)")
+            if args.modulate != "mean" and not white:
+                raise ScenarioError(f"--modulate {args.modulate} needs white noise (--noise kind=white)")
             tc = TransferCurve(args.mu, _values(args.freq, "--freq", "log"), args.modulate)
             if np.any(tc.freqs < 0):
                 raise ScenarioError(f"--freq {args.freq!r}: frequencies must be >= 0 (Hz)")
