@@ -6,7 +6,7 @@ reported in ``Result.status`` / ``Result.message`` instead.
 
 from __future__ import annotations
 
-__all__ = ["PopdensError", "ExpressionError", "ScenarioError", "ConvergenceError"]
+__all__ = ["PopdensError", "ExpressionError", "ScenarioError", "ConvergenceError", "AccuracyWarning"]
 
 
 class PopdensError(Exception):
@@ -23,3 +23,13 @@ class ScenarioError(PopdensError, ValueError):
 
 class ConvergenceError(PopdensError, RuntimeError):
     """An iterative numerical method did not converge."""
+
+
+class AccuracyWarning(UserWarning):
+    """A numerical setting is too coarse for accurate results.
+
+    The message names the setting (``dt``, ``n_cells``, ``u_min``...), the
+    measured quantity that exceeded its limit, and a value to use instead.
+    Each limit and the error measured at it are listed in DEVELOPERS.md
+    ("Guarantees").
+    """

@@ -15,6 +15,7 @@ compiled loops, so custom models need no run-time code generation.
 from __future__ import annotations
 
 import ast
+import decimal
 import math
 from dataclasses import dataclass, field
 from typing import Callable, Mapping, Sequence
@@ -33,6 +34,10 @@ MAX_LENGTH = 2000
 MAX_DEPTH = 60
 #: Largest literal exponent accepted in ``a ** n`` (guards against ``10**10**10``).
 MAX_LITERAL_EXPONENT = 64.0
+#: Largest magnitude of a literal or of a constant sub-expression (a margin below the
+#: largest double, 1.8e308, so that a product of two accepted numbers with a parameter
+#: cannot overflow unnoticed in a sub-expression that is checked).
+MAX_CONSTANT = 1e300
 
 # --- postfix op codes (shared with the compiled interpreter) -------------
 OP_CONST, OP_VAR = 0, 1
@@ -75,6 +80,31 @@ _CMPOPS = {
     ast.Gt: (sympy.StrictGreaterThan, OP_GT),
     ast.GtE: (sympy.GreaterThan, OP_GE),
 }
+
+
+def _in_range(x) -> bool:
+    """True if the number ``x`` (int, float or sympy number) is finite and |x| <= MAX_CONSTANT."""
+    try:
+        if isinstance(x, int):  # compare exactly: float() of a 400-digit int overflows
+            return abs(x) <= MAX_CONSTANT
+        f = float(x)
+    except (OverflowError, TypeError, ValueError):
+        return False
+    return math.isfinite(f) and abs(f) <= MAX_CONSTANT
+
+
+def _constant_checked(text, node, func, arg):
+    """``func(arg)``; a function of a constant must give a finite constant (``exp(710)`` does not)."""
+    if not getattr(arg, "is_number", False):
+        return func(arg)
+    try:
+        out = func(arg)
+        ok = _in_range(complex(out.evalf()).real) and complex(out.evalf()).imag == 0.0
+    except (TypeError, ValueError, ArithmeticError, decimal.InvalidOperation):
+        ok = False
+    if not ok:
+        raise _fail(text, node, f"constant is not a finite real number of at most {MAX_CONSTANT:g}")
+    return out
 
 
 def _fail(text: str, node: ast.AST | None, why: str) -> ExpressionError:
@@ -137,8 +167,8 @@ def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth:
         v = tree.value
         if isinstance(v, bool) or not isinstance(v, (int, float)):
             raise _fail(text, tree, "only numeric literals are allowed")
-        if not math.isfinite(float(v)) or abs(float(v)) > 1e300:
-            raise _fail(text, tree, "numeric literal out of range")
+        if not _in_range(v):
+            raise _fail(text, tree, f"numeric literal out of range (|x| <= {MAX_CONSTANT:g})")
         return sympy.Float(float(v)) if isinstance(v, float) else sympy.Integer(v)
     if isinstance(tree, ast.Name):
         if tree.id.startswith("_"):
@@ -167,7 +197,20 @@ def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth:
                     raise _fail(text, tree, f"literal exponent larger than {MAX_LITERAL_EXPONENT:g}")
             if isinstance(tree.right, ast.BinOp) and isinstance(tree.right.op, ast.Pow):
                 raise _fail(text, tree, "nested powers are not allowed")
-        return op[0](rec(tree.left), rec(tree.right))
+        left, right = rec(tree.left), rec(tree.right)
+        if isinstance(tree.op, ast.Pow) and left.is_Number and right.is_Number:
+            # sympy would evaluate a power of exact numbers exactly: ((2**64)**64)**64 has
+            # 78914 digits and each further level multiplies that by 64, so check the size first
+            try:
+                size = abs(float(right)) * math.log10(abs(float(left))) if left != 0 else 0.0
+            except (OverflowError, ValueError, TypeError):
+                size = math.inf
+            if not size <= math.log10(MAX_CONSTANT):
+                raise _fail(text, tree, f"constant power out of range (|x| <= {MAX_CONSTANT:g})")
+        result = op[0](left, right)
+        if getattr(result, "is_Number", False) and not _in_range(result):
+            raise _fail(text, tree, f"constant out of range (|x| <= {MAX_CONSTANT:g})")
+        return result
     if isinstance(tree, ast.Compare):
         if len(tree.ops) != 1:
             raise _fail(text, tree, "chained comparisons are not allowed")
@@ -185,7 +228,7 @@ def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth:
         if fname in _UNARY:
             if len(tree.args) != 1:
                 raise _fail(text, tree, f"{fname}() takes exactly one argument")
-            return _UNARY[fname][0](rec(tree.args[0]))
+            return _constant_checked(text, tree, _UNARY[fname][0], rec(tree.args[0]))
         if fname in _BINARY:
             if len(tree.args) != 2:
                 raise _fail(text, tree, f"{fname}() takes exactly two arguments")
@@ -205,6 +248,8 @@ def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
 
     def walk(e: sympy.Basic) -> None:
         if e.is_Number:
+            if not _in_range(e):
+                raise ExpressionError(f"constant {e} is not finite or out of range (|x| <= {MAX_CONSTANT:g})")
             emit(OP_CONST, float(e))
         elif e.is_Symbol:
             emit(OP_VAR, float(var_index[e]))
@@ -373,9 +418,18 @@ def parse_expression(
         expr = _to_sympy(text.strip(), tree, names)
     except RecursionError:
         raise ExpressionError(f"expression {text!r} nests too deeply") from None
+    except ExpressionError:
+        raise
+    except (TypeError, ValueError, ArithmeticError) as exc:  # sympy refused a combination
+        raise ExpressionError(f"expression {text!r} rejected: {exc}") from None
     if not isinstance(expr, sympy.Basic) or (getattr(expr, "is_Relational", False)):
         raise ExpressionError(f"expression {text!r} does not evaluate to a number")
-    return _from_sympy(text, variables, parameters, expr)
+    try:
+        return _from_sympy(text, variables, parameters, expr)
+    except ExpressionError as exc:
+        raise ExpressionError(f"expression {text!r} rejected: {exc}") from None
+    except (TypeError, ValueError, ArithmeticError, RecursionError) as exc:
+        raise ExpressionError(f"expression {text!r} rejected: {exc}") from None
 
 
 # ---------------------------------------------------------------- compiled

@@ -25,6 +25,7 @@ from typing import Any
 
 from . import drive as drive_mod
 from . import hazard as hazard_mod
+from . import _validation as v
 from .exceptions import ExpressionError, ScenarioError
 from .models import EIF, LIF, PIF, QIF, CustomNeuron
 from .noise import EscapeNoise, Population, WhiteNoise
@@ -59,6 +60,11 @@ SCENARIO_KEYS = {"title", "output", "notes"}
 TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run"}
 #: Largest accepted number of Monte Carlo neurons in a scenario.
 MAX_NEURONS = 10_000_000
+#: Largest accepted number of time steps in a scenario: the solvers keep three
+#: float64 arrays per step (1.2 GB at this limit), so more would exhaust memory.
+MAX_STEPS = 50_000_000
+#: Time step (ms) assumed when a scenario gives none (the solvers' default).
+DEFAULT_DT = 0.1
 
 
 @dataclass(frozen=True)
@@ -80,9 +86,13 @@ class Scenario:
 
 
 def _err(src, table, key, value, expected) -> ScenarioError:
-    where = f"[{table}]" if table else "top level"
+    where = _where(table)
     k = f" key `{key}`" if key else ""
     return ScenarioError(f"{src}: {where}{k} = {value!r}: expected {expected}")
+
+
+def _where(table: str) -> str:
+    return f"[{table}]" if table else "top level"
 
 
 def _check_keys(src, table, data: dict, allowed: set, required: set = frozenset()):
@@ -92,23 +102,31 @@ def _check_keys(src, table, data: dict, allowed: set, required: set = frozenset(
         if key not in allowed:
             near = difflib.get_close_matches(str(key), sorted(allowed), n=1)
             hint = f"; did you mean `{near[0]}`?" if near else f"; valid keys: {sorted(allowed)}"
-            raise ScenarioError(f"{src}: [{table}] unknown key `{key}`{hint}")
+            raise ScenarioError(f"{src}: {_where(table)} unknown key `{key}`{hint}")
     for key in sorted(required):
         if key not in data:
-            raise ScenarioError(f"{src}: [{table}] missing key `{key}`")
+            raise ScenarioError(f"{src}: {_where(table)} missing key `{key}`")
 
 
 def _number(src, table, key, value) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(float(value)):
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
         raise _err(src, table, key, value, "a finite number")
-    return float(value)
+    try:
+        x = float(value)  # a TOML integer has no size limit: float() may overflow
+    except OverflowError:
+        x = math.inf
+    if not math.isfinite(x):
+        raise _err(src, table, key, value if isinstance(value, float) else f"{str(value)[:20]}...",
+                   "a finite number")
+    return x
 
 
-def _build(src, table, cls, params: dict):
+def _build(src, table, cls, params: dict, text_key: str | None = None):
     try:
         return cls(**params)
     except ExpressionError as exc:
-        raise ScenarioError(f"{src}: [{table}] {exc}") from None
+        key = f" key `{text_key}`:" if text_key and text_key in params else ""
+        raise ScenarioError(f"{src}: [{table}]{key} {exc}") from None
     except (ValueError, TypeError) as exc:
         raise ScenarioError(f"{src}: [{table}] {exc}") from None
 
@@ -119,7 +137,7 @@ def _select(src, table, value, selector: str, registry: dict):
         raise _err(src, table, None, value, "a table")
     items = dict(value)
     name = items.pop(selector, None)
-    if name not in registry:
+    if not isinstance(name, str) or name not in registry:
         raise _err(src, table, selector, name, f"one of {sorted(registry)}")
     return items, name, registry[name]
 
@@ -153,14 +171,12 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     out = meta.get("output", f"{Path(src).stem}-output")
     if not isinstance(out, str) or not out.strip():
         raise _err(src, "scenario", "output", out, "a folder name")
-    out_path = Path(out)
-    if out_path.is_absolute() or ".." in out_path.parts:
-        raise _err(src, "scenario", "output", out, "a relative folder inside the scenario's folder")
+    out_path = _output_folder(src, out)
 
     # neuron
     nd, _, (cls, allowed, optional) = _select(src, "neuron", data["neuron"], "model", NEURON_MODELS)
     _check_keys(src, "neuron", nd, allowed, allowed - optional)
-    neuron = _build(src, "neuron", cls, _model_params(src, "neuron", nd, text_key="drift"))
+    neuron = _build(src, "neuron", cls, _model_params(src, "neuron", nd, text_key="drift"), "drift")
 
     # noise
     no = data["noise"]
@@ -173,7 +189,7 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
         required = hallowed - {"parameters"}
         _check_keys(src, "noise.hazard", hz, hallowed, required)
         hp = _model_params(src, "noise.hazard", hz, text_key="expression")
-        noise = EscapeNoise(_build(src, "noise.hazard", hcls, hp))
+        noise = EscapeNoise(_build(src, "noise.hazard", hcls, hp, "expression"))
     elif kind == "white":
         _check_keys(src, "noise", no, {"kind", "sigma"}, {"kind", "sigma"})
         noise = _build(src, "noise", WhiteNoise, {"sigma": _number(src, "noise", "sigma", no["sigma"])})
@@ -216,10 +232,46 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     seed = run.get("seed", 0)
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise _err(src, "run", "seed", seed, "a non-negative integer")
+    _check_time_grid(src, t_end, dt, rec)
     digest = hashlib.sha256(repr(sorted(_flatten(data))).encode()).hexdigest()[:16]
     return Scenario(source=Path(src), title=title, output=out_path, population=population, drive=drv,
                     t_end=t_end, dt=dt, record_interval=rec, montecarlo_neurons=n_mc, seed=seed,
                     digest=digest, raw=data)
+
+
+def _output_folder(src, out: str) -> Path:
+    """The scenario's ``output``: a plain relative folder below the scenario's folder.
+
+    Rule (documented in DEVELOPERS.md, "Guarantees"): not absolute, no ``..``, not the
+    scenario's folder itself (``.``), no control characters.  Only ``--out`` on the
+    command line (or ``output=`` in :func:`popdens.runner.run_scenario`) may point
+    elsewhere.  Symbolic links that lead outside are refused when the run starts.
+    """
+    expected = "a relative folder below the scenario's folder (no `..`, not absolute, not `.`)"
+    if any(ord(c) < 32 or ord(c) == 127 for c in out):
+        raise _err(src, "scenario", "output", out, expected + ", without control characters")
+    path = Path(out)
+    if path.is_absolute() or path.drive or ".." in path.parts or not path.parts or "\\" in out:
+        raise _err(src, "scenario", "output", out, expected)
+    return path
+
+
+def _check_time_grid(src, t_end, dt, rec) -> None:
+    """Refuse run settings that no solver can use, before any work starts."""
+    from ._recording import make_grid  # noqa: PLC0415 - avoid a cycle at import
+
+    step = DEFAULT_DT if dt is None else dt
+    key = "dt" if dt is not None else "t_end"
+    try:
+        n = v.positive("t_end", t_end) / v.positive("dt", step)
+        if n > MAX_STEPS:
+            raise ValueError(f"`t_end` / `dt` = {n:.3g} steps is more than the limit of {MAX_STEPS:.0e}; "
+                             f"use a larger `dt` or split the run")
+        make_grid(t_end, step, rec, None)
+    except ValueError as exc:
+        msg = str(exc)
+        named = [k for k in ("record_interval", "t_end", "dt") if f"`{k}`" in msg]
+        raise ScenarioError(f"{src}: [run] key `{named[0] if named else key}`: {msg}") from None
 
 
 def _flatten(d: Any, prefix=""):
