@@ -18,6 +18,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import math
+import reprlib
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
@@ -88,7 +89,11 @@ class Scenario:
 def _err(src, table, key, value, expected) -> ScenarioError:
     where = _where(table)
     k = f" key `{key}`" if key else ""
-    return ScenarioError(f"{src}: {where}{k} = {value!r}: expected {expected}")
+    return ScenarioError(f"{src}: {where}{k} = {_REPR.repr(value)}: expected {expected}")
+
+
+_REPR = reprlib.Repr()
+_REPR.maxstring, _REPR.maxother, _REPR.maxlevel, _REPR.maxlist, _REPR.maxdict = 80, 80, 3, 8, 8
 
 
 def _where(table: str) -> str:
@@ -116,8 +121,7 @@ def _number(src, table, key, value) -> float:
     except OverflowError:
         x = math.inf
     if not math.isfinite(x):
-        raise _err(src, table, key, value if isinstance(value, float) else f"{str(value)[:20]}...",
-                   "a finite number")
+        raise _err(src, table, key, value, "a finite number")
     return x
 
 
@@ -301,4 +305,6 @@ def load_scenario(path: str | Path) -> Scenario:
         raise ScenarioError(f"{path}: not UTF-8 text") from None
     except tomllib.TOMLDecodeError as exc:
         raise ScenarioError(f"{path}: TOML syntax error: {exc}") from None
+    except RecursionError:  # the TOML reader recurses once per nested array or inline table
+        raise ScenarioError(f"{path}: arrays or tables nested too deeply") from None
     return parse_scenario(data, path)
