@@ -237,6 +237,10 @@ def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth:
     raise _fail(text, tree, f"{type(tree).__name__} is not allowed")
 
 
+_REL_OPS = {sympy.StrictLessThan: OP_LT, sympy.LessThan: OP_LE,
+            sympy.StrictGreaterThan: OP_GT, sympy.GreaterThan: OP_GE}
+
+
 def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
     """Postfix program for a sympy expression tree."""
     ops: list[int] = []
@@ -246,7 +250,75 @@ def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
         ops.append(op)
         args.append(arg)
 
+    def walk_condition(c) -> None:
+        """Emit a boolean as 0.0 / 1.0."""
+        if c in (True, False, sympy.S.true, sympy.S.false):
+            emit(OP_CONST, 1.0 if c in (True, sympy.S.true) else 0.0)
+        elif type(c) in _REL_OPS:
+            walk(c.lhs)
+            walk(c.rhs)
+            emit(_REL_OPS[type(c)])
+        elif isinstance(c, (sympy.Eq, sympy.Ne)):
+            walk(c.lhs)
+            walk(c.rhs)
+            emit(OP_LE)
+            walk(c.lhs)
+            walk(c.rhs)
+            emit(OP_GE)
+            emit(OP_MUL)
+            if isinstance(c, sympy.Ne):
+                emit(OP_NEG)
+                emit(OP_CONST, 1.0)
+                emit(OP_ADD)
+        elif isinstance(c, (sympy.And, sympy.Or)):
+            walk_condition(c.args[0])
+            for t in c.args[1:]:
+                walk_condition(t)
+                emit(OP_MUL if isinstance(c, sympy.And) else OP_MAX)
+        elif isinstance(c, sympy.Not):
+            emit(OP_CONST, 1.0)
+            walk_condition(c.args[0])
+            emit(OP_SUB)
+        elif isinstance(c, sympy.ITE):
+            select(lambda: walk_condition(c.args[0]), lambda: walk_condition(c.args[1]),
+                   lambda: walk_condition(c.args[2]))
+        else:
+            raise ExpressionError(f"cannot compile condition {c}")
+
+    def select(cond, if_true, if_false) -> None:
+        """c * x + (1 - c) * y for a condition c in {0, 1}."""
+        cond()
+        if_true()
+        emit(OP_MUL)
+        emit(OP_CONST, 1.0)
+        cond()
+        emit(OP_SUB)
+        if_false()
+        emit(OP_MUL)
+        emit(OP_ADD)
+
+    def walk_piecewise(pieces) -> None:
+        (val, c), rest = pieces[0], pieces[1:]
+        if c in (True, sympy.S.true) or not rest:
+            walk(val)
+        elif len(rest) == 1 and rest[0][0] == 0 and rest[0][1] in (True, sympy.S.true):
+            walk_condition(c)  # the form a comparison produces: condition * value
+            walk(val)
+            emit(OP_MUL)
+        else:
+            select(lambda: walk_condition(c), lambda: walk(val), lambda: walk_piecewise(rest))
+
     def walk(e: sympy.Basic) -> None:
+        if not e.is_Number and e.is_number and not isinstance(e, sympy.Piecewise):
+            # a constant sympy keeps symbolic (pi/4 from atan(1), E from exp(1), sqrt(2))
+            try:
+                value = complex(e.evalf())
+            except (TypeError, ValueError):
+                raise ExpressionError(f"constant {e} is not a real number") from None
+            if value.imag != 0.0 or not _in_range(value.real):
+                raise ExpressionError(f"constant {e} is not finite, real and at most {MAX_CONSTANT:g}")
+            emit(OP_CONST, value.real)
+            return
         if e.is_Number:
             if not _in_range(e):
                 raise ExpressionError(f"constant {e} is not finite or out of range (|x| <= {MAX_CONSTANT:g})")
@@ -276,22 +348,9 @@ def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
                 walk(t)
                 emit(code)
         elif isinstance(e, sympy.Piecewise):
-            # only the (1, rel), (0, True) form produced by comparisons
-            (val, rel), (other, _) = e.args
-            walk(rel.lhs)
-            walk(rel.rhs)
-            emit(
-                {
-                    sympy.StrictLessThan: OP_LT,
-                    sympy.LessThan: OP_LE,
-                    sympy.StrictGreaterThan: OP_GT,
-                    sympy.GreaterThan: OP_GE,
-                }[type(rel)]
-            )
-            emit(OP_CONST, float(val))  # val is the number 1 from the comparison's Piecewise
-            emit(OP_MUL)
-            if other != 0:
-                raise ExpressionError("unsupported piecewise form")
+            # comparisons give Piecewise((1, rel), (0, True)); sympy may merge products and
+            # derivatives into other pieces and conditions (And, Or, ITE...): select arithmetically
+            walk_piecewise(e.args)
         else:
             for cls, code in (
                 (sympy.exp, OP_EXP), (sympy.log, OP_LOG), (sympy.tanh, OP_TANH),

@@ -107,7 +107,9 @@ def _check_keys(src, table, data: dict, allowed: set, required: set = frozenset(
         if key not in allowed:
             near = difflib.get_close_matches(str(key), sorted(allowed), n=1)
             hint = f"; did you mean `{near[0]}`?" if near else f"; valid keys: {sorted(allowed)}"
-            raise ScenarioError(f"{src}: {_where(table)} unknown key `{key}`{hint}")
+            shown = key if isinstance(key, str) and key.strip() and key.isprintable() and "`" not in key \
+                else _REPR.repr(key)
+            raise ScenarioError(f"{src}: {_where(table)} unknown key `{shown}`{hint}")
     for key in sorted(required):
         if key not in data:
             raise ScenarioError(f"{src}: {_where(table)} missing key `{key}`")

@@ -214,6 +214,15 @@ def test_random_toml_like_text_gives_only_scenario_errors(parts, tmp_path):
         load_scenario(p)
 
 
+def test_empty_or_unprintable_unknown_keys_are_shown_quoted():
+    # regression: an empty key gave the message "unknown key ``"
+    for key in ("", " ", "\n", "a`b"):
+        data = copy.deepcopy(VALID)
+        data["scenario"][key] = 1
+        with pytest.raises(ScenarioError, match=re.escape(f"unknown key `{key!r}`")):
+            parse_scenario(data, "fuzz.toml")
+
+
 @pytest.mark.parametrize("text", [
     "a = " + "[" * 50_000 + "]" * 50_000,  # regression: the TOML reader raised RecursionError
     "a = " + "{b = " * 5000 + "1" + "}" * 5000,
