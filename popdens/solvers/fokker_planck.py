@@ -475,7 +475,7 @@ class FokkerPlanckSolver(SolverBase):
         if low > MAX_LOWEST_CELL_MASS:
             issues.append(("u_min", f"the lowest cell (reflecting boundary `u_min` = {self.grid.lower:.4g} mV) "
                                     f"holds {low:.3g} of the population (limit {MAX_LOWEST_CELL_MASS:g}); "
-                                    f"set u_min = {self.grid.lower - 4.0 * s_min / math.sqrt(2.0):.4g} mV or lower"))
+                                    f"use u_min = {self.grid.lower - 4.0 * s_min / math.sqrt(2.0):.4g} mV or lower"))
         return issues
 
     def diagnostics(self) -> dict:
