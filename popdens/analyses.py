@@ -129,14 +129,9 @@ def _with_sigma(population, sigma):
 
 
 def _save(fig, folder: Path, stem: str) -> list[str]:
-    import matplotlib.pyplot as plt
+    from .plotting import save_figure
 
-    names = []
-    for ext in ("png", "svg"):
-        fig.savefig(folder / f"{stem}.{ext}", dpi=150)
-        names.append(f"{stem}.{ext}")
-    plt.close(fig)
-    return names
+    return save_figure(fig, folder, stem)
 
 
 @dataclass(frozen=True)

@@ -1,7 +1,8 @@
 """Command line: ``popdens run``, ``check``, ``catalogue``, and the one-off analyses
 ``step``, ``gain``, ``stationary`` and ``transfer``.
 
-Exit codes: 0 success, 2 bad input (no traceback), 1 internal failure.
+Exit codes: 0 success, 2 bad input (no traceback), 1 numerical or internal failure,
+130 interrupted by the user (Ctrl-C; no partial output is kept).
 """
 
 from __future__ import annotations
@@ -9,11 +10,15 @@ from __future__ import annotations
 import argparse
 import logging
 import sys
+import warnings
 
 from . import __version__
-from .exceptions import ScenarioError
+from .exceptions import AccuracyWarning, ScenarioError
 
 __all__ = ["main"]
+
+#: Exit code after Ctrl-C (128 + SIGINT, the shell convention).
+EXIT_INTERRUPTED = 130
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -235,6 +240,8 @@ def _step_command(args) -> int:
     data = {"neuron": neuron, "noise": noise,
             "input": {"shape": "step", "t": args.at, "before": args.before, "after": args.after},
             "run": {"t_end": args.t_end, "record_interval": args.every, **({"dt": args.dt} if args.dt else {})}}
+    from .result import STATUS_INTERRUPTED
+
     sc = parse_scenario(data, "command line")
     try:
         res = simulate(sc.population, sc.drive, sc.t_end, sc.dt, record_interval=sc.record_interval)
@@ -242,6 +249,10 @@ def _step_command(args) -> int:
         from .exceptions import ScenarioError
 
         raise ScenarioError(f"command line: {exc}") from None
+    if res.status == STATUS_INTERRUPTED:
+        raise KeyboardInterrupt(res.message)
+    if not res.success:
+        print(f"popdens: error: {res.message}", file=sys.stderr)
     if args.csv:
         res.to_csv(args.csv)
         print(f"wrote {args.csv}")
@@ -252,10 +263,22 @@ def _step_command(args) -> int:
     return 0 if res.success else 1
 
 
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    print(f"popdens: warning: {message}", file=sys.stderr)
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit code."""
     args = _parser().parse_args(argv)
     logging.basicConfig(level=logging.WARNING, format="popdens: %(message)s")
+    with warnings.catch_warnings():
+        # accuracy warnings are shown once each, as one plain line, never raised
+        warnings.simplefilter("always", AccuracyWarning)
+        warnings.showwarning = _show_warning
+        return _main(args)
+
+
+def _main(args) -> int:
     from .scenario import HAZARDS, INPUTS, NEURON_MODELS, load_scenario
 
     try:
@@ -300,10 +323,17 @@ def main(argv: list[str] | None = None) -> int:
 
         summary = run_scenario(sc, args.out, overwrite=args.overwrite, progress=False if args.quiet else None)
         print(f"wrote {summary['output']}: {', '.join(summary['files'])}")
+        timing = summary["timing"]
         if "prediction" in summary:
             p = summary["prediction"]
+            if p["status"] != 0:
+                print(f"popdens: error: the prediction failed: {p['message']} (outputs kept for inspection)",
+                      file=sys.stderr)
+                return 1
             print(f"  {p['method']}: peak {p['peak_rate_hz']:.4g} Hz, final {p['final_rate_hz']:.4g} Hz "
-                  f"({p['diagnostics']['wall_time_s']:.3g} s)")
+                  f"({timing['prediction_s']:.3g} s)")
+            for msg in p["diagnostics"].get("accuracy_warnings", []):
+                print(f"  accuracy warning: {msg}")
         if "gain" in summary:
             g = summary["gain"]
             print(f"  gain: {g['points']} drives, rates {g['min_rate_hz']:.4g} to {g['max_rate_hz']:.4g} Hz")
@@ -314,16 +344,22 @@ def main(argv: list[str] | None = None) -> int:
                   "modulation)")
         if "montecarlo" in summary:
             m = summary["montecarlo"]
+            if m["status"] != 0:
+                print(f"popdens: error: the Monte Carlo run failed: {m['message']}", file=sys.stderr)
+                return 1
             print(f"  Monte Carlo N={m['n_neurons']}: {100 * m['fraction_within_4_se']:.1f}% of bins within "
-                  f"4 standard errors ({m['diagnostics']['wall_time_s']:.3g} s)")
+                  f"4 standard errors ({timing['montecarlo_s']:.3g} s)")
         print("  (model predictions from a research tool; not a basis for clinical or safety decisions)")
         return 0
     except (ScenarioError, FileExistsError) as exc:
         print(f"popdens: error: {exc}", file=sys.stderr)
         return 2
+    except ValueError as exc:  # misuse found by the library after loading (message names the setting)
+        print(f"popdens: error: {exc}", file=sys.stderr)
+        return 2
     except KeyboardInterrupt:
-        print("popdens: interrupted; no partial output was kept", file=sys.stderr)
-        return 1
+        print("popdens: interrupted by the user; no partial output was kept", file=sys.stderr)
+        return EXIT_INTERRUPTED
     except Exception as exc:  # internal failure: report briefly, keep the traceback for developers
         logging.getLogger(__name__).exception("internal error: %s", exc)
         return 1

@@ -6,7 +6,8 @@ reported in ``Result.status`` / ``Result.message`` instead.
 
 from __future__ import annotations
 
-__all__ = ["PopdensError", "ExpressionError", "ScenarioError", "ConvergenceError", "UnreachableTargetError"]
+__all__ = ["PopdensError", "ExpressionError", "ScenarioError", "ConvergenceError", "UnreachableTargetError",
+           "AccuracyWarning"]
 
 
 class PopdensError(Exception):
@@ -27,3 +28,13 @@ class ConvergenceError(PopdensError, RuntimeError):
 
 class UnreachableTargetError(PopdensError, ValueError):
     """An inverse-design target (rate, CV) is not reached by any admissible input."""
+
+
+class AccuracyWarning(UserWarning):
+    """A numerical setting is too coarse for accurate results.
+
+    The message names the setting (``dt``, ``n_cells``, ``u_min``...), the
+    measured quantity that exceeded its limit, and a value to use instead.
+    Each limit and the error measured at it are listed in DEVELOPERS.md
+    ("Guarantees").
+    """

@@ -15,6 +15,7 @@ compiled loops, so custom models need no run-time code generation.
 from __future__ import annotations
 
 import ast
+import decimal
 import math
 from dataclasses import dataclass, field
 from typing import Callable, Mapping, Sequence
@@ -33,6 +34,10 @@ MAX_LENGTH = 2000
 MAX_DEPTH = 60
 #: Largest literal exponent accepted in ``a ** n`` (guards against ``10**10**10``).
 MAX_LITERAL_EXPONENT = 64.0
+#: Largest magnitude of a literal or of a constant sub-expression (a margin below the
+#: largest double, 1.8e308, so that a product of two accepted numbers with a parameter
+#: cannot overflow unnoticed in a sub-expression that is checked).
+MAX_CONSTANT = 1e300
 
 # --- postfix op codes (shared with the compiled interpreter) -------------
 OP_CONST, OP_VAR = 0, 1
@@ -75,6 +80,31 @@ _CMPOPS = {
     ast.Gt: (sympy.StrictGreaterThan, OP_GT),
     ast.GtE: (sympy.GreaterThan, OP_GE),
 }
+
+
+def _in_range(x) -> bool:
+    """True if the number ``x`` (int, float or sympy number) is finite and |x| <= MAX_CONSTANT."""
+    try:
+        if isinstance(x, int):  # compare exactly: float() of a 400-digit int overflows
+            return abs(x) <= MAX_CONSTANT
+        f = float(x)
+    except (OverflowError, TypeError, ValueError):
+        return False
+    return math.isfinite(f) and abs(f) <= MAX_CONSTANT
+
+
+def _constant_checked(text, node, func, arg):
+    """``func(arg)``; a function of a constant must give a finite constant (``exp(710)`` does not)."""
+    if not getattr(arg, "is_number", False):
+        return func(arg)
+    try:
+        out = func(arg)
+        ok = _in_range(complex(out.evalf()).real) and complex(out.evalf()).imag == 0.0
+    except (TypeError, ValueError, ArithmeticError, decimal.InvalidOperation):
+        ok = False
+    if not ok:
+        raise _fail(text, node, f"constant is not a finite real number of at most {MAX_CONSTANT:g}")
+    return out
 
 
 def _fail(text: str, node: ast.AST | None, why: str) -> ExpressionError:
@@ -137,8 +167,8 @@ def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth:
         v = tree.value
         if isinstance(v, bool) or not isinstance(v, (int, float)):
             raise _fail(text, tree, "only numeric literals are allowed")
-        if not math.isfinite(float(v)) or abs(float(v)) > 1e300:
-            raise _fail(text, tree, "numeric literal out of range")
+        if not _in_range(v):
+            raise _fail(text, tree, f"numeric literal out of range (|x| <= {MAX_CONSTANT:g})")
         return sympy.Float(float(v)) if isinstance(v, float) else sympy.Integer(v)
     if isinstance(tree, ast.Name):
         if tree.id.startswith("_"):
@@ -167,7 +197,20 @@ def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth:
                     raise _fail(text, tree, f"literal exponent larger than {MAX_LITERAL_EXPONENT:g}")
             if isinstance(tree.right, ast.BinOp) and isinstance(tree.right.op, ast.Pow):
                 raise _fail(text, tree, "nested powers are not allowed")
-        return op[0](rec(tree.left), rec(tree.right))
+        left, right = rec(tree.left), rec(tree.right)
+        if isinstance(tree.op, ast.Pow) and left.is_Number and right.is_Number:
+            # sympy would evaluate a power of exact numbers exactly: ((2**64)**64)**64 has
+            # 78914 digits and each further level multiplies that by 64, so check the size first
+            try:
+                size = abs(float(right)) * math.log10(abs(float(left))) if left != 0 else 0.0
+            except (OverflowError, ValueError, TypeError):
+                size = math.inf
+            if not size <= math.log10(MAX_CONSTANT):
+                raise _fail(text, tree, f"constant power out of range (|x| <= {MAX_CONSTANT:g})")
+        result = op[0](left, right)
+        if getattr(result, "is_Number", False) and not _in_range(result):
+            raise _fail(text, tree, f"constant out of range (|x| <= {MAX_CONSTANT:g})")
+        return result
     if isinstance(tree, ast.Compare):
         if len(tree.ops) != 1:
             raise _fail(text, tree, "chained comparisons are not allowed")
@@ -185,13 +228,17 @@ def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth:
         if fname in _UNARY:
             if len(tree.args) != 1:
                 raise _fail(text, tree, f"{fname}() takes exactly one argument")
-            return _UNARY[fname][0](rec(tree.args[0]))
+            return _constant_checked(text, tree, _UNARY[fname][0], rec(tree.args[0]))
         if fname in _BINARY:
             if len(tree.args) != 2:
                 raise _fail(text, tree, f"{fname}() takes exactly two arguments")
             return _BINARY[fname][0](rec(tree.args[0]), rec(tree.args[1]))
         raise _fail(text, tree, f"unknown function {fname!r}; allowed: {list(FUNCTIONS)}")
     raise _fail(text, tree, f"{type(tree).__name__} is not allowed")
+
+
+_REL_OPS = {sympy.StrictLessThan: OP_LT, sympy.LessThan: OP_LE,
+            sympy.StrictGreaterThan: OP_GT, sympy.GreaterThan: OP_GE}
 
 
 def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
@@ -203,8 +250,78 @@ def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
         ops.append(op)
         args.append(arg)
 
+    def walk_condition(c) -> None:
+        """Emit a boolean as 0.0 / 1.0."""
+        if c in (True, False, sympy.S.true, sympy.S.false):
+            emit(OP_CONST, 1.0 if c in (True, sympy.S.true) else 0.0)
+        elif type(c) in _REL_OPS:
+            walk(c.lhs)
+            walk(c.rhs)
+            emit(_REL_OPS[type(c)])
+        elif isinstance(c, (sympy.Eq, sympy.Ne)):
+            walk(c.lhs)
+            walk(c.rhs)
+            emit(OP_LE)
+            walk(c.lhs)
+            walk(c.rhs)
+            emit(OP_GE)
+            emit(OP_MUL)
+            if isinstance(c, sympy.Ne):
+                emit(OP_NEG)
+                emit(OP_CONST, 1.0)
+                emit(OP_ADD)
+        elif isinstance(c, (sympy.And, sympy.Or)):
+            walk_condition(c.args[0])
+            for t in c.args[1:]:
+                walk_condition(t)
+                emit(OP_MUL if isinstance(c, sympy.And) else OP_MAX)
+        elif isinstance(c, sympy.Not):
+            emit(OP_CONST, 1.0)
+            walk_condition(c.args[0])
+            emit(OP_SUB)
+        elif isinstance(c, sympy.ITE):
+            select(lambda: walk_condition(c.args[0]), lambda: walk_condition(c.args[1]),
+                   lambda: walk_condition(c.args[2]))
+        else:
+            raise ExpressionError(f"cannot compile condition {c}")
+
+    def select(cond, if_true, if_false) -> None:
+        """c * x + (1 - c) * y for a condition c in {0, 1}."""
+        cond()
+        if_true()
+        emit(OP_MUL)
+        emit(OP_CONST, 1.0)
+        cond()
+        emit(OP_SUB)
+        if_false()
+        emit(OP_MUL)
+        emit(OP_ADD)
+
+    def walk_piecewise(pieces) -> None:
+        (val, c), rest = pieces[0], pieces[1:]
+        if c in (True, sympy.S.true) or not rest:
+            walk(val)
+        elif len(rest) == 1 and rest[0][0] == 0 and rest[0][1] in (True, sympy.S.true):
+            walk_condition(c)  # the form a comparison produces: condition * value
+            walk(val)
+            emit(OP_MUL)
+        else:
+            select(lambda: walk_condition(c), lambda: walk(val), lambda: walk_piecewise(rest))
+
     def walk(e: sympy.Basic) -> None:
+        if not e.is_Number and e.is_number and not isinstance(e, sympy.Piecewise):
+            # a constant sympy keeps symbolic (pi/4 from atan(1), E from exp(1), sqrt(2))
+            try:
+                value = complex(e.evalf())
+            except (TypeError, ValueError):
+                raise ExpressionError(f"constant {e} is not a real number") from None
+            if value.imag != 0.0 or not _in_range(value.real):
+                raise ExpressionError(f"constant {e} is not finite, real and at most {MAX_CONSTANT:g}")
+            emit(OP_CONST, value.real)
+            return
         if e.is_Number:
+            if not _in_range(e):
+                raise ExpressionError(f"constant {e} is not finite or out of range (|x| <= {MAX_CONSTANT:g})")
             emit(OP_CONST, float(e))
         elif e.is_Symbol:
             emit(OP_VAR, float(var_index[e]))
@@ -231,22 +348,9 @@ def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
                 walk(t)
                 emit(code)
         elif isinstance(e, sympy.Piecewise):
-            # only the (1, rel), (0, True) form produced by comparisons
-            (val, rel), (other, _) = e.args
-            walk(rel.lhs)
-            walk(rel.rhs)
-            emit(
-                {
-                    sympy.StrictLessThan: OP_LT,
-                    sympy.LessThan: OP_LE,
-                    sympy.StrictGreaterThan: OP_GT,
-                    sympy.GreaterThan: OP_GE,
-                }[type(rel)]
-            )
-            emit(OP_CONST, float(val))  # val is the number 1 from the comparison's Piecewise
-            emit(OP_MUL)
-            if other != 0:
-                raise ExpressionError("unsupported piecewise form")
+            # comparisons give Piecewise((1, rel), (0, True)); sympy may merge products and
+            # derivatives into other pieces and conditions (And, Or, ITE...): select arithmetically
+            walk_piecewise(e.args)
         else:
             for cls, code in (
                 (sympy.exp, OP_EXP), (sympy.log, OP_LOG), (sympy.tanh, OP_TANH),
@@ -373,9 +477,18 @@ def parse_expression(
         expr = _to_sympy(text.strip(), tree, names)
     except RecursionError:
         raise ExpressionError(f"expression {text!r} nests too deeply") from None
+    except ExpressionError:
+        raise
+    except (TypeError, ValueError, ArithmeticError) as exc:  # sympy refused a combination
+        raise ExpressionError(f"expression {text!r} rejected: {exc}") from None
     if not isinstance(expr, sympy.Basic) or (getattr(expr, "is_Relational", False)):
         raise ExpressionError(f"expression {text!r} does not evaluate to a number")
-    return _from_sympy(text, variables, parameters, expr)
+    try:
+        return _from_sympy(text, variables, parameters, expr)
+    except ExpressionError as exc:
+        raise ExpressionError(f"expression {text!r} rejected: {exc}") from None
+    except (TypeError, ValueError, ArithmeticError, RecursionError) as exc:
+        raise ExpressionError(f"expression {text!r} rejected: {exc}") from None
 
 
 # ---------------------------------------------------------------- compiled

@@ -21,7 +21,7 @@ from ._recording import block_ends, downsample, make_grid
 from .drive import as_drive
 from .noise import EscapeNoise, Population, WhiteNoise
 from .progress import Progress
-from .result import STATUS_FAILED, STATUS_OK, Result
+from .result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK, Result
 
 __all__ = ["montecarlo"]
 
@@ -223,7 +223,7 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     except FloatingPointError as exc:
         status, message = STATUS_FAILED, str(exc)
     except KeyboardInterrupt:
-        status, message = STATUS_FAILED, f"interrupted by the user at t = {k * grid.dt:g} ms"
+        status, message = STATUS_INTERRUPTED, f"interrupted by the user at t = {k * grid.dt:g} ms"
         logger.warning(message)
     finally:
         bar.close()
@@ -237,6 +237,7 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
         spike_ids=spk_i[:n_spk].copy() if record_spikes else None,
         diagnostics={"wall_time_s": time.perf_counter() - wall0, "version": __version__,
                      "burn_in_ms": burn_in if initial == "stationary" else 0.0,
-                     "n_spikes": int(counts[:k].sum()), "dt_ms": grid.dt},
+                     "n_spikes": int(counts[:k].sum()), "dt_ms": grid.dt, "initial": initial,
+                     "seed": seed if isinstance(seed, (int, np.integer)) or seed is None else "generator"},
     )
 

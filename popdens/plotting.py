@@ -5,8 +5,28 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate", "plot_steady_state",
+__all__ = ["save_figure", "plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate", "plot_steady_state",
            "plot_transfer"]
+
+
+def save_figure(fig, folder, stem: str) -> list[str]:
+    """Save ``fig`` as ``stem.png`` and ``stem.svg`` in ``folder`` and close it; returns the file names.
+
+    No dates and fixed SVG element ids, so the same figure gives the same bytes.
+    """
+    from pathlib import Path
+
+    import matplotlib.pyplot as plt
+
+    from . import __version__
+
+    folder = Path(folder)
+    stamp = f"popdens {__version__}"
+    with plt.rc_context({"svg.hashsalt": "popdens"}):
+        fig.savefig(folder / f"{stem}.png", dpi=150, metadata={"Software": stamp})
+        fig.savefig(folder / f"{stem}.svg", metadata={"Date": None, "Creator": stamp})
+    plt.close(fig)
+    return [f"{stem}.png", f"{stem}.svg"]
 
 
 def _axes(ax):

@@ -15,6 +15,11 @@ __all__ = ["Result", "load_result"]
 
 STATUS_OK = 0
 STATUS_FAILED = -1
+#: Stopped by the user (Ctrl-C); the result holds the steps done before.
+STATUS_INTERRUPTED = -2
+#: Diagnostics that differ between identical runs; kept out of output files so that the
+#: same scenario and seed give bit-identical files (wall times go to ``timing.json``).
+VOLATILE_DIAGNOSTICS = ("wall_time_s",)
 
 
 def _atomic_write(path: Path, write) -> None:
@@ -69,7 +74,8 @@ class Result:
     method : str
         Which computation produced the result.
     status : int
-        0 on success, -1 if the computation stopped early (see ``message``).
+        0 on success, -1 if the computation failed or stopped early, -2 if it
+        was interrupted by the user (see ``message``).
     message : str
         Human-readable reason for the status.
     dt : float
@@ -152,11 +158,13 @@ class Result:
     def to_csv(self, path: str | Path, *, header_extra: dict | None = None) -> Path:
         """Write ``t, rate, mean_u, refractory_fraction, drive`` as CSV (atomic).
 
-        The header lines (``#``) record units, method, version and parameters.
+        The header line (``#``) records units, method, version, parameters and
+        the numerical settings (diagnostics without wall times), and nothing
+        that differs between identical runs.
         """
         path = Path(path)
         meta = {"method": self.method, "status": self.status, "message": self.message,
-                "dt_ms": self.dt, **(header_extra or {})}
+                "dt_ms": self.dt, "settings": self.settings(), **(header_extra or {})}
         if self.population is not None:
             meta["neuron"] = {"model": type(self.population.neuron).__name__, **self.population.neuron.parameters()}
         meta["version"] = self.diagnostics.get("version")
@@ -167,6 +175,10 @@ class Result:
         text = "\n".join(lines) + "\n" + body + "\n"
         _atomic_write(path, lambda fh: fh.write(text.encode("utf-8")))
         return path
+
+    def settings(self) -> dict:
+        """Numerical settings and diagnostics that identical runs share (no wall times)."""
+        return {k: v for k, v in self.diagnostics.items() if k not in VOLATILE_DIAGNOSTICS}
 
     def save(self, path: str | Path) -> Path:
         """Save arrays (``.npz``) with JSON metadata; reload with :func:`load_result`."""

@@ -3,19 +3,27 @@
 from __future__ import annotations
 
 import json
+import math
 import shutil
 import tempfile
+import time
 from pathlib import Path
 
 import numpy as np
 
 from . import __version__
 from .montecarlo import montecarlo
-from .result import _jsonable
+from .exceptions import ScenarioError
+from .result import STATUS_INTERRUPTED, _jsonable
 from .scenario import Scenario
 from .simulate import simulate
 
 __all__ = ["run_scenario"]
+
+
+#: File written beside the outputs with the wall times: the only output that differs
+#: between two runs of the same scenario and seed.
+TIMING_FILE = "timing.json"
 
 
 def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwrite: bool = False,
@@ -23,17 +31,48 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
     """Run ``scenario``: the time-domain prediction (and Monte Carlo twin) and the analyses it names.
 
     Outputs go to a temporary folder next to the destination, which is renamed
-    into place only when complete, so an interrupted run leaves no partial
-    output.  An existing folder is replaced only with ``overwrite=True``.
+    into place only when complete, so an interrupted or failed run leaves no
+    partial output (and an existing folder being replaced stays intact until
+    the new one is complete).  An existing folder is replaced only with
+    ``overwrite=True`` and only if it is a popdens output folder (it holds the
+    ``summary.json`` of a run).  Without ``output`` the destination is the
+    scenario's ``output``, which must lie inside the scenario's folder, also
+    after following symbolic links.
+
+    Every file except ``timing.json`` is bit-identical between runs of the
+    same scenario with the same seed.
 
     Returns
     -------
     dict
-        The summary written to ``summary.json``.
+        The summary written to ``summary.json``, plus ``output`` (the folder)
+        and ``timing`` (wall times, s).
+
+    Raises
+    ------
+    ScenarioError
+        If the scenario's output folder leads outside the scenario's folder.
+    FileExistsError
+        If the destination exists and may not be replaced.
+    KeyboardInterrupt
+        If the user interrupted the run (nothing is written then).
     """
-    dest = Path(output) if output is not None else scenario.source.parent / scenario.output
-    if dest.exists() and not overwrite:
-        raise FileExistsError(f"output folder {dest} exists; choose another or pass overwrite")
+    if output is not None:
+        dest = Path(output)
+    else:
+        base = scenario.source.parent
+        dest = base / scenario.output
+        inside = dest.resolve()
+        if not inside.is_relative_to(base.resolve()) or inside == base.resolve():
+            raise ScenarioError(f"{scenario.source}: [scenario] key `output` = {str(scenario.output)!r} leads "
+                                f"to {inside}, outside the scenario's folder (through a symbolic link); "
+                                f"give the folder with --out instead")
+    if dest.exists() or dest.is_symlink():
+        if not overwrite:
+            raise FileExistsError(f"output folder {dest} exists; choose another or pass overwrite")
+        if dest.is_symlink() or not _is_output_folder(dest):
+            raise FileExistsError(f"{dest} exists and is not a popdens output folder (no summary.json of a "
+                                  f"run); refusing to replace it")
     dest.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=f".{dest.name}.", dir=dest.parent))
     try:
@@ -46,23 +85,26 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
             "version": __version__,
             "caution": "model predictions for a research tool; not for clinical or safety decisions",
         }
+        timing = {}
         figures = []  # (file name, caption) pairs for the report
         if scenario.runs_in_time:
-            figures += _time_domain(scenario, tmp, header, summary, progress)
+            figures += _time_domain(scenario, tmp, header, summary, timing, progress)
         for name, analysis in scenario.analyses:
+            t0 = time.perf_counter()
             summary[name] = analysis.write(scenario.population, tmp, header)
+            timing[f"{name}_s"] = time.perf_counter() - t0
             png = next(f for f in summary[name]["figures"] if f.endswith(".png"))
             figures.append((png, CAPTIONS[name]))
-        summary["files"] = sorted(p.name for p in tmp.iterdir()) + ["report.html", "summary.json"]
+        summary["files"] = sorted([p.name for p in tmp.iterdir()] + ["report.html", "summary.json", TIMING_FILE])
         (tmp / "summary.json").write_text(json.dumps(_jsonable(summary), indent=2, sort_keys=True) + "\n")
         (tmp / "report.html").write_text(_html_report(scenario, summary, tmp, figures), encoding="utf-8")
-        if dest.exists():
-            shutil.rmtree(dest)
-        tmp.rename(dest)
+        (tmp / TIMING_FILE).write_text(json.dumps(timing, indent=2, sort_keys=True) + "\n")
+        _move_into_place(tmp, dest)
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
     summary["output"] = str(dest)
+    summary["timing"] = timing
     return summary
 
 
@@ -72,50 +114,90 @@ CAPTIONS = {"gain": "Gain function: stationary rate against mean drive",
             "transfer": "Transfer function: magnitude and phase against frequency"}
 
 
-def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, progress) -> list:
+def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:
     """The density prediction, and the Monte Carlo twin if requested; returns the report figures."""
     pred = simulate(scenario.population, scenario.drive, scenario.t_end, scenario.dt,
                     record_interval=scenario.record_interval, snapshot_interval=scenario.snapshot_interval,
                     progress=progress)
-    header = {**header, "units": "t ms, rate Hz, u mV, drive mV"}
+    _stop_if_interrupted(pred)
+    header = {**header, "units": "t ms, rate Hz, u mV, drive mV", "t_end_ms": scenario.t_end,
+              "record_interval_ms": scenario.record_interval}
     pred.to_csv(tmp / "prediction.csv", header_extra=header)
+    timing["prediction_s"] = pred.diagnostics.get("wall_time_s")
+    summary["settings"] = {"t_end_ms": scenario.t_end, "dt_ms": pred.dt,
+                           "record_interval_ms": scenario.record_interval,
+                           "snapshot_interval_ms": scenario.snapshot_interval,
+                           "montecarlo_neurons": scenario.montecarlo_neurons, "seed": scenario.seed}
     summary["prediction"] = {"method": pred.method, "status": pred.status, "message": pred.message,
-                             "peak_rate_hz": float(np.max(pred.rate)), "final_rate_hz": float(pred.rate[-1]),
-                             "diagnostics": pred.diagnostics}
+                             "peak_rate_hz": _finite_or_none(np.max(pred.rate)),
+                             "final_rate_hz": _finite_or_none(pred.rate[-1]),
+                             "diagnostics": pred.settings()}
     mc = None
     if scenario.montecarlo_neurons:
         mc = montecarlo(scenario.population, scenario.drive, scenario.t_end, scenario.montecarlo_neurons,
                         dt=pred.dt, seed=scenario.seed, record_interval=scenario.record_interval,
                         progress=progress)
+        _stop_if_interrupted(mc)
         mc.to_csv(tmp / "montecarlo.csv", header_extra=header)
-        se = mc.rate_standard_error()[1:]
-        z = np.abs(mc.rate[1:] - pred.rate[1:]) / np.maximum(se, 1e-12)
+        n_cmp = min(mc.rate.size, pred.rate.size)
+        se = mc.rate_standard_error()[1:n_cmp]
+        z = np.abs(mc.rate[1:n_cmp] - pred.rate[1:n_cmp]) / np.maximum(se, 1e-12)
+        timing["montecarlo_s"] = mc.diagnostics.get("wall_time_s")
         summary["montecarlo"] = {"n_neurons": mc.n_neurons, "seed": scenario.seed,
-                                 "fraction_within_4_se": float(np.mean(z <= 4.0)),
-                                 "diagnostics": mc.diagnostics}
+                                 "status": mc.status, "message": mc.message,
+                                 "fraction_within_4_se": float(np.mean(z <= 4.0)) if z.size else None,
+                                 "diagnostics": mc.settings()}
     return _figures(pred, mc, tmp)
 
 
-def _figures(pred, mc, folder: Path) -> list:
-    import matplotlib.pyplot as plt
+def _finite_or_none(x):
+    x = float(x)
+    return x if math.isfinite(x) else None
 
-    from .plotting import plot_comparison, plot_density_map, plot_rate
+
+def _stop_if_interrupted(res) -> None:
+    """A run the user interrupted is not an output: stop here, the caller removes the temporary folder."""
+    if res.status == STATUS_INTERRUPTED:
+        raise KeyboardInterrupt(res.message)
+
+
+def _is_output_folder(path: Path) -> bool:
+    """True for a folder written by :func:`run_scenario` (its summary.json names a scenario hash)."""
+    try:
+        data = json.loads((path / "summary.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    return isinstance(data, dict) and "scenario_sha256_16" in data and "version" in data
+
+
+def _move_into_place(tmp: Path, dest: Path) -> None:
+    """Rename the complete folder ``tmp`` to ``dest``; an old ``dest`` is removed only afterwards."""
+    if not dest.exists():
+        tmp.rename(dest)
+        return
+    old = Path(tempfile.mkdtemp(prefix=f".{dest.name}.old.", dir=dest.parent))
+    old.rmdir()
+    dest.rename(old)
+    try:
+        tmp.rename(dest)
+    except BaseException:
+        old.rename(dest)
+        raise
+    shutil.rmtree(old, ignore_errors=True)
+
+
+def _figures(pred, mc, folder: Path) -> list:
+    from .plotting import plot_comparison, plot_density_map, plot_rate, save_figure
 
     if mc is not None:
         fig = plot_comparison(pred, mc)
     else:
-        ax = plot_rate(pred)
-        fig = ax.figure
-    for ext in ("png", "svg"):
-        fig.savefig(folder / f"rate.{ext}", dpi=150)
-    plt.close(fig)
+        fig = plot_rate(pred).figure
+    save_figure(fig, folder, "rate")
     out = [("rate.png", "Population rate over time, with the drive beneath"
             + (" (solver against the Monte Carlo twin)" if mc is not None else ""))]
     if pred.snapshots is not None and len(pred.snapshot_t) >= 2:
-        ax = plot_density_map(pred)
-        for ext in ("png", "svg"):
-            ax.figure.savefig(folder / f"density.{ext}", dpi=150)
-        plt.close(ax.figure)
+        save_figure(plot_density_map(pred).figure, folder, "density")
         out.append(("density.png", f"Density over time ({pred.axis_name})"))
     return out
 
@@ -156,7 +238,8 @@ def _html_report(scenario: Scenario, summary: dict, folder: Path, figures: list)
             run_rows.append((f"{name}: mu = {st['mu_mV']:g} mV",
                              f"rate {st['rate_hz']:.6g} Hz, CV {st['cv']:.4g}, mean u {st['mean_u_mV']:.4g} mV"))
     if "montecarlo" in summary:
-        diag_rows += [("Monte Carlo: bins within 4 SE", f"{100 * summary['montecarlo']['fraction_within_4_se']:.1f}%")]
+        frac = summary["montecarlo"]["fraction_within_4_se"]
+        diag_rows += [("Monte Carlo: bins within 4 SE", "n/a" if frac is None else f"{100 * frac:.1f}%")]
         diag_rows += [(f"Monte Carlo: {k}", v) for k, v in summary["montecarlo"]["diagnostics"].items()]
     title = html.escape(scenario.title)
     return f"""<!DOCTYPE html>

@@ -23,6 +23,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import math
+import reprlib
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
@@ -30,6 +31,7 @@ from typing import Any
 
 from . import drive as drive_mod
 from . import hazard as hazard_mod
+from . import _validation as v
 from .analyses import ANALYSIS_TABLES, parse_analyses
 from .exceptions import ExpressionError, ScenarioError
 from .models import EIF, LIF, PIF, QIF, CustomNeuron
@@ -65,6 +67,11 @@ SCENARIO_KEYS = {"title", "output", "notes"}
 TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run"} | set(ANALYSIS_TABLES)
 #: Largest accepted number of Monte Carlo neurons in a scenario.
 MAX_NEURONS = 10_000_000
+#: Largest accepted number of time steps in a scenario: the solvers keep three
+#: float64 arrays per step (1.2 GB at this limit), so more would exhaust memory.
+MAX_STEPS = 50_000_000
+#: Time step (ms) assumed when a scenario gives none (the solvers' default).
+DEFAULT_DT = 0.1
 
 
 @dataclass(frozen=True)
@@ -94,9 +101,17 @@ class Scenario:
 
 
 def _err(src, table, key, value, expected) -> ScenarioError:
-    where = f"[{table}]" if table else "top level"
+    where = _where(table)
     k = f" key `{key}`" if key else ""
-    return ScenarioError(f"{src}: {where}{k} = {value!r}: expected {expected}")
+    return ScenarioError(f"{src}: {where}{k} = {_REPR.repr(value)}: expected {expected}")
+
+
+_REPR = reprlib.Repr()
+_REPR.maxstring, _REPR.maxother, _REPR.maxlevel, _REPR.maxlist, _REPR.maxdict = 80, 80, 3, 8, 8
+
+
+def _where(table: str) -> str:
+    return f"[{table}]" if table else "top level"
 
 
 def _check_keys(src, table, data: dict, allowed: set, required: set = frozenset()):
@@ -106,23 +121,32 @@ def _check_keys(src, table, data: dict, allowed: set, required: set = frozenset(
         if key not in allowed:
             near = difflib.get_close_matches(str(key), sorted(allowed), n=1)
             hint = f"; did you mean `{near[0]}`?" if near else f"; valid keys: {sorted(allowed)}"
-            raise ScenarioError(f"{src}: [{table}] unknown key `{key}`{hint}")
+            shown = key if isinstance(key, str) and key.strip() and key.isprintable() and "`" not in key \
+                else _REPR.repr(key)
+            raise ScenarioError(f"{src}: {_where(table)} unknown key `{shown}`{hint}")
     for key in sorted(required):
         if key not in data:
-            raise ScenarioError(f"{src}: [{table}] missing key `{key}`")
+            raise ScenarioError(f"{src}: {_where(table)} missing key `{key}`")
 
 
 def _number(src, table, key, value) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(float(value)):
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
         raise _err(src, table, key, value, "a finite number")
-    return float(value)
+    try:
+        x = float(value)  # a TOML integer has no size limit: float() may overflow
+    except OverflowError:
+        x = math.inf
+    if not math.isfinite(x):
+        raise _err(src, table, key, value, "a finite number")
+    return x
 
 
-def _build(src, table, cls, params: dict):
+def _build(src, table, cls, params: dict, text_key: str | None = None):
     try:
         return cls(**params)
     except ExpressionError as exc:
-        raise ScenarioError(f"{src}: [{table}] {exc}") from None
+        key = f" key `{text_key}`:" if text_key and text_key in params else ""
+        raise ScenarioError(f"{src}: [{table}]{key} {exc}") from None
     except (ValueError, TypeError) as exc:
         raise ScenarioError(f"{src}: [{table}] {exc}") from None
 
@@ -133,7 +157,7 @@ def _select(src, table, value, selector: str, registry: dict):
         raise _err(src, table, None, value, "a table")
     items = dict(value)
     name = items.pop(selector, None)
-    if name not in registry:
+    if not isinstance(name, str) or name not in registry:
         raise _err(src, table, selector, name, f"one of {sorted(registry)}")
     return items, name, registry[name]
 
@@ -161,10 +185,10 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     _check_keys(src, "", data, TOP_LEVEL, {"neuron", "noise"})
     if ("input" in data) != ("run" in data):
         missing = "run" if "input" in data else "input"
-        raise ScenarioError(f"{src}: a time-domain run needs both [input] and [run]; [{missing}] is missing")
+        raise ScenarioError(f"{src}: missing table `{missing}`: a time-domain run needs both [input] and [run]")
     if "run" not in data and not any(k in data for k in ANALYSIS_TABLES):
-        raise ScenarioError(f"{src}: nothing to compute: add [input] and [run] for a time-domain run, or one "
-                            f"of the analysis tables {', '.join('[' + k + ']' for k in ANALYSIS_TABLES)}")
+        raise ScenarioError(f"{src}: nothing to compute: add the tables `input` and `run` for a time-domain "
+                            f"run, or one of the analysis tables {', '.join('`' + k + '`' for k in ANALYSIS_TABLES)}")
     meta = data.get("scenario", {})
     _check_keys(src, "scenario", meta, SCENARIO_KEYS)
     title = meta.get("title", Path(src).stem)
@@ -173,14 +197,12 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     out = meta.get("output", f"{Path(src).stem}-output")
     if not isinstance(out, str) or not out.strip():
         raise _err(src, "scenario", "output", out, "a folder name")
-    out_path = Path(out)
-    if out_path.is_absolute() or ".." in out_path.parts:
-        raise _err(src, "scenario", "output", out, "a relative folder inside the scenario's folder")
+    out_path = _output_folder(src, out)
 
     # neuron
     nd, _, (cls, allowed, optional) = _select(src, "neuron", data["neuron"], "model", NEURON_MODELS)
     _check_keys(src, "neuron", nd, allowed, allowed - optional)
-    neuron = _build(src, "neuron", cls, _model_params(src, "neuron", nd, text_key="drift"))
+    neuron = _build(src, "neuron", cls, _model_params(src, "neuron", nd, text_key="drift"), "drift")
 
     # noise
     no = data["noise"]
@@ -193,7 +215,7 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
         required = hallowed - {"parameters"}
         _check_keys(src, "noise.hazard", hz, hallowed, required)
         hp = _model_params(src, "noise.hazard", hz, text_key="expression")
-        noise = EscapeNoise(_build(src, "noise.hazard", hcls, hp))
+        noise = EscapeNoise(_build(src, "noise.hazard", hcls, hp, "expression"))
     elif kind == "white":
         _check_keys(src, "noise", no, {"kind", "sigma"}, {"kind", "sigma"})
         noise = _build(src, "noise", WhiteNoise, {"sigma": _number(src, "noise", "sigma", no["sigma"])})
@@ -244,9 +266,45 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     seed = run.get("seed", 0)
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise _err(src, "run", "seed", seed, "a non-negative integer")
+    _check_time_grid(src, t_end, dt, rec, snap)
     return Scenario(source=Path(src), title=title, output=out_path, population=population, drive=drv,
                     t_end=t_end, dt=dt, record_interval=rec, montecarlo_neurons=n_mc, seed=seed,
                     digest=digest, raw=data, snapshot_interval=snap, analyses=analyses)
+
+
+def _output_folder(src, out: str) -> Path:
+    """The scenario's ``output``: a plain relative folder below the scenario's folder.
+
+    Rule (documented in DEVELOPERS.md, "Guarantees"): not absolute, no ``..``, not the
+    scenario's folder itself (``.``), no control characters.  Only ``--out`` on the
+    command line (or ``output=`` in :func:`popdens.runner.run_scenario`) may point
+    elsewhere.  Symbolic links that lead outside are refused when the run starts.
+    """
+    expected = "a relative folder below the scenario's folder (no `..`, not absolute, not `.`)"
+    if any(ord(c) < 32 or ord(c) == 127 for c in out):
+        raise _err(src, "scenario", "output", out, expected + ", without control characters")
+    path = Path(out)
+    if path.is_absolute() or path.drive or ".." in path.parts or not path.parts or "\\" in out:
+        raise _err(src, "scenario", "output", out, expected)
+    return path
+
+
+def _check_time_grid(src, t_end, dt, rec, snap=None) -> None:
+    """Refuse run settings that no solver can use, before any work starts."""
+    from ._recording import make_grid  # noqa: PLC0415 - avoid a cycle at import
+
+    step = DEFAULT_DT if dt is None else dt
+    key = "dt" if dt is not None else "t_end"
+    try:
+        n = v.positive("t_end", t_end) / v.positive("dt", step)
+        if n > MAX_STEPS:
+            raise ValueError(f"`t_end` / `dt` = {n:.3g} steps is more than the limit of {MAX_STEPS:.0e}; "
+                             f"use a larger `dt` or split the run")
+        make_grid(t_end, step, rec, snap)
+    except ValueError as exc:
+        msg = str(exc)
+        named = [k for k in ("record_interval", "snapshot_interval", "t_end", "dt") if f"`{k}`" in msg]
+        raise ScenarioError(f"{src}: [run] key `{named[0] if named else key}`: {msg}") from None
 
 
 def _flatten(d: Any, prefix=""):
@@ -276,4 +334,6 @@ def load_scenario(path: str | Path) -> Scenario:
         raise ScenarioError(f"{path}: not UTF-8 text") from None
     except tomllib.TOMLDecodeError as exc:
         raise ScenarioError(f"{path}: TOML syntax error: {exc}") from None
+    except RecursionError:  # the TOML reader recurses once per nested array or inline table
+        raise ScenarioError(f"{path}: arrays or tables nested too deeply") from None
     return parse_scenario(data, path)

@@ -5,6 +5,7 @@ from __future__ import annotations
 import inspect
 import logging
 import time
+import warnings
 
 import numpy as np
 
@@ -13,7 +14,8 @@ from ._recording import block_ends, downsample, make_grid
 from .drive import as_drive
 from .noise import Population, WhiteNoise
 from .progress import Progress
-from .result import STATUS_FAILED, STATUS_OK, Result
+from .exceptions import AccuracyWarning
+from .result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK, Result
 from .solvers import resolve_method
 
 __all__ = ["simulate"]
@@ -24,6 +26,22 @@ logger = logging.getLogger(__name__)
 DEFAULT_DT = 0.1
 #: Tolerance on total probability before a run is flagged as failed.
 MASS_TOLERANCE = 1e-9
+
+
+class _AccuracyGuard:
+    """Turns a solver's ``accuracy_issues`` into one AccuracyWarning per setting."""
+
+    def __init__(self, solver):
+        self.solver = solver
+        self.seen: set[str] = set()
+        self.messages: list[str] = []
+
+    def check(self, mu, sigma) -> None:
+        for setting, msg in self.solver.accuracy_issues(mu, sigma):
+            if setting not in self.seen:
+                self.seen.add(setting)
+                self.messages.append(msg)
+                warnings.warn(msg, AccuracyWarning, stacklevel=3)
 
 
 def simulate(population, drive, t_end, dt=None, *, method=None, initial="stationary",
@@ -72,6 +90,13 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     ValueError
         For invalid arguments (the message names the argument).
 
+    Warns
+    -----
+    AccuracyWarning
+        Once per setting (``dt``, ``n_cells``, ``u_min``...) that is too coarse
+        for the state reached, checked at the start and after every block of
+        steps; the messages are also kept in ``diagnostics["accuracy_warnings"]``.
+
     Examples
     --------
     >>> import popdens
@@ -102,6 +127,8 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     if not np.isfinite(mu0) or (sigma0 is not None and not np.isfinite(sigma0)):
         raise ValueError("the drive is not finite at t = 0")
     solver.initialize(mu0, sigma0, initial)
+    guard = _AccuracyGuard(solver)
+    guard.check(np.array([mu0]), None if sigma0 is None else np.array([sigma0]))
     rate0 = solver.instantaneous_rate(mu0, sigma0)
     meanu0 = solver.mean_potential()
     refr0 = solver.refractory_fraction()
@@ -134,12 +161,13 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
             if solver.status != STATUS_OK:
                 status, message = solver.status, solver.message
                 break
+            guard.check(mu, sg)
             if grid.snap_every and k % grid.snap_every == 0:
                 snaps_t.append(k * grid.dt)
                 snaps.append(solver.density().copy())
             bar.update(k)
     except KeyboardInterrupt:
-        status, message = STATUS_FAILED, f"interrupted by the user at t = {k * grid.dt:g} ms"
+        status, message = STATUS_INTERRUPTED, f"interrupted by the user at t = {k * grid.dt:g} ms"
         logger.warning(message)
     finally:
         bar.close()
@@ -154,6 +182,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
         "method": cls.method_name,
         "dt_ms": grid.dt,
         **solver.diagnostics(),
+        "accuracy_warnings": guard.messages,
     }
     return Result(
         t=t, rate=r_out, mean_u=mu_o, refractory_fraction=rf_o, drive=drive(t),

@@ -45,7 +45,7 @@ def write(tmp_path, text):
 
 @pytest.mark.parametrize("extra, fragment", [
     ("", "nothing to compute"),
-    ("[run]\nt_end = 10.0\n", "[input] is missing"),
+    ("[run]\nt_end = 10.0\n", "missing table `input`"),
     ("[transfer]\nmu = 18.0\n", "missing required key `frequencies`"),
     ("[transfer]\nmu = 18.0\nfrequencies = [1.0]\nmodulate = 'noise'\n", "needs [noise] kind = 'white'"),
     ("[transfer]\nmu = 18.0\nfrequences = [1.0]\n", "did you mean `frequencies`"),

@@ -18,6 +18,8 @@ Rules for implementers
    ``status``/``message``; misuse raises ``ValueError``.
 5. ``density()`` returns the current density on ``axis`` (for snapshots),
    ``mass()`` the total probability (1 up to round-off).
+6. ``accuracy_issues(mu, sigma)`` names settings that are too coarse for the
+   current state (checked after initialisation and after every block).
 """
 
 from __future__ import annotations
@@ -73,6 +75,15 @@ class SolverBase:
 
     def diagnostics(self) -> dict:
         return {}
+
+    def accuracy_issues(self, mu: np.ndarray, sigma: np.ndarray | None) -> list[tuple[str, str]]:
+        """Settings too coarse for the current state and the drive ``mu`` (mV) just used.
+
+        Returns ``(setting, message)`` pairs; the front end turns each into one
+        :class:`~popdens.exceptions.AccuracyWarning` and records it.  Called
+        between compiled blocks, never inside them, so it costs nothing per step.
+        """
+        return []
 
     # -- bookkeeping -------------------------------------------------------
     def advance(self, mu: np.ndarray, sigma: np.ndarray | None = None):

@@ -1,0 +1,41 @@
+"""Outside references shared by the hardening tests: renewal theory and the Siegert formula,
+computed with scipy independently of the solvers."""
+
+from __future__ import annotations
+
+import math
+
+from scipy.integrate import quad, solve_ivp
+from scipy.special import erfcx
+
+
+def renewal_rate(pop, mu, a_max_taus=60.0):
+    """Stationary rate (Hz) = 1 / E[ISI], E[ISI] = tau_ref + int_0^inf S(a) da.
+
+    Renewal theory (Cox 1962, "Renewal Theory"; Gerstner 2000, Neural Comput. 12:43): along the
+    free LIF trajectory u(a) = mu + (reset - mu) exp(-a/tau_m) (rest 0) the survivor is
+    S = exp(-H), H' = h(u(a)); H and int S are integrated together with scipy's solve_ivp
+    (rtol 1e-10); the tail beyond a_max uses the asymptotic hazard h(mu).
+    """
+    nrn, h = pop.neuron, pop.noise.hazard
+    tau, reset, theta = nrn.tau_m, nrn.reset, nrn.threshold
+
+    def rhs(a, y):
+        u = mu + (reset - mu) * math.exp(-a / tau)
+        return [float(h.rate(u, theta)) * 1e-3, math.exp(-y[0])]
+
+    a_max = a_max_taus * tau
+    sol = solve_ivp(rhs, (0.0, a_max), [0.0, 0.0], method="LSODA", rtol=1e-10, atol=1e-13)
+    big_h, mean = sol.y[:, -1]
+    h_inf = float(h.rate(mu + (reset - mu) * math.exp(-a_max / tau), theta)) * 1e-3
+    mean += math.exp(-big_h) / h_inf
+    return 1000.0 / (nrn.refractory + mean)
+
+
+def siegert_rate(pop, mu):
+    """LIF stationary rate (Hz), Siegert formula (Siegert 1951; Brunel & Hakim 1999 eq. 21),
+    for tau_m du = (-u + mu) dt + sigma sqrt(tau_m) dW, with erfcx(-x) = exp(x^2)(1 + erf(x))."""
+    nrn, sigma = pop.neuron, pop.noise.sigma
+    lo, hi = (nrn.reset - mu) / sigma, (nrn.threshold - mu) / sigma
+    integral = quad(lambda x: erfcx(-x), lo, hi, limit=200, epsabs=0.0, epsrel=1e-12)[0]
+    return 1000.0 / (nrn.refractory + nrn.tau_m * math.sqrt(math.pi) * integral)
