@@ -10,7 +10,7 @@ Tables
 ------
 ``[gain]``
     ``mu``: the mean drives (mV), a list or a range table
-    ``{from = ..., to = ..., points = ..., spacing = "linear" | "log"}``;
+    ``{start = ..., stop = ..., count = ..., spacing = "linear" | "log"}``;
     ``sigma`` (optional, white noise only): a list of noise levels (mV), one
     gain curve each (default: the ``[noise]`` sigma).
 ``[stationary]``
@@ -36,7 +36,7 @@ __all__ = ["GainCurve", "StationaryStats", "TransferCurve", "parse_analyses", "A
 
 #: Most points accepted in one range (guards against typos such as 1e9).
 MAX_POINTS = 100_000
-RANGE_KEYS = {"from", "to", "points", "spacing"}
+RANGE_KEYS = {"start", "stop", "count", "spacing"}
 
 
 def _err(src, table, key, value, expected):
@@ -65,20 +65,20 @@ def _finite(src, table, key, x) -> float:
 
 
 def parse_values(src, table, key, value, *, positive=False) -> np.ndarray:
-    """A number, a list of numbers or a range table ``{from, to, points, spacing}`` → 1-D array."""
+    """A number, a list of numbers or a range table ``{start, stop, count, spacing}`` → 1-D array."""
     if isinstance(value, dict):
-        _unknown(src, f"{table}.{key}", value, RANGE_KEYS, ("from", "to", "points"))
-        lo = _finite(src, f"{table}.{key}", "from", value["from"])
-        hi = _finite(src, f"{table}.{key}", "to", value["to"])
-        n = value["points"]
+        _unknown(src, f"{table}.{key}", value, RANGE_KEYS, ("start", "stop", "count"))
+        lo = _finite(src, f"{table}.{key}", "start", value["start"])
+        hi = _finite(src, f"{table}.{key}", "stop", value["stop"])
+        n = value["count"]
         if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= MAX_POINTS:
-            raise _err(src, f"{table}.{key}", "points", n, f"an integer from 1 to {MAX_POINTS}")
+            raise _err(src, f"{table}.{key}", "count", n, f"an integer from 1 to {MAX_POINTS}")
         spacing = value.get("spacing", "linear")
         if spacing == "linear":
             out = np.linspace(lo, hi, n)
         elif spacing == "log":
             if lo <= 0 or hi <= 0:
-                raise _err(src, f"{table}.{key}", "from", lo, "positive bounds for log spacing")
+                raise _err(src, f"{table}.{key}", "start", lo, "positive bounds for log spacing")
             out = np.geomspace(lo, hi, n)
         else:
             raise _err(src, f"{table}.{key}", "spacing", spacing, "'linear' or 'log'")

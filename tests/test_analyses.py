@@ -49,13 +49,13 @@ def write(tmp_path, text):
     ("[transfer]\nmu = 18.0\n", "missing required key `frequencies`"),
     ("[transfer]\nmu = 18.0\nfrequencies = [1.0]\nmodulate = 'noise'\n", "needs [noise] kind = 'white'"),
     ("[transfer]\nmu = 18.0\nfrequences = [1.0]\n", "did you mean `frequencies`"),
-    ("[transfer]\nmu = 18.0\nfrequencies = {from = 1.0, to = 10.0, points = 0}\n", "`points` = 0"),
-    ("[transfer]\nmu = 18.0\nfrequencies = {from = 0.0, to = 10.0, points = 5, spacing = 'log'}\n",
+    ("[transfer]\nmu = 18.0\nfrequencies = {start = 1.0, stop = 10.0, count = 0}\n", "`count` = 0"),
+    ("[transfer]\nmu = 18.0\nfrequencies = {start = 0.0, stop = 10.0, count = 5, spacing = 'log'}\n",
      "positive bounds for log spacing"),
     ("[transfer]\nmu = 18.0\nfrequencies = [-1.0]\n", "frequencies >= 0"),
     ("[gain]\nmu = [1.0, 'a']\n", "[gain] key `mu` = 'a'"),
     ("[gain]\nmu = [1.0]\nsigma = [2.0]\n", "white noise only"),
-    ("[gain]\nmu = {from = 1.0, to = 2.0, points = 3, step = 1}\n", "[gain.mu] unknown key `step`"),
+    ("[gain]\nmu = {start = 1.0, stop = 2.0, count = 3, step = 1}\n", "[gain.mu] unknown key `step`"),
     ("[stationary]\nmu = nan\n", "a finite number"),
 ])
 def test_analysis_tables_reject_bad_input_naming_the_key(tmp_path, extra, fragment):
@@ -67,8 +67,8 @@ def test_analysis_tables_reject_bad_input_naming_the_key(tmp_path, extra, fragme
 
 def test_range_tables_give_linear_and_log_grids(tmp_path):
     sc = load_scenario(write(tmp_path, POPULATION + "[transfer]\nmu = 18.0\n"
-                                                    "frequencies = {from = 1.0, to = 1000.0, points = 4, spacing = 'log'}\n"
-                                                    "[gain]\nmu = {from = 10.0, to = 20.0, points = 3}\n"))
+                                                    "frequencies = {start = 1.0, stop = 1000.0, count = 4, spacing = 'log'}\n"
+                                                    "[gain]\nmu = {start = 10.0, stop = 20.0, count = 3}\n"))
     assert not sc.runs_in_time
     an = dict(sc.analyses)
     np.testing.assert_allclose(an["transfer"].freqs, [1.0, 10.0, 100.0, 1000.0])  # decades, by construction
@@ -121,7 +121,7 @@ refractory = 2.0
 kind = "white"
 sigma = 4.0
 [gain]
-mu = {from = 10.0, to = 30.0, points = 5}
+mu = {start = 10.0, stop = 30.0, count = 5}
 sigma = [2.0, 4.0]
 [stationary]
 mu = [15.0, 25.0]
