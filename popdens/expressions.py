@@ -23,6 +23,7 @@ from typing import Callable, Mapping, Sequence
 import numba
 import numpy as np
 import sympy
+from sympy.printing.numpy import NumPyPrinter
 
 from .exceptions import ExpressionError
 
@@ -143,6 +144,8 @@ class Expression:
 
     def __call__(self, *values):
         """Evaluate vectorised with numpy; one argument per variable."""
+        # numpy scalars, not Python floats: 1/0 must give inf as in compiled code, not raise
+        values = tuple(np.asarray(v, dtype=float) for v in values)
         with np.errstate(all="ignore"):  # non-finite values are checked by the callers
             out = self._func(*values)
         shape = np.broadcast(*[np.asarray(v) for v in values]).shape if values else ()
@@ -207,7 +210,10 @@ def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth:
                 size = math.inf
             if not size <= math.log10(MAX_CONSTANT):
                 raise _fail(text, tree, f"constant power out of range (|x| <= {MAX_CONSTANT:g})")
-        result = op[0](left, right)
+        try:
+            result = op[0](left, right)
+        except ZeroDivisionError:  # sympy Floats: 1.0/0.0
+            raise _fail(text, tree, "constant division by zero") from None
         if getattr(result, "is_Number", False) and not _in_range(result):
             raise _fail(text, tree, f"constant out of range (|x| <= {MAX_CONSTANT:g})")
         return result
@@ -379,11 +385,21 @@ def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
     return np.asarray(ops, dtype=np.int64), np.asarray(args, dtype=np.float64)
 
 
+class _ExactFloatPrinter(NumPyPrinter):
+    """Prints floats with all 17 digits (the default prints 15, so ``u < 1.7987011555778594``
+    became ``u < 1.79870115557786`` and disagreed with the compiled program at the boundary)."""
+
+    def _print_Float(self, expr):
+        return repr(float(expr))
+
+
 def _lambdify(expr: sympy.Basic, symbols: Sequence[sympy.Symbol]) -> Callable:
     expr = expr.replace(sympy.DiracDelta, lambda *a: sympy.Integer(0))
     return sympy.lambdify(
         list(symbols),
         expr,
+        printer=_ExactFloatPrinter({"fully_qualified_modules": False, "inline": True,
+                                    "allow_unknown_functions": True, "user_functions": {}}),
         modules=[{"erf": _np_erf, "erfc": _np_erfc, "Heaviside": lambda x, h=0.5: np.heaviside(x, h)}, "numpy"],
     )
 
@@ -480,7 +496,7 @@ def parse_expression(
     except ExpressionError:
         raise
     except (TypeError, ValueError, ArithmeticError) as exc:  # sympy refused a combination
-        raise ExpressionError(f"expression {text!r} rejected: {exc}") from None
+        raise ExpressionError(f"expression {text!r} rejected: {exc or type(exc).__name__}") from None
     if not isinstance(expr, sympy.Basic) or (getattr(expr, "is_Relational", False)):
         raise ExpressionError(f"expression {text!r} does not evaluate to a number")
     try:
@@ -488,7 +504,7 @@ def parse_expression(
     except ExpressionError as exc:
         raise ExpressionError(f"expression {text!r} rejected: {exc}") from None
     except (TypeError, ValueError, ArithmeticError, RecursionError) as exc:
-        raise ExpressionError(f"expression {text!r} rejected: {exc}") from None
+        raise ExpressionError(f"expression {text!r} rejected: {exc or type(exc).__name__}") from None
 
 
 # ---------------------------------------------------------------- compiled
