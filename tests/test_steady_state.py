@@ -165,10 +165,11 @@ def test_perfect_integrator_inverse_gaussian():
     v, dd = mu / tau, sigma ** 2 / (2 * tau)
     mean = tau_ref + d / v
     cv = math.sqrt(2 * dd * d / v ** 3) / mean
-    st = stationary(pop, mu)
+    st = stationary(pop, mu, method="threshold-integration")
     assert abs(st.rate / (1000.0 / mean) - 1.0) < 1e-8
-    assert abs(float(gain(pop, mu)) / (1000.0 / mean) - 1.0) < 1e-8
+    assert abs(float(gain(pop, mu, method="threshold-integration")) / (1000.0 / mean) - 1.0) < 1e-8
     assert abs(st.cv / cv - 1.0) < 1e-6
+    assert abs(float(gain_slope(pop, mu, method="threshold-integration")) / float(gain_slope(pop, mu)) - 1) < 1e-7
     t = st.isi_t - tau_ref
     tt = np.maximum(t, 1e-12)
     ig = np.where(t > 0, d / np.sqrt(4 * np.pi * dd * tt ** 3) * np.exp(-(d - v * tt) ** 2 / (4 * dd * tt)), 0.0)
