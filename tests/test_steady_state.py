@@ -247,6 +247,22 @@ def test_escape_at_constant_potential_is_poisson_with_dead_time(tau_ref):
     assert abs(st.mean_u - 0.0) < 1e-12
 
 
+def test_escape_with_slope_dependent_hazard_matches_scipy_renewal():
+    # Arrhenius-and-current escape uses du/dt along the free LIF trajectory; renewal integral by
+    # scipy quad (Cox 1962): E[ISI] = int S, with the converged tail S(a_max)/h_inf
+    esc = hazard.ArrheniusCurrent(sigma=3.0, tau=10.0, c1=0.3, c2=0.5)
+    pop = lif_escape(h=esc)
+    for mu in (16.0, 24.0):
+        u = lambda a: mu * (1.0 - math.exp(-a / 10.0))  # noqa: E731
+        du = lambda a: mu * math.exp(-a / 10.0) / 10.0  # noqa: E731
+        rate = lambda a: float(esc.rate(u(a), 20.0, du(a))) * 1e-3  # noqa: E731
+        big_h = lambda a: quad(rate, 0.0, a, epsabs=0, epsrel=1e-12, limit=200)[0]  # noqa: E731
+        a_max = 400.0
+        m0 = 2.0 + quad(lambda a: math.exp(-big_h(a)), 0.0, a_max, epsabs=0, epsrel=1e-11, limit=400)[0]
+        m0 += math.exp(-big_h(a_max)) / rate(a_max)
+        assert abs(float(gain(pop, mu)) / (1000.0 / m0) - 1.0) < 1e-8
+
+
 def test_escape_cutoff_gives_deterministic_atom():
     # EIF whose free trajectory reaches the cut-off: survivors fire at the arrival age a*,
     # a* = tau_ref + int tau/(F + mu) du (scipy quad); the renewal integrals vs scipy solve_ivp
@@ -328,7 +344,9 @@ def test_integrated_trajectory_and_text_drift_match_closed_forms():
 
 
 def test_long_fokker_planck_run_equals_threshold_integration():
-    for pop, mu in [(lif_white(4.0), 18.0), (eif_white(3.0), 12.0)]:
+    qif = popdens.Population(popdens.QIF(tau_m=10.0, critical=10.0, cutoff=40.0, reset=-5.0, refractory=1.0),
+                             popdens.WhiteNoise(3.0))
+    for pop, mu in [(lif_white(4.0), 18.0), (eif_white(3.0), 12.0), (qif, 1.0)]:
         res = popdens.simulate(pop, mu, t_end=600.0, dt=0.05, initial="synchronous", record_interval=1.0,
                                n_cells=1600)
         st = stationary(pop, mu)
