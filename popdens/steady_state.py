@@ -532,14 +532,14 @@ def _diffusive_stationary(population, mu: float, sigma: float, isi_t, method: st
         isi_t = v.finite_array("isi_t", isi_t)
         if np.any(isi_t < 0.0):
             raise ValueError("`isi_t` must be >= 0 (ms)")
-    dens, surv = passage_time_density(population, mu, sigma, isi_t - nrn.refractory, sw.t1, std)
+    dens, surv, residual = passage_time_density(population, mu, sigma, isi_t - nrn.refractory, sw.t1, std)
     return SteadyState(
         population=population, mu=mu, sigma=sigma, rate=rate, cv=cv, mean_isi=1000.0 / rate,
         mean_u=sw.mean_u, refractory_fraction=float(rate * 1e-3 * nrn.refractory),
         isi_t=isi_t, isi_density=dens, survivor=surv, method=method,
         u=sw.u, density=sw.density, flux=sw.flux,
         diagnostics={"cells": int(sw.u.size - 1), "threshold_integration_rate_hz": sw.rate,
-                     "mean_passage_ms": sw.t1},
+                     "mean_passage_ms": sw.t1, "isi_spectrum_residual": residual},
     )
 
 
