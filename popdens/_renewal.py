@@ -35,7 +35,6 @@ from __future__ import annotations
 import math
 
 import numba
-import numpy as np
 
 from ._kernels import MS_TO_S, NO_REFCOUNT, drift_value, hazard_value
 from .models import CODE_LIF, CODE_PIF

@@ -461,6 +461,9 @@ def _escape_stationary(population, mu: float, isi_t) -> SteadyState:
         float(nrn.threshold), mode, np.zeros((10, 5)), rec, True, stack, xbuf)
     if st != _RENEWAL_OK:
         raise ConvergenceError(f"the renewal integrals did not converge at `mu` = {mu!r} mV")
+    if not math.isfinite(m0):
+        raise ValueError(f"at `mu` = {mu!r} mV the neurons stop firing (the hazard vanishes along the free "
+                         "trajectory): the rate is 0 and there is no stationary ISI distribution")
     rec = rec[:n_rec]
     rate_ms = 1.0 / m0
     h_end = rec[-1, 4]
