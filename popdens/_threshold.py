@@ -36,7 +36,6 @@ from __future__ import annotations
 import math
 
 import numba
-import numpy as np
 
 from ._kernels import NO_REFCOUNT, drift_value
 
