@@ -89,7 +89,7 @@ def test_every_output_records_version_and_settings(tmp_path):
     summary = json.loads((out / "summary.json").read_text())
     assert summary["version"] == __version__
     assert summary["settings"] == {"t_end_ms": 60.0, "dt_ms": 0.1, "record_interval_ms": 1.0,
-                                   "montecarlo_neurons": 3000, "seed": 11}
+                                   "snapshot_interval_ms": None, "montecarlo_neurons": 3000, "seed": 11}
     assert f"popdens {__version__}" in (out / "report.html").read_text()
     assert f"popdens {__version__}".encode() in (out / "rate.png").read_bytes()
     assert f"popdens {__version__}" in (out / "rate.svg").read_text()
