@@ -7,6 +7,7 @@ Top-level tables
 ``[noise]``     ``kind`` = "escape" with a ``[noise.hazard]`` table, or "white" with ``sigma`` (mV)
 ``[input]``     ``shape`` = "constant" | "step" | "pulse" | "ramp" | "sine" | "trace" and its parameters
 ``[run]``       ``t_end``, ``dt``, ``record_interval`` (ms), ``montecarlo_neurons``, ``seed``
+``[sweep]``     optional: values to sweep and the analysis; checked by ``popdens/sweep_scenario.py``
 
 Unknown keys are rejected with the nearest valid key suggested; each error
 names the file, the table, the key, the value and what was expected.
@@ -56,7 +57,7 @@ INPUTS = {
 }
 RUN_KEYS = {"t_end", "dt", "record_interval", "montecarlo_neurons", "seed"}
 SCENARIO_KEYS = {"title", "output", "notes"}
-TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run"}
+TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run", "sweep"}
 #: Largest accepted number of Monte Carlo neurons in a scenario.
 MAX_NEURONS = 10_000_000
 
