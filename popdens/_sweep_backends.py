@@ -19,6 +19,8 @@ from __future__ import annotations
 import multiprocessing
 import os
 import signal
+import sys
+import threading
 import traceback
 from collections import deque
 from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
@@ -49,9 +51,21 @@ def _worker_init():  # runs in each pool worker before any task
 
 
 def _pool_context():
-    """``forkserver`` where available: workers start clean even if the caller runs threads."""
+    """How pool workers start.
+
+    ``fork`` when this process runs a single thread (fast: workers inherit the
+    imported modules and compiled kernels); otherwise ``forkserver`` with popdens
+    preloaded, because forking a multi-threaded process is unsafe; ``spawn`` where
+    neither exists.
+    """
     methods = multiprocessing.get_all_start_methods()
-    return multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
+    if "fork" in methods and threading.active_count() == 1 and sys.platform.startswith("linux"):
+        return multiprocessing.get_context("fork")
+    if "forkserver" in methods:
+        ctx = multiprocessing.get_context("forkserver")
+        ctx.set_forkserver_preload(["popdens"])
+        return ctx
+    return multiprocessing.get_context("spawn")
 
 
 def run_processes(evaluate, func, tasks, retries: int, workers: int):

@@ -83,7 +83,7 @@ def read_manifest(folder: Path) -> dict | None:
 
 
 def write_point(folder: Path, record: dict) -> None:
-    durable_write(point_path(folder, record["index"]), json.dumps(record, sort_keys=True) + "\n")
+    durable_write(point_path(folder, record["index"]), json.dumps(record) + "\n")  # keeps output order
 
 
 def read_points(folder: Path, n_points: int) -> dict[int, dict]:

@@ -245,6 +245,12 @@ def _number_list(src, key, val, *, non_negative: bool) -> list[float]:
     return [float(x) for x in val]
 
 
+def _unprefixed(exc: Exception, source: str) -> str:
+    """The message without the leading ``file: `` that parse_scenario puts in front."""
+    msg = str(exc)
+    return msg[len(source) + 2:] if msg.startswith(f"{source}: ") else msg
+
+
 def plan_sweep(sc: Scenario, *, validate_points: bool = True) -> SweepPlan:
     """Validate the ``[sweep]`` table of ``sc`` (and, by default, every point's scenario).
 
@@ -300,18 +306,19 @@ def plan_sweep(sc: Scenario, *, validate_points: bool = True) -> SweepPlan:
             raise ScenarioError(f"{src}: [sweep] mode = 'list' needs lists of equal length, got {lengths}")
         n = next(iter(lengths.values()))
         points = [{k: axes[k][i] for k in axes} for i in range(n)]
-    try:
-        check(point.scenario({k: vs[0] for k, vs in axes.items()}), options)
-    except ValueError as exc:
-        raise ScenarioError(f"{src}: [sweep] {exc}") from None
-    if validate_points:
-        from .sweep import grid_points
+    from .sweep import grid_points
 
-        for i, params in enumerate(grid_points(axes) if mode == "grid" else points):
+    all_points = grid_points(axes) if mode == "grid" else points
+    for i, params in enumerate(all_points if validate_points else all_points[:1]):
+        try:
+            point_sc = point.scenario(params)
+        except ScenarioError as exc:
+            raise ScenarioError(f"{src}: [sweep] point {i} {params}: {_unprefixed(exc, point.source)}") from None
+        if i == 0:
             try:
-                point.scenario(params)
-            except ScenarioError as exc:
-                raise ScenarioError(f"{src}: [sweep] point {i} {params}: {exc}") from None
+                check(point_sc, options)
+            except ValueError as exc:
+                raise ScenarioError(f"{src}: [sweep] {exc}") from None
     return SweepPlan(point=point, points=points, n_points=n, seed=seed, retries=retries)
 
 
