@@ -28,6 +28,9 @@ from concurrent.futures.process import BrokenProcessPool
 
 __all__: list[str] = []
 
+#: Time allowed to connect to a Dask scheduler given by address.
+CONNECT_TIMEOUT = "10s"
+
 #: Environment variables that keep numerical libraries single-threaded inside a worker (one
 #: worker per core; common practice to avoid oversubscription).
 _SINGLE_THREAD_ENV = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS", "NUMBA_NUM_THREADS")
@@ -141,9 +144,9 @@ def run_dask(evaluate, func, tasks, retries: int, workers: int, scheduler: str |
         client = distributed.Client(cluster)
     else:
         try:
-            client = distributed.Client(scheduler, timeout="20s")
-        except (OSError, TimeoutError) as exc:
-            raise OSError(f"cannot reach the Dask scheduler at {scheduler!r}: {exc}") from None
+            client = distributed.Client(scheduler, timeout=CONNECT_TIMEOUT)
+        except (OSError, TimeoutError, ValueError) as exc:
+            raise ConnectionError(f"cannot reach the Dask scheduler at {scheduler!r}: {exc}") from None
     futures = {}
     try:
         for t in tasks:

@@ -64,11 +64,16 @@ def _add_sweep_parser(sub) -> None:
     sw.add_argument("--quiet", action="store_true", help="no progress output")
 
 
-def _sweep_command(args) -> int:
+def _sweep_command(args, sc=None) -> int:
+    """``popdens sweep``; also ``popdens run`` on a scenario with a [sweep] table (default settings)."""
     from .scenario import load_scenario
     from .sweep_scenario import run_sweep_scenario
 
-    sc = load_scenario(args.scenario)
+    for name, default in (("workers", None), ("scheduler", None), ("dask_local", False), ("resume", False),
+                          ("retry_failed", False), ("no_figures", False)):
+        if not hasattr(args, name):
+            setattr(args, name, default)
+    sc = sc if sc is not None else load_scenario(args.scenario)
     if "sweep" not in sc.raw:
         raise ScenarioError(f"{args.scenario}: no [sweep] table; run it with `popdens run`")
     if args.workers is not None and args.workers < 1:
@@ -82,9 +87,7 @@ def _sweep_command(args) -> int:
         res = run_sweep_scenario(sc, args.out, backend=backend, workers=args.workers, scheduler=args.scheduler,
                                  resume=args.resume, overwrite=args.overwrite, retry_failed=args.retry_failed,
                                  figures=not args.no_figures, progress=False if args.quiet else None)
-    except (ImportError, OSError) as exc:
-        if isinstance(exc, FileExistsError):
-            raise
+    except (ImportError, ConnectionError) as exc:  # no Dask installed, or no scheduler at the address
         raise ScenarioError(str(exc)) from None
     except KeyboardInterrupt:
         print("popdens: interrupted; finished points are saved: continue with `popdens sweep "
@@ -168,12 +171,11 @@ def main(argv: list[str] | None = None) -> int:
             return _sweep_command(args)
         sc = load_scenario(args.scenario)
         if "sweep" in sc.raw:
+            if args.command == "run":
+                return _sweep_command(args, sc)
             from .sweep_scenario import plan_sweep
 
             plan = plan_sweep(sc)
-            if args.command == "run":
-                raise ScenarioError(f"{args.scenario}: has a [sweep] table of {plan.n_points} points; "
-                                    "run it with `popdens sweep`")
         if args.command == "check":
             print(f"{args.scenario}: OK ({sc.title}; {type(sc.population.neuron).__name__}, "
                   f"{type(sc.population.noise).__name__}, {sc.t_end:g} ms)")

@@ -288,8 +288,8 @@ class SweepResult:
 class _SweepProgress(Progress):
     """Progress line for sweeps: points done, points per second, time left, failures."""
 
-    def __init__(self, total: int, already: int, enabled):
-        super().__init__(total, "sweep", enabled)
+    def __init__(self, total: int, already: int, enabled, stream=None):
+        super().__init__(total, "sweep", enabled, stream)
         self.already = already
 
     def update(self, done: int, failed: int = 0) -> None:  # type: ignore[override]

@@ -78,11 +78,19 @@ def _lookup(module: str, name: str, analysis: str):
         raise ValueError(f"analysis `{analysis}` needs {module}.{name}, which this popdens does not have") from None
 
 
+def _reraise_interrupt(res) -> None:
+    """The time-domain front ends turn Ctrl-C into a stopped result; a sweep must stop instead
+    of recording the point as failed."""
+    if not res.success and "interrupted" in res.message:
+        raise KeyboardInterrupt(res.message)
+
+
 def summary_analysis(sc: Scenario, seed: np.random.SeedSequence, options: dict) -> dict:
     """Density solution over the scenario's input, optionally checked by the Monte Carlo twin."""
     from .simulate import simulate
 
     pred = simulate(sc.population, sc.drive, sc.t_end, sc.dt, record_interval=sc.record_interval, progress=False)
+    _reraise_interrupt(pred)
     if not pred.success:
         raise RuntimeError(f"the density solver stopped: {pred.message}")
     width = np.diff(pred.t)
@@ -95,6 +103,7 @@ def summary_analysis(sc: Scenario, seed: np.random.SeedSequence, options: dict) 
 
         mc = montecarlo(sc.population, sc.drive, sc.t_end, sc.montecarlo_neurons, dt=pred.dt,
                         seed=np.random.default_rng(seed), record_interval=sc.record_interval, progress=False)
+        _reraise_interrupt(mc)
         se = mc.rate_standard_error()[1:]
         z = np.abs(mc.rate[1:] - pred.rate[1:]) / np.maximum(se, 1e-12)
         out["montecarlo_mean_rate_hz"] = float(np.sum(mc.rate[1:] * width) / np.sum(width))

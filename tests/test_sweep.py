@@ -227,6 +227,25 @@ def test_list_mode_resume_retry_failed_and_figures(tmp_path):
     assert again.diagnostics["computed_now"] == 1
 
 
+def test_progress_line_counts_points_rate_and_time_left():
+    import io
+
+    from popdens.sweep import _SweepProgress
+
+    buf = io.StringIO()
+    bar = _SweepProgress(10, 4, True, stream=buf)
+    bar.start -= 2.0  # two seconds ago, two new points: 1 point/s, 4 left
+    bar.update(6, 1)
+    bar.close()
+    line = buf.getvalue()
+    assert "6/10 points, 1 failed" in line and "points/s" in line and "~4 s left" in line
+    quiet = io.StringIO()  # not a terminal: silent
+    bar = _SweepProgress(10, 0, None, stream=quiet)
+    bar.start -= 5.0
+    bar.update(5)
+    assert quiet.getvalue() == ""
+
+
 # ---------------------------------------------------------------- scenario files and the CLI
 def test_sweep_table_errors_name_the_key(tmp_path):
     cases = {
@@ -312,8 +331,8 @@ def test_cli_sweep_exit_codes_outputs_and_resume(tmp_path, capsys):
     p = write(tmp_path, SCENARIO.replace("montecarlo_neurons = 3000", "montecarlo_neurons = 0"))
     assert main(["check", str(p)]) == 0
     assert "sweep: 4 points" in capsys.readouterr().out
-    assert main(["run", str(p), "--quiet"]) == 2
-    assert "popdens sweep" in capsys.readouterr().err
+    assert main(["run", str(p), "--quiet", "--out", str(tmp_path / "by-run")]) == 0  # run delegates to sweep
+    assert (tmp_path / "by-run" / "results.csv").is_file()
     assert main(["sweep", str(p), "--workers", "1", "--quiet"]) == 0
     out = tmp_path / "swept"
     assert (out / "results.csv").stat().st_size > 0 and len(list((out / "points").glob("*.json"))) == 4
