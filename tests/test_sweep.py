@@ -113,34 +113,6 @@ def test_grid_is_every_combination_last_key_fastest():
         grid_points({"a": [float("nan")]})
 
 
-def test_same_scenario_sweep_on_serial_process_pool_and_dask_is_identical(tmp_path, dask_cluster):
-    sc = parse_scenario(__import__("tomllib").loads(SCENARIO), tmp_path / "s.toml")
-    serial = run_sweep_scenario(sc, tmp_path / "serial", backend="serial", figures=False)
-    pool = run_sweep_scenario(sc, tmp_path / "pool", backend="processes", workers=2, figures=False)
-    dask = run_sweep_scenario(sc, tmp_path / "dask", scheduler=dask_cluster.scheduler_address, figures=False)
-    assert serial.complete and not serial.failed
-    assert _outputs(serial) == _outputs(pool) == _outputs(dask)  # bit for bit, Monte Carlo included
-    texts = {(tmp_path / k / "results.csv").read_text() for k in ("serial", "pool", "dask")}
-    assert len(texts) == 1
-    assert len({r["worker"] for r in dask.records}) >= 1 and dask.diagnostics["backend"] == "dask"
-    # the numbers themselves: the stationary rate from renewal theory (scipy quadrature); the
-    # solver starts stationary under a constant drive, so its final rate is that rate
-    for (mu, width), rate in zip([(m, w) for m in (15.0, 18.0) for w in (2.0, 3.0)],
-                                 serial.values("final_rate_hz").ravel()):
-        ref = renewal_rate_hz(10.0, 20.0, 0.0, 2.0, 20.0, width, mu)
-        assert rate == pytest.approx(ref, rel=2e-3)
-    # Monte Carlo twin with N = 3000 over 40 ms: Poisson standard error of the mean rate
-    # sqrt(r / (N T)); renewal counts with CV < 1 vary less, so 5 SE is a loose bound (common practice)
-    pred = serial.values("mean_rate_hz").ravel()
-    mc = serial.values("montecarlo_mean_rate_hz").ravel()
-    se = np.sqrt(pred / (3000 * 0.040))
-    assert np.all(np.abs(mc - pred) <= 5 * se)
-    # different seeds give different Monte Carlo numbers (the seed reaches the point)
-    other = sweep(plan_sweep(sc).point, plan_sweep(sc).points, seed=4, backend="serial", figures=False)
-    assert not np.array_equal(other.values("montecarlo_mean_rate_hz"), serial.values("montecarlo_mean_rate_hz"))
-    assert np.array_equal(other.values("final_rate_hz"), serial.values("final_rate_hz"))
-
-
 def test_interrupted_sweep_resumes_without_recomputing_and_matches_an_uninterrupted_one(tmp_path):
     out = tmp_path / "killed"
     code = ("import sys; sys.path.insert(0, sys.argv[1]); import _sweep_points as h; "
@@ -180,21 +152,6 @@ def test_interrupted_sweep_resumes_without_recomputing_and_matches_an_uninterrup
     # reference values computed here, outside any sweep machinery: x**2 + z and the seeded draws
     rng = np.random.default_rng(np.random.SeedSequence(9).spawn(24)[5])
     assert fresh.values("y")[5, 0] == 25.5 and fresh.values("draw")[5, 0] == rng.normal()
-
-
-@pytest.mark.parametrize("backend", ["serial", "processes", "dask"])
-def test_a_point_that_raises_is_retried_recorded_and_does_not_stop_the_others(tmp_path, backend, dask_cluster):
-    kw = {"scheduler": dask_cluster.scheduler_address} if backend == "dask" else {"backend": backend}
-    res = sweep(helpers.refuses_three, {"x": [1, 2, 3, 4]}, tmp_path / "f", seed=1, retries=2, workers=2,
-                figures=False, **kw)
-    assert res.complete
-    assert [r["status"] for r in res.records] == ["ok", "ok", "failed", "ok"]
-    bad = res.records[2]
-    assert bad["attempts"] == 3 and "ValueError: x = 3 is refused" in bad["error"]
-    assert np.isnan(res.values("y")[2]) and res.values("y")[3] == 16.0
-    fail_csv = (tmp_path / "f" / "failures.csv").read_text()
-    assert "x = 3 is refused" in fail_csv and fail_csv.count("\n") == 2
-    assert json.loads((tmp_path / "f" / "summary.json").read_text())["n_failed"] == 1
 
 
 def test_a_dead_worker_process_costs_only_its_point(tmp_path):
@@ -340,10 +297,56 @@ def test_cli_sweep_exit_codes_outputs_and_resume(tmp_path, capsys):
     assert "4 points (4 computed now, 0 failed)" in capsys.readouterr().out
     assert main(["sweep", str(p), "--workers", "1", "--quiet"]) == 2
     assert "resume it or overwrite it" in capsys.readouterr().err
-    assert main(["sweep", str(p), "--workers", "1", "--quiet", "--resume"]) == 0
+    assert main(["sweep", str(p), "--workers", "1", "--quiet", "--resume", "--no-figures"]) == 0
     assert "0 computed now" in capsys.readouterr().out
     assert main(["sweep", str(p), "--workers", "0"]) == 2
     assert main(["sweep", str(p), "--retry-failed"]) == 2
     bad = write(tmp_path, SCENARIO.replace('"input.mu"', '"input.nu"'), "bad.toml")
     assert main(["sweep", str(bad)]) == 2
     assert "input.nu" in capsys.readouterr().err and not (tmp_path / "bad-output").exists()
+
+
+# ---------------------------------------------------------------- Dask (a loopback cluster, started once; last,
+# because its threads make later process pools start with forkserver instead of fork)
+def test_same_scenario_sweep_on_serial_process_pool_and_dask_is_identical(tmp_path, request):
+    sc = parse_scenario(__import__("tomllib").loads(SCENARIO), tmp_path / "s.toml")
+    serial = run_sweep_scenario(sc, tmp_path / "serial", backend="serial", figures=False)
+    pool = run_sweep_scenario(sc, tmp_path / "pool", backend="processes", workers=2, figures=False)
+    dask_cluster = request.getfixturevalue("dask_cluster")  # after the pool: its threads make pools slower to start
+    dask = run_sweep_scenario(sc, tmp_path / "dask", scheduler=dask_cluster.scheduler_address, figures=False)
+    assert serial.complete and not serial.failed
+    assert _outputs(serial) == _outputs(pool) == _outputs(dask)  # bit for bit, Monte Carlo included
+    texts = {(tmp_path / k / "results.csv").read_text() for k in ("serial", "pool", "dask")}
+    assert len(texts) == 1
+    assert len({r["worker"] for r in dask.records}) >= 1 and dask.diagnostics["backend"] == "dask"
+    # the numbers themselves: the stationary rate from renewal theory (scipy quadrature); the
+    # solver starts stationary under a constant drive, so its final rate is that rate
+    for (mu, width), rate in zip([(m, w) for m in (15.0, 18.0) for w in (2.0, 3.0)],
+                                 serial.values("final_rate_hz").ravel()):
+        ref = renewal_rate_hz(10.0, 20.0, 0.0, 2.0, 20.0, width, mu)
+        assert rate == pytest.approx(ref, rel=2e-3)
+    # Monte Carlo twin with N = 3000 over 40 ms: Poisson standard error of the mean rate
+    # sqrt(r / (N T)); renewal counts with CV < 1 vary less, so 5 SE is a loose bound (common practice)
+    pred = serial.values("mean_rate_hz").ravel()
+    mc = serial.values("montecarlo_mean_rate_hz").ravel()
+    se = np.sqrt(pred / (3000 * 0.040))
+    assert np.all(np.abs(mc - pred) <= 5 * se)
+    # different seeds give different Monte Carlo numbers (the seed reaches the point)
+    other = sweep(plan_sweep(sc).point, plan_sweep(sc).points, seed=4, backend="serial", figures=False)
+    assert not np.array_equal(other.values("montecarlo_mean_rate_hz"), serial.values("montecarlo_mean_rate_hz"))
+    assert np.array_equal(other.values("final_rate_hz"), serial.values("final_rate_hz"))
+
+
+@pytest.mark.parametrize("backend", ["serial", "processes", "dask"])
+def test_a_point_that_raises_is_retried_recorded_and_does_not_stop_the_others(tmp_path, backend, dask_cluster):
+    kw = {"scheduler": dask_cluster.scheduler_address} if backend == "dask" else {"backend": backend}
+    res = sweep(helpers.refuses_three, {"x": [1, 2, 3, 4]}, tmp_path / "f", seed=1, retries=2, workers=2,
+                figures=False, **kw)
+    assert res.complete
+    assert [r["status"] for r in res.records] == ["ok", "ok", "failed", "ok"]
+    bad = res.records[2]
+    assert bad["attempts"] == 3 and "ValueError: x = 3 is refused" in bad["error"]
+    assert np.isnan(res.values("y")[2]) and res.values("y")[3] == 16.0
+    fail_csv = (tmp_path / "f" / "failures.csv").read_text()
+    assert "x = 3 is refused" in fail_csv and fail_csv.count("\n") == 2
+    assert json.loads((tmp_path / "f" / "summary.json").read_text())["n_failed"] == 1
