@@ -72,28 +72,49 @@ def _pool_context():
 
 
 def run_processes(evaluate, func, tasks, retries: int, workers: int):
-    """Local pool of ``workers`` processes; a crashed worker costs its in-flight points one attempt."""
+    """Local pool of ``workers`` processes.
+
+    At most ``workers + 1`` points are in flight.  When a worker process dies,
+    the pool is restarted and the points that were in flight run again one at
+    a time: a point that kills the pool while running alone has used one
+    attempt, and after ``retries + 1`` such attempts it is recorded as failed;
+    the innocent neighbours simply complete.
+    """
     pending = deque(tasks)
+    suspects: deque = deque()
     lost: dict[int, int] = {}
-    while pending:
+    while pending or suspects:
         pool = ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(), initializer=_worker_init)
+        futures: dict = {}
+        broken = False
         try:
-            futures = {pool.submit(evaluate, func, t[0], t[1], t[2], retries): t for t in pending}
-            pending.clear()
-            waiting = set(futures)
-            while waiting:
-                done, waiting = wait(waiting, return_when=FIRST_COMPLETED)
+            while (pending or suspects or futures) and not (broken and not futures):
+                alone = bool(suspects)
+                queue, window = (suspects, 1) if alone else (pending, workers + 1)
+                while queue and len(futures) < window and not broken:
+                    t = queue.popleft()
+                    try:
+                        futures[pool.submit(evaluate, func, t[0], t[1], t[2], retries)] = t
+                    except BrokenProcessPool:  # a worker died; restart the pool
+                        queue.appendleft(t)
+                        broken = True
+                if not futures:
+                    break
+                done, _ = wait(list(futures), return_when=FIRST_COMPLETED)
                 for fut in done:
-                    task = futures[fut]
+                    task = futures.pop(fut)
                     try:
                         rec = fut.result()
                     except BrokenProcessPool:
-                        n = lost.get(task[0], 0) + 1
-                        lost[task[0]] = n
-                        if n > retries:
-                            yield lost_record(task, n, "WorkerLost: the worker process running this point died")
-                        else:
-                            pending.append(task)
+                        broken = True
+                        if alone:  # it ran by itself: this point killed its worker
+                            n = lost.get(task[0], 0) + 1
+                            lost[task[0]] = n
+                            if n > retries:
+                                yield lost_record(task, n, "WorkerLost: the worker process running this "
+                                                           "point died")
+                                continue
+                        suspects.append(task)
                         continue
                     except Exception as exc:  # e.g. the function or its result could not be pickled
                         yield lost_record(task, 1, "".join(traceback.format_exception_only(exc)).strip())
