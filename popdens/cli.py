@@ -1,5 +1,5 @@
-"""Command line: ``popdens run``, ``check``, ``catalogue``, and the one-off analyses
-``step``, ``gain``, ``stationary`` and ``transfer``.
+"""Command line: ``popdens run``, ``check``, ``catalogue``, ``sweep``, ``bench``, and the one-off
+analyses ``step``, ``gain``, ``stationary`` and ``transfer``.
 
 Exit codes: 0 success, 2 bad input (no traceback), 1 numerical or internal failure,
 130 interrupted by the user (Ctrl-C; no partial output is kept).
@@ -32,6 +32,7 @@ def _parser() -> argparse.ArgumentParser:
     r.add_argument("--quiet", action="store_true", help="no progress output")
     c = sub.add_parser("check", help="validate a scenario file without running it")
     c.add_argument("scenario")
+    _add_sweep_parser(sub)
     sub.add_parser("catalogue", help="list neuron models, escape functions and input shapes with their parameters")
     b = sub.add_parser("bench", help="run benchmarks (speed against the Monte Carlo twin, printed ratios)")
     b.add_argument("names", nargs="*", metavar="NAME", help="benchmarks to run (default: list them)")
@@ -214,6 +215,63 @@ def _analysis_command(args) -> int:
     return 0
 
 
+# ---------------------------------------------------------------- sweeps (popdens/sweep_scenario.py)
+def _add_sweep_parser(sub) -> None:
+    sw = sub.add_parser("sweep", help="run a scenario's [sweep] table: many points, in parallel, resumable")
+    sw.add_argument("scenario", help="scenario file (TOML) with a [sweep] table")
+    sw.add_argument("--out", help="output folder (default: the scenario's [scenario] output)")
+    sw.add_argument("--workers", type=int, default=None,
+                    help="worker processes (default: every core; 1 = in this process)")
+    sw.add_argument("--scheduler", metavar="ADDRESS", help="run on the Dask scheduler at ADDRESS")
+    sw.add_argument("--dask-local", action="store_true",
+                    help="start a local Dask cluster of --workers processes for this sweep")
+    grp = sw.add_mutually_exclusive_group()
+    grp.add_argument("--resume", action="store_true", help="continue an interrupted sweep in the output folder")
+    grp.add_argument("--overwrite", action="store_true", help="delete an existing output folder first")
+    sw.add_argument("--retry-failed", action="store_true", help="with --resume, compute failed points again")
+    sw.add_argument("--no-figures", action="store_true", help="skip heat maps and curve families")
+    sw.add_argument("--quiet", action="store_true", help="no progress output")
+
+
+def _sweep_command(args, sc=None) -> int:
+    """``popdens sweep``; also ``popdens run`` on a scenario with a [sweep] table (default settings)."""
+    from .scenario import load_scenario
+    from .sweep_scenario import run_sweep_scenario
+
+    for name, default in (("workers", None), ("scheduler", None), ("dask_local", False), ("resume", False),
+                          ("retry_failed", False), ("no_figures", False)):
+        if not hasattr(args, name):
+            setattr(args, name, default)
+    sc = sc if sc is not None else load_scenario(args.scenario)
+    if "sweep" not in sc.raw:
+        raise ScenarioError(f"{args.scenario}: no [sweep] table; run it with `popdens run`")
+    if args.workers is not None and args.workers < 1:
+        raise ScenarioError(f"--workers must be >= 1, got {args.workers}")
+    if args.scheduler and args.dask_local:
+        raise ScenarioError("give --scheduler or --dask-local, not both")
+    if args.retry_failed and not args.resume:
+        raise ScenarioError("--retry-failed needs --resume")
+    backend = "dask" if (args.scheduler or args.dask_local) else None
+    try:
+        res = run_sweep_scenario(sc, args.out, backend=backend, workers=args.workers, scheduler=args.scheduler,
+                                 resume=args.resume, overwrite=args.overwrite, retry_failed=args.retry_failed,
+                                 figures=not args.no_figures, progress=False if args.quiet else None)
+    except (ImportError, ConnectionError) as exc:  # no Dask installed, or no scheduler at the address
+        raise ScenarioError(str(exc)) from None
+    except KeyboardInterrupt:
+        print("popdens: interrupted; finished points are saved: continue with `popdens sweep "
+              f"{args.scenario} --resume`", file=sys.stderr)
+        return EXIT_INTERRUPTED
+    d = res.diagnostics
+    print(f"wrote {res.output}: results.csv, summary.json, points/"
+          + (", failures.csv" if res.failed else "") + ("" if args.no_figures else ", figures/"))
+    print(f"  {len(res.points)} points ({d['computed_now']} computed now, {len(res.failed)} failed) on "
+          f"{d['backend']} with {d['workers']} worker(s) in {d['wall_time_s']:.3g} s")
+    for i, params, err in res.failed[:5]:
+        print(f"  point {i} {params} failed: {err}", file=sys.stderr)
+    return 0
+
+
 def _key_values(items, flag):
     from .exceptions import ScenarioError
 
@@ -312,12 +370,22 @@ def _main(args) -> int:
             return _step_command(args)
         if args.command in ("gain", "stationary", "transfer"):
             return _analysis_command(args)
+        if args.command == "sweep":
+            return _sweep_command(args)
         sc = load_scenario(args.scenario)
+        if "sweep" in sc.raw:
+            if args.command == "run":
+                return _sweep_command(args, sc)
+            from .sweep_scenario import plan_sweep
+
+            plan = plan_sweep(sc)
         if args.command == "check":
             parts = [f"{sc.t_end:g} ms run"] if sc.runs_in_time else []
             parts += [f"[{name}]" for name, _ in sc.analyses]
             print(f"{args.scenario}: OK ({sc.title}; {type(sc.population.neuron).__name__}, "
                   f"{type(sc.population.noise).__name__}; {', '.join(parts)})")
+            if "sweep" in sc.raw:
+                print(f"  sweep: {plan.n_points} points, analysis `{plan.point.analysis}`")
             return 0
         from .runner import run_scenario
 

@@ -6,7 +6,7 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = ["save_figure", "plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate", "plot_steady_state",
-           "plot_transfer"]
+           "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map", "plot_transfer"]
 
 
 def save_figure(fig, folder, stem: str) -> list[str]:
@@ -192,4 +192,61 @@ def plot_steady_state(state):
         ax2.plot(state.age, state.age_density)
         ax2.set_xlabel("age (ms)")
         ax2.set_ylabel("age density (1/ms)")
+
+# ---------------------------------------------------------------- sweeps
+#: Families with more curves than this get a colour bar instead of a legend.
+MAX_LEGEND_CURVES = 10
+
+
+def plot_sweep_map(y_values, x_values, values, y_name, x_name, name):
+    """Heat map of a scalar sweep output over a two-parameter grid (``values[i, j]`` at
+    ``y_values[i]``, ``x_values[j]``); failed points show as blank.  Returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(6.0, 4.6), constrained_layout=True)
+    x = np.asarray(x_values, dtype=float)
+    y = np.asarray(y_values, dtype=float)
+    z = np.ma.masked_invalid(np.asarray(values, dtype=float))
+    shading = "nearest" if x.size > 1 and y.size > 1 else "auto"
+    mesh = ax.pcolormesh(x, y, z, shading=shading, cmap="viridis")
+    fig.colorbar(mesh, ax=ax, label=name)
+    ax.set_xlabel(x_name)
+    ax.set_ylabel(y_name)
+    ax.set_title(name)
+    return fig
+
+
+def plot_sweep_line(x_values, values, x_name, name):
+    """A scalar sweep output against one swept parameter (or the point index).  Returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(6.0, 3.6), constrained_layout=True)
+    ax.plot(np.asarray(x_values, dtype=float), np.asarray(values, dtype=float), "o-", ms=3)
+    ax.set_xlabel(x_name)
+    ax.set_ylabel(name)
+    return fig
+
+
+def plot_sweep_curves(x, ys, x_name, name, labels):
+    """A family of curves, one per sweep point (rows of ``ys``); log frequency axes for
+    coordinates named ``frequency...``.  Returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(6.4, 4.0), constrained_layout=True)
+    ys = np.atleast_2d(np.asarray(ys, dtype=float))
+    n = ys.shape[0]
+    cmap = plt.get_cmap("viridis")
+    for i in range(n):
+        ax.plot(x, ys[i], color=cmap(i / max(n - 1, 1)), lw=1.2,
+                label=labels[i] if n <= MAX_LEGEND_CURVES else None)
+    if n <= MAX_LEGEND_CURVES:
+        ax.legend(frameon=False, fontsize="small")
+    else:
+        sm = plt.cm.ScalarMappable(cmap=cmap, norm=plt.Normalize(0, n - 1))
+        fig.colorbar(sm, ax=ax, label="point index")
+    xs = np.asarray(x, dtype=float)
+    if x_name.startswith("frequency") and np.any(xs > 0):
+        ax.set_xscale("symlog", linthresh=max(float(np.min(xs[xs > 0])), 1e-3))
+    ax.set_xlabel(x_name)
+    ax.set_ylabel(name)
     return fig

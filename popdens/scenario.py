@@ -9,6 +9,7 @@ Top-level tables
 ``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``
 ``[gain]``, ``[stationary]``, ``[transfer]``  steady-state and linear-response analyses
                 (see :mod:`popdens.analyses`)
+``[sweep]``     optional: values to sweep and the analysis; checked by ``popdens/sweep_scenario.py``
 
 ``[neuron]`` and ``[noise]`` are required, and at least one analysis: a
 time-domain run (``[input]`` with ``[run]``) or an analysis table.
@@ -64,7 +65,7 @@ INPUTS = {
 }
 RUN_KEYS = {"t_end", "dt", "record_interval", "snapshot_interval", "montecarlo_neurons", "seed"}
 SCENARIO_KEYS = {"title", "output", "notes"}
-TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run"} | set(ANALYSIS_TABLES)
+TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run", "sweep"} | set(ANALYSIS_TABLES)
 #: Largest accepted number of Monte Carlo neurons in a scenario.
 MAX_NEURONS = 10_000_000
 #: Largest accepted number of time steps in a scenario: the solvers keep three
