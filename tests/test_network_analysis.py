@@ -1,0 +1,174 @@
+"""Tests of popdens.network_analysis: fixed points, characteristic equation, stability, stability map."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from scipy.special import lambertw
+
+import popdens
+from popdens.network import Assembly, Circuit, Pathway, simulate_network
+from popdens.network_analysis import (FixedPoint, characteristic_matrix, fixed_points, solver_gain, stability,
+                                      stability_map)
+
+from test_network import LIF_E, ei_circuit, siegert, siegert_fixed_point
+
+
+def siegert_gain(pop, mu):
+    # Siegert formula (Siegert 1951; Brunel 2000), independent of popdens (scipy quadrature)
+    return siegert(mu, pop.noise.sigma)
+
+
+def bistable_circuit(c_in=200):
+    pop = popdens.Population(LIF_E, popdens.WhiteNoise(3.0))
+    return Circuit([Assembly("E", pop, size=1000, drive=12.0)], [Pathway("E", "E", 0.1, c_in, 1.5)])
+
+
+# --------------------------------------------------------------------------- fixed points
+def test_all_three_fixed_points_of_a_bistable_population():
+    c = bistable_circuit()
+    fps = fixed_points(c, (0.0, 300.0), gain=siegert_gain)
+    assert len(fps) == 3
+    # each satisfies the Siegert self-consistency A = Phi(mu_ext + tau J C A) (Brunel 2000)
+    for fp in fps:
+        mu, sg = c.stationary_input(fp.rates)
+        assert fp.rates[0] == pytest.approx(siegert(mu[0], sg[0]), rel=1e-9, abs=1e-12)
+        assert fp.mu == pytest.approx(mu) and fp.sigma == pytest.approx(sg)
+    # independent count: sign changes of A - Phi(A) on a dense grid (numpy)
+    grid = np.linspace(0.0, 300.0, 3001)
+    f = np.array([a - siegert(*[x[0] for x in c.stationary_input([a])]) for a in grid])
+    assert np.sum(np.sign(f[1:]) != np.sign(f[:-1])) == 3
+    assert repr(fps[0]).startswith("<FixedPoint E=")
+
+
+def test_two_population_fixed_point_matches_scipy_fsolve():
+    c = ei_circuit(g=6.0, drive=20.0)
+    c = Circuit([c.assemblies[0], Assembly("I", c.assemblies[1].population, size=500, drive=17.0)], c.pathways)
+    fps = fixed_points(c, (0.0, 100.0), gain=siegert_gain)
+    assert len(fps) == 1
+    ref = siegert_fixed_point(c, [5.0, 5.0])  # scipy fsolve on the Siegert formula
+    assert fps[0].rates == pytest.approx(ref, rel=1e-8)
+
+
+def test_default_gain_from_the_solvers_agrees_with_siegert():
+    # discrete Fokker-Planck stationary rate vs Siegert: 400 cells, measured relative error ~1e-4
+    pop = popdens.Population(LIF_E, popdens.WhiteNoise(4.0))
+    for mu in (15.0, 19.0, 24.0):
+        assert solver_gain(pop, mu) == pytest.approx(siegert(mu, 4.0), rel=1e-3)
+
+
+def test_time_integration_converges_to_the_reported_fixed_points():
+    # the mean-field integration settles on the fixed point that the finder reports with the solvers'
+    # own gain (same discretisation, so to 1e-5); checked for the low state of a bistable population and
+    # for the asynchronous state of an E-I circuit
+    c = bistable_circuit()
+    fps = fixed_points(c, (0.0, 300.0))
+    assert len(fps) == 3
+    res = simulate_network(c, 300.0, initial_rates=fps[0].rates * 20.0, record_interval=1.0)
+    assert res.rate[0, -1] == pytest.approx(fps[0].rates[0], rel=1e-5)
+    # the middle one is a saddle: a small push upwards leaves it (here: into the high-rate regime)
+    res = simulate_network(c, 100.0, initial_rates=fps[1].rates * 1.05, record_interval=1.0)
+    assert res.rate[0, -20:].mean() > 1.5 * fps[1].rates[0]
+    ei = ei_circuit(g=5.0, drive=18.0)
+    (fp,) = fixed_points(ei, (0.0, 100.0))
+    res = simulate_network(ei, 400.0, initial_rates=[0.0, 30.0], record_interval=1.0)
+    assert res.rate[:, -1] == pytest.approx(fp.rates, rel=1e-5)
+
+
+def test_fixed_point_errors():
+    with pytest.raises(ValueError, match="rate_range"):
+        fixed_points(bistable_circuit(), (10.0, 5.0), gain=siegert_gain)
+    with pytest.raises(ValueError, match="`circuit`"):
+        fixed_points("E", gain=siegert_gain)
+
+
+# --------------------------------------------------------------------------- characteristic equation
+def lowpass(gain_hz_per_mv, tau_ms):
+    """First-order low-pass transfer function chi(f) = G / (1 + 2 pi i f tau) (an analytic model)."""
+    def transfer(pop, mu, freqs, modulate):
+        f = np.asarray(freqs, dtype=complex)
+        if modulate == "noise":
+            return np.zeros(f.shape, dtype=complex)
+        return gain_hz_per_mv / (1.0 + 2j * math.pi * f * tau_ms * 1e-3)
+    return transfer
+
+
+def inhibitory_loop(weight=-0.5, c_in=100, delay=2.0, tau_syn=0.0):
+    esc = popdens.Population(LIF_E, popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0)))
+    return Circuit([Assembly("I", esc, size=500, drive=15.0)], [Pathway("I", "I", weight, c_in, delay, tau_syn)])
+
+
+def fake_state(c, rate=10.0):
+    mu, sg = c.stationary_input([rate])
+    return FixedPoint(c.names, np.array([rate]), mu, sg, 0.0)
+
+
+@pytest.mark.parametrize("gain_, tau, delay", [(1.0, 5.0, 2.0), (0.5, 10.0, 3.0), (0.2, 2.0, 1.0)])
+def test_leading_root_matches_lambert_w(gain_, tau, delay):
+    # 1 = c e^{-lam d} / (1 + lam tau), c = G tau_m J C / 1000: with z = 1 + lam tau,
+    # (z d/tau) e^{z d/tau} = c (d/tau) e^{d/tau}, so z = (tau/d) W_k(c (d/tau) e^{d/tau}) (Lambert W, scipy);
+    # the principal branches k = 0, -1 hold the leading roots for this equation.
+    c = inhibitory_loop(delay=delay)
+    coef = gain_ * 20.0 * (-0.5) * 100 * 1e-3
+    tr = lowpass(gain_, tau)
+    st = stability(c, fake_state(c), transfer=tr, max_frequency=400.0)
+    cand = []
+    for k in range(-3, 4):
+        z = tau / delay * lambertw(coef * delay / tau * math.exp(delay / tau), k)
+        cand.append((z - 1.0) / tau)
+    cand = np.array(cand)
+    lead = cand[np.argmax(cand.real)]
+    assert st.growth_rate == pytest.approx(lead.real * 1e3, rel=1e-6, abs=1e-6)
+    assert st.frequency == pytest.approx(abs(lead.imag) * 1e3 / (2 * math.pi), rel=1e-6)
+    assert st.stable == (lead.real < 0)
+    # every reported root solves the equation
+    m = characteristic_matrix(c, fake_state(c), st.roots, tr)[:, 0, 0]
+    assert np.max(np.abs(1.0 - m)) < 1e-7
+
+
+def test_exponential_synapse_and_variance_terms_in_the_matrix():
+    # M = [chi_mu tau J + chi_var tau J^2] C K(lam) e^{-lam d} / 1000, K = 1/(1 + lam tau_s) (Laplace transform)
+    pop = popdens.Population(LIF_E, popdens.WhiteNoise(4.0))
+    c = Circuit([Assembly("E", pop, size=100, drive=15.0)], [Pathway("E", "E", 0.3, 50, 1.5, tau_syn=3.0)])
+
+    def tr(p, mu, f, modulate):
+        return np.full(np.shape(f), 2.0 + 1j if modulate == "mean" else 0.5 - 0.2j)
+    lam = np.array([0.01 + 0.3j, -0.02 + 1.0j])
+    m = characteristic_matrix(c, fake_state(c), lam, tr)[:, 0, 0]
+    ref = ((2.0 + 1j) * 20 * 0.3 + (0.5 - 0.2j) * 20 * 0.09) * 50 * np.exp(-lam * 1.5) / (1 + 3.0 * lam) / 1000
+    assert m == pytest.approx(ref, rel=1e-13)
+
+
+def test_stability_map_draws_the_boundary():
+    # inhibitory loop with a low-pass population: the Hopf boundary in (G, d) from the closed form
+    # |c| = sqrt(1 + (w tau)^2), w d + atan(w tau) = pi (phase condition of 1 = -|c| e^{-i w d}/(1 + i w tau))
+    tau = 5.0
+
+    def build(x, y):
+        return inhibitory_loop(delay=y)
+
+    gains = {}
+
+    def tr(pop, mu, f, modulate):
+        return lowpass(tr.g, tau)(pop, mu, f, modulate)
+
+    xs = np.array([0.5, 1.0, 2.0])
+    ys = np.array([1.0, 3.0])
+    maps = []
+    for g in xs:
+        tr.g = g
+        maps.append(stability_map(lambda x, y: build(x, y), [g], ys, x_label="G (Hz/mV)", y_label="delay (ms)",
+                                  gain=lambda p, mu: 10.0, transfer=tr, max_frequency=300.0))
+    grid = np.concatenate([m.growth_rate for m in maps], axis=1)
+    for j, g in enumerate(xs):
+        for i, d in enumerate(ys):
+            cabs = g * 20 * 0.5 * 100 * 1e-3
+            from scipy.optimize import brentq
+            w = brentq(lambda w: w * d + math.atan(w * tau) - math.pi, 1e-9, math.pi / d)
+            unstable = cabs > math.sqrt(1 + (w * tau) ** 2)
+            assert (grid[i, j] > 0) == unstable
+    fig, ax = maps[0].plot()
+    assert ax.get_xlabel() == "G (Hz/mV)"
+    _ = gains
