@@ -228,3 +228,44 @@ def test_result_plot_and_save(tmp_path):
     with np.load(path) as data:
         assert np.array_equal(data["rate"], res.rate)
     assert isinstance(res, CircuitResult) and "mean-field" in repr(res)
+
+
+def test_escape_noise_network_mean_field_vs_montecarlo():
+    # Escape-noise assemblies receive the mean recurrent input only in the mean field; with many weak
+    # synapses (J = 0.05 mV, C = 100) the spiking twin's shot noise is small against the escape noise.
+    # Reference: refractory-density integration; Poisson SE of the 1 s mean with N = 2000 ~ 0.1 Hz;
+    # tolerance 4 SE + 2 % (shot noise, measured).
+    esc = popdens.Population(LIF_E, popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0)))
+    c = Circuit([Assembly("X", esc, size=2000, drive=16.0), Assembly("Y", esc, size=1000, drive=17.0)],
+                [Pathway("X", "Y", 0.05, 100, 1.0), Pathway("Y", "X", -0.05, 100, 2.0, tau_syn=3.0),
+                 Pathway("X", "X", 0.05, 100, 1.0)])
+    mf = simulate_network(c, 400.0, record_interval=1.0)
+    mc = montecarlo_network(c, 1000.0, seed=4, burn_in=200.0)
+    ref = mf.rate[:, -1]
+    for k, n in enumerate((2000, 1000)):
+        se = math.sqrt(ref[k] / (n * 1.0))
+        assert abs(mc.mean_rate()[k] - ref[k]) < 4 * se + 0.02 * ref[k]
+
+
+def test_step_response_of_the_network_mean_field_vs_montecarlo():
+    # A step of the external drive of E: the time course of both rates (5 ms bins) from the mean-field
+    # integration vs the spiking network. Tolerance per bin: 5 SE (Poisson SE sqrt(nu / (N T_bin)))
+    # plus 5 % of the rate for the finite-size and shot-noise corrections of the diffusion approximation,
+    # with exponential synapses (tau_syn = 1 ms) on every pathway.
+    c0 = ei_circuit(n_e=4000, n_i=1000, c_e=200, c_i=50, g=4.0, tau_syn=1.0)
+    e = c0.assemblies[0]
+    step = popdens.drive.Step(t=100.0, before=16.0, after=20.0)
+    c = Circuit([Assembly("E", e.population, size=4000, drive=step), c0.assemblies[1]], c0.pathways)
+    fp = fixed_points_of(c)
+    mf = simulate_network(c, 300.0, initial_rates=fp, record_interval=5.0)
+    mc = montecarlo_network(c, 300.0, seed=9, burn_in=300.0, record_interval=5.0)
+    for k, n in enumerate((4000, 1000)):
+        se = np.sqrt(mf.rate[k, 1:] / (n * 5e-3))
+        err = np.abs(mc.rate[k, 1:] - mf.rate[k, 1:])
+        assert np.all(err < 5 * se + 0.05 * mf.rate[k, 1:])
+    # the step is visible: the E rate rises by more than 15 of its SE
+    assert mf.rate[0, -1] - mf.rate[0, 10] > 15 * math.sqrt(mf.rate[0, -1] / (4000 * 5e-3))
+
+
+def fixed_points_of(c):
+    return siegert_fixed_point(c, [10.0, 10.0])
