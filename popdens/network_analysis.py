@@ -51,7 +51,7 @@ from .network import HZ_TO_PER_MS, Circuit
 from .noise import EscapeNoise, WhiteNoise
 
 __all__ = ["FixedPoint", "Stability", "StabilityMap", "fixed_points", "solver_gain", "characteristic_matrix",
-           "stability", "stability_map"]
+           "stability", "stability_map", "count_roots"]
 
 #: Default rate box (Hz) searched for fixed points.
 DEFAULT_RATE_RANGE = (0.0, 200.0)
@@ -294,6 +294,12 @@ class Stability:
         Imaginary part of the leading root / 2 pi (Hz): the oscillation
         frequency at onset (0 for a real root).
     stable : bool
+    n_unstable : int
+        Number of roots (conjugates counted) with ``0 < Re lam <= max_growth``
+        and ``|Im lam| <= 2 pi max_frequency`` counted independently by the
+        argument principle (winding number of ``det(I - M)`` round that box).
+    complete : bool
+        True when the Newton search found as many unstable roots as counted.
     """
 
     state: FixedPoint
@@ -301,11 +307,13 @@ class Stability:
     growth_rate: float
     frequency: float
     stable: bool
+    n_unstable: int = -1
+    complete: bool = True
 
     def __repr__(self):
         word = "stable" if self.stable else "unstable"
         return (f"<Stability {word}: leading root {self.growth_rate:.4g} 1/s, {self.frequency:.4g} Hz; "
-                f"{self.roots.size} roots>")
+                f"{self.roots.size} roots, {self.n_unstable} unstable by the argument principle>")
 
 
 def _det_fn(circuit, state, transfer):
@@ -399,8 +407,50 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
                                "widen `min_growth`/`max_frequency`")
     roots = np.array(sorted(roots, key=lambda r: -r.real))
     lead = roots[0]
+    n_count = count_roots(det, 0.0, max_growth * 1e-3, 2 * math.pi * max_frequency * 1e-3)
+    w_max = 2 * math.pi * max_frequency * 1e-3
+    inside = [r for r in roots if 0.0 < r.real <= max_growth * 1e-3 and r.imag <= w_max]
+    n_found = sum(1 if r.imag == 0.0 else 2 for r in inside)
+    stable = bool(lead.real < 0.0) and n_count == 0
     return Stability(state=state, roots=roots, growth_rate=float(lead.real * 1e3),
-                     frequency=float(lead.imag * 1e3 / (2 * math.pi)), stable=bool(lead.real < 0.0))
+                     frequency=float(lead.imag * 1e3 / (2 * math.pi)), stable=stable,
+                     n_unstable=int(n_count), complete=bool(n_found == n_count))
+
+
+def count_roots(det: Callable, re_lo: float, re_hi: float, im_max: float, n0: int = 400,
+                max_points: int = 200_000) -> int:
+    """Number of zeros of ``det`` in the box ``re_lo < Re < re_hi``, ``|Im| < im_max`` (1/ms).
+
+    Argument principle: the winding number of ``det`` along the box boundary
+    (counter-clockwise), valid when ``det`` has no poles inside (true for
+    stable uncoupled populations; the synaptic poles lie at ``-1/tau_syn``).
+    The boundary is refined until no phase step exceeds pi/4.
+
+    Raises
+    ------
+    ConvergenceError
+        If ``det`` vanishes on the boundary or the phase cannot be resolved.
+    """
+    corners = [complex(re_lo, -im_max), complex(re_hi, -im_max), complex(re_hi, im_max),
+               complex(re_lo, im_max), complex(re_lo, -im_max)]
+    lengths = [abs(b - a) for a, b in zip(corners[:-1], corners[1:])]
+    total = sum(lengths)
+    n = n0
+    while True:
+        pts = []
+        for (a, b), ln in zip(zip(corners[:-1], corners[1:]), lengths):
+            m = max(8, int(math.ceil(n * ln / total)))
+            pts.append(a + (b - a) * np.arange(m) / m)
+        z = np.concatenate(pts + [np.array([corners[0]])])
+        val = det(z)
+        if np.any(~np.isfinite(val)) or np.any(np.abs(val) == 0.0):
+            raise ConvergenceError("det(I - M) is not finite or vanishes on the counting contour")
+        dphi = np.angle(val[1:] / val[:-1])
+        if np.max(np.abs(dphi)) < math.pi / 4:
+            return int(round(np.sum(dphi) / (2 * math.pi)))
+        if z.size > max_points:
+            raise ConvergenceError("the phase of det(I - M) could not be resolved on the counting contour")
+        n *= 4
 
 
 # ---------------------------------------------------------------------------

@@ -105,7 +105,7 @@ def fake_state(c, rate=10.0):
     return FixedPoint(c.names, np.array([rate]), mu, sg, 0.0)
 
 
-@pytest.mark.parametrize("gain_, tau, delay", [(1.0, 5.0, 2.0), (0.5, 10.0, 3.0), (0.2, 2.0, 1.0)])
+@pytest.mark.parametrize("gain_, tau, delay", [(1.0, 5.0, 2.0), (0.5, 10.0, 3.0), (0.2, 2.0, 1.0), (3.0, 2.0, 2.0), (8.0, 1.0, 4.0)])
 def test_leading_root_matches_lambert_w(gain_, tau, delay):
     # 1 = c e^{-lam d} / (1 + lam tau), c = G tau_m J C / 1000: with z = 1 + lam tau,
     # (z d/tau) e^{z d/tau} = c (d/tau) e^{d/tau}, so z = (tau/d) W_k(c (d/tau) e^{d/tau}) (Lambert W, scipy);
@@ -123,6 +123,12 @@ def test_leading_root_matches_lambert_w(gain_, tau, delay):
     assert st.growth_rate == pytest.approx(lead.real * 1e3, rel=1e-6, abs=1e-6)
     assert st.frequency == pytest.approx(abs(lead.imag) * 1e3 / (2 * math.pi), rel=1e-6)
     assert st.stable == (lead.real < 0)
+    # the argument-principle count equals the number of closed-form roots (all branches, both signs of
+    # the imaginary part) in the box 0 < Re lam <= 0.2/ms, |Im lam| <= 2 pi 400 Hz
+    allr = np.array([(tau / delay * lambertw(coef * delay / tau * math.exp(delay / tau), k) - 1.0) / tau
+                     for k in range(-40, 41)])
+    in_box = np.sum((allr.real > 0) & (allr.real <= 0.2) & (np.abs(allr.imag) <= 2 * math.pi * 0.4))
+    assert st.n_unstable == in_box and st.complete
     # every reported root solves the equation
     m = characteristic_matrix(c, fake_state(c), st.roots, tr)[:, 0, 0]
     assert np.max(np.abs(1.0 - m)) < 1e-7
