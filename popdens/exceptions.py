@@ -6,7 +6,7 @@ reported in ``Result.status`` / ``Result.message`` instead.
 
 from __future__ import annotations
 
-__all__ = ["PopdensError", "ExpressionError", "ScenarioError", "ConvergenceError"]
+__all__ = ["PopdensError", "ExpressionError", "ScenarioError", "ConvergenceError", "UnreachableTargetError"]
 
 
 class PopdensError(Exception):
@@ -23,3 +23,7 @@ class ScenarioError(PopdensError, ValueError):
 
 class ConvergenceError(PopdensError, RuntimeError):
     """An iterative numerical method did not converge."""
+
+
+class UnreachableTargetError(PopdensError, ValueError):
+    """An inverse-design target (rate, CV) is not reached by any admissible input."""

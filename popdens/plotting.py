@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["plot_rate", "plot_comparison"]
+__all__ = ["plot_rate", "plot_comparison", "plot_steady_state"]
 
 
 def _axes(ax):
@@ -44,4 +44,25 @@ def plot_comparison(prediction, montecarlo, n_se: float = 2.0):
     axd.set_ylabel("drive (mV)")
     axd.set_xlabel("time (ms)")
     ax.set_xlim(float(np.min(t)), float(np.max(t)))
+    return fig
+
+
+def plot_steady_state(state):
+    """ISI density (1/ms) and the stationary potential (1/mV) or age (1/ms) density of a
+    :class:`~popdens.steady_state.SteadyState`; returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(9.0, 3.5), constrained_layout=True)
+    ax1.plot(state.isi_t, state.isi_density)
+    ax1.set_xlabel("interval (ms)")
+    ax1.set_ylabel("ISI density (1/ms)")
+    ax1.set_title(f"rate {state.rate:.4g} Hz, CV {state.cv:.3g}")
+    if state.density is not None:
+        ax2.plot(state.u, state.density)
+        ax2.set_xlabel("membrane potential (mV)")
+        ax2.set_ylabel("density (1/mV)")
+    else:
+        ax2.plot(state.age, state.age_density)
+        ax2.set_xlabel("age (ms)")
+        ax2.set_ylabel("age density (1/ms)")
     return fig
