@@ -64,7 +64,7 @@ def test_time_integration_converges_to_the_reported_fixed_points():
     # own gain (same discretisation, so to 1e-5); checked for the low state of a bistable population and
     # for the asynchronous state of an E-I circuit
     c = bistable_circuit()
-    fps = fixed_points(c, (0.0, 300.0))
+    fps = fixed_points(c, (0.0, 300.0), gain=solver_gain)
     assert len(fps) == 3
     res = simulate_network(c, 300.0, initial_rates=fps[0].rates * 20.0, record_interval=1.0)
     assert res.rate[0, -1] == pytest.approx(fps[0].rates[0], rel=1e-5)
@@ -72,9 +72,20 @@ def test_time_integration_converges_to_the_reported_fixed_points():
     res = simulate_network(c, 100.0, initial_rates=fps[1].rates * 1.05, record_interval=1.0)
     assert res.rate[0, -20:].mean() > 1.5 * fps[1].rates[0]
     ei = ei_circuit(g=5.0, drive=18.0)
-    (fp,) = fixed_points(ei, (0.0, 100.0))
+    (fp,) = fixed_points(ei, (0.0, 100.0), gain=solver_gain)
     res = simulate_network(ei, 400.0, initial_rates=[0.0, 30.0], record_interval=1.0)
     assert res.rate[:, -1] == pytest.approx(fp.rates, rel=1e-5)
+
+
+def test_default_gain_is_the_steady_state_module():
+    # with popdens.steady_state merged the default gain is its Siegert formula: compare with the
+    # independent Siegert of this file
+    c = bistable_circuit()
+    fps = fixed_points(c, (0.0, 300.0))
+    ref = fixed_points(c, (0.0, 300.0), gain=siegert_gain)
+    assert len(fps) == 3
+    for a, b in zip(fps, ref):
+        assert a.rates == pytest.approx(b.rates, rel=1e-7)
 
 
 def test_fixed_point_errors():
