@@ -264,14 +264,24 @@ def characteristic_matrix(circuit: Circuit, state: FixedPoint, lam, transfer: Ca
     n = circuit.n
     out = np.zeros((f.size, n, n), dtype=complex)
     chi_m, chi_v = {}, {}
+    same = {}  # assemblies with equal population and input share their transfer functions
     for p in circuit.pathways:
         k, l = circuit.index(p.target), circuit.index(p.source)
         a = circuit.assemblies[k]
         if k not in chi_m:
             pop = circuit.population_at(k, state.sigma[k])
-            chi_m[k] = np.asarray(transfer(pop, float(state.mu[k]), f, "mean"), dtype=complex)
-            chi_v[k] = (np.asarray(transfer(pop, float(state.mu[k]), f, "noise"), dtype=complex)
-                        if a.diffusive else np.zeros(f.size, dtype=complex))
+            try:
+                key = (pop, float(state.mu[k]))
+                hash(key)
+            except TypeError:  # pragma: no cover - unhashable custom parameters
+                key = (id(pop), k)
+            if key in same:
+                chi_m[k], chi_v[k] = chi_m[same[key]], chi_v[same[key]]
+            else:
+                same[key] = k
+                chi_m[k] = np.asarray(transfer(pop, float(state.mu[k]), f, "mean"), dtype=complex)
+                chi_v[k] = (np.asarray(transfer(pop, float(state.mu[k]), f, "noise"), dtype=complex)
+                            if a.diffusive else np.zeros(f.size, dtype=complex))
         kern = p.kernel_laplace(lam.ravel())
         out[:, k, l] += (chi_m[k] * a.tau_m * p.weight + chi_v[k] * a.tau_m * p.weight ** 2) \
             * p.in_degree * kern * HZ_TO_PER_MS
