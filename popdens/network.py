@@ -73,6 +73,8 @@ EXTRA_LOWER_SPANS = 1.0
 STEP_TOL = 1e-9
 #: Steps per block between progress updates.
 PROGRESS_BLOCK = 500
+#: Mean field: most steps advanced per solver call (the delays set the actual block).
+MAX_BLOCK_STEPS = 1000
 #: Monte Carlo: steps per compiled call (progress, interruption, spike-buffer growth).
 MC_BLOCK = 1000
 #: Monte Carlo: default burn-in (ms) before t = 0, discarded.
@@ -658,38 +660,44 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     rate_init = np.array([s.instantaneous_rate(float(mu0[k]), float(sg0[k]) if diffusive[k] else None)
                           for k, s in enumerate(solvers)])
     a_prev = [ln.delayed(0.0, 0) for ln in lines]
+    # Block of steps whose delayed input is already known from completed steps: the drive at
+    # t_{j+b+1} needs rates up to (t_{j+b+1} - d)/dt - 1/2 <= j - 1 midpoints, i.e. b <= d/dt - 3/2.
+    # Advancing such a block in one solver call gives the same numbers as single steps, without
+    # the per-call overhead (measured: 53 vs 30 us per Fokker-Planck step of 400 cells).
+    block = MAX_BLOCK_STEPS
+    for p in circuit.pathways:
+        block = min(block, max(1, int(math.floor(p.delay / dt - 0.5 + STEP_TOL))))
     bar = Progress(n, "network mean-field", progress)
     status, message = STATUS_OK, "completed"
     done = 0
-    buf_mu = np.empty(2)
-    buf_sg = np.empty(2)
     try:
-        for j in range(n):
-            t1 = (j + 1) * dt
-            s_new = []
-            for q, ln in enumerate(lines):
-                a1 = ln.delayed(t1, j)
-                s_new.append(ln.advance_filter(a_prev[q], a1))
-                a_prev[q] = a1
-            mu1, sg1 = inputs(j + 1, s_new)
-            mus[:, j + 1], sgs[:, j + 1] = mu1, sg1
+        j = 0
+        while j < n:
+            nb = min(block, n - j)
+            for b in range(nb):
+                t1 = (j + b + 1) * dt
+                s_new = []
+                for q, ln in enumerate(lines):
+                    a1 = ln.delayed(t1, j)
+                    s_new.append(ln.advance_filter(a_prev[q], a1))
+                    a_prev[q] = a1
+                mus[:, j + b + 1], sgs[:, j + b + 1] = inputs(j + b + 1, s_new)
             for k, s in enumerate(solvers):
-                buf_mu[0], buf_mu[1] = mus[k, j], mu1[k]
                 if diffusive[k]:
-                    buf_sg[0], buf_sg[1] = sgs[k, j], sg1[k]
-                    r, _, _ = s.advance(buf_mu, buf_sg)
+                    r, _, _ = s.advance(mus[k, j:j + nb + 1], sgs[k, j:j + nb + 1])
                 else:
-                    r, _, _ = s.advance(buf_mu)
+                    r, _, _ = s.advance(mus[k, j:j + nb + 1])
                 if s.status != STATUS_OK:
                     status, message = STATUS_FAILED, f"assembly {circuit.names[k]!r}: {s.message}"
                     break
-                rate[k, j] = r[0]
+                rate[k, j:j + nb] = r
             if status != STATUS_OK:
                 break
             for q, ln in enumerate(lines):
-                ln.hist[j] = rate[src[q], j] * HZ_TO_PER_MS
-            done = j + 1
-            if done % PROGRESS_BLOCK == 0:
+                ln.hist[j:j + nb] = rate[src[q], j:j + nb] * HZ_TO_PER_MS
+            j += nb
+            done = j
+            if (done // nb) % max(1, PROGRESS_BLOCK // nb) == 0:
                 bar.update(done)
     except KeyboardInterrupt:
         status, message = STATUS_FAILED, f"interrupted by the user at t = {done * dt:g} ms"

@@ -269,3 +269,17 @@ def test_step_response_of_the_network_mean_field_vs_montecarlo():
 
 def fixed_points_of(c):
     return siegert_fixed_point(c, [10.0, 10.0])
+
+
+def test_blocked_mean_field_steps_equal_single_steps(monkeypatch):
+    # advancing the solvers over blocks shorter than the delay must give the same numbers as single steps
+    import popdens.network as net
+
+    c = ei_circuit(g=5.0, drive=18.0, tau_syn=0.7, delay=1.0)
+    d = popdens.drive.Step(t=5.0, before=18.0, after=21.0)
+    c = Circuit([Assembly("E", c.assemblies[0].population, size=2000, drive=d), c.assemblies[1]], c.pathways)
+    a = simulate_network(c, 30.0, initial_rates=[3.0, 8.0])
+    monkeypatch.setattr(net, "MAX_BLOCK_STEPS", 1)
+    b = simulate_network(c, 30.0, initial_rates=[3.0, 8.0])
+    assert np.allclose(a.rate, b.rate, rtol=1e-12, atol=1e-12)
+    assert np.allclose(a.mu, b.mu, rtol=1e-13)
