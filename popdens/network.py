@@ -843,7 +843,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     q_buf_off = np.concatenate([[0], np.cumsum(buf_len)]).astype(np.int64)[:nq]
     x_len = [sizes[q_tgt[q]] for q in range(nq)]
     q_x_off = np.concatenate([[0], np.cumsum(x_len)]).astype(np.int64)[:nq]
-    buf = np.zeros(int(sum(buf_len)) if nq else 1)
+    buf = np.zeros(int(sum(buf_len)) if nq else 1, dtype=np.float32)  # spike counts: exact up to 2**24
     xs = np.zeros(int(sum(x_len)) if nq else 1)
     seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
     ptrs, idxs = [], []
