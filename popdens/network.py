@@ -472,7 +472,7 @@ class CircuitResult:
         if path.suffix != ".npz":
             path = path.with_suffix(".npz")
         arrays = {"t": self.t, "rate": self.rate}
-        for k in ("mu", "sigma", "spike_times", "spike_ids"):
+        for k in ("mu", "sigma", "mean_u", "spike_times", "spike_ids"):
             if getattr(self, k) is not None:
                 arrays[k] = getattr(self, k)
         meta = {"names": list(self.names), "method": self.method, "status": self.status,

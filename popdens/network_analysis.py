@@ -483,6 +483,8 @@ class StabilityMap:
         Frequency (Hz) of that root.
     rates : ndarray, shape (len(y), len(x), n)
         Rates (Hz) of the fixed point it belongs to.
+    complete : bool
+        False when the computation was interrupted (missing points are NaN).
     """
 
     x: np.ndarray
@@ -492,6 +494,7 @@ class StabilityMap:
     growth_rate: np.ndarray
     frequency: np.ndarray
     rates: np.ndarray
+    complete: bool = True
 
     def plot(self, ax=None):
         """Frequency of the leading root with the stability boundary (growth rate 0) drawn.
@@ -550,6 +553,7 @@ def stability_map(build: Callable, x, y, *, x_label: str = "x", y_label: str = "
     rates = None
     bar = Progress(xs.size * ys.size, "stability map", progress)
     done = 0
+    complete = True
     try:
         for i, yv in enumerate(ys):
             for j, xv in enumerate(xs):
@@ -566,6 +570,11 @@ def stability_map(build: Callable, x, y, *, x_label: str = "x", y_label: str = "
                         rates[i, j] = fp.rates
                 done += 1
                 bar.update(done)
+    except KeyboardInterrupt:
+        # keep what was computed: the remaining points stay NaN
+        complete = False
     finally:
         bar.close()
-    return StabilityMap(xs, ys, x_label, y_label, gr, fr, rates)
+    if rates is None:
+        rates = np.full((ys.size, xs.size, 0), np.nan)
+    return StabilityMap(xs, ys, x_label, y_label, gr, fr, rates, complete)

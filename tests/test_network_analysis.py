@@ -281,3 +281,19 @@ def test_mean_field_transients_follow_the_leading_root(g, ratio, kick):
     assert freq == pytest.approx(st.frequency, rel=0.01)
     assert growth == pytest.approx(st.growth_rate, rel=0.05)
     assert st.stable == ((g, ratio) != (8.0, 4.0))
+
+
+def test_stability_map_of_the_sparse_network_with_the_transfer_functions():
+    # Brunel-network map over relative inhibition g and external drive: only (g = 8, nu = 4 nu_thr) is
+    # unstable (the slow test checks that point against the spiking network); the plot draws the boundary
+    m = stability_map(lambda g, r: brunel_circuit(g, r), [5.0, 8.0], [2.0, 4.0], x_label="g",
+                      y_label="nu_ext / nu_thr", gain=siegert_gain, rate_range=(0.0, 300.0),
+                      max_frequency=600.0)
+    assert m.complete
+    assert (m.growth_rate > 0).tolist() == [[False, False], [False, True]]
+    # pinned: the value stability() reported for this point when the test was written (a regression
+    # check; the slow test compares it with the spiking network)
+    assert m.frequency[1, 1] == pytest.approx(195.3, rel=0.01)
+    assert m.rates.shape == (2, 2, 2)
+    fig, ax = m.plot()
+    assert len(ax.collections) >= 2  # the colour mesh and the boundary contour
