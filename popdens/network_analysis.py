@@ -39,7 +39,7 @@ from __future__ import annotations
 
 import itertools
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Callable
 
 import numpy as np
@@ -48,7 +48,7 @@ from scipy.optimize import brentq, root
 from . import _validation as v
 from .exceptions import ConvergenceError
 from .network import HZ_TO_PER_MS, Circuit
-from .noise import EscapeNoise, WhiteNoise
+from .noise import WhiteNoise
 
 __all__ = ["FixedPoint", "Stability", "StabilityMap", "fixed_points", "solver_gain", "characteristic_matrix",
            "stability", "stability_map", "count_roots"]
