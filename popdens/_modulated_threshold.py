@@ -45,8 +45,8 @@ import numpy as np
 
 from ._kernels import NO_REFCOUNT
 
-#: Grid nodes per sigma (mV) of noise; measured second-order convergence makes this
-#: accurate to ~1e-5 relative (see tests/test_linear_response.py).
+#: Grid nodes per sigma (mV) of noise: alone accurate to ~1e-5 relative (second order, measured);
+#: the front end extrapolates from this and twice this.
 NODES_PER_SIGMA = 200
 #: Fewest nodes between reset and boundary.
 MIN_NODES_RESET_TO_BOUNDARY = 400

@@ -55,29 +55,33 @@ def _tail(s, sc, hc, huc, gslope, tau_m, u_c, j_c):  # pragma: no cover - compil
 
 
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
-def _renewal_sweep(s_arr, da, tau_m, hu, h0, surv, gslope, free_step, with_tail, tail_gslope,
+def _renewal_sweep(s_arr, tref, da, tau_m, hu, h0, surv, gslope, e_slope, with_tail, tail_gslope,
                    out):  # pragma: no cover - compiled
-    """out[i] = (Q, P_hat) for every Laplace variable s_arr[i] (1/ms)."""
+    """out[i] = (Q, P_hat) for every Laplace variable s_arr[i] (1/ms).
+
+    The grid starts at the end of the refractory period ``tref`` (ms), where U = J = 0;
+    ``e_slope = exp(gslope * da)`` (the membrane factor of a step, frequency-independent).
+    """
     n = hu.shape[0]
     for i in range(s_arr.shape[0]):
         s = s_arr[i]
         z = cmath.exp(-s * da)
         u = 0.0 + 0.0j
         j = 0.0 + 0.0j
-        phase = 1.0 + 0.0j
-        f_prev = 0.0 + 0.0j  # h' U at the previous node (U = 0 at age 0)
-        q = 0.5 * da * (surv[0] * (hu[0] * u - h0[0] * j))
-        p = 0.5 * da * h0[0] * surv[0]
+        phase = cmath.exp(-s * tref)
+        f_prev = 0.0 + 0.0j  # h' U at the previous node (U = 0 at the end of the refractory period)
+        q = 0.0 + 0.0j
+        p = 0.5 * da * h0[0] * surv[0] * phase
         for k in range(n - 1):
-            if free_step[k]:
-                g = gslope[k] - s
-                x = g * da
-                eg = cmath.exp(x)
-                if abs(x) < SERIES_BELOW:
-                    phi = da * (1.0 + 0.5 * x)
-                else:
-                    phi = (eg - 1.0) / g
-                u = eg * u + phi / tau_m
+            g = gslope[k] - s
+            x = g * da
+            eg = e_slope[k] * z  # exp(g da) without a complex exponential
+            g2 = g.real * g.real + g.imag * g.imag
+            if g2 * da * da < SERIES_BELOW * SERIES_BELOW:
+                phi = da * (1.0 + 0.5 * x)
+            else:
+                phi = (eg - 1.0) * (g.conjugate() * (1.0 / g2))  # (exp(g da) - 1)/g
+            u = eg * u + phi / tau_m
             f_new = hu[k + 1] * u
             j = z * j + 0.5 * da * (f_new + z * f_prev)
             f_prev = f_new
