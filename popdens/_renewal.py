@@ -51,6 +51,10 @@ U_CONVERGED = 1e-10
 S_FLOOR = 1e-18
 #: Ages beyond this (ms) are treated as the converged tail.
 MAX_AGE = 1e13
+#: Age steps of integrated (non-closed-form) trajectories stay below this many local
+#: relaxation times tau_m/|F'(u)|, inside the real stability interval of the
+#: Dormand--Prince pair (about 3.3), so deviations from the fixed point decay.
+STABLE_STEPS = 2.0
 #: Step limit per trajectory.
 MAX_STEPS = 200_000
 N_COMP = 5
@@ -259,6 +263,12 @@ def renewal_moments(code, p, ops, args, tau_m, reset, boundary, tau_ref, mu,
                     break
             fac = 0.9 * err ** -0.2 if err > 0.0 else 5.0
             hstep *= min(5.0, max(0.2, fac))
+            if mode == 0 and code != CODE_LIF and code != CODE_PIF:
+                eps = 1e-4 * (1.0 + abs(y[0]))
+                slope = (drift_value(code, p, ops, args, y[0] + eps, stack, xbuf)
+                         - drift_value(code, p, ops, args, y[0] - eps, stack, xbuf)) / (2.0 * eps)
+                if abs(slope) > 0.0 and hstep * abs(slope) > STABLE_STEPS * tau_m:
+                    hstep = STABLE_STEPS * tau_m / abs(slope)
         else:
             hstep *= max(0.1, 0.9 * err ** -0.25)
             if not (hstep > 0.0):

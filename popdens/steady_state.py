@@ -74,7 +74,7 @@ ISI_GRID_POINTS = 2001
 #: Largest |drive| (mV) tried when bracketing an inverse problem.
 MAX_DRIVE_MV = 1e6
 
-METHODS = ("auto", "siegert", "threshold-integration", "renewal")
+METHODS = ("auto", "siegert", "inverse-gaussian", "threshold-integration", "renewal")
 
 
 # ---------------------------------------------------------------- helpers
@@ -135,13 +135,16 @@ def _resolve_method(population, method) -> str:
     if method == "auto":
         if escape:
             return "renewal"
-        return "siegert" if population.neuron.code == CODE_LIF else "threshold-integration"
+        code = population.neuron.code
+        return {CODE_LIF: "siegert", CODE_PIF: "inverse-gaussian"}.get(code, "threshold-integration")
     if escape and method != "renewal":
         raise ValueError(f"`method` {method!r} is for white noise; escape noise uses 'renewal'")
     if not escape and method == "renewal":
         raise ValueError("`method` 'renewal' is for escape noise; white noise uses 'siegert' or 'threshold-integration'")
     if method == "siegert" and population.neuron.code != CODE_LIF:
         raise ValueError("`method` 'siegert' applies to the LIF only; use 'threshold-integration'")
+    if method == "inverse-gaussian" and population.neuron.code != CODE_PIF:
+        raise ValueError("`method` 'inverse-gaussian' applies to the PIF only; use 'threshold-integration'")
     return method
 
 
@@ -281,8 +284,9 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     sigma : float, optional
         White-noise amplitude (mV) overriding the population's (for sweeps
         over the noise); not allowed for escape noise.
-    method : {"auto", "siegert", "threshold-integration", "renewal"}
-        ``"auto"``: Siegert formula for the white-noise LIF, threshold
+    method : {"auto", "siegert", "inverse-gaussian", "threshold-integration", "renewal"}
+        ``"auto"``: Siegert formula for the white-noise LIF, the
+        inverse-Gaussian closed form for the white-noise PIF, threshold
         integration for other white-noise models, renewal theory for escape
         noise.
 
@@ -313,9 +317,24 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     if m == "siegert":
         nrn = population.neuron
         return siegert_rate(mus, sg, nrn.tau_m, nrn.threshold, nrn.reset, nrn.refractory, nrn.rest) * 1000.0
+    if m == "inverse-gaussian":
+        return _pif_rate_slope(population.neuron, mus)[0]
     if m == "threshold-integration":
         return _threshold_rates(population, mus, sg)
     return _renewal_rates_hz(population, mus)
+
+
+def _pif_rate_slope(nrn, mus):
+    """White-noise PIF: the passage time is inverse Gaussian with mean d tau_m/mu for mu > 0,
+    whatever sigma (Gerstein & Mandelbrot 1964); no stationary firing for mu <= 0.
+    Returns rate (Hz) and d(rate)/d(mu) (Hz/mV)."""
+    d = nrn.boundary - nrn.reset
+    pos = mus > 0.0
+    with np.errstate(divide="ignore"):
+        mean = nrn.refractory + d * nrn.tau_m / np.where(pos, mus, 1.0)
+        rate = np.where(pos, 1000.0 / mean, 0.0)
+        slope = np.where(pos, 1000.0 * d * nrn.tau_m / (np.where(pos, mus, 1.0) ** 2 * mean ** 2), 0.0)
+    return rate, slope
 
 
 def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
@@ -340,6 +359,8 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     mus = _drives(mu)
     m = _resolve_method(population, method)
     nrn = population.neuron
+    if m == "inverse-gaussian":
+        return _pif_rate_slope(nrn, mus)[1]
     if m == "siegert":
         _, d_mu, _ = siegert_slopes(mus, sg, nrn.tau_m, nrn.threshold, nrn.reset, nrn.refractory, nrn.rest)
         return d_mu * 1000.0
@@ -494,6 +515,12 @@ def _diffusive_stationary(population, mu: float, sigma: float, isi_t, method: st
         rate = float(siegert_rate(mu, sigma, nrn.tau_m, nrn.threshold, nrn.reset, nrn.refractory, nrn.rest)) * 1000.0
     mean_isi = sw.t1 + nrn.refractory
     var = sw.t2 - sw.t1 * sw.t1
+    if method == "inverse-gaussian":
+        # closed forms (Gerstein & Mandelbrot 1964): mean d/v, variance 2 D d / v^3
+        v_ms, dd = mu / nrn.tau_m, sigma * sigma / (2.0 * nrn.tau_m)
+        dist = nrn.boundary - nrn.reset
+        rate = float(_pif_rate_slope(nrn, np.array(mu))[0])
+        mean_isi, var = nrn.refractory + dist / v_ms, 2.0 * dd * dist / v_ms ** 3
     cv = math.sqrt(max(var, 0.0)) / mean_isi
     from ._isi_diffusive import passage_time_density
 
