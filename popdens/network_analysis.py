@@ -27,9 +27,11 @@ equation (Brunel & Hakim 1999, Neural Comput. 11:1621; Brunel 2000)
           \\hat K_{kl}(\\lambda)\\,e^{-\\lambda d_{kl}} / 1000,
 
 with ``chi^mu`` in Hz/mV, ``chi^sigma2`` in Hz/mV^2, ``lam`` in 1/ms and the
-rates in Hz.  Roots are found by a damped complex Newton iteration (numerical
-derivative) from a grid of starting points; the leading root (largest real
+rates in Hz.  Roots are found by a damped complex secant iteration from a grid of
+starting points; the leading root (largest real
 part) decides stability and its imaginary part the oscillation frequency.
+An independent count of the unstable roots by the argument principle checks
+that none was missed.
 
 Units at the boundary: rates Hz, eigenvalues reported as growth rate (1/s)
 and frequency (Hz).
@@ -63,9 +65,15 @@ STARTS_PER_DIM = 5
 RESIDUAL_TOL = 1e-7
 #: Two fixed points closer than this (relative, plus 1e-6 Hz) are the same.
 SAME_POINT = 1e-6
-#: Newton iteration for characteristic roots.
+#: Secant iteration for characteristic roots: iterations, step / residual tolerance, and the
+#: residual |det| (relative to 1 + its value at the start) accepted for a root.
 ROOT_MAX_ITER = 60
 ROOT_TOL = 1e-10
+ROOT_ACCEPT = 1e-8
+#: Step halvings tried when an iterate leaves the region where the transfer functions exist.
+BACKTRACK = 6
+#: Iterations without a smaller residual after which a start is stopped.
+STALL = 4
 #: Relative step of the numerical derivative of det(I - M).
 DERIV_STEP = 1e-6
 #: Two roots closer than this (1/ms) are the same.
@@ -309,7 +317,7 @@ class Stability:
         and ``|Im lam| <= 2 pi max_frequency`` counted independently by the
         argument principle (winding number of ``det(I - M)`` round that box).
     complete : bool
-        True when the Newton search found as many unstable roots as counted.
+        True when the secant search found as many unstable roots as counted.
     """
 
     state: FixedPoint
@@ -331,8 +339,25 @@ def _det_fn(circuit, state, transfer):
     eye = np.eye(n)
 
     def det(lam_arr):
-        m = characteristic_matrix(circuit, state, lam_arr, transfer)
-        return np.linalg.det(eye - m)
+        lam_arr = np.asarray(lam_arr, dtype=complex)
+        flat = lam_arr.ravel()
+        out = np.full(flat.shape, np.nan + 0j)
+
+        def fill(lo, hi):
+            # an escape-noise transfer function is defined only for growth rates above the decay rate
+            # of the ISI density: where it raises, bisect and leave NaN at the offending points
+            try:
+                m = characteristic_matrix(circuit, state, flat[lo:hi], transfer)
+                out[lo:hi] = np.linalg.det(eye - m)
+            except ValueError:
+                if hi - lo > 1:
+                    mid = (lo + hi) // 2
+                    fill(lo, mid)
+                    fill(mid, hi)
+
+        if flat.size:
+            fill(0, flat.size)
+        return out.reshape(lam_arr.shape)
 
     return det
 
@@ -367,47 +392,74 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
 
     Notes
     -----
-    Starts on a grid in ``[min_growth, max_growth] x [0, 2 pi max_frequency]``;
-    each start runs a damped Newton iteration on ``det(I - M(lam))`` with
+    Starts on a grid in ``[min_growth, max_growth] x [0, 2 pi max_frequency]``
+    (1/s x rad/s);
+    each start runs a damped secant iteration on ``det(I - M(lam))`` with
     all starts advanced together (one transfer-function call per
-    iteration and point).  Roots outside the search box are ignored, so the
-    leading root is the leading one within it.
+    iteration and point).  The leading root is the one with the largest real
+    part among the roots found; that no unstable root was missed in
+    ``0 < Re <= max_growth``, ``|f| <= max_frequency`` is checked by the
+    argument principle (``n_unstable``, ``complete``), and ``stable`` needs
+    both.  Escape-noise transfer functions exist only above the decay rate of
+    the ISI density: iterates that leave that region are pulled back.
     """
     det = _det_fn(circuit, state, transfer)
     g = np.linspace(min_growth, max_growth, v.positive_int("n_growth", n_growth)) * 1e-3
     w = 2 * math.pi * np.linspace(0.0, max_frequency, v.positive_int("n_frequency", n_frequency)) * 1e-3
     w[0] = 1e-6  # off the real axis (real roots are approached from just above)
     z = (g[:, None] + 1j * w[None, :]).ravel()
-    active = np.ones(z.size, dtype=bool)
+    # secant iteration (one evaluation of det per iteration and start; order 1.6), all starts together
+    zp = z + DERIV_STEP * np.maximum(1e-3, np.abs(z))
+    f = det(z)
+    fp = det(zp)
+    f_start = np.abs(f)
+    active = np.isfinite(f) & np.isfinite(fp)
+    best = np.where(np.isfinite(f), np.abs(f), np.inf)
+    stall = np.zeros(z.size, dtype=np.int64)
+    z[~active] = np.nan
+    # damping: never move further than a tenth of the search box per iteration
+    lim = 0.1 * max(abs(max_growth - min_growth) * 1e-3, 2 * math.pi * max_frequency * 1e-3)
     for _ in range(ROOT_MAX_ITER):
-        if not np.any(active):
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
             break
-        za = z[active]
-        h = DERIV_STEP * np.maximum(1e-3, np.abs(za))
-        f0 = det(za)
-        f1 = det(za + h)
-        d = (f1 - f0) / h
         with np.errstate(divide="ignore", invalid="ignore"):
-            step = f0 / d
+            step = f[idx] * (z[idx] - zp[idx]) / (f[idx] - fp[idx])
         step = np.where(np.isfinite(step), step, 0.0)
-        # damping: never move further than a tenth of the search box per iteration
-        lim = 0.1 * max(abs(max_growth - min_growth) * 1e-3, 2 * math.pi * max_frequency * 1e-3)
         big = np.abs(step) > lim
         step[big] *= lim / np.abs(step[big])
-        z_new = za - step
-        idx = np.flatnonzero(active)
-        z[idx] = z_new
-        conv = np.abs(step) < ROOT_TOL * np.maximum(1.0, np.abs(z_new))
-        active[idx[conv]] = False
-    # accept converged points that are true roots
+        z_new = z[idx] - step
+        f_new = det(z_new)
+        for _ in range(BACKTRACK):
+            # outside the region where the transfer functions are defined: shorten the step
+            out = ~np.isfinite(f_new)
+            if not np.any(out):
+                break
+            step[out] *= 0.5
+            z_new[out] = z[idx[out]] - step[out]
+            f_new[out] = det(z_new[out])
+        zp[idx], fp[idx] = z[idx], f[idx]
+        z[idx], f[idx] = z_new, f_new
+        bad = ~np.isfinite(f_new)  # left the region where the transfer functions are defined
+        # stalled: the residual has not fallen for STALL iterations (quadrature noise of the transfer
+        # functions sets a floor); stop those starts, the acceptance test below decides
+        better = np.abs(f_new) < best[idx]
+        best[idx] = np.where(better, np.abs(f_new), best[idx])
+        stall[idx] = np.where(better, 0, stall[idx] + 1)
+        conv = ((np.abs(step) < ROOT_TOL * np.maximum(1.0, np.abs(z_new)))
+                | (stall[idx] > STALL) | (f_new == 0.0)) & ~bad
+        active[idx[conv | bad]] = False
+        z[idx[bad]] = np.nan
+    # accept end points that are roots (the transfer functions carry quadrature noise, so the
+    # iteration may stall just short of ROOT_TOL; a residual below ROOT_ACCEPT suffices)
     roots = []
-    f_end = det(z)
-    scale = np.abs(det(z + 1e-3)) + 1.0
-    for zi, fi, si in zip(z, f_end, scale):
-        if not (np.isfinite(zi) and abs(fi) < 1e-8 * si):
+    for zi, fi, f0 in zip(z, f, f_start):
+        if not (np.isfinite(zi) and abs(fi) < ROOT_ACCEPT * (1.0 + f0)):
             continue
         zi = complex(zi.real, abs(zi.imag)) if abs(zi.imag) > 1e-9 else complex(zi.real, 0.0)
-        if zi.real < min_growth * 1e-3 * 2 - 1.0 or zi.imag > 2 * math.pi * max_frequency * 1e-3 * 1.5:
+        # genuine roots at any growth rate are kept (a strongly damped system has its leading root left
+        # of the box); frequencies far above the box are outside what was searched
+        if zi.imag > 2 * math.pi * max_frequency * 1e-3 * 1.5:
             continue
         if any(abs(zi - r) < SAME_ROOT * max(1.0, abs(zi)) for r in roots):
             continue
