@@ -182,6 +182,15 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     list of FixedPoint
         Sorted by the rate of the first assembly.
 
+    Examples
+    --------
+    >>> import popdens
+    >>> from popdens.network import Assembly, Circuit, Pathway
+    >>> pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(3.0))
+    >>> c = Circuit([Assembly("E", pop, drive=12.0)], [Pathway("E", "E", 0.1, 200, 1.5)])
+    >>> [round(float(fp.rates[0]), 2) for fp in fixed_points(c, (0.0, 300.0))]
+    [0.06, 17.57, 242.04]
+
     Notes
     -----
     With several assemblies the search is a multistart root finder: fixed
