@@ -13,44 +13,65 @@ from .exceptions import (ConvergenceError, ExpressionError, PopdensError, Scenar
                          UnreachableTargetError)
 from .models import EIF, LIF, PIF, QIF, CustomNeuron  # noqa: E402
 from .montecarlo import montecarlo  # noqa: E402
+from .network import (Assembly, Circuit, CircuitResult, Pathway, PoissonBackground,  # noqa: E402
+                      montecarlo_network, simulate_network)
+from .network_analysis import FixedPoint, Stability, StabilityMap, fixed_points, stability, stability_map  # noqa: E402
 from .noise import EscapeNoise, Population, WhiteNoise  # noqa: E402
 from .result import Result, load_result  # noqa: E402
 from .simulate import simulate  # noqa: E402
+from .sweep import SweepResult, grid_points, load_sweep, sweep  # noqa: E402
 from .linear_response import linear_rate_response, response_kernel, transfer  # noqa: E402
 from .spectra import population_rate_spectrum, spike_train_spectrum  # noqa: E402
 from .steady_state import (SteadyState, drive_and_noise_for, drive_for_rate, gain, gain_slope,  # noqa: E402
                            stationary)
 
 __all__ = [
+    "Assembly",
+    "Circuit",
+    "CircuitResult",
     "ConvergenceError",
     "CustomNeuron",
     "EIF",
     "EscapeNoise",
     "ExpressionError",
+    "FixedPoint",
     "LIF",
     "PIF",
+    "Pathway",
+    "PoissonBackground",
     "PopdensError",
     "Population",
     "QIF",
     "Result",
     "ScenarioError",
+    "Stability",
+    "StabilityMap",
     "SteadyState",
+    "SweepResult",
     "UnreachableTargetError",
     "WhiteNoise",
     "__version__",
     "drive",
     "drive_and_noise_for",
     "drive_for_rate",
+    "fixed_points",
     "gain",
     "gain_slope",
+    "grid_points",
     "hazard",
     "linear_rate_response",
     "load_result",
+    "load_sweep",
     "montecarlo",
+    "montecarlo_network",
     "population_rate_spectrum",
     "response_kernel",
     "simulate",
+    "simulate_network",
     "spike_train_spectrum",
+    "stability",
+    "stability_map",
     "stationary",
+    "sweep",
     "transfer",
 ]
