@@ -272,6 +272,43 @@ def _sweep_command(args, sc=None) -> int:
     return 0
 
 
+def _network_command(args, sc) -> int:
+    """``popdens check`` / ``popdens run`` of a network scenario."""
+    c = sc.circuit
+    if args.command == "check":
+        parts = (["fixed points"] if sc.fixed_points else []) + (["stability"] if sc.stability else [])
+        parts += [f"{sc.t_end:g} ms mean-field run"] if sc.t_end > 0 else []
+        parts += ["spiking twin"] if sc.montecarlo else []
+        print(f"{args.scenario}: OK ({sc.title}; network of {len(c.assemblies)} assemblies "
+              f"({', '.join(c.names)}), {len(c.pathways)} pathways; {', '.join(parts)})")
+        return 0
+    from .runner import run_scenario
+
+    summary = run_scenario(sc, args.out, overwrite=args.overwrite, progress=False if args.quiet else None)
+    print(f"wrote {summary['output']}: {', '.join(summary['files'])}")
+    for i, fp in enumerate(summary.get("fixed_points", [])):
+        rates = ", ".join(f"{k} {v:.4g} Hz" for k, v in fp["rates_hz"].items())
+        verdict = ""
+        if "stable" in fp:
+            verdict = ("; stable" if fp["stable"] else "; UNSTABLE") + (
+                f" (leading root: growth {fp['leading_growth_rate_per_s']:.4g}/s at "
+                f"{fp['leading_frequency_hz']:.4g} Hz)")
+        print(f"  fixed point {i}: {rates}{verdict}")
+    if "prediction" in summary and summary["prediction"]["status"] != 0:
+        print(f"popdens: error: the mean-field run failed: {summary['prediction']['message']}", file=sys.stderr)
+        return 1
+    if "montecarlo" in summary:
+        m = summary["montecarlo"]
+        if m["status"] != 0:
+            print(f"popdens: error: the spiking twin failed: {m['message']}", file=sys.stderr)
+            return 1
+        both = ", ".join(f"{k} {m['mean_field_second_half_hz'][k]:.4g} / {v:.4g} Hz"
+                         for k, v in m["mean_rates_second_half_hz"].items())
+        print(f"  mean rates over the second half, mean field / spiking twin: {both}")
+    print("  (model predictions from a research tool; not a basis for clinical or safety decisions)")
+    return 0
+
+
 def _key_values(items, flag):
     from .exceptions import ScenarioError
 
@@ -373,6 +410,8 @@ def _main(args) -> int:
         if args.command == "sweep":
             return _sweep_command(args)
         sc = load_scenario(args.scenario)
+        if hasattr(sc, "circuit"):  # a network scenario
+            return _network_command(args, sc)
         if "sweep" in sc.raw:
             if args.command == "run":
                 return _sweep_command(args, sc)

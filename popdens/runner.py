@@ -87,9 +87,11 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
         }
         timing = {}
         figures = []  # (file name, caption) pairs for the report
-        if scenario.runs_in_time:
+        if hasattr(scenario, "circuit"):  # a network scenario
+            figures += _network(scenario, tmp, header, summary, timing, progress)
+        elif scenario.runs_in_time:
             figures += _time_domain(scenario, tmp, header, summary, timing, progress)
-        for name, analysis in scenario.analyses:
+        for name, analysis in getattr(scenario, "analyses", ()):
             t0 = time.perf_counter()
             summary[name] = analysis.write(scenario.population, tmp, header)
             timing[f"{name}_s"] = time.perf_counter() - t0
@@ -150,6 +152,76 @@ def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, tim
     return _figures(pred, mc, tmp)
 
 
+def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:
+    """Fixed points, their stability, the mean-field run and the spiking twin of a network scenario."""
+    from .analyses import write_table
+    from .network import montecarlo_network, simulate_network
+    from .network_analysis import fixed_points, stability
+    from .plotting import save_figure
+
+    c = scenario.circuit
+    names = list(c.names)
+    figures = []
+    summary["settings"] = {"t_end_ms": scenario.t_end, "dt_ms": scenario.dt,
+                           "record_interval_ms": scenario.record_interval, "montecarlo": scenario.montecarlo,
+                           "seed": scenario.seed, "rate_range_hz": list(scenario.rate_range)}
+    summary["assemblies"] = {a.name: {"size": a.size, "model": type(a.population.neuron).__name__,
+                                      "noise": type(a.population.noise).__name__} for a in c.assemblies}
+    if scenario.fixed_points:
+        t0 = time.perf_counter()
+        states = fixed_points(c, scenario.rate_range)
+        verdicts = [stability(c, st) for st in states] if scenario.stability else [None] * len(states)
+        timing["fixed_points_s"] = time.perf_counter() - t0
+        cols = {"state": list(range(len(states)))}
+        for k, nm in enumerate(names):
+            cols[f"rate_Hz_{nm}"] = [st.rates[k] for st in states]
+            cols[f"mu_mV_{nm}"] = [st.mu[k] for st in states]
+            cols[f"sigma_mV_{nm}"] = [st.sigma[k] if st.sigma is not None else float("nan") for st in states]
+        if scenario.stability:
+            cols["stable"] = [float(v.stable) for v in verdicts]
+            cols["growth_rate_per_s"] = [v.growth_rate for v in verdicts]
+            cols["frequency_Hz"] = [v.frequency for v in verdicts]
+        if states:
+            write_table(tmp / "fixed_points.csv", cols,
+                        {**header, "units": "rate Hz, mu mV, sigma mV, growth rate 1/s, frequency Hz; "
+                                            "stable 1/0"})
+        summary["fixed_points"] = [
+            {"rates_hz": dict(zip(names, map(float, st.rates))), "mu_mV": dict(zip(names, map(float, st.mu))),
+             **({} if v is None else {"stable": bool(v.stable), "leading_growth_rate_per_s": float(v.growth_rate),
+                                      "leading_frequency_hz": float(v.frequency), "n_unstable": int(v.n_unstable)})}
+            for st, v in zip(states, verdicts)]
+    if scenario.t_end > 0:
+        mf = simulate_network(c, scenario.t_end, scenario.dt, record_interval=scenario.record_interval,
+                              progress=progress)
+        _stop_if_interrupted(mf)
+        timing["mean_field_s"] = mf.diagnostics.get("wall_time_s")
+        cols = {"t_ms": mf.t, **{f"rate_Hz_{nm}": mf.rate[k] for k, nm in enumerate(names)}}
+        write_table(tmp / "network_prediction.csv", cols, {**header, "method": mf.method, "units": "t ms, rate Hz"})
+        summary["prediction"] = {"method": mf.method, "status": mf.status, "message": mf.message,
+                                 "final_rates_hz": dict(zip(names, map(float, mf.rate[:, -1])))}
+        ax = mf.plot()
+        if scenario.montecarlo:
+            mc = montecarlo_network(c, scenario.t_end, scenario.dt, seed=scenario.seed,
+                                    record_interval=scenario.record_interval, progress=progress)
+            _stop_if_interrupted(mc)
+            timing["montecarlo_s"] = mc.diagnostics.get("wall_time_s")
+            cols = {"t_ms": mc.t, **{f"rate_Hz_{nm}": mc.rate[k] for k, nm in enumerate(names)}}
+            write_table(tmp / "network_montecarlo.csv", cols,
+                        {**header, "method": mc.method, "seed": scenario.seed, "units": "t ms, rate Hz"})
+            half = scenario.t_end / 2
+            summary["montecarlo"] = {"status": mc.status, "message": mc.message, "seed": scenario.seed,
+                                     "sizes": dict(zip(names, mc.sizes)) if mc.sizes else None,
+                                     "mean_rates_second_half_hz": dict(zip(names, map(float, mc.mean_rate(half)))),
+                                     "mean_field_second_half_hz": dict(zip(names, map(float, mf.mean_rate(half))))}
+            for k, nm in enumerate(names):
+                ax.plot(mc.t[1:], mc.rate[k, 1:], lw=0.7, alpha=0.6, color=f"C{k}", label=f"{nm} (spiking twin)")
+            ax.legend(frameon=False)
+        save_figure(ax.figure, tmp, "network_rate")
+        figures.append(("network_rate.png", "Rates of the assemblies over time"
+                        + (" (mean field and spiking twin)" if scenario.montecarlo else "")))
+    return figures
+
+
 def _finite_or_none(x):
     x = float(x)
     return x if math.isfinite(x) else None
@@ -207,7 +279,6 @@ def _html_report(scenario: Scenario, summary: dict, folder: Path, figures: list)
     import base64
     import html
 
-    pop = scenario.population
     sections = []
     for name, caption in figures:
         png = base64.b64encode((folder / name).read_bytes()).decode("ascii")
@@ -219,25 +290,47 @@ def _html_report(scenario: Scenario, summary: dict, folder: Path, figures: list)
         body = "".join(f"<tr><th>{html.escape(str(k))}</th><td>{html.escape(str(v))}</td></tr>" for k, v in rows)
         return f"<table>{body}</table>"
 
-    neuron_rows = [("model", type(pop.neuron).__name__), *pop.neuron.parameters().items()]
-    noise = pop.noise
-    noise_rows = [("noise", type(noise).__name__)]
-    if hasattr(noise, "hazard"):
-        noise_rows += [("escape function", type(noise.hazard).__name__), *noise.hazard.parameters().items()]
+    def population_rows(pop):
+        rows = [("neuron model", type(pop.neuron).__name__), *pop.neuron.parameters().items()]
+        noise = pop.noise
+        rows.append(("noise", type(noise).__name__))
+        if hasattr(noise, "hazard"):
+            rows += [("escape function", type(noise.hazard).__name__), *noise.hazard.parameters().items()]
+        else:
+            rows += [("sigma (mV)", noise.sigma)]
+        return rows
+
+    if hasattr(scenario, "circuit"):
+        model_tables = []
+        for a in scenario.circuit.assemblies:
+            rows = [("size (spiking twin)", a.size), ("external drive (mV)", a.drive),
+                    ("external sigma (mV)", a.sigma_ext), ("Poisson background", a.background)]
+            model_tables.append((f"Assembly {a.name}", rows + population_rows(a.population)))
+        model_tables.append(("Pathways", [(p.label, f"J = {p.weight:g} mV, C = {p.in_degree}, delay "
+                                          f"{p.delay:g} ms, tau_syn {p.tau_syn:g} ms")
+                                         for p in scenario.circuit.pathways]))
     else:
-        noise_rows += [("sigma (mV)", noise.sigma)]
+        model_tables = [("Neuron and noise", population_rows(scenario.population))]
     run_rows, diag_rows = [], []
-    if "prediction" in summary:
+    if hasattr(scenario, "circuit"):
+        run_rows = [(k, v) for k, v in summary["settings"].items()]
+        for i, fp in enumerate(summary.get("fixed_points", [])):
+            run_rows.append((f"fixed point {i}", ", ".join(f"{k}: {v}" for k, v in fp.items())))
+        if "montecarlo" in summary:
+            m = summary["montecarlo"]
+            run_rows.append(("spiking twin: mean rates, second half (Hz)", m["mean_rates_second_half_hz"]))
+            run_rows.append(("mean field: mean rates, second half (Hz)", m["mean_field_second_half_hz"]))
+    elif "prediction" in summary:
         run_rows = [("t_end (ms)", scenario.t_end), ("dt (ms)", summary["prediction"]["diagnostics"]["dt_ms"]),
                     ("record interval (ms)", scenario.record_interval or "every step"),
                     ("Monte Carlo neurons", scenario.montecarlo_neurons), ("seed", scenario.seed)]
         diag_rows = [(f"prediction: {k}", v) for k, v in summary["prediction"]["diagnostics"].items()]
-    for name, _ in scenario.analyses:
+    for name, _ in getattr(scenario, "analyses", ()):
         run_rows += [(f"{name}: {k}", v) for k, v in summary[name].items() if k not in ("figures", "states")]
         for st in summary[name].get("states", []):
             run_rows.append((f"{name}: mu = {st['mu_mV']:g} mV",
                              f"rate {st['rate_hz']:.6g} Hz, CV {st['cv']:.4g}, mean u {st['mean_u_mV']:.4g} mV"))
-    if "montecarlo" in summary:
+    if "montecarlo" in summary and "fraction_within_4_se" in summary["montecarlo"]:
         frac = summary["montecarlo"]["fraction_within_4_se"]
         diag_rows += [("Monte Carlo: bins within 4 SE", "n/a" if frac is None else f"{100 * frac:.1f}%")]
         diag_rows += [(f"Monte Carlo: {k}", v) for k, v in summary["montecarlo"]["diagnostics"].items()]
@@ -254,8 +347,7 @@ clinical or safety decisions.</p>
 {chr(10).join(sections)}
 <p>Units: time ms, rate Hz, potentials and drive mV, frequency Hz. Tables:
 {", ".join(f"<code>{html.escape(t)}</code>" for t in tables)} (their header lines state the units of each column).</p>
-<h2>Neuron</h2>{table(neuron_rows)}
-<h2>Noise</h2>{table(noise_rows)}
+{chr(10).join(f"<h2>{html.escape(h)}</h2>{table(rows)}" for h, rows in model_tables)}
 <h2>Numerical settings and analyses</h2>{table(run_rows)}
 {"<h2>Diagnostics</h2>" + table(diag_rows) if diag_rows else ""}
 </body></html>

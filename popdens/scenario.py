@@ -9,6 +9,8 @@ Top-level tables
 ``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``
 ``[gain]``, ``[stationary]``, ``[transfer]``  steady-state and linear-response analyses
                 (see :mod:`popdens.analyses`)
+``[[assembly]]``, ``[[pathway]]``, ``[network]``  a network scenario instead (see
+                :mod:`popdens.network_scenario`)
 ``[sweep]``     optional: values to sweep and the analysis; checked by ``popdens/sweep_scenario.py``
 
 ``[neuron]`` and ``[noise]`` are required, and at least one analysis: a
@@ -180,9 +182,44 @@ def _model_params(src, table, items: dict, text_key: str) -> dict:
     return params
 
 
+def parse_population(src, neuron_data, noise_data, prefix: str = "") -> Population:
+    """The neuron and noise tables (``[{prefix}neuron]``, ``[{prefix}noise]``) → a validated Population."""
+    t_neuron, t_noise = f"{prefix}neuron", f"{prefix}noise"
+    nd, _, (cls, allowed, optional) = _select(src, t_neuron, neuron_data, "model", NEURON_MODELS)
+    _check_keys(src, t_neuron, nd, allowed, allowed - optional)
+    neuron = _build(src, t_neuron, cls, _model_params(src, t_neuron, nd, text_key="drift"), "drift")
+
+    no = noise_data
+    if not isinstance(no, dict):
+        raise _err(src, t_noise, None, no, "a table")
+    kind = no.get("kind")
+    if kind == "escape":
+        _check_keys(src, t_noise, no, {"kind", "hazard"}, {"kind", "hazard"})
+        t_hz = f"{t_noise}.hazard"
+        hz, _, (hcls, hallowed) = _select(src, t_hz, no["hazard"], "shape", HAZARDS)
+        required = hallowed - {"parameters"}
+        _check_keys(src, t_hz, hz, hallowed, required)
+        hp = _model_params(src, t_hz, hz, text_key="expression")
+        noise = EscapeNoise(_build(src, t_hz, hcls, hp, "expression"))
+    elif kind == "white":
+        _check_keys(src, t_noise, no, {"kind", "sigma"}, {"kind", "sigma"})
+        noise = _build(src, t_noise, WhiteNoise, {"sigma": _number(src, t_noise, "sigma", no["sigma"])})
+    else:
+        raise _err(src, t_noise, "kind", kind, "'escape' or 'white'")
+    return Population(neuron, noise)
+
+
 def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
-    """Validate a scenario given as a dict (as read from TOML)."""
+    """Validate a scenario given as a dict (as read from TOML).
+
+    A scenario with ``[[assembly]]`` tables is a network scenario
+    (:mod:`popdens.network_scenario`) and gives a ``NetworkScenario``.
+    """
     src = str(source)
+    if isinstance(data, dict) and "assembly" in data:
+        from .network_scenario import parse_network_scenario
+
+        return parse_network_scenario(data, source)
     _check_keys(src, "", data, TOP_LEVEL, {"neuron", "noise"})
     if ("input" in data) != ("run" in data):
         missing = "run" if "input" in data else "input"
@@ -200,29 +237,8 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
         raise _err(src, "scenario", "output", out, "a folder name")
     out_path = _output_folder(src, out)
 
-    # neuron
-    nd, _, (cls, allowed, optional) = _select(src, "neuron", data["neuron"], "model", NEURON_MODELS)
-    _check_keys(src, "neuron", nd, allowed, allowed - optional)
-    neuron = _build(src, "neuron", cls, _model_params(src, "neuron", nd, text_key="drift"), "drift")
-
-    # noise
-    no = data["noise"]
-    if not isinstance(no, dict):
-        raise _err(src, "noise", None, no, "a table")
-    kind = no.get("kind")
-    if kind == "escape":
-        _check_keys(src, "noise", no, {"kind", "hazard"}, {"kind", "hazard"})
-        hz, _, (hcls, hallowed) = _select(src, "noise.hazard", no["hazard"], "shape", HAZARDS)
-        required = hallowed - {"parameters"}
-        _check_keys(src, "noise.hazard", hz, hallowed, required)
-        hp = _model_params(src, "noise.hazard", hz, text_key="expression")
-        noise = EscapeNoise(_build(src, "noise.hazard", hcls, hp, "expression"))
-    elif kind == "white":
-        _check_keys(src, "noise", no, {"kind", "sigma"}, {"kind", "sigma"})
-        noise = _build(src, "noise", WhiteNoise, {"sigma": _number(src, "noise", "sigma", no["sigma"])})
-    else:
-        raise _err(src, "noise", "kind", kind, "'escape' or 'white'")
-    population = Population(neuron, noise)
+    population = parse_population(src, data["neuron"], data["noise"])
+    noise = population.noise
 
     analyses = parse_analyses(src, data, white=isinstance(noise, WhiteNoise))
     digest = hashlib.sha256(repr(sorted(_flatten(data))).encode()).hexdigest()[:16]
