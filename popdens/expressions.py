@@ -210,6 +210,8 @@ def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth:
                 size = math.inf
             if not size <= math.log10(MAX_CONSTANT):
                 raise _fail(text, tree, f"constant power out of range (|x| <= {MAX_CONSTANT:g})")
+        if isinstance(tree.op, ast.Div) and right.is_zero:  # sympy would make it zoo
+            raise _fail(text, tree, "division by a constant zero")
         try:
             result = op[0](left, right)
         except ZeroDivisionError:  # sympy Floats: 1.0/0.0
