@@ -9,7 +9,7 @@ from __future__ import annotations
 __version__ = "0.1.0"
 
 from . import drive, hazard  # noqa: E402
-from .exceptions import (ConvergenceError, ExpressionError, PopdensError, ScenarioError,  # noqa: E402
+from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, PopdensError, ScenarioError,  # noqa: E402
                          UnreachableTargetError)
 from .models import EIF, LIF, PIF, QIF, CustomNeuron  # noqa: E402
 from .montecarlo import montecarlo  # noqa: E402
@@ -26,6 +26,7 @@ from .steady_state import (SteadyState, drive_and_noise_for, drive_for_rate, gai
                            stationary)
 
 __all__ = [
+    "AccuracyWarning",
     "Assembly",
     "Circuit",
     "CircuitResult",
