@@ -192,6 +192,8 @@ def plot_steady_state(state):
         ax2.plot(state.age, state.age_density)
         ax2.set_xlabel("age (ms)")
         ax2.set_ylabel("age density (1/ms)")
+    return fig
+
 
 # ---------------------------------------------------------------- sweeps
 #: Families with more curves than this get a colour bar instead of a legend.
