@@ -42,8 +42,7 @@ from pathlib import Path
 
 from .exceptions import ScenarioError
 from .network import Assembly, Circuit, Pathway, PoissonBackground
-from .scenario import (SCENARIO_KEYS, _build, _check_keys, _err, _flatten, _number, _output_folder,
-                       parse_population)
+from .scenario import _build, _check_keys, _err, _flatten, _number, parse_meta, parse_population
 
 __all__ = ["NetworkScenario", "parse_network_scenario", "NETWORK_TOP_LEVEL"]
 
@@ -106,15 +105,7 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
     """Validate a network scenario given as a dict (as read from TOML)."""
     src = str(source)
     _check_keys(src, "", data, NETWORK_TOP_LEVEL, {"assembly"})
-    meta = data.get("scenario", {})
-    _check_keys(src, "scenario", meta, SCENARIO_KEYS)
-    title = meta.get("title", Path(src).stem)
-    if not isinstance(title, str):
-        raise _err(src, "scenario", "title", title, "a string")
-    out = meta.get("output", f"{Path(src).stem}-output")
-    if not isinstance(out, str) or not out.strip():
-        raise _err(src, "scenario", "output", out, "a folder name")
-    out_path = _output_folder(src, out)
+    title, out_path = parse_meta(src, data)
 
     assemblies = []
     for i, a in enumerate(_array_of_tables(src, data, "assembly", True)):

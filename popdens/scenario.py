@@ -182,6 +182,19 @@ def _model_params(src, table, items: dict, text_key: str) -> dict:
     return params
 
 
+def parse_meta(src, data: dict) -> tuple[str, Path]:
+    """The ``[scenario]`` table → (title, output folder), the folder checked by :func:`_output_folder`."""
+    meta = data.get("scenario", {})
+    _check_keys(src, "scenario", meta, SCENARIO_KEYS)
+    title = meta.get("title", Path(src).stem)
+    if not isinstance(title, str):
+        raise _err(src, "scenario", "title", title, "a string")
+    out = meta.get("output", f"{Path(src).stem}-output")
+    if not isinstance(out, str) or not out.strip():
+        raise _err(src, "scenario", "output", out, "a folder name")
+    return title, _output_folder(src, out)
+
+
 def parse_population(src, neuron_data, noise_data, prefix: str = "") -> Population:
     """The neuron and noise tables (``[{prefix}neuron]``, ``[{prefix}noise]``) → a validated Population."""
     t_neuron, t_noise = f"{prefix}neuron", f"{prefix}noise"
@@ -227,16 +240,7 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     if "run" not in data and not any(k in data for k in ANALYSIS_TABLES):
         raise ScenarioError(f"{src}: nothing to compute: add the tables `input` and `run` for a time-domain "
                             f"run, or one of the analysis tables {', '.join('`' + k + '`' for k in ANALYSIS_TABLES)}")
-    meta = data.get("scenario", {})
-    _check_keys(src, "scenario", meta, SCENARIO_KEYS)
-    title = meta.get("title", Path(src).stem)
-    if not isinstance(title, str):
-        raise _err(src, "scenario", "title", title, "a string")
-    out = meta.get("output", f"{Path(src).stem}-output")
-    if not isinstance(out, str) or not out.strip():
-        raise _err(src, "scenario", "output", out, "a folder name")
-    out_path = _output_folder(src, out)
-
+    title, out_path = parse_meta(src, data)
     population = parse_population(src, data["neuron"], data["noise"])
     noise = population.noise
 
