@@ -388,6 +388,17 @@ def _main(args) -> int:
             print("input shapes ([input] shape = ...; mV, ms, Hz):")
             for name, (_, keys) in INPUTS.items():
                 print(f"  {name:9s} {', '.join(sorted(keys))}")
+            print("analysis tables (beside or instead of [input] and [run]):")
+            print("  [gain]        mu (mV: list or {start, stop, count, spacing}), sigma (mV, white noise)")
+            print("  [stationary]  mu (mV)")
+            print("  [transfer]    mu (mV), frequencies (Hz), modulate = mean | noise | sigma")
+            print("  [sweep]       analysis = summary | gain | transfer, mode = grid | list, dotted keys to vary")
+            from .network_scenario import ASSEMBLY_KEYS, NETWORK_KEYS, PATHWAY_KEYS
+
+            print("network scenarios (mV, ms, Hz):")
+            for table, keys in (("[[assembly]]", ASSEMBLY_KEYS), ("[[pathway]]", PATHWAY_KEYS),
+                                ("[network]", NETWORK_KEYS)):
+                print(f"  {table:13s} {', '.join(sorted(keys))}")
             return 0
         if args.command == "bench":
             from . import benchmarks
