@@ -6,6 +6,8 @@ Prints, from one run:
 * wall time of a 20 x 20 map (drive 23-32 mV x escape width 1.5-4 mV, 10 frequencies, LIF with
   exponential escape) serially, on a 2-process pool and on a 2-worker local Dask cluster, the
   speed-ups, and that all three give identical numbers;
+* a control: the same speed-up for pure-Python CPU work, which shows whether a second core was
+  actually free during the run (on a shared machine it often is not);
 * per-point overhead: wall time per point of a 400-point sweep whose analysis does no work
   (the cost of scheduling, pickling and the durable per-point file), per backend.
 
@@ -62,6 +64,14 @@ def nothing(params, seed):
     return {"x": params["x"]}
 
 
+def burn(params, seed):
+    """Pure-Python CPU work, no memory traffic: the control for how many cores are free right now."""
+    s = 0
+    for i in range(3_000_000):
+        s += i % 7
+    return {"s": float(s)}
+
+
 def timed(label, fn):
     t0 = time.perf_counter()
     res = fn()
@@ -101,6 +111,11 @@ def main():
             pool_out += outputs(res)
         print(f"  {'total serial':34s} {t_ser:8.2f} s")
         print(f"  {'total process pool':34s} {t_pool:8.2f} s")
+        ctl = [{"x": float(i)} for i in range(16)]
+        print("control, 16 points of pure-Python CPU work:")
+        _, c_ser = timed("serial", lambda: sweep(burn, ctl, backend="serial", figures=False))
+        _, c_pool = timed("process pool, 2 workers", lambda: sweep(burn, ctl, backend="processes", workers=2,
+                                                                   figures=False))
         pts = [{"x": float(i)} for i in range(N_TRIVIAL)]
         print(f"{N_TRIVIAL}-point sweep of an analysis that does no work (per-point overhead):")
         _, o_ser = timed("serial", lambda: sweep(nothing, pts, tmp / "ns", backend="serial", figures=False))
@@ -132,6 +147,8 @@ def main():
         print("results:")
         print(f"  identical numbers on all three backends: {same}")
         print(f"  transfer map speed-up, process pool / serial: {t_ser / t_pool:.2f}x (target >= 1.7x)")
+        print(f"  control speed-up (pure CPU work), pool / serial: {c_ser / c_pool:.2f}x: about 2 when a second "
+              "core is free; near 1 means other work holds it")
         print(f"  transfer map speed-up, Dask / serial:         {t_ser / t_dask:.2f}x (Dask run after the others)")
         print(f"  mean work per point (serial): {1e3 * t_ser / plan.n_points:.1f} ms")
         for name, t in (("serial", o_ser), ("process pool", o_pool), ("Dask", o_dask)):
