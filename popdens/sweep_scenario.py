@@ -81,7 +81,9 @@ def _lookup(module: str, name: str, analysis: str):
 def _reraise_interrupt(res) -> None:
     """The time-domain front ends turn Ctrl-C into a stopped result; a sweep must stop instead
     of recording the point as failed."""
-    if not res.success and "interrupted" in res.message:
+    from .result import STATUS_INTERRUPTED
+
+    if res.status == STATUS_INTERRUPTED:
         raise KeyboardInterrupt(res.message)
 
 
