@@ -19,7 +19,7 @@ from .network_analysis import FixedPoint, Stability, StabilityMap, fixed_points,
 from .noise import EscapeNoise, Population, WhiteNoise  # noqa: E402
 from .result import Result, load_result  # noqa: E402
 from .simulate import simulate  # noqa: E402
-from .sweep import SweepResult, grid_points, load_sweep, sweep  # noqa: E402
+from .sweep import Curve, SweepResult, grid_points, load_sweep, point_seed, sweep  # noqa: E402
 from .linear_response import linear_rate_response, response_kernel, transfer  # noqa: E402
 from .spectra import population_rate_spectrum, spike_train_spectrum  # noqa: E402
 from .steady_state import (SteadyState, drive_and_noise_for, drive_for_rate, gain, gain_slope,  # noqa: E402
@@ -31,6 +31,7 @@ __all__ = [
     "Circuit",
     "CircuitResult",
     "ConvergenceError",
+    "Curve",
     "CustomNeuron",
     "EIF",
     "EscapeNoise",
@@ -65,6 +66,7 @@ __all__ = [
     "load_sweep",
     "montecarlo",
     "montecarlo_network",
+    "point_seed",
     "population_rate_spectrum",
     "response_kernel",
     "simulate",
