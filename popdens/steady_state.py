@@ -17,9 +17,11 @@ Methods
 -------
 * White noise, LIF: the Siegert formula (Siegert 1951; Brunel & Hakim 1999),
   evaluated stably (:mod:`popdens._siegert`).
+* White noise, PIF: the inverse-Gaussian closed form (Gerstein & Mandelbrot 1964).
 * White noise, any drift: threshold integration (Richardson 2007, Phys. Rev.
-  E 76:021919), :mod:`popdens._threshold`; fourth-order convergence in the
-  cell width was measured for the LIF against the Siegert formula.
+  E 76:021919), :mod:`popdens._threshold`: second order in the cell width
+  (fourth for the LIF's linear drift, measured against the Siegert formula),
+  Richardson-extrapolated from two widths.
 * Escape noise: renewal theory along the free trajectory after reset
   (:mod:`popdens._renewal`).
 

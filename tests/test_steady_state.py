@@ -355,18 +355,27 @@ def test_long_fokker_planck_run_equals_threshold_integration():
 
 
 # ---------------------------------------------------------------- Monte Carlo twins
-def _mc_check(pop, mus, n, t_end, dt, seed, burn_in=200.0):
-    """Monte Carlo rate vs gain within 4 standard errors.  SE of the rate from the spread of the
-    per-neuron spike counts over the run (independent neurons; common practice)."""
+def _mc_rate(pop, mu, n, t_end, dt, seed, burn_in):
+    """Time-averaged Monte Carlo rate (Hz) and its standard error from the spread of the per-neuron
+    spike counts over the run (independent neurons; common practice)."""
+    res = popdens.montecarlo(pop, mu, t_end=t_end, n=n, dt=dt, seed=seed, burn_in=burn_in, record_spikes=True)
+    counts = np.bincount(res.spike_ids, minlength=n)
+    t_s = t_end * 1e-3
+    return counts.mean() / t_s, counts.std(ddof=1) / math.sqrt(n) / t_s
+
+
+def _mc_check(pop, mus, n, t_end, dt, seed, burn_in=200.0, extrapolate_dt=False):
+    """Monte Carlo rate vs gain within 4 standard errors.  With ``extrapolate_dt`` the twin runs at
+    dt and dt/2 and is extrapolated linearly to dt -> 0 (its time discretisation has a first-order
+    bias where trajectories cross a cut-off or a threshold within a step: measured -0.08% for the
+    escape EIF and -0.4% for the white-noise EIF at dt = 0.02 ms); SE sqrt(4 SE_half^2 + SE_full^2)."""
     for i, mu in enumerate(mus):
         expected = float(gain(pop, mu))
-        res = popdens.montecarlo(pop, mu, t_end=t_end, n=n, dt=dt, seed=seed + i, burn_in=burn_in,
-                                 record_spikes=True)
-        counts = np.bincount(res.spike_ids, minlength=n)
-        t_s = t_end * 1e-3
-        mc_rate = counts.mean() / t_s
-        se = counts.std(ddof=1) / math.sqrt(n) / t_s
-        assert abs(mc_rate - expected) < 4.0 * se, (mu, mc_rate, expected, se)
+        r1, se1 = _mc_rate(pop, mu, n, t_end, dt, seed + i, burn_in)
+        if extrapolate_dt:
+            r2, se2 = _mc_rate(pop, mu, n, t_end, 0.5 * dt, seed + 100 + i, burn_in)
+            r1, se1 = 2.0 * r2 - r1, math.sqrt(4.0 * se2 ** 2 + se1 ** 2)
+        assert abs(r1 - expected) < 4.0 * se1, (mu, r1, expected, se1)
 
 
 def test_montecarlo_confirms_gain_cheap():
@@ -386,7 +395,8 @@ def test_montecarlo_confirms_escape_eif_gain_at_five_drives():
     # CV ~ 0.05-0.3: a population started in synchrony rings for a long time (amplitude decay
     # time ~ T/(2 pi^2 CV^2), ~160 ms at 14 mV), so the burn-in is long (measured: with 200 ms the
     # time-averaged rate is ~1% low)
-    _mc_check(pop, [10.0, 14.0, 18.0, 22.0, 30.0], n=4000, t_end=1000.0, dt=0.02, seed=151, burn_in=3000.0)
+    _mc_check(pop, [10.0, 14.0, 18.0, 22.0, 30.0], n=2000, t_end=1000.0, dt=0.02, seed=151, burn_in=2000.0,
+              extrapolate_dt=True)
 
 
 @pytest.mark.slow
@@ -396,8 +406,8 @@ def test_montecarlo_confirms_diffusive_lif_gain_at_five_drives():
 
 @pytest.mark.slow
 def test_montecarlo_confirms_diffusive_eif_gain_at_five_drives():
-    _mc_check(eif_white(3.0), [10.0, 12.0, 14.0, 18.0, 25.0], n=4000, t_end=1000.0, dt=0.02, seed=301,
-              burn_in=1000.0)
+    _mc_check(eif_white(3.0), [10.0, 12.0, 14.0, 18.0, 25.0], n=2000, t_end=1000.0, dt=0.02, seed=301,
+              burn_in=1000.0, extrapolate_dt=True)
 
 
 # ---------------------------------------------------------------- inverse design and errors
@@ -443,6 +453,11 @@ def test_bad_inputs_are_named():
         gain(pop, 1.0, method="renewal")
     with pytest.raises(ValueError, match="population"):
         gain("lif", 1.0)
+    # linear escape and a fixed point below threshold: the hazard vanishes, the rate is exactly 0
+    silent = lif_escape(h=hazard.Linear(slope=5.0))
+    assert float(gain(silent, 15.0)) == 0.0
+    with pytest.raises(ValueError, match="stop firing"):
+        stationary(silent, 15.0)
 
 
 def test_result_repr_and_plot():
