@@ -176,7 +176,7 @@ def _eif_rate(mu, sigma, tau=10.0, ut=10.0, dT=1.0, uc=30.0, ur=0.0, tref=1.0):
     def jac(u, y, j):
         return [[k * (-u + dT * math.exp((u - ut) / dT) + mu), 0.0], [1.0, 0.0]]
 
-    tol = dict(method="Radau", jac=jac, rtol=1e-12, atol=1e-16)
+    tol = dict(method="Radau", jac=jac, rtol=1e-10, atol=1e-14)
     above = solve_ivp(rhs, (uc, ur), [0.0, 0.0], args=(1.0,), **tol)
     below = solve_ivp(rhs, (ur, min(ur, mu) - 12 * sigma), above.y[:, -1], args=(0.0,), **tol)
     mass = -below.y[1, -1]  # the integral ran downwards
