@@ -558,7 +558,8 @@ class StabilityMap:
     complete: bool = True
 
     def plot(self, ax=None):
-        """Frequency of the leading root with the stability boundary (growth rate 0) drawn.
+        """Growth rate of the leading root, the stability boundary (growth rate 0) drawn in black and
+        the oscillation frequency written at each unstable point.
 
         Returns ``(fig, ax)``.
         """
@@ -568,11 +569,15 @@ class StabilityMap:
             fig, ax = plt.subplots(figsize=(5.5, 4.2), constrained_layout=True)
         else:
             fig = ax.figure
-        unstable = np.where(self.growth_rate > 0, self.frequency, np.nan)
-        mesh = ax.pcolormesh(self.x, self.y, unstable, shading="nearest", cmap="viridis")
-        fig.colorbar(mesh, ax=ax, label="oscillation frequency, unstable region (Hz)")
-        if np.nanmin(self.growth_rate) < 0 < np.nanmax(self.growth_rate):
-            ax.contour(self.x, self.y, self.growth_rate, levels=[0.0], colors="k", linewidths=1.5)
+        g = np.asarray(self.growth_rate, dtype=float)
+        span = float(np.nanmax(np.abs(g))) if np.any(np.isfinite(g)) else 1.0
+        mesh = ax.pcolormesh(self.x, self.y, g, shading="nearest", cmap="RdBu_r", vmin=-span, vmax=span)
+        fig.colorbar(mesh, ax=ax, label="growth rate of the leading root (1/s; > 0: unstable)")
+        if np.nanmin(g) < 0 < np.nanmax(g):
+            ax.contour(self.x, self.y, g, levels=[0.0], colors="k", linewidths=1.5)
+        for (iy, ix), f in np.ndenumerate(self.frequency):
+            if np.isfinite(f) and g[iy, ix] > 0:
+                ax.annotate(f"{f:.0f} Hz", (self.x[ix], self.y[iy]), ha="center", va="center", fontsize=7)
         ax.set_xlabel(self.x_label)
         ax.set_ylabel(self.y_label)
         ax.set_title("linear stability (black: boundary)")

@@ -30,6 +30,10 @@ populations instead of a single population::
     stability = true                 # ... and their linear stability
     rate_range = [0.1, 300.0]        # Hz, where fixed points are searched
 
+    [network.stability_map]          # optional: stability over two parameters
+    inhibition = { start = 2.0, stop = 8.0, count = 5 }   # factor on every inhibitory (negative) weight
+    drive = { start = 15.0, stop = 30.0, count = 4 }      # external drive of every assembly (mV)
+
 The objects are those of :mod:`popdens.network`, so a file and the
 equivalent script give the same numbers.
 """
@@ -51,9 +55,12 @@ ASSEMBLY_KEYS = {"name", "size", "drive", "sigma_ext", "neuron", "noise", "backg
 PATHWAY_KEYS = {"source", "target", "weight", "in_degree", "delay", "tau_syn"}
 BACKGROUND_KEYS = {"rate", "weight", "count"}
 NETWORK_KEYS = {"t_end", "dt", "record_interval", "montecarlo", "seed", "fixed_points", "stability",
-                "rate_range"}
+                "rate_range", "stability_map"}
+MAP_KEYS = {"inhibition", "drive"}
 #: Largest accepted spiking-twin size per assembly and in-degree (guards against typos).
 MAX_SIZE = 1_000_000
+#: Most points of a stability map (each costs a fixed-point search and a root search, ~1 s).
+MAX_MAP_POINTS = 2500
 #: Default search range of fixed points (Hz).
 DEFAULT_RATE_RANGE = (0.01, 500.0)
 
@@ -76,6 +83,19 @@ class NetworkScenario:
     rate_range: tuple
     digest: str
     raw: dict
+    #: ``(inhibition factors, drives in mV)`` of the stability map, or None
+    stability_grid: tuple | None = None
+
+    def circuit_at(self, inhibition: float, drive: float) -> Circuit:
+        """The circuit with every inhibitory weight scaled by ``inhibition`` and every external drive
+        set to ``drive`` (mV): one point of the stability map."""
+        import dataclasses
+
+        c = self.circuit
+        assemblies = [dataclasses.replace(a, drive=float(drive)) for a in c.assemblies]
+        pathways = [dataclasses.replace(p, weight=p.weight * (inhibition if p.weight < 0 else 1.0))
+                    for p in c.pathways]
+        return Circuit(assemblies, pathways)
 
 
 def _integer(src, table, key, value, lo, hi) -> int:
@@ -168,7 +188,22 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
         raise _err(src, "network", "montecarlo", True, "false, or a `t_end` > 0 for the spiking twin to run")
     if t_end == 0 and not want_fp:
         raise ScenarioError(f"{src}: [network] nothing to compute: give `t_end` > 0 or `fixed_points` = true")
+    grid = None
+    if "stability_map" in net:
+        from .analyses import parse_values
+
+        sm = net["stability_map"]
+        _check_keys(src, "network.stability_map", sm, MAP_KEYS, MAP_KEYS)
+        if not any(p.weight < 0 for p in pathways):
+            raise ScenarioError(f"{src}: [network.stability_map] key `inhibition`: the network has no "
+                                "inhibitory (negative-weight) pathway to scale")
+        grid = (parse_values(src, "network.stability_map", "inhibition", sm["inhibition"], positive=True),
+                parse_values(src, "network.stability_map", "drive", sm["drive"]))
+        if grid[0].size * grid[1].size > MAX_MAP_POINTS:
+            raise _err(src, "network.stability_map", "inhibition", sm["inhibition"],
+                       f"at most {MAX_MAP_POINTS} map points in all")
     digest = hashlib.sha256(repr(sorted(_flatten(data))).encode()).hexdigest()[:16]
     return NetworkScenario(source=Path(src), title=title, output=out_path, circuit=circuit, t_end=t_end, dt=dt,
                            record_interval=rec, montecarlo=montecarlo, seed=seed, fixed_points=want_fp,
-                           stability=want_st, rate_range=(float(rr[0]), float(rr[1])), digest=digest, raw=data)
+                           stability=want_st, rate_range=(float(rr[0]), float(rr[1])), digest=digest, raw=data,
+                           stability_grid=grid)

@@ -190,6 +190,27 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
              **({} if v is None else {"stable": bool(v.stable), "leading_growth_rate_per_s": float(v.growth_rate),
                                       "leading_frequency_hz": float(v.frequency), "n_unstable": int(v.n_unstable)})}
             for st, v in zip(states, verdicts)]
+    if scenario.stability_grid is not None:
+        from .network_analysis import stability_map
+
+        inh, drv = scenario.stability_grid
+        t0 = time.perf_counter()
+        smap = stability_map(scenario.circuit_at, inh, drv, x_label="inhibition factor (x inhibitory weights)",
+                             y_label="external drive (mV)", rate_range=scenario.rate_range, progress=progress)
+        timing["stability_map_s"] = time.perf_counter() - t0
+        xx, yy = np.meshgrid(smap.x, smap.y)
+        write_table(tmp / "stability_map.csv",
+                    {"inhibition_factor": xx.ravel(), "drive_mV": yy.ravel(),
+                     "growth_rate_per_s": smap.growth_rate.ravel(), "frequency_Hz": smap.frequency.ravel(),
+                     **{f"rate_Hz_{nm}": smap.rates[..., k].ravel() for k, nm in enumerate(names)}},
+                    {**header, "units": "drive mV, growth rate 1/s (> 0: unstable), frequency Hz, rate Hz; "
+                                        "the least stable fixed point at each point"})
+        fig, _ = smap.plot()
+        save_figure(fig, tmp, "stability_map")
+        figures.append(("stability_map.png", "Linear stability over inhibition and external drive"))
+        summary["stability_map"] = {"points": int(smap.growth_rate.size),
+                                    "unstable_points": int(np.sum(smap.growth_rate > 0)),
+                                    "complete": bool(smap.complete)}
     if scenario.t_end > 0:
         mf = simulate_network(c, scenario.t_end, scenario.dt, record_interval=scenario.record_interval,
                               progress=progress)

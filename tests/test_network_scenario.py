@@ -92,3 +92,33 @@ def test_network_fixed_point_file_is_self_consistent_by_the_siegert_formula(tmp_
     np.testing.assert_allclose(sorted(rate), sorted(st.rates[0] for st in api), rtol=1e-11)  # file == script
     summary = json.loads((out / "summary.json").read_text())
     assert len(summary["fixed_points"]) == len(rate) >= 1
+
+
+def test_stability_map_table_needs_inhibition_and_matches_the_api(tmp_path, capsys):
+    bad = NET.replace("rate_range = [0.1, 200.0]", "rate_range = [0.1, 200.0]\n[network.stability_map]\n"
+                      "inhibition = [1.0]\ndrive = [20.0]")
+    with pytest.raises(ScenarioError, match="no inhibitory"):
+        load_scenario(write(tmp_path, bad))
+    ei = bad.replace("[network]", '[[pathway]]\nsource = "E"\ntarget = "E"\nweight = -0.2\nin_degree = 20\n'
+                                  "delay = 1.0\n[network]").replace("inhibition = [1.0]", "inhibition = [1.0, 2.0]")
+    p = write(tmp_path, ei)
+    assert main(["run", str(p), "--quiet"]) == 0
+    lines = [ln for ln in (tmp_path / "out" / "stability_map.csv").read_text().splitlines()
+             if not ln.startswith("#")]
+    names = lines[0].split(",")
+    rows = np.array([[float(x) for x in ln.split(",")] for ln in lines[1:]])
+    assert rows.shape[0] == 2
+    sc = load_scenario(p)
+    for row in rows:
+        c = sc.circuit_at(row[names.index("inhibition_factor")], row[names.index("drive_mV")])
+        # the scaled circuit: inhibitory weight times the factor, drive replaced (file == script)
+        assert c.pathways[1].weight == pytest.approx(-0.2 * row[0]) and c.assemblies[0].drive.mu == 20.0
+        (fp,) = popdens.fixed_points(c, (0.1, 200.0))
+        growth = row[names.index("growth_rate_per_s")]
+        if np.isnan(growth):  # the map records a point whose root search failed as NaN
+            with pytest.raises(popdens.ConvergenceError):
+                popdens.stability(c, fp)
+        else:
+            assert growth == pytest.approx(popdens.stability(c, fp).growth_rate, rel=1e-9)
+            assert row[names.index("rate_Hz_E")] == pytest.approx(fp.rates[0], rel=1e-10)  # 12 digits written
+    assert np.isfinite(rows[:, names.index("growth_rate_per_s")]).any()
