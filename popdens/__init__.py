@@ -13,7 +13,7 @@ from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, Pop
                          UnreachableTargetError)
 from .models import EIF, LIF, PIF, QIF, CustomNeuron  # noqa: E402
 from .montecarlo import montecarlo  # noqa: E402
-from .network import (Assembly, Circuit, CircuitResult, Pathway, PoissonBackground,  # noqa: E402
+from .network import (Circuit, CircuitResult, Cohort, Pathway, PoissonBackground,  # noqa: E402
                       montecarlo_network, simulate_network)
 from .network_analysis import FixedPoint, Stability, StabilityMap, fixed_points, stability, stability_map  # noqa: E402
 from .noise import EscapeNoise, Population, WhiteNoise  # noqa: E402
@@ -27,9 +27,9 @@ from .steady_state import (SteadyState, drive_and_noise_for, drive_for_rate, gai
 
 __all__ = [
     "AccuracyWarning",
-    "Assembly",
     "Circuit",
     "CircuitResult",
+    "Cohort",
     "ConvergenceError",
     "Curve",
     "CustomNeuron",

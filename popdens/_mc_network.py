@@ -1,6 +1,6 @@
 """Compiled kernel of the network Monte Carlo twin.
 
-All neurons of all assemblies live in one set of arrays; assembly ``p``
+All neurons of all cohorts live in one set of arrays; cohort ``p``
 owns the neurons ``start[p] .. start[p+1]-1``.  Per step:
 
 1. Every neuron collects the spikes that arrive in this step from the ring
@@ -22,7 +22,7 @@ owns the neurons ``start[p] .. start[p+1]-1``.  Per step:
 
 Connectivity is drawn with a fixed in-degree: each target neuron picks
 ``C`` distinct sources (partial Fisher--Yates shuffle), no self-connections
-within an assembly.
+within a cohort.
 """
 
 from __future__ import annotations

@@ -279,7 +279,7 @@ def _network_command(args, sc) -> int:
         parts = (["fixed points"] if sc.fixed_points else []) + (["stability"] if sc.stability else [])
         parts += [f"{sc.t_end:g} ms mean-field run"] if sc.t_end > 0 else []
         parts += ["spiking twin"] if sc.montecarlo else []
-        print(f"{args.scenario}: OK ({sc.title}; network of {len(c.assemblies)} assemblies "
+        print(f"{args.scenario}: OK ({sc.title}; network of {len(c.cohorts)} cohorts "
               f"({', '.join(c.names)}), {len(c.pathways)} pathways; {', '.join(parts)})")
         return 0
     from .runner import run_scenario
@@ -393,10 +393,10 @@ def _main(args) -> int:
             print("  [stationary]  mu (mV)")
             print("  [transfer]    mu (mV), frequencies (Hz), modulate = mean | noise | sigma")
             print("  [sweep]       analysis = summary | gain | transfer, mode = grid | list, dotted keys to vary")
-            from .network_scenario import ASSEMBLY_KEYS, NETWORK_KEYS, PATHWAY_KEYS
+            from .network_scenario import COHORT_KEYS, NETWORK_KEYS, PATHWAY_KEYS
 
             print("network scenarios (mV, ms, Hz):")
-            for table, keys in (("[[assembly]]", ASSEMBLY_KEYS), ("[[pathway]]", PATHWAY_KEYS),
+            for table, keys in (("[[cohort]]", COHORT_KEYS), ("[[pathway]]", PATHWAY_KEYS),
                                 ("[network]", NETWORK_KEYS)):
                 print(f"  {table:13s} {', '.join(sorted(keys))}")
             return 0

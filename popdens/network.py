@@ -1,13 +1,13 @@
 """Networks of coupled populations: specification, recurrent input, time integration.
 
-A :class:`Circuit` is a set of named :class:`Assembly` objects (each a
+A :class:`Circuit` is a set of named :class:`Cohort` objects (each a
 :class:`~popdens.Population` with its external input and, for the Monte
 Carlo twin, a size) and :class:`Pathway` objects (synapses from one
-assembly to another, or to itself).
+cohort to another, or to itself).
 
 Recurrent input (diffusion approximation)
 -----------------------------------------
-A pathway from assembly ``l`` to assembly ``k`` gives each neuron of ``k``
+A pathway from cohort ``l`` to cohort ``k`` gives each neuron of ``k``
 ``in_degree`` = C_kl inputs from randomly chosen neurons of ``l``, each with
 a postsynaptic potential jump ``weight`` = J_kl (mV), a ``delay`` d_kl (ms)
 and a synaptic kernel ``K``: instantaneous (``tau_syn = 0``) or
@@ -22,12 +22,12 @@ J. Comput. Neurosci. 8:183) the drive and noise amplitude of ``k`` are
 with the rates ``A_l`` in Hz converted to 1/ms (``tau_m [ms] * J [mV] * C *
 A [1/ms]`` is in mV).  An optional :class:`PoissonBackground` adds
 ``tau_m J_ext C_ext nu_ext`` to the drive and ``tau_m J_ext^2 C_ext nu_ext`` to
-the variance.  Escape-noise assemblies receive only the mean input; their
+the variance.  Escape-noise cohorts receive only the mean input; their
 noise is the escape function.
 
 Time integration
 ----------------
-:func:`simulate_network` steps every assembly's density solver together.
+:func:`simulate_network` steps every cohort's density solver together.
 Rates are the step means returned by the solvers, located at step
 midpoints and interpolated linearly in between; the delayed rate enters the
 exponential filter, which is integrated exactly for a piecewise-linear
@@ -56,7 +56,7 @@ from .result import STATUS_FAILED, STATUS_OK, _atomic_write
 from .solvers import resolve_method
 from .solvers.fokker_planck import LOWER_STDS
 
-__all__ = ["Assembly", "Pathway", "PoissonBackground", "Circuit", "CircuitResult", "simulate_network",
+__all__ = ["Cohort", "Pathway", "PoissonBackground", "Circuit", "CircuitResult", "simulate_network",
            "montecarlo_network"]
 
 logger = logging.getLogger(__name__)
@@ -139,7 +139,7 @@ class PoissonBackground:
 
 
 @dataclass(frozen=True)
-class Assembly:
+class Cohort:
     """A named population inside a circuit, with its external input.
 
     Parameters
@@ -170,14 +170,14 @@ class Assembly:
     def __post_init__(self):
         _name("name", self.name)
         if not isinstance(self.population, Population):
-            raise ValueError(f"assembly {self.name!r}: `population` must be a popdens.Population, "
+            raise ValueError(f"cohort {self.name!r}: `population` must be a popdens.Population, "
                              f"got {self.population!r}")
         object.__setattr__(self, "size", _count("size", self.size))
         object.__setattr__(self, "drive", as_drive(self.drive))
         noise = self.population.noise
         if isinstance(noise, EscapeNoise):
             if self.sigma_ext is not None:
-                raise ValueError(f"assembly {self.name!r}: `sigma_ext` applies to white-noise populations; "
+                raise ValueError(f"cohort {self.name!r}: `sigma_ext` applies to white-noise populations; "
                                  "this one has escape noise")
             sig = None
         else:
@@ -186,7 +186,7 @@ class Assembly:
                 sig = Constant(v.non_negative("sigma_ext", sig))
         object.__setattr__(self, "sigma_ext", sig)
         if self.background is not None and not isinstance(self.background, PoissonBackground):
-            raise ValueError(f"assembly {self.name!r}: `background` must be a PoissonBackground, "
+            raise ValueError(f"cohort {self.name!r}: `background` must be a PoissonBackground, "
                              f"got {self.background!r}")
 
     @property
@@ -218,12 +218,12 @@ class Assembly:
 
 @dataclass(frozen=True)
 class Pathway:
-    """Synapses from assembly ``source`` onto assembly ``target``.
+    """Synapses from cohort ``source`` onto cohort ``target``.
 
     Parameters
     ----------
     source, target : str
-        Assembly names (may be equal: recurrent connections).
+        Cohort names (may be equal: recurrent connections).
     weight : float
         PSP jump J (mV) per presynaptic spike; negative for inhibition.
     in_degree : int
@@ -267,43 +267,43 @@ class Pathway:
 
 @dataclass(frozen=True)
 class Circuit:
-    """Assemblies coupled by pathways (validated at construction).
+    """Cohorts coupled by pathways (validated at construction).
 
     Parameters
     ----------
-    assemblies : sequence of Assembly
+    cohorts : sequence of Cohort
         At least one, with unique names.
     pathways : sequence of Pathway
-        Each naming existing assemblies; the Monte Carlo twin draws
+        Each naming existing cohorts; the Monte Carlo twin draws
         ``in_degree`` distinct partners (no self-connections within an
-        assembly), so ``in_degree`` must not exceed the source size
+        cohort), so ``in_degree`` must not exceed the source size
         (minus one for a recurrent pathway).
 
     Examples
     --------
     >>> import popdens
-    >>> from popdens.network import Assembly, Pathway, Circuit
+    >>> from popdens.network import Cohort, Pathway, Circuit
     >>> pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(5.0))
-    >>> c = Circuit([Assembly("E", pop, size=400, drive=15.0)],
+    >>> c = Circuit([Cohort("E", pop, size=400, drive=15.0)],
     ...             [Pathway("E", "E", weight=0.1, in_degree=40, delay=1.5)])
     >>> c.names
     ('E',)
     """
 
-    assemblies: Sequence[Assembly]
+    cohorts: Sequence[Cohort]
     pathways: Sequence[Pathway] = field(default_factory=tuple)
 
     def __post_init__(self):
-        asm = tuple(self.assemblies) if not isinstance(self.assemblies, Assembly) else (self.assemblies,)
+        asm = tuple(self.cohorts) if not isinstance(self.cohorts, Cohort) else (self.cohorts,)
         if not asm:
-            raise ValueError("`assemblies` must contain at least one Assembly")
+            raise ValueError("`cohorts` must contain at least one Cohort")
         for a in asm:
-            if not isinstance(a, Assembly):
-                raise ValueError(f"`assemblies` must contain Assembly objects, got {a!r}")
+            if not isinstance(a, Cohort):
+                raise ValueError(f"`cohorts` must contain Cohort objects, got {a!r}")
         names = [a.name for a in asm]
         dup = sorted({n for n in names if names.count(n) > 1})
         if dup:
-            raise ValueError(f"assembly names must be unique; repeated: {dup}")
+            raise ValueError(f"cohort names must be unique; repeated: {dup}")
         pw = tuple(self.pathways)
         for p in pw:
             if not isinstance(p, Pathway):
@@ -311,32 +311,32 @@ class Circuit:
             for role in ("source", "target"):
                 nm = getattr(p, role)
                 if nm not in names:
-                    raise ValueError(f"pathway {p.label}: unknown {role} assembly {nm!r}; known: {names}")
+                    raise ValueError(f"pathway {p.label}: unknown {role} cohort {nm!r}; known: {names}")
             n_src = asm[names.index(p.source)].size
             limit = n_src - 1 if p.source == p.target else n_src
             if p.in_degree > limit:
                 raise ValueError(
                     f"pathway {p.label}: `in_degree` = {p.in_degree} exceeds the {limit} distinct partners "
-                    f"available in assembly {p.source!r} (size {n_src}"
+                    f"available in cohort {p.source!r} (size {n_src}"
                     + (", no self-connections)" if p.source == p.target else ")"))
-        object.__setattr__(self, "assemblies", asm)
+        object.__setattr__(self, "cohorts", asm)
         object.__setattr__(self, "pathways", pw)
 
     # ---------------------------------------------------------- structure
     @property
     def names(self) -> tuple[str, ...]:
-        return tuple(a.name for a in self.assemblies)
+        return tuple(a.name for a in self.cohorts)
 
     @property
     def n(self) -> int:
-        return len(self.assemblies)
+        return len(self.cohorts)
 
     def index(self, name: str) -> int:
-        """Position of the assembly called ``name``."""
+        """Position of the cohort called ``name``."""
         try:
             return self.names.index(name)
         except ValueError:
-            raise ValueError(f"unknown assembly {name!r}; known: {list(self.names)}") from None
+            raise ValueError(f"unknown cohort {name!r}; known: {list(self.names)}") from None
 
     def coupling(self) -> tuple[np.ndarray, np.ndarray]:
         """Stationary coupling matrices ``(W_mean, W_var)``.
@@ -349,14 +349,14 @@ class Circuit:
         wv = np.zeros((self.n, self.n))
         for p in self.pathways:
             k, l = self.index(p.target), self.index(p.source)
-            a = self.assemblies[k]
+            a = self.cohorts[k]
             wm[k, l] += a.tau_m * p.weight * p.in_degree * HZ_TO_PER_MS
             if a.diffusive:
                 wv[k, l] += a.tau_m * p.weight ** 2 * p.in_degree * HZ_TO_PER_MS
         return wm, wv
 
     def stationary_input(self, rates, t: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
-        """Drive and noise amplitude of every assembly for constant rates.
+        """Drive and noise amplitude of every cohort for constant rates.
 
         Parameters
         ----------
@@ -374,14 +374,14 @@ class Circuit:
         if r.shape != (self.n,):
             raise ValueError(f"`rates` must have shape ({self.n},) (Hz), got {r.shape}")
         wm, wv = self.coupling()
-        mu = np.array([a.external_mean(t) for a in self.assemblies]) + wm @ r
-        var = np.array([a.external_variance(t) for a in self.assemblies]) + wv @ r
-        sigma = np.where([a.diffusive for a in self.assemblies], np.sqrt(np.maximum(var, 0.0)), np.nan)
+        mu = np.array([a.external_mean(t) for a in self.cohorts]) + wm @ r
+        var = np.array([a.external_variance(t) for a in self.cohorts]) + wv @ r
+        sigma = np.where([a.diffusive for a in self.cohorts], np.sqrt(np.maximum(var, 0.0)), np.nan)
         return mu, sigma
 
     def population_at(self, k: int, sigma: float | None) -> Population:
-        """The population of assembly ``k`` with its white noise set to ``sigma`` (mV)."""
-        a = self.assemblies[k]
+        """The population of cohort ``k`` with its white noise set to ``sigma`` (mV)."""
+        a = self.cohorts[k]
         if not a.diffusive:
             return a.population
         return Population(a.population.neuron, WhiteNoise(float(sigma)))
@@ -393,21 +393,21 @@ class Circuit:
 
 @dataclass(frozen=True, eq=False)
 class CircuitResult:
-    """Time course of every assembly of a circuit.
+    """Rates over time of every cohort of a circuit.
 
     Attributes
     ----------
     names : tuple of str
-        Assembly names, the order of the first axis of the arrays.
+        Cohort names, the order of the first axis of the arrays.
     t : ndarray, shape (n_times,)
         Output times (ms) from 0.
-    rate : ndarray, shape (n_assemblies, n_times)
+    rate : ndarray, shape (n_cohorts, n_times)
         Population rates (Hz): ``rate[:, 0]`` the initial rate, ``rate[:, j]``
         the mean over ``(t[j-1], t[j]]``.
-    mu, sigma : ndarray, shape (n_assemblies, n_times) or None
+    mu, sigma : ndarray, shape (n_cohorts, n_times) or None
         Total drive (mV) and noise amplitude (mV, NaN for escape noise) at
         ``t`` (mean-field integration only).
-    mean_u : ndarray, shape (n_assemblies, n_times) or None
+    mean_u : ndarray, shape (n_cohorts, n_times) or None
         Monte Carlo: mean membrane potential (mV) at ``t``.
     method : str
         ``"mean-field"`` or ``"montecarlo"``.
@@ -416,10 +416,10 @@ class CircuitResult:
     dt : float
         Internal step (ms).
     sizes : tuple of int or None
-        Monte Carlo: neurons per assembly.
+        Monte Carlo: neurons per cohort.
     spike_times, spike_ids : ndarray or None
         Monte Carlo, on request: spike times (ms) and neuron indices
-        (assembly ``k`` owns ids ``offsets[k] .. offsets[k+1]-1``).
+        (cohort ``k`` owns ids ``offsets[k] .. offsets[k+1]-1``).
     diagnostics : dict
         Wall time (s), version, counters.
     """
@@ -444,20 +444,20 @@ class CircuitResult:
         return self.status == STATUS_OK
 
     def rate_of(self, name: str) -> np.ndarray:
-        """Rate (Hz) of the assembly ``name``."""
+        """Rate (Hz) of the cohort ``name``."""
         if name not in self.names:
-            raise ValueError(f"unknown assembly {name!r}; known: {list(self.names)}")
+            raise ValueError(f"unknown cohort {name!r}; known: {list(self.names)}")
         return self.rate[self.names.index(name)]
 
     @property
     def offsets(self) -> np.ndarray:
-        """First neuron id of each assembly (Monte Carlo)."""
+        """First neuron id of each cohort (Monte Carlo)."""
         if self.sizes is None:
             raise ValueError("neuron ids exist only for Monte Carlo results")
         return np.concatenate([[0], np.cumsum(self.sizes)])
 
     def mean_rate(self, t_from: float = 0.0) -> np.ndarray:
-        """Time-averaged rate (Hz) of each assembly over ``(t_from, t_end]`` (ms)."""
+        """Time-averaged rate (Hz) of each cohort over ``(t_from, t_end]`` (ms)."""
         sel = self.t[1:] > t_from + 1e-9
         if not np.any(sel):
             raise ValueError(f"`t_from` = {t_from!r} ms leaves no output interval")
@@ -482,7 +482,7 @@ class CircuitResult:
         return path
 
     def plot(self, ax=None, **kwargs):
-        """Rates (Hz) of every assembly against time (ms); returns the Axes."""
+        """Rates (Hz) of every cohort against time (ms); returns the Axes."""
         from .plotting import _axes
 
         ax = _axes(ax)
@@ -553,7 +553,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
                      progress: bool | None = None) -> CircuitResult:
     """Integrate the coupled population-density equations of a circuit.
 
-    Every assembly is solved by its density solver (refractory density for
+    Every cohort is solved by its density solver (refractory density for
     escape noise, Fokker--Planck for white noise); all are stepped together,
     coupled through delayed, filtered rates (module docstring).
 
@@ -566,12 +566,12 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         Common step (ms), default 0.1; must divide ``t_end``.  Every delay
         must be >= ``dt``.
     initial_rates : array_like, optional
-        Rates (Hz) of the past (t <= 0), one per assembly; default 0.  Each
+        Rates (Hz) of the past (t <= 0), one per cohort; default 0.  Each
         solver starts in the stationary state of the input these rates give.
     record_interval : float, optional
         Output interval (ms), a multiple of ``dt``; rates are averaged over it.
     solver_options : dict, optional
-        ``{assembly name: {option: value}}`` passed to the solvers (e.g.
+        ``{cohort name: {option: value}}`` passed to the solvers (e.g.
         ``n_cells``, ``u_min`` for Fokker--Planck, ``max_age`` for escape).
     progress : bool, optional
         Progress line on stderr (default: only on a terminal, long runs).
@@ -579,14 +579,14 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     Returns
     -------
     CircuitResult
-        ``rate`` (Hz), ``mu`` (mV) and ``sigma`` (mV) per assembly.
+        ``rate`` (Hz), ``mu`` (mV) and ``sigma`` (mV) per cohort.
 
     Examples
     --------
     >>> import popdens
-    >>> from popdens.network import Assembly, Pathway, Circuit, simulate_network
+    >>> from popdens.network import Cohort, Pathway, Circuit, simulate_network
     >>> pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(5.0))
-    >>> c = Circuit([Assembly("E", pop, drive=15.0)], [Pathway("E", "E", 0.1, 40, delay=1.5)])
+    >>> c = Circuit([Cohort("E", pop, drive=15.0)], [Pathway("E", "E", 0.1, 40, delay=1.5)])
     >>> res = simulate_network(c, 20.0)
     >>> res.rate.shape
     (1, 201)
@@ -612,15 +612,15 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
              for p in circuit.pathways]
     tgt = [circuit.index(p.target) for p in circuit.pathways]
     src = [circuit.index(p.source) for p in circuit.pathways]
-    cmean = [circuit.assemblies[k].tau_m * p.weight * p.in_degree for p, k in zip(circuit.pathways, tgt)]
-    cvar = [circuit.assemblies[k].tau_m * p.weight ** 2 * p.in_degree if circuit.assemblies[k].diffusive else 0.0
+    cmean = [circuit.cohorts[k].tau_m * p.weight * p.in_degree for p, k in zip(circuit.pathways, tgt)]
+    cvar = [circuit.cohorts[k].tau_m * p.weight ** 2 * p.in_degree if circuit.cohorts[k].diffusive else 0.0
             for p, k in zip(circuit.pathways, tgt)]
     tq = grid.step_times(0, grid.n_steps)
-    ext_mu = np.array([np.broadcast_to(a.external_mean(tq), tq.shape) for a in circuit.assemblies])
-    ext_var = np.array([np.broadcast_to(a.external_variance(tq), tq.shape) for a in circuit.assemblies])
+    ext_mu = np.array([np.broadcast_to(a.external_mean(tq), tq.shape) for a in circuit.cohorts])
+    ext_var = np.array([np.broadcast_to(a.external_variance(tq), tq.shape) for a in circuit.cohorts])
     if not (np.all(np.isfinite(ext_mu)) and np.all(np.isfinite(ext_var))):
-        raise ValueError("the external drive or noise of an assembly is not finite on [0, t_end]")
-    diffusive = [a.diffusive for a in circuit.assemblies]
+        raise ValueError("the external drive or noise of a cohort is not finite on [0, t_end]")
+    diffusive = [a.diffusive for a in circuit.cohorts]
 
     def inputs(j: int, s_values) -> tuple[np.ndarray, np.ndarray]:
         mu = ext_mu[:, j].copy()
@@ -633,12 +633,12 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     wall0 = time.perf_counter()
     mu0, sg0 = inputs(0, [ln.s for ln in lines])
     solvers = []
-    for k, a in enumerate(circuit.assemblies):
+    for k, a in enumerate(circuit.cohorts):
         cls = resolve_method(a.population, None)
         opts = dict(solver_options.get(a.name, {}))
         if diffusive[k]:
             if not sg0[k] > 0:
-                raise ValueError(f"assembly {a.name!r}: the noise amplitude at t = 0 is {sg0[k]!r} mV; "
+                raise ValueError(f"cohort {a.name!r}: the noise amplitude at t = 0 is {sg0[k]!r} mV; "
                                  "white-noise populations need sigma > 0 (external or recurrent)")
             nrn = a.population.neuron
             if "u_min" not in opts and "grid" not in opts:
@@ -648,7 +648,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         try:
             s = cls(a.population, dt, **opts)
         except TypeError as exc:
-            raise ValueError(f"assembly {a.name!r}: bad solver option in {sorted(opts)}: {exc}") from None
+            raise ValueError(f"cohort {a.name!r}: bad solver option in {sorted(opts)}: {exc}") from None
         s.initialize(float(mu0[k]), float(sg0[k]) if diffusive[k] else None, "stationary")
         solvers.append(s)
 
@@ -688,7 +688,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
                 else:
                     r, _, _ = s.advance(mus[k, j:j + nb + 1])
                 if s.status != STATUS_OK:
-                    status, message = STATUS_FAILED, f"assembly {circuit.names[k]!r}: {s.message}"
+                    status, message = STATUS_FAILED, f"cohort {circuit.names[k]!r}: {s.message}"
                     break
                 rate[k, j:j + nb] = r
             if status != STATUS_OK:
@@ -747,11 +747,11 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
                        progress: bool | None = None) -> CircuitResult:
     """Direct simulation of the spiking network a circuit describes.
 
-    Each assembly has ``size`` neurons; each pathway gives every target
+    Each cohort has ``size`` neurons; each pathway gives every target
     neuron ``in_degree`` distinct, randomly chosen presynaptic neurons
     (fixed in-degree, no self-connections), with the pathway's PSP jump,
     delay and synaptic kernel.  External input: the drive, white noise of
-    amplitude ``sigma_ext`` (white-noise assemblies) and, if given,
+    amplitude ``sigma_ext`` (white-noise cohorts) and, if given,
     independent Poisson spike trains (:class:`PoissonBackground`).  See
     :mod:`popdens._mc_network` for the step.
 
@@ -796,14 +796,14 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     burn_in = DEFAULT_BURN_IN_MS if burn_in is None else v.non_negative("burn_in", burn_in)
     n_burn = int(round(burn_in / dt))
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
-    asm = circuit.assemblies
+    asm = circuit.cohorts
     npop = circuit.n
     sizes = np.array([a.size for a in asm], dtype=np.int64)
     start = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
     n_total = int(start[-1])
     wall0 = time.perf_counter()
 
-    # -- per-assembly parameters
+    # -- per-cohort parameters
     nrns = [a.population.neuron for a in asm]
     noise = np.array([NOISE_WHITE if a.diffusive else NOISE_ESCAPE for a in asm], dtype=np.int64)
     ncode = np.array([n_.code for n_ in nrns], dtype=np.int64)

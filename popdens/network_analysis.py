@@ -4,9 +4,9 @@ Fixed points
 ------------
 A stationary state is a set of rates ``A`` (Hz) with ``A_k = Phi_k(mu_k(A),
 sigma_k(A))``, where ``Phi_k`` is the stationary rate (gain function) of
-assembly ``k`` and ``mu, sigma`` the diffusion-approximation input
+cohort ``k`` and ``mu, sigma`` the diffusion-approximation input
 (:meth:`popdens.network.Circuit.stationary_input`).  :func:`fixed_points`
-finds all of them in a rate box: for one assembly by scanning ``A - Phi``
+finds all of them in a rate box: for one cohort by scanning ``A - Phi``
 for sign changes and polishing with Brent's method, for several by Powell's
 hybrid method from a grid of starting points, keeping distinct solutions
 whose residual is below tolerance.
@@ -57,9 +57,9 @@ __all__ = ["FixedPoint", "Stability", "StabilityMap", "fixed_points", "solver_ga
 
 #: Default rate box (Hz) searched for fixed points.
 DEFAULT_RATE_RANGE = (0.0, 200.0)
-#: Scan points for one assembly (sign changes of A - Phi).
+#: Scan points for one cohort (sign changes of A - Phi).
 SCAN_POINTS = 400
-#: Starting points per assembly and dimension for several assemblies.
+#: Starting points per cohort and dimension for several cohorts.
 STARTS_PER_DIM = 5
 #: Absolute residual (Hz) accepted for a fixed point.
 RESIDUAL_TOL = 1e-7
@@ -151,8 +151,8 @@ def _rates_of(circuit: Circuit, gain: Callable, rates: np.ndarray) -> np.ndarray
     mu, sg = circuit.stationary_input(np.maximum(rates, 0.0))
     out = np.empty(circuit.n)
     for k in range(circuit.n):
-        if circuit.assemblies[k].diffusive and not sg[k] > 0:
-            raise ValueError(f"assembly {circuit.names[k]!r}: noise amplitude {sg[k]!r} mV at rates {rates} Hz; "
+        if circuit.cohorts[k].diffusive and not sg[k] > 0:
+            raise ValueError(f"cohort {circuit.names[k]!r}: noise amplitude {sg[k]!r} mV at rates {rates} Hz; "
                              "white-noise populations need sigma > 0")
         out[k] = float(gain(circuit.population_at(k, sg[k]), float(mu[k])))
     return out
@@ -173,27 +173,27 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
         their total ``sigma``.  Default: ``popdens.steady_state.gain`` when
         available, else :func:`solver_gain`.
     starts_per_dim : int
-        Starting points per assembly (several assemblies).
+        Starting points per cohort (several cohorts).
     scan_points : int
-        Scan points (one assembly).
+        Scan points (one cohort).
 
     Returns
     -------
     list of FixedPoint
-        Sorted by the rate of the first assembly.
+        Sorted by the rate of the first cohort.
 
     Examples
     --------
     >>> import popdens
-    >>> from popdens.network import Assembly, Circuit, Pathway
+    >>> from popdens.network import Cohort, Circuit, Pathway
     >>> pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(3.0))
-    >>> c = Circuit([Assembly("E", pop, drive=12.0)], [Pathway("E", "E", 0.1, 200, 1.5)])
+    >>> c = Circuit([Cohort("E", pop, drive=12.0)], [Pathway("E", "E", 0.1, 200, 1.5)])
     >>> [round(float(fp.rates[0]), 2) for fp in fixed_points(c, (0.0, 300.0))]
     [0.06, 17.57, 242.04]
 
     Notes
     -----
-    With several assemblies the search is a multistart root finder: fixed
+    With several cohorts the search is a multistart root finder: fixed
     points whose basin of attraction (for Powell's method) contains none
     of the ``starts_per_dim ** n`` starts are missed; raise
     ``starts_per_dim`` when in doubt.
@@ -281,10 +281,10 @@ def characteristic_matrix(circuit: Circuit, state: FixedPoint, lam, transfer: Ca
     n = circuit.n
     out = np.zeros((f.size, n, n), dtype=complex)
     chi_m, chi_v = {}, {}
-    same = {}  # assemblies with equal population and input share their transfer functions
+    same = {}  # cohorts with equal population and input share their transfer functions
     for p in circuit.pathways:
         k, l = circuit.index(p.target), circuit.index(p.source)
-        a = circuit.assemblies[k]
+        a = circuit.cohorts[k]
         if k not in chi_m:
             pop = circuit.population_at(k, state.sigma[k])
             try:

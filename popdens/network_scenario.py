@@ -1,9 +1,9 @@
-"""Network scenario files: ``[[assembly]]``, ``[[pathway]]`` and ``[network]`` tables.
+"""Network scenario files: ``[[cohort]]``, ``[[pathway]]`` and ``[network]`` tables.
 
-A scenario that holds ``[[assembly]]`` tables describes a network of coupled
+A scenario that holds ``[[cohort]]`` tables describes a network of coupled
 populations instead of a single population::
 
-    [[assembly]]
+    [[cohort]]
     name = "E"
     size = 2000                      # neurons in the spiking twin
     drive = 24.0                     # external drive (mV)
@@ -32,7 +32,7 @@ populations instead of a single population::
 
     [network.stability_map]          # optional: stability over two parameters
     inhibition = { start = 2.0, stop = 8.0, count = 5 }   # factor on every inhibitory (negative) weight
-    drive = { start = 15.0, stop = 30.0, count = 4 }      # external drive of every assembly (mV)
+    drive = { start = 15.0, stop = 30.0, count = 4 }      # external drive of every cohort (mV)
 
 The objects are those of :mod:`popdens.network`, so a file and the
 equivalent script give the same numbers.
@@ -45,19 +45,19 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from .exceptions import ScenarioError
-from .network import Assembly, Circuit, Pathway, PoissonBackground
+from .network import Cohort, Circuit, Pathway, PoissonBackground
 from .scenario import _build, _check_keys, _err, _flatten, _number, parse_meta, parse_population
 
 __all__ = ["NetworkScenario", "parse_network_scenario", "NETWORK_TOP_LEVEL"]
 
-NETWORK_TOP_LEVEL = {"scenario", "assembly", "pathway", "network"}
-ASSEMBLY_KEYS = {"name", "size", "drive", "sigma_ext", "neuron", "noise", "background"}
+NETWORK_TOP_LEVEL = {"scenario", "cohort", "pathway", "network"}
+COHORT_KEYS = {"name", "size", "drive", "sigma_ext", "neuron", "noise", "background"}
 PATHWAY_KEYS = {"source", "target", "weight", "in_degree", "delay", "tau_syn"}
 BACKGROUND_KEYS = {"rate", "weight", "count"}
 NETWORK_KEYS = {"t_end", "dt", "record_interval", "montecarlo", "seed", "fixed_points", "stability",
                 "rate_range", "stability_map"}
 MAP_KEYS = {"inhibition", "drive"}
-#: Largest accepted spiking-twin size per assembly and in-degree (guards against typos).
+#: Largest accepted spiking-twin size per cohort and in-degree (guards against typos).
 MAX_SIZE = 1_000_000
 #: Most points of a stability map (each costs a fixed-point search and a root search, ~1 s).
 MAX_MAP_POINTS = 2500
@@ -92,10 +92,10 @@ class NetworkScenario:
         import dataclasses
 
         c = self.circuit
-        assemblies = [dataclasses.replace(a, drive=float(drive)) for a in c.assemblies]
+        cohorts = [dataclasses.replace(a, drive=float(drive)) for a in c.cohorts]
         pathways = [dataclasses.replace(p, weight=p.weight * (inhibition if p.weight < 0 else 1.0))
                     for p in c.pathways]
-        return Circuit(assemblies, pathways)
+        return Circuit(cohorts, pathways)
 
 
 def _integer(src, table, key, value, lo, hi) -> int:
@@ -124,14 +124,14 @@ def _array_of_tables(src, data, key, required: bool):
 def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> NetworkScenario:
     """Validate a network scenario given as a dict (as read from TOML)."""
     src = str(source)
-    _check_keys(src, "", data, NETWORK_TOP_LEVEL, {"assembly"})
+    _check_keys(src, "", data, NETWORK_TOP_LEVEL, {"cohort"})
     title, out_path = parse_meta(src, data)
 
-    assemblies = []
-    for i, a in enumerate(_array_of_tables(src, data, "assembly", True)):
+    cohorts = []
+    for i, a in enumerate(_array_of_tables(src, data, "cohort", True)):
         name = a.get("name")
-        table = f"assembly {name}" if isinstance(name, str) and name.isidentifier() else f"assembly #{i + 1}"
-        _check_keys(src, table, a, ASSEMBLY_KEYS, {"name", "neuron", "noise"})
+        table = f"cohort {name}" if isinstance(name, str) and name.isidentifier() else f"cohort #{i + 1}"
+        _check_keys(src, table, a, COHORT_KEYS, {"name", "neuron", "noise"})
         if not isinstance(name, str) or not name.strip():
             raise _err(src, table, "name", name, "a non-empty string")
         pop = parse_population(src, a["neuron"], a["noise"], prefix=f"{table}.")
@@ -148,7 +148,7 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
                                           {"rate": _number(src, bt, "rate", b["rate"]),
                                            "weight": _number(src, bt, "weight", b["weight"]),
                                            "count": _integer(src, bt, "count", b["count"], 1, MAX_SIZE)})
-        assemblies.append(_build(src, table, Assembly, params))
+        cohorts.append(_build(src, table, Cohort, params))
 
     pathways = []
     for i, p in enumerate(_array_of_tables(src, data, "pathway", False)):
@@ -156,7 +156,7 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
         _check_keys(src, table, p, PATHWAY_KEYS, {"source", "target", "weight", "in_degree"})
         for key in ("source", "target"):
             if not isinstance(p[key], str):
-                raise _err(src, table, key, p[key], "an assembly name")
+                raise _err(src, table, key, p[key], "a cohort name")
         params = {"source": p["source"], "target": p["target"],
                   "weight": _number(src, table, "weight", p["weight"]),
                   "in_degree": _integer(src, table, "in_degree", p["in_degree"], 0, MAX_SIZE)}
@@ -164,7 +164,7 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
             if key in p:
                 params[key] = _number(src, table, key, p[key])
         pathways.append(_build(src, table, Pathway, params))
-    circuit = _build(src, "pathway", Circuit, {"assemblies": assemblies, "pathways": pathways})
+    circuit = _build(src, "pathway", Circuit, {"cohorts": cohorts, "pathways": pathways})
 
     net = data.get("network", {})
     _check_keys(src, "network", net, NETWORK_KEYS)

@@ -165,8 +165,8 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
     summary["settings"] = {"t_end_ms": scenario.t_end, "dt_ms": scenario.dt,
                            "record_interval_ms": scenario.record_interval, "montecarlo": scenario.montecarlo,
                            "seed": scenario.seed, "rate_range_hz": list(scenario.rate_range)}
-    summary["assemblies"] = {a.name: {"size": a.size, "model": type(a.population.neuron).__name__,
-                                      "noise": type(a.population.noise).__name__} for a in c.assemblies}
+    summary["cohorts"] = {a.name: {"size": a.size, "model": type(a.population.neuron).__name__,
+                                      "noise": type(a.population.noise).__name__} for a in c.cohorts}
     if scenario.fixed_points:
         t0 = time.perf_counter()
         states = fixed_points(c, scenario.rate_range)
@@ -238,7 +238,7 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
                 ax.plot(mc.t[1:], mc.rate[k, 1:], lw=0.7, alpha=0.6, color=f"C{k}", label=f"{nm} (spiking twin)")
             ax.legend(frameon=False)
         save_figure(ax.figure, tmp, "network_rate")
-        figures.append(("network_rate.png", "Rates of the assemblies over time"
+        figures.append(("network_rate.png", "Rates of the cohorts over time"
                         + (" (mean field and spiking twin)" if scenario.montecarlo else "")))
     return figures
 
@@ -323,10 +323,10 @@ def _html_report(scenario: Scenario, summary: dict, folder: Path, figures: list)
 
     if hasattr(scenario, "circuit"):
         model_tables = []
-        for a in scenario.circuit.assemblies:
+        for a in scenario.circuit.cohorts:
             rows = [("size (spiking twin)", a.size), ("external drive (mV)", a.drive),
                     ("external sigma (mV)", a.sigma_ext), ("Poisson background", a.background)]
-            model_tables.append((f"Assembly {a.name}", rows + population_rows(a.population)))
+            model_tables.append((f"Cohort {a.name}", rows + population_rows(a.population)))
         model_tables.append(("Pathways", [(p.label, f"J = {p.weight:g} mV, C = {p.in_degree}, delay "
                                           f"{p.delay:g} ms, tau_syn {p.tau_syn:g} ms")
                                          for p in scenario.circuit.pathways]))

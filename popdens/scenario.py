@@ -9,7 +9,7 @@ Top-level tables
 ``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``
 ``[gain]``, ``[stationary]``, ``[transfer]``  steady-state and linear-response analyses
                 (see :mod:`popdens.analyses`)
-``[[assembly]]``, ``[[pathway]]``, ``[network]``  a network scenario instead (see
+``[[cohort]]``, ``[[pathway]]``, ``[network]``  a network scenario instead (see
                 :mod:`popdens.network_scenario`)
 ``[sweep]``     optional: values to sweep and the analysis; checked by ``popdens/sweep_scenario.py``
 
@@ -225,11 +225,11 @@ def parse_population(src, neuron_data, noise_data, prefix: str = "") -> Populati
 def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:
     """Validate a scenario given as a dict (as read from TOML).
 
-    A scenario with ``[[assembly]]`` tables is a network scenario
+    A scenario with ``[[cohort]]`` tables is a network scenario
     (:mod:`popdens.network_scenario`) and gives a ``NetworkScenario``.
     """
     src = str(source)
-    if isinstance(data, dict) and "assembly" in data:
+    if isinstance(data, dict) and "cohort" in data:
         from .network_scenario import parse_network_scenario
 
         return parse_network_scenario(data, source)

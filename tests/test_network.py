@@ -11,7 +11,7 @@ from scipy.optimize import fsolve
 from scipy.special import erfcx
 
 import popdens
-from popdens.network import (Assembly, Circuit, CircuitResult, Pathway, PoissonBackground, montecarlo_network,
+from popdens.network import (Cohort, Circuit, CircuitResult, Pathway, PoissonBackground, montecarlo_network,
                              simulate_network)
 
 LIF_E = popdens.LIF(tau_m=20.0, threshold=20.0, reset=10.0, refractory=2.0)
@@ -31,7 +31,7 @@ def siegert(mu, sigma, tau=20.0, theta=20.0, reset=10.0, tref=2.0):
 def ei_circuit(n_e=2000, n_i=500, c_e=200, c_i=50, j=0.1, g=4.0, drive=18.0, sigma=5.0, delay=1.5, tau_syn=0.0):
     """A sparse excitatory-inhibitory demo circuit (invented numbers)."""
     pop = popdens.Population(LIF_E, popdens.WhiteNoise(sigma))
-    asm = [Assembly("E", pop, size=n_e, drive=drive), Assembly("I", pop, size=n_i, drive=drive)]
+    asm = [Cohort("E", pop, size=n_e, drive=drive), Cohort("I", pop, size=n_i, drive=drive)]
     pw = [Pathway("E", "E", j, c_e, delay, tau_syn), Pathway("E", "I", j, c_e, delay, tau_syn),
           Pathway("I", "E", -g * j, c_i, delay, tau_syn), Pathway("I", "I", -g * j, c_i, delay, tau_syn)]
     return Circuit(asm, pw)
@@ -52,7 +52,7 @@ def test_stationary_input_matches_the_diffusion_approximation_formula():
     # mu = mu_ext + tau sum J C nu, sigma^2 = sigma_ext^2 + tau sum J^2 C nu (Brunel 2000, eqs. 4-5),
     # computed by hand here; rates in Hz -> 1/ms
     c = ei_circuit(j=0.2, g=5.0, drive=12.0, sigma=3.0)
-    c2 = Circuit(list(c.assemblies[:1]) + [Assembly("I", c.assemblies[1].population, size=500, drive=12.0,
+    c2 = Circuit(list(c.cohorts[:1]) + [Cohort("I", c.cohorts[1].population, size=500, drive=12.0,
                                                       background=PoissonBackground(rate=800.0, weight=0.3, count=10))],
                  c.pathways)
     re, ri = 7.0, 21.0
@@ -65,9 +65,9 @@ def test_stationary_input_matches_the_diffusion_approximation_formula():
     assert sg == pytest.approx(np.sqrt([var_e, var_i]), rel=1e-14)
 
 
-def test_escape_assemblies_get_mean_input_only():
+def test_escape_cohorts_get_mean_input_only():
     esc = popdens.Population(LIF_E, popdens.EscapeNoise(popdens.hazard.Exponential(10.0, 2.0)))
-    c = Circuit([Assembly("X", esc, size=10, drive=5.0)], [Pathway("X", "X", 0.5, 4, 1.0)])
+    c = Circuit([Cohort("X", esc, size=10, drive=5.0)], [Pathway("X", "X", 0.5, 4, 1.0)])
     wm, wv = c.coupling()
     assert wm[0, 0] == pytest.approx(20.0 * 0.5 * 4 * 1e-3)  # tau J C / 1000 (mV/Hz)
     assert wv[0, 0] == 0.0
@@ -76,24 +76,24 @@ def test_escape_assemblies_get_mean_input_only():
 
 
 @pytest.mark.parametrize("make, match", [
-    (lambda p: Circuit([Assembly("E", p)], [Pathway("E", "X", 0.1, 10)]), "unknown target assembly 'X'"),
-    (lambda p: Circuit([Assembly("E", p)], [Pathway("Y", "E", 0.1, 10)]), "unknown source assembly 'Y'"),
+    (lambda p: Circuit([Cohort("E", p)], [Pathway("E", "X", 0.1, 10)]), "unknown target cohort 'X'"),
+    (lambda p: Circuit([Cohort("E", p)], [Pathway("Y", "E", 0.1, 10)]), "unknown source cohort 'Y'"),
     (lambda p: Pathway("E", "E", 0.1, -3), "`in_degree` must be a positive integer"),
     (lambda p: Pathway("E", "E", 0.1, 2.5), "`in_degree` must be a positive integer"),
     (lambda p: Pathway("E", "E", 0.1, 10, delay=-1.0), "`delay` must be >= 0"),
     (lambda p: Pathway("E", "E", 0.1, 10, tau_syn=-2.0), "`tau_syn` must be >= 0"),
     (lambda p: Pathway("E", "E", float("nan"), 10), "`weight` must be finite"),
     (lambda p: Pathway("", "E", 0.1, 10), "`source` must be a non-empty string"),
-    (lambda p: Circuit([Assembly("E", p), Assembly("E", p)]), "names must be unique"),
-    (lambda p: Circuit([]), "at least one Assembly"),
-    (lambda p: Circuit([Assembly("E", p, size=10)], [Pathway("E", "E", 0.1, 10)]), "exceeds the 9 distinct"),
-    (lambda p: Assembly("E", p, size=0), "`size` must be a positive integer"),
-    (lambda p: Assembly("E", p, sigma_ext=-1.0), "`sigma_ext` must be >= 0"),
-    (lambda p: Assembly("E", "not a population"), "`population` must be a popdens.Population"),
-    (lambda p: Assembly("E", popdens.Population(LIF_E, popdens.EscapeNoise(popdens.hazard.Exponential(1., 1.))),
+    (lambda p: Circuit([Cohort("E", p), Cohort("E", p)]), "names must be unique"),
+    (lambda p: Circuit([]), "at least one Cohort"),
+    (lambda p: Circuit([Cohort("E", p, size=10)], [Pathway("E", "E", 0.1, 10)]), "exceeds the 9 distinct"),
+    (lambda p: Cohort("E", p, size=0), "`size` must be a positive integer"),
+    (lambda p: Cohort("E", p, sigma_ext=-1.0), "`sigma_ext` must be >= 0"),
+    (lambda p: Cohort("E", "not a population"), "`population` must be a popdens.Population"),
+    (lambda p: Cohort("E", popdens.Population(LIF_E, popdens.EscapeNoise(popdens.hazard.Exponential(1., 1.))),
                         sigma_ext=2.0), "`sigma_ext` applies to white-noise"),
     (lambda p: PoissonBackground(rate=-1.0, weight=0.1, count=5), "`rate` must be >= 0"),
-    (lambda p: Circuit([Assembly("E", p)]).index("Q"), "unknown assembly 'Q'"),
+    (lambda p: Circuit([Cohort("E", p)]).index("Q"), "unknown cohort 'Q'"),
 ])
 def test_validation_errors_name_the_problem(make, match):
     pop = popdens.Population(LIF_E, popdens.WhiteNoise(5.0))
@@ -109,13 +109,13 @@ def test_integrator_errors():
         montecarlo_network(ei_circuit(delay=0.15), 10.0, dt=0.1)
     with pytest.raises(ValueError, match="`initial_rates`"):
         simulate_network(ei_circuit(), 10.0, initial_rates=[1.0])
-    with pytest.raises(ValueError, match="unknown assembly"):
+    with pytest.raises(ValueError, match="unknown cohort"):
         simulate_network(ei_circuit(), 10.0, solver_options={"Z": {}})
     with pytest.raises(ValueError, match="`circuit`"):
         montecarlo_network("E-I", 10.0)
     pop0 = popdens.Population(LIF_E, popdens.WhiteNoise(5.0))
     with pytest.raises(ValueError, match="sigma > 0"):
-        simulate_network(Circuit([Assembly("E", pop0, sigma_ext=0.0)]), 10.0)
+        simulate_network(Circuit([Cohort("E", pop0, sigma_ext=0.0)]), 10.0)
 
 
 # --------------------------------------------------------------------------- mean-field integration
@@ -135,8 +135,8 @@ def test_mean_field_filter_and_delay_against_closed_form():
     # An escape population with a vanishing coupling does not change its rate; the exponential filter
     # of a delayed step is 1 - exp(-(t - d)/tau_s) (closed form), checked through the recorded drive.
     esc = popdens.Population(LIF_E, popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0)))
-    src = Assembly("S", esc, size=10, drive=popdens.drive.Step(t=5.0, before=10.0, after=25.0))
-    tgt = Assembly("T", esc, size=10, drive=0.0)
+    src = Cohort("S", esc, size=10, drive=popdens.drive.Step(t=5.0, before=10.0, after=25.0))
+    tgt = Cohort("T", esc, size=10, drive=0.0)
     c = Circuit([src, tgt], [Pathway("S", "T", 1e-9, 1, delay=3.0, tau_syn=4.0)])
     res = simulate_network(c, 60.0, dt=0.05)
     r_s = res.rate_of("S")
@@ -165,7 +165,7 @@ def test_montecarlo_network_reproducible_and_seed_sensitive():
     assert np.array_equal(a.spike_times, b.spike_times) and np.array_equal(a.spike_ids, b.spike_ids)
     assert np.array_equal(a.rate[:, 1:], b.rate[:, 1:])
     assert not (a.spike_times.size == d.spike_times.size and np.array_equal(a.spike_ids, d.spike_ids))
-    # bookkeeping: every spike counted in its assembly's rate
+    # bookkeeping: every spike counted in its cohort's rate
     n_e_spk = np.sum(a.spike_ids < 400)
     assert n_e_spk == pytest.approx(np.sum(a.rate_of("E")[1:]) * 400 * 0.1e-3, abs=1e-6)
 
@@ -188,7 +188,7 @@ def test_montecarlo_single_neuron_limit_matches_siegert():
     # no pathways, weak coupling absent: each neuron is an independent LIF with white noise.
     # Siegert formula (Brunel 2000) vs N = 2000 neurons over 1 s; Poisson SE sqrt(nu / (N T)) ~ 0.1 Hz.
     pop = popdens.Population(LIF_E, popdens.WhiteNoise(4.0))
-    c = Circuit([Assembly("E", pop, size=2000, drive=19.0)])
+    c = Circuit([Cohort("E", pop, size=2000, drive=19.0)])
     res = montecarlo_network(c, 1000.0, seed=11, burn_in=100.0)
     nu = siegert(19.0, 4.0)
     se = math.sqrt(nu / (2000 * 1.0))
@@ -212,7 +212,7 @@ def test_poisson_background_matches_its_diffusion_approximation():
     # corrections small. Siegert reference, N = 2000, 1 s; 4 SE + 3 % for the diffusion approximation.
     pop = popdens.Population(LIF_E, popdens.WhiteNoise(1.0))
     bg = PoissonBackground(rate=10.0, weight=0.1, count=900)  # mu = 18 mV, sigma = sqrt(18*0.1) mV
-    c = Circuit([Assembly("E", pop, size=2000, drive=0.0, sigma_ext=0.0, background=bg)])
+    c = Circuit([Cohort("E", pop, size=2000, drive=0.0, sigma_ext=0.0, background=bg)])
     mu, sg = c.stationary_input([0.0])
     assert mu[0] == pytest.approx(18.0) and sg[0] == pytest.approx(math.sqrt(1.8))
     res = montecarlo_network(c, 1000.0, seed=2, burn_in=100.0)
@@ -231,12 +231,12 @@ def test_result_plot_and_save(tmp_path):
 
 
 def test_escape_noise_network_mean_field_vs_montecarlo():
-    # Escape-noise assemblies receive the mean recurrent input only in the mean field; with many weak
+    # Escape-noise cohorts receive the mean recurrent input only in the mean field; with many weak
     # synapses (J = 0.05 mV, C = 100) the spiking twin's shot noise is small against the escape noise.
     # Reference: refractory-density integration; Poisson SE of the 1 s mean with N = 2000 ~ 0.1 Hz;
     # tolerance 4 SE + 2 % (shot noise, measured).
     esc = popdens.Population(LIF_E, popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0)))
-    c = Circuit([Assembly("X", esc, size=2000, drive=16.0), Assembly("Y", esc, size=1000, drive=17.0)],
+    c = Circuit([Cohort("X", esc, size=2000, drive=16.0), Cohort("Y", esc, size=1000, drive=17.0)],
                 [Pathway("X", "Y", 0.05, 100, 1.0), Pathway("Y", "X", -0.05, 100, 2.0, tau_syn=3.0),
                  Pathway("X", "X", 0.05, 100, 1.0)])
     mf = simulate_network(c, 400.0, record_interval=1.0)
@@ -248,14 +248,14 @@ def test_escape_noise_network_mean_field_vs_montecarlo():
 
 
 def test_step_response_of_the_network_mean_field_vs_montecarlo():
-    # A step of the external drive of E: the time course of both rates (5 ms bins) from the mean-field
+    # A step of the external drive of E: both rates over time (5 ms bins) from the mean-field
     # integration vs the spiking network. Tolerance per bin: 5 SE (Poisson SE sqrt(nu / (N T_bin)))
     # plus 5 % of the rate for the finite-size and shot-noise corrections of the diffusion approximation,
     # with exponential synapses (tau_syn = 1 ms) on every pathway.
     c0 = ei_circuit(n_e=4000, n_i=1000, c_e=200, c_i=50, g=4.0, tau_syn=1.0)
-    e = c0.assemblies[0]
+    e = c0.cohorts[0]
     step = popdens.drive.Step(t=100.0, before=16.0, after=20.0)
-    c = Circuit([Assembly("E", e.population, size=4000, drive=step), c0.assemblies[1]], c0.pathways)
+    c = Circuit([Cohort("E", e.population, size=4000, drive=step), c0.cohorts[1]], c0.pathways)
     fp = fixed_points_of(c)
     mf = simulate_network(c, 300.0, initial_rates=fp, record_interval=5.0)
     mc = montecarlo_network(c, 300.0, seed=9, burn_in=300.0, record_interval=5.0)
@@ -277,7 +277,7 @@ def test_blocked_mean_field_steps_equal_single_steps(monkeypatch):
 
     c = ei_circuit(g=5.0, drive=18.0, tau_syn=0.7, delay=1.0)
     d = popdens.drive.Step(t=5.0, before=18.0, after=21.0)
-    c = Circuit([Assembly("E", c.assemblies[0].population, size=2000, drive=d), c.assemblies[1]], c.pathways)
+    c = Circuit([Cohort("E", c.cohorts[0].population, size=2000, drive=d), c.cohorts[1]], c.pathways)
     a = simulate_network(c, 30.0, initial_rates=[3.0, 8.0])
     monkeypatch.setattr(net, "MAX_BLOCK_STEPS", 1)
     b = simulate_network(c, 30.0, initial_rates=[3.0, 8.0])
@@ -287,7 +287,7 @@ def test_blocked_mean_field_steps_equal_single_steps(monkeypatch):
 
 def test_mixed_models_and_noise_in_one_network():
     # LIF and EIF with white noise and a LIF with escape noise coupled weakly in one circuit: each
-    # assembly's parameters must reach the compiled kernel. Mean-field integration (dt = 0.05 ms) vs the
+    # cohort's parameters must reach the compiled kernel. Mean-field integration (dt = 0.05 ms) vs the
     # spiking twin: 4 Poisson SE (N = 1000, 0.5 s) + 3 % (Euler-Maruyama bias for the EIF and shot noise).
     eif = popdens.EIF(tau_m=10.0, soft_threshold=-50.0, slope_factor=2.0, cutoff=-30.0, reset=-60.0,
                       refractory=1.0, rest=-65.0)
@@ -297,13 +297,13 @@ def test_mixed_models_and_noise_in_one_network():
         "X": popdens.Population(LIF_E, popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0))),
     }
     drives = {"L": 18.0, "F": 12.0, "X": 16.0}
-    asm = [Assembly(k, p, size=1000, drive=drives[k]) for k, p in pops.items()]
+    asm = [Cohort(k, p, size=1000, drive=drives[k]) for k, p in pops.items()]
     pw = [Pathway("L", "F", 0.05, 100, 1.0), Pathway("F", "X", 0.05, 100, 1.5, tau_syn=2.0),
           Pathway("X", "L", -0.05, 100, 1.0)]
     c = Circuit(asm, pw)
     mf = simulate_network(c, 150.0, dt=0.05, record_interval=1.0)
     mc = montecarlo_network(c, 500.0, dt=0.05, seed=21, burn_in=100.0)
     ref = mf.rate[:, -1]
-    assert np.all(ref > 2.0)  # every assembly fires
+    assert np.all(ref > 2.0)  # every cohort fires
     for k in range(3):
         assert abs(mc.mean_rate()[k] - ref[k]) < 4 * math.sqrt(ref[k] / 500) + 0.03 * ref[k], c.names[k]

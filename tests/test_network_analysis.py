@@ -9,7 +9,7 @@ import pytest
 from scipy.special import lambertw
 
 import popdens
-from popdens.network import Assembly, Circuit, Pathway, montecarlo_network, simulate_network
+from popdens.network import Cohort, Circuit, Pathway, montecarlo_network, simulate_network
 from popdens.network_analysis import (FixedPoint, characteristic_matrix, fixed_points, solver_gain, stability,
                                       stability_map)
 
@@ -23,7 +23,7 @@ def siegert_gain(pop, mu):
 
 def bistable_circuit(c_in=200):
     pop = popdens.Population(LIF_E, popdens.WhiteNoise(3.0))
-    return Circuit([Assembly("E", pop, size=1000, drive=12.0)], [Pathway("E", "E", 0.1, c_in, 1.5)])
+    return Circuit([Cohort("E", pop, size=1000, drive=12.0)], [Pathway("E", "E", 0.1, c_in, 1.5)])
 
 
 # --------------------------------------------------------------------------- fixed points
@@ -45,7 +45,7 @@ def test_all_three_fixed_points_of_a_bistable_population():
 
 def test_two_population_fixed_point_matches_scipy_fsolve():
     c = ei_circuit(g=6.0, drive=20.0)
-    c = Circuit([c.assemblies[0], Assembly("I", c.assemblies[1].population, size=500, drive=17.0)], c.pathways)
+    c = Circuit([c.cohorts[0], Cohort("I", c.cohorts[1].population, size=500, drive=17.0)], c.pathways)
     fps = fixed_points(c, (0.0, 100.0), gain=siegert_gain)
     assert len(fps) == 1
     ref = siegert_fixed_point(c, [5.0, 5.0])  # scipy fsolve on the Siegert formula
@@ -108,7 +108,7 @@ def lowpass(gain_hz_per_mv, tau_ms):
 
 def inhibitory_loop(weight=-0.5, c_in=100, delay=2.0, tau_syn=0.0):
     esc = popdens.Population(LIF_E, popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0)))
-    return Circuit([Assembly("I", esc, size=500, drive=15.0)], [Pathway("I", "I", weight, c_in, delay, tau_syn)])
+    return Circuit([Cohort("I", esc, size=500, drive=15.0)], [Pathway("I", "I", weight, c_in, delay, tau_syn)])
 
 
 def fake_state(c, rate=10.0):
@@ -149,7 +149,7 @@ def test_leading_root_matches_lambert_w(gain_, tau, delay):
 def test_exponential_synapse_and_variance_terms_in_the_matrix():
     # M = [chi_mu tau J + chi_var tau J^2] C K(lam) e^{-lam d} / 1000, K = 1/(1 + lam tau_s) (Laplace transform)
     pop = popdens.Population(LIF_E, popdens.WhiteNoise(4.0))
-    c = Circuit([Assembly("E", pop, size=100, drive=15.0)], [Pathway("E", "E", 0.3, 50, 1.5, tau_syn=3.0)])
+    c = Circuit([Cohort("E", pop, size=100, drive=15.0)], [Pathway("E", "E", 0.3, 50, 1.5, tau_syn=3.0)])
 
     def tr(p, mu, f, modulate):
         return np.full(np.shape(f), 2.0 + 1j if modulate == "mean" else 0.5 - 0.2j)
@@ -201,7 +201,7 @@ def brunel_circuit(g, ratio, n_e=8000, n_i=2000, c_e=800, c_i=200, j=0.1, delay=
     mu_x = tau * j * c_e * nu_x * 1e-3
     s_x = math.sqrt(tau * j * j * c_e * nu_x * 1e-3)
     pop = popdens.Population(LIF_E, popdens.WhiteNoise(s_x))
-    asm = [Assembly("E", pop, size=n_e, drive=mu_x), Assembly("I", pop, size=n_i, drive=mu_x)]
+    asm = [Cohort("E", pop, size=n_e, drive=mu_x), Cohort("I", pop, size=n_i, drive=mu_x)]
     pw = [Pathway("E", "E", j, c_e, delay), Pathway("E", "I", j, c_e, delay),
           Pathway("I", "E", -g * j, c_i, delay), Pathway("I", "I", -g * j, c_i, delay)]
     return Circuit(asm, pw)
@@ -304,7 +304,7 @@ def test_escape_noise_loop_transient_follows_the_leading_root():
     # synapse. Frequency within 1 %, damping within 5 % (measured: 71.71 vs 71.71 Hz, -31.6 vs -31.6 /s).
     esc = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 2.0),
                              popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0)))
-    c = Circuit([Assembly("I", esc, size=1000, drive=30.0)], [Pathway("I", "I", -0.5, 100, 3.0, tau_syn=1.0)])
+    c = Circuit([Cohort("I", esc, size=1000, drive=30.0)], [Pathway("I", "I", -0.5, 100, 3.0, tau_syn=1.0)])
     (fp,) = fixed_points(c, (0.0, 300.0))
     st = stability(c, fp, max_frequency=300.0, n_frequency=12)
     assert st.stable and st.complete

@@ -1,4 +1,4 @@
-"""Network scenario files: [[assembly]], [[pathway]], [network] tables, their errors and their outputs."""
+"""Network scenario files: [[cohort]], [[pathway]], [network] tables, their errors and their outputs."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from popdens.scenario import load_scenario
 NET = """
 [scenario]
 output = "out"
-[[assembly]]
+[[cohort]]
 name = "E"
 size = 400
 drive = 22.0
@@ -56,7 +56,7 @@ def _siegert_quad(mu, sigma, tau_m=20.0, theta=20.0, reset=10.0, t_ref=2.0):
     ("in_degree = 50", "in_degree = -5", "`in_degree`"),
     ("delay = 1.0", "delay = 1.0\nlag = 2.0", "unknown key `lag`"),
     ("size = 400", "size = 0", "`size`"),
-    ('noise = { kind = "white", sigma = 4.0 }', 'noise = { kind = "pink" }', "[assembly E.noise] key `kind`"),
+    ('noise = { kind = "white", sigma = 4.0 }', 'noise = { kind = "pink" }', "[cohort E.noise] key `kind`"),
     ("rate_range = [0.1, 200.0]", "rate_range = [5.0, 1.0]", "`rate_range`"),
     ("stability = false", "stability = true\nfixed_points = false", "`stability`"),
     ("t_end = 0.0", "t_end = 0.0\nmontecarlo = true", "`montecarlo`"),
@@ -112,7 +112,7 @@ def test_stability_map_table_needs_inhibition_and_matches_the_api(tmp_path, caps
     for row in rows:
         c = sc.circuit_at(row[names.index("inhibition_factor")], row[names.index("drive_mV")])
         # the scaled circuit: inhibitory weight times the factor, drive replaced (file == script)
-        assert c.pathways[1].weight == pytest.approx(-0.2 * row[0]) and c.assemblies[0].drive.mu == 20.0
+        assert c.pathways[1].weight == pytest.approx(-0.2 * row[0]) and c.cohorts[0].drive.mu == 20.0
         (fp,) = popdens.fixed_points(c, (0.1, 200.0))
         growth = row[names.index("growth_rate_per_s")]
         if np.isnan(growth):  # the map records a point whose root search failed as NaN

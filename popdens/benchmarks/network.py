@@ -20,7 +20,7 @@ import os
 import time
 
 import popdens
-from popdens.network import Assembly, Circuit, Pathway, montecarlo_network, simulate_network
+from popdens.network import Cohort, Circuit, Pathway, montecarlo_network, simulate_network
 
 T_END = 1000.0  # ms
 DT = 0.1  # ms
@@ -33,7 +33,7 @@ def circuit(g=5.0, ratio=2.0, n_e=8000, n_i=2000):
     mu_x = tau * j * c_e * nu_x * 1e-3
     s_x = math.sqrt(tau * j * j * c_e * nu_x * 1e-3)
     pop = popdens.Population(popdens.LIF(tau, 20.0, 10.0, 2.0), popdens.WhiteNoise(s_x))
-    asm = [Assembly("E", pop, size=n_e, drive=mu_x), Assembly("I", pop, size=n_i, drive=mu_x)]
+    asm = [Cohort("E", pop, size=n_e, drive=mu_x), Cohort("I", pop, size=n_i, drive=mu_x)]
     pw = [Pathway("E", "E", j, c_e, 1.5), Pathway("E", "I", j, c_e, 1.5),
           Pathway("I", "E", -g * j, c_i, 1.5), Pathway("I", "I", -g * j, c_i, 1.5)]
     return Circuit(asm, pw)
@@ -42,7 +42,7 @@ def circuit(g=5.0, ratio=2.0, n_e=8000, n_i=2000):
 def main() -> None:
     c = circuit()
     # compile / load the caches outside the timings
-    small = Circuit([Assembly(a.name, a.population, size=1001, drive=a.drive) for a in c.assemblies], c.pathways)
+    small = Circuit([Cohort(a.name, a.population, size=1001, drive=a.drive) for a in c.cohorts], c.pathways)
     montecarlo_network(small, 1.0, dt=DT, burn_in=0.0)
     simulate_network(c, 1.0, dt=DT)
     load0 = os.getloadavg()
