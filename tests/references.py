@@ -39,3 +39,22 @@ def siegert_rate(pop, mu):
     lo, hi = (nrn.reset - mu) / sigma, (nrn.threshold - mu) / sigma
     integral = quad(lambda x: erfcx(-x), lo, hi, limit=200, epsabs=0.0, epsrel=1e-12)[0]
     return 1000.0 / (nrn.refractory + nrn.tau_m * math.sqrt(math.pi) * integral)
+
+
+#: The [neuron] and [noise] tables of the test population used across the scenario tests: a LIF
+#: (tau_m 10 ms, threshold 20 mV, reset 0 mV, refractory 2 ms) with exponential escape noise
+#: (20 Hz at threshold, width 2 mV).  Invented parameters.
+LIF_ESCAPE_TABLES = """
+[neuron]
+model = "LIF"
+tau_m = 10.0
+threshold = 20.0
+reset = 0.0
+refractory = 2.0
+[noise]
+kind = "escape"
+[noise.hazard]
+shape = "exponential"
+rate = 20.0
+width = 2.0
+"""

@@ -11,24 +11,13 @@ import popdens
 from popdens.cli import main
 from popdens.exceptions import ScenarioError
 from popdens.scenario import load_scenario
+from references import LIF_ESCAPE_TABLES, siegert_rate
 
 POPULATION = """
 [scenario]
 title = "analyses"
 output = "out"
-[neuron]
-model = "LIF"
-tau_m = 10.0
-threshold = 20.0
-reset = 0.0
-refractory = 2.0
-[noise]
-kind = "escape"
-[noise.hazard]
-shape = "exponential"
-rate = 20.0
-width = 2.0
-"""
+""" + LIF_ESCAPE_TABLES
 
 
 def read_table(path):
@@ -128,14 +117,9 @@ mu = [15.0, 25.0]
 """
 
 
-def _siegert_quad(mu, sigma, tau_m=20.0, theta=20.0, reset=10.0, t_ref=2.0):
-    """Siegert formula by adaptive quadrature (Siegert 1951; Brunel & Hakim 1999), in Hz."""
-    from scipy.integrate import quad
-    from scipy.special import erfcx
-
-    lo, hi = (reset - mu) / sigma, (theta - mu) / sigma
-    val, _ = quad(lambda x: erfcx(-x), lo, hi, epsabs=0, epsrel=1e-12, limit=200)
-    return 1000.0 / (t_ref + tau_m * np.sqrt(np.pi) * val)
+def _siegert_quad(mu, sigma):
+    """Siegert formula by adaptive quadrature (tests/references.py) for the white-noise LIF of WHITE_LIF."""
+    return siegert_rate(popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(sigma)), mu)
 
 
 def test_gain_and_stationary_tables_match_the_api_and_the_siegert_formula(tmp_path, capsys):

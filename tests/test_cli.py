@@ -10,6 +10,7 @@ import pytest
 
 from popdens.cli import main
 from popdens.scenario import load_scenario
+from references import LIF_ESCAPE_TABLES
 
 SCENARIOS = Path(__file__).resolve().parent.parent / "scenarios"
 
@@ -17,19 +18,7 @@ BASE = """
 [scenario]
 title = "t"
 output = "out"
-[neuron]
-model = "LIF"
-tau_m = 10.0
-threshold = 20.0
-reset = 0.0
-refractory = 2.0
-[noise]
-kind = "escape"
-[noise.hazard]
-shape = "exponential"
-rate = 20.0
-width = 2.0
-[input]
+""" + LIF_ESCAPE_TABLES + """[input]
 shape = "step"
 t = 10.0
 before = 15.0

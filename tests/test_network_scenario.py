@@ -11,6 +11,7 @@ import popdens
 from popdens.cli import main
 from popdens.exceptions import ScenarioError
 from popdens.scenario import load_scenario
+from references import siegert_rate
 
 NET = """
 [scenario]
@@ -42,13 +43,9 @@ def write(tmp_path, text):
     return p
 
 
-def _siegert_quad(mu, sigma, tau_m=20.0, theta=20.0, reset=10.0, t_ref=2.0):
-    """Siegert formula by adaptive quadrature (Siegert 1951; Brunel & Hakim 1999), in Hz."""
-    from scipy.integrate import quad
-    from scipy.special import erfcx
-
-    val, _ = quad(lambda x: erfcx(-x), (reset - mu) / sigma, (theta - mu) / sigma, epsrel=1e-12, limit=200)
-    return 1000.0 / (t_ref + tau_m * np.sqrt(np.pi) * val)
+def _siegert_quad(mu, sigma):
+    """Siegert formula by adaptive quadrature (tests/references.py) for the LIF of NET."""
+    return siegert_rate(popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(sigma)), mu)
 
 
 @pytest.mark.parametrize("old, new, fragment", [

@@ -21,6 +21,7 @@ from popdens.exceptions import ScenarioError
 from popdens.scenario import parse_scenario
 from popdens.sweep import Curve, evaluate_point, grid_points, load_sweep, point_seed, sweep
 from popdens.sweep_scenario import plan_sweep, run_sweep_scenario
+from references import LIF_ESCAPE_TABLES
 
 TESTS = Path(__file__).resolve().parent
 ROOT = TESTS.parent
@@ -33,19 +34,7 @@ SCENARIO = """
 [scenario]
 title = "sweep test"
 output = "swept"
-[neuron]
-model = "LIF"
-tau_m = 10.0
-threshold = 20.0
-reset = 0.0
-refractory = 2.0
-[noise]
-kind = "escape"
-[noise.hazard]
-shape = "exponential"
-rate = 20.0
-width = 2.0
-[input]
+""" + LIF_ESCAPE_TABLES + """[input]
 shape = "constant"
 mu = 15.0
 [run]
