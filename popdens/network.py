@@ -52,7 +52,7 @@ from ._recording import make_grid
 from .drive import Constant, Drive, as_drive
 from .noise import EscapeNoise, Population, WhiteNoise
 from .progress import Progress
-from .result import STATUS_FAILED, STATUS_OK, _atomic_write
+from .result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK, _atomic_write
 from .solvers import resolve_method
 from .solvers.fokker_planck import LOWER_STDS
 
@@ -700,7 +700,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             if (done // nb) % max(1, PROGRESS_BLOCK // nb) == 0:
                 bar.update(done)
     except KeyboardInterrupt:
-        status, message = STATUS_FAILED, f"interrupted by the user at t = {done * dt:g} ms"
+        status, message = STATUS_INTERRUPTED, f"interrupted by the user at t = {done * dt:g} ms"
         logger.warning(message)
     finally:
         bar.close()
@@ -930,7 +930,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     except FloatingPointError as exc:
         status, message = STATUS_FAILED, str(exc)
     except KeyboardInterrupt:
-        status, message = STATUS_FAILED, f"interrupted by the user at t = {k * dt:g} ms"
+        status, message = STATUS_INTERRUPTED, f"interrupted by the user at t = {k * dt:g} ms"
         logger.warning(message)
     finally:
         bar.close()

@@ -198,6 +198,8 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
         smap = stability_map(scenario.circuit_at, inh, drv, x_label="inhibition factor (x inhibitory weights)",
                              y_label="external drive (mV)", rate_range=scenario.rate_range, progress=progress)
         timing["stability_map_s"] = time.perf_counter() - t0
+        if not smap.complete:  # only Ctrl-C leaves a map incomplete: not an output
+            raise KeyboardInterrupt("interrupted while computing the stability map")
         xx, yy = np.meshgrid(smap.x, smap.y)
         write_table(tmp / "stability_map.csv",
                     {"inhibition_factor": xx.ravel(), "drive_mV": yy.ravel(),

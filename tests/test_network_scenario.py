@@ -119,3 +119,22 @@ def test_stability_map_table_needs_inhibition_and_matches_the_api(tmp_path, caps
             assert growth == pytest.approx(popdens.stability(c, fp).growth_rate, rel=1e-9)
             assert row[names.index("rate_Hz_E")] == pytest.approx(fp.rates[0], rel=1e-10)  # 12 digits written
     assert np.isfinite(rows[:, names.index("growth_rate_per_s")]).any()
+
+
+def test_ctrl_c_during_the_network_run_leaves_no_output_and_exits_130(tmp_path, monkeypatch, capsys):
+    from popdens.cli import EXIT_INTERRUPTED
+    from popdens.progress import Progress
+
+    def interrupted(self, done):
+        raise KeyboardInterrupt  # as Ctrl-C would, inside the mean-field integration
+
+    monkeypatch.setattr(Progress, "update", interrupted)
+    p = write(tmp_path, NET.replace("t_end = 0.0", "t_end = 200.0"))  # long enough for a progress update
+    assert main(["run", str(p), "--quiet"]) == EXIT_INTERRUPTED
+    assert not (tmp_path / "out").exists()
+    assert [q.name for q in tmp_path.iterdir()] == ["net.toml"]  # no temporary folder left either
+    sc = load_scenario(p)
+    res = popdens.simulate_network(sc.circuit, 200.0)
+    from popdens.result import STATUS_INTERRUPTED
+
+    assert res.status == STATUS_INTERRUPTED and "interrupted" in res.message
