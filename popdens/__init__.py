@@ -2,28 +2,43 @@
 
 Units at every public boundary: time in ms, potentials (and drives) in mV,
 rates and hazards in Hz.
+
+The package is layered, bottom to top (each layer imports only from those
+below it; ``tests/test_layering.py`` enforces it): the shared ground floor
+(``_version``, ``exceptions``, ``_validation``, ``_files``, ``progress``,
+``plotting``, ``result``), then ``model``, ``theory``, ``solvers``,
+``twins``, ``network``, ``sweeps``, ``scenario`` and the command line.
+This module only re-exports the public names.
 """
 
 from __future__ import annotations
 
-__version__ = "0.1.0"
+import sys as _sys
 
-from . import drive, hazard  # noqa: E402
-from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, PopdensError, ScenarioError,  # noqa: E402
+from ._version import __version__
+from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, PopdensError, ScenarioError,
                          UnreachableTargetError)
-from .models import EIF, LIF, PIF, QIF, CustomNeuron  # noqa: E402
-from .montecarlo import montecarlo  # noqa: E402
-from .network import (Circuit, CircuitResult, Cohort, Pathway, PoissonBackground,  # noqa: E402
-                      montecarlo_network, simulate_network)
-from .network_analysis import FixedPoint, Stability, StabilityMap, fixed_points, stability, stability_map  # noqa: E402
-from .noise import EscapeNoise, Population, WhiteNoise  # noqa: E402
-from .result import Result, load_result  # noqa: E402
-from .simulate import simulate  # noqa: E402
-from .sweep import Curve, SweepResult, grid_points, load_sweep, point_seed, sweep  # noqa: E402
-from .linear_response import linear_rate_response, response_kernel, transfer  # noqa: E402
-from .spectra import population_rate_spectrum, spike_train_spectrum  # noqa: E402
-from .steady_state import (SteadyState, drive_and_noise_for, drive_for_rate, gain, gain_slope,  # noqa: E402
-                           stationary)
+from .model import drive, hazard
+from .model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
+from .model.noise import EscapeNoise, Population, WhiteNoise
+from .network.circuit import Circuit, Cohort, Pathway, PoissonBackground
+from .network.integrate import simulate_network
+from .network.linear_stability import Stability, stability
+from .network.maps import StabilityMap, stability_map
+from .network.result import CircuitResult
+from .network.states import FixedPoint, fixed_points
+from .network.twin import montecarlo_network
+from .result import Result, load_result
+from .solvers.frontend import simulate
+from .sweeps.engine import Curve, SweepResult, grid_points, load_sweep, point_seed, sweep
+from .theory.linear_response import linear_rate_response, response_kernel, transfer
+from .theory.spectra import population_rate_spectrum, spike_train_spectrum
+from .theory.steady_state import SteadyState, drive_and_noise_for, drive_for_rate, gain, gain_slope, stationary
+from .twins.population import montecarlo
+
+# ``import popdens.drive`` and ``import popdens.hazard`` keep working: both are public modules
+_sys.modules[__name__ + ".drive"] = drive
+_sys.modules[__name__ + ".hazard"] = hazard
 
 __all__ = [
     "AccuracyWarning",

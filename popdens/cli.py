@@ -12,7 +12,7 @@ import logging
 import sys
 import warnings
 
-from . import __version__
+from ._version import __version__
 from .exceptions import AccuracyWarning, ScenarioError
 
 __all__ = ["main"]
@@ -98,7 +98,7 @@ def _values(text: str, flag: str, spacing: str) -> "np.ndarray":
     """``START:STOP:POINTS`` (linear or log spacing) or a comma list → array."""
     import numpy as np
 
-    from .analyses import MAX_POINTS
+    from .scenario.analyses import MAX_POINTS
 
     try:
         if ":" in text:
@@ -123,7 +123,7 @@ def _values(text: str, flag: str, spacing: str) -> "np.ndarray":
 
 def _flag_population(args):
     """The validated population described by ``--neuron`` and ``--noise``."""
-    from .scenario import parse_scenario
+    from .scenario.loader import parse_scenario
 
     neuron = _key_values(args.neuron, "--neuron")
     noise = _key_values(args.noise, "--noise")
@@ -137,7 +137,7 @@ def _flag_population(args):
 def _emit(args, columns: dict, header: dict, fig=None) -> None:
     import matplotlib.pyplot as plt
 
-    from .analyses import describe_population, write_table
+    from .scenario.analyses import describe_population, write_table
 
     if args.csv:
         write_table(args.csv, columns, {**header, "population": describe_population(args.population),
@@ -157,7 +157,7 @@ def _emit(args, columns: dict, header: dict, fig=None) -> None:
 def _analysis_command(args) -> int:
     import numpy as np
 
-    from .analyses import GainCurve, StationaryStats, TransferCurve
+    from .scenario.analyses import GainCurve, StationaryStats, TransferCurve
 
     args.population = pop = _flag_population(args)
     white = hasattr(pop.noise, "sigma")
@@ -215,7 +215,7 @@ def _analysis_command(args) -> int:
     return 0
 
 
-# ---------------------------------------------------------------- sweeps (popdens/sweep_scenario.py)
+# ---------------------------------------------------------------- sweeps (popdens/scenario/sweep.py)
 def _add_sweep_parser(sub) -> None:
     sw = sub.add_parser("sweep", help="run a scenario's [sweep] table: many points, in parallel, resumable")
     sw.add_argument("scenario", help="scenario file (TOML) with a [sweep] table")
@@ -235,8 +235,8 @@ def _add_sweep_parser(sub) -> None:
 
 def _sweep_command(args, sc=None) -> int:
     """``popdens sweep``; also ``popdens run`` on a scenario with a [sweep] table (default settings)."""
-    from .scenario import load_scenario
-    from .sweep_scenario import run_sweep_scenario
+    from .scenario.loader import load_scenario
+    from .scenario.sweep import run_sweep_scenario
 
     for name, default in (("workers", None), ("scheduler", None), ("dask_local", False), ("resume", False),
                           ("retry_failed", False), ("no_figures", False)):
@@ -282,7 +282,7 @@ def _network_command(args, sc) -> int:
         print(f"{args.scenario}: OK ({sc.title}; network of {len(c.cohorts)} cohorts "
               f"({', '.join(c.names)}), {len(c.pathways)} pathways; {', '.join(parts)})")
         return 0
-    from .runner import run_scenario
+    from .scenario.runner import run_scenario
 
     summary = run_scenario(sc, args.out, overwrite=args.overwrite, progress=False if args.quiet else None)
     print(f"wrote {summary['output']}: {', '.join(summary['files'])}")
@@ -325,8 +325,8 @@ def _key_values(items, flag):
 
 
 def _step_command(args) -> int:
-    from .scenario import parse_scenario
-    from .simulate import simulate
+    from .scenario.loader import parse_scenario
+    from .solvers.frontend import simulate
 
     neuron = _key_values(args.neuron, "--neuron")
     noise = _key_values(args.noise, "--noise")
@@ -374,7 +374,8 @@ def main(argv: list[str] | None = None) -> int:
 
 
 def _main(args) -> int:
-    from .scenario import HAZARDS, INPUTS, NEURON_MODELS, load_scenario
+    from .scenario.loader import load_scenario
+    from .scenario.single import HAZARDS, INPUTS, NEURON_MODELS
 
     try:
         if args.command == "catalogue":
@@ -393,7 +394,7 @@ def _main(args) -> int:
             print("  [stationary]  mu (mV)")
             print("  [transfer]    mu (mV), frequencies (Hz), modulate = mean | noise | sigma")
             print("  [sweep]       analysis = summary | gain | transfer, mode = grid | list, dotted keys to vary")
-            from .network_scenario import COHORT_KEYS, NETWORK_KEYS, PATHWAY_KEYS
+            from .scenario.network import COHORT_KEYS, NETWORK_KEYS, PATHWAY_KEYS
 
             print("network scenarios (mV, ms, Hz):")
             for table, keys in (("[[cohort]]", COHORT_KEYS), ("[[pathway]]", PATHWAY_KEYS),
@@ -426,7 +427,7 @@ def _main(args) -> int:
         if "sweep" in sc.raw:
             if args.command == "run":
                 return _sweep_command(args, sc)
-            from .sweep_scenario import plan_sweep
+            from .scenario.sweep import plan_sweep
 
             plan = plan_sweep(sc)
         if args.command == "check":
@@ -437,7 +438,7 @@ def _main(args) -> int:
             if "sweep" in sc.raw:
                 print(f"  sweep: {plan.n_points} points, analysis `{plan.point.analysis}`")
             return 0
-        from .runner import run_scenario
+        from .scenario.runner import run_scenario
 
         summary = run_scenario(sc, args.out, overwrite=args.overwrite, progress=False if args.quiet else None)
         print(f"wrote {summary['output']}: {', '.join(summary['files'])}")

@@ -5,8 +5,9 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["save_figure", "plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate", "plot_steady_state",
-           "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map", "plot_transfer"]
+__all__ = ["save_figure", "plot_circuit_rates", "plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate",
+           "plot_stability_map", "plot_steady_state", "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map",
+           "plot_transfer"]
 
 
 def save_figure(fig, folder, stem: str) -> list[str]:
@@ -18,7 +19,7 @@ def save_figure(fig, folder, stem: str) -> list[str]:
 
     import matplotlib.pyplot as plt
 
-    from . import __version__
+    from ._version import __version__
 
     folder = Path(folder)
     stamp = f"popdens {__version__}"
@@ -252,3 +253,38 @@ def plot_sweep_curves(x, ys, x_name, name, labels):
     ax.set_xlabel(x_name)
     ax.set_ylabel(name)
     return fig
+
+
+def plot_circuit_rates(result, ax=None, **kwargs):
+    """Rates (Hz) of every cohort of a circuit run against time (ms); returns the Axes."""
+    ax = _axes(ax)
+    for k, nm in enumerate(result.names):
+        ax.plot(result.t[1:], result.rate[k, 1:], label=f"{nm} ({result.method})", **kwargs)
+    ax.set_xlabel("time (ms)")
+    ax.set_ylabel("population rate (Hz)")
+    ax.legend(frameon=False)
+    return ax
+
+
+def plot_stability_map(smap, ax=None):
+    """Growth rate of the leading root over a stability map, the boundary (growth rate 0) in black and
+    the oscillation frequency written at each unstable point.  Returns ``(fig, ax)``."""
+    import matplotlib.pyplot as plt
+
+    if ax is None:
+        fig, ax = plt.subplots(figsize=(5.5, 4.2), constrained_layout=True)
+    else:
+        fig = ax.figure
+    g = np.asarray(smap.growth_rate, dtype=float)
+    span = float(np.nanmax(np.abs(g))) if np.any(np.isfinite(g)) else 1.0
+    mesh = ax.pcolormesh(smap.x, smap.y, g, shading="nearest", cmap="RdBu_r", vmin=-span, vmax=span)
+    fig.colorbar(mesh, ax=ax, label="growth rate of the leading root (1/s; > 0: unstable)")
+    if np.nanmin(g) < 0 < np.nanmax(g):
+        ax.contour(smap.x, smap.y, g, levels=[0.0], colors="k", linewidths=1.5)
+    for (iy, ix), f in np.ndenumerate(smap.frequency):
+        if np.isfinite(f) and g[iy, ix] > 0:
+            ax.annotate(f"{f:.0f} Hz", (smap.x[ix], smap.y[iy]), ha="center", va="center", fontsize=7)
+    ax.set_xlabel(smap.x_label)
+    ax.set_ylabel(smap.y_label)
+    ax.set_title("linear stability (black: boundary)")
+    return fig, ax

@@ -3,13 +3,13 @@
 from __future__ import annotations
 
 import json
-import os
-import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
+
+from ._files import atomic_write, jsonable
 
 __all__ = ["Result", "load_result"]
 
@@ -20,37 +20,6 @@ STATUS_INTERRUPTED = -2
 #: Diagnostics that differ between identical runs; kept out of output files so that the
 #: same scenario and seed give bit-identical files (wall times go to ``timing.json``).
 VOLATILE_DIAGNOSTICS = ("wall_time_s",)
-
-
-def _atomic_write(path: Path, write) -> None:
-    """Write via a temporary file in the same folder and rename (never half-written)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            write(fh)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
-
-
-def _jsonable(x: Any):
-    if isinstance(x, dict):
-        return {str(k): _jsonable(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_jsonable(v) for v in x]
-    if isinstance(x, np.ndarray):
-        return x.tolist()
-    if isinstance(x, (np.floating, np.integer)):
-        return x.item()
-    if isinstance(x, (str, int, float, bool)) or x is None:
-        return x
-    return repr(x)
 
 
 @dataclass(frozen=True, eq=False)
@@ -168,12 +137,12 @@ class Result:
         if self.population is not None:
             meta["neuron"] = {"model": type(self.population.neuron).__name__, **self.population.neuron.parameters()}
         meta["version"] = self.diagnostics.get("version")
-        lines = ["# popdens result; " + json.dumps(_jsonable(meta), sort_keys=True)]
+        lines = ["# popdens result; " + json.dumps(jsonable(meta), sort_keys=True)]
         lines.append("t_ms,rate_hz,mean_u_mv,refractory_fraction,drive_mv")
         arr = np.column_stack([self.t, self.rate, self.mean_u, self.refractory_fraction, self.drive])
         body = "\n".join(",".join(f"{x:.12g}" for x in row) for row in arr)
         text = "\n".join(lines) + "\n" + body + "\n"
-        _atomic_write(path, lambda fh: fh.write(text.encode("utf-8")))
+        atomic_write(path, lambda fh: fh.write(text.encode("utf-8")))
         return path
 
     def settings(self) -> dict:
@@ -191,14 +160,14 @@ class Result:
                 arrays[k] = getattr(self, k)
         meta = {"method": self.method, "status": self.status, "message": self.message, "dt": self.dt,
                 "n_steps": self.n_steps, "axis_name": self.axis_name, "n_neurons": self.n_neurons,
-                "diagnostics": _jsonable(self.diagnostics),
+                "diagnostics": jsonable(self.diagnostics),
                 "population": repr(self.population)}
         arrays["_meta"] = np.frombuffer(json.dumps(meta).encode("utf-8"), dtype=np.uint8)
 
         def write(fh):
             np.savez_compressed(fh, **arrays)
 
-        _atomic_write(path, write)
+        atomic_write(path, write)
         return path
 
     def plot(self, ax=None, **kwargs):

@@ -27,7 +27,7 @@ import time
 import numpy as np
 
 import popdens
-import popdens.linear_response as lr
+import popdens.theory.linear_response as lr
 from popdens import drive, hazard
 
 FREQS = np.logspace(0.0, 3.0, 200)  # Hz

@@ -31,7 +31,8 @@ from scipy.integrate import quad
 
 import popdens
 from popdens import hazard
-from popdens.steady_state import _threshold_rates, gain, stationary
+from popdens.theory._stationary_white import threshold_rates
+from popdens.theory.steady_state import gain, stationary
 
 N_POINTS = 1000
 SE_TARGET = 1e-3
@@ -100,7 +101,7 @@ def main() -> None:
 
     # --- threshold integration, EIF
     t_ti, r_ti = best_of(lambda: gain(eif_w, mus_eif), repeats=3)
-    ref = _threshold_rates(eif_w, mus_eif[idx], 3.0, cells_per_scale=400)
+    ref = threshold_rates(eif_w, mus_eif[idx], 3.0, cells_per_scale=400)
     err_ti = float(np.max(np.abs(r_ti[idx] / ref - 1.0)))
     t_fp = solver_time_per_point(eif_w, 12.0, n_cells=1600)
     t_mc, st = mc_time_for_se(eif_w, 12.0)

@@ -28,8 +28,8 @@ from pathlib import Path
 import numpy as np
 
 from popdens.scenario import parse_scenario
-from popdens.sweep import sweep
-from popdens.sweep_scenario import plan_sweep
+from popdens.sweeps import sweep
+from popdens.scenario.sweep import plan_sweep
 
 SCENARIO = """
 [neuron]

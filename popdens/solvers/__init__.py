@@ -1,50 +1,14 @@
-"""Density solvers and their registry.
+"""Time-domain density solvers: the solver contract, the refractory-density (escape noise) and
+Fokker--Planck (white noise) solvers, their grids, the method registry, and the :func:`simulate`
+front end that owns time grids, recording and progress."""
 
-``METHODS`` maps method names to solver classes; ``DEFAULT_METHOD`` maps the
-noise model to the solver used when no method is given.
-"""
-
-from __future__ import annotations
-
-from ..noise import EscapeNoise, WhiteNoise
+from .registry import DEFAULT_METHOD, METHODS, resolve_method
 from ._base import SolverBase
 from .fokker_planck import FokkerPlanckSolver
 from .refractory import RefractoryDensitySolver
+from .frontend import simulate
 
-__all__ = ["METHODS", "DEFAULT_METHOD", "SolverBase", "FokkerPlanckSolver", "RefractoryDensitySolver", "resolve_method"]
-
-METHODS: dict[str, type[SolverBase]] = {
-    "refractory-density": RefractoryDensitySolver,
-    "fokker-planck": FokkerPlanckSolver,
-}
-
-DEFAULT_METHOD: dict[type, str] = {
-    EscapeNoise: "refractory-density",
-    WhiteNoise: "fokker-planck",
-}
-
-#: Noise model each method solves.
-NOISE_OF_METHOD: dict[str, type] = {
-    "refractory-density": EscapeNoise,
-    "fokker-planck": WhiteNoise,
-}
-
-
-def resolve_method(population, method) -> type[SolverBase]:
-    """Solver class for ``method`` (a name, a class or None for the default)."""
-    noise_type = type(population.noise)
-    if method is None:
-        if noise_type not in DEFAULT_METHOD:
-            raise ValueError(f"no density solver is available for {noise_type.__name__} yet")
-        method = DEFAULT_METHOD[noise_type]
-    if isinstance(method, type) and issubclass(method, SolverBase):
-        return method
-    if method not in METHODS:
-        raise ValueError(f"`method` must be one of {sorted(METHODS)}, got {method!r}")
-    if NOISE_OF_METHOD[method] is not noise_type:
-        raise ValueError(
-            f"`method` {method!r} solves {NOISE_OF_METHOD[method].__name__} populations, "
-            f"but the population has {noise_type.__name__}"
-        )
-    return METHODS[method]
-
+__all__ = [
+    "DEFAULT_METHOD", "FokkerPlanckSolver", "METHODS", "RefractoryDensitySolver", "SolverBase",
+    "resolve_method", "simulate",
+]

@@ -17,7 +17,7 @@ refractory period ``tau_ref``.
 
 Discretisation
 --------------
-Finite volumes on a non-uniform grid (:mod:`popdens.grids`) refined near
+Finite volumes on a non-uniform grid (:mod:`popdens.solvers.grids`) refined near
 the boundary and near reset, with the reset potential at a cell centre.
 Face fluxes use the exponentially fitted Scharfetter--Gummel form
 (Scharfetter & Gummel 1969; Chang & Cooper 1970; Il'in 1969)
@@ -59,8 +59,8 @@ import numba
 import numpy as np
 
 from .. import _validation as v
-from .._kernels import MS_TO_S, NO_REFCOUNT
-from ..grids import Grid, refined_grid
+from ..model._kernels import MS_TO_S, NO_REFCOUNT
+from .grids import Grid, refined_grid
 from ._base import SolverBase
 
 __all__ = ["FokkerPlanckSolver"]
@@ -295,7 +295,7 @@ class FokkerPlanckSolver(SolverBase):
         self.u_min_option = u_min
         if grid is not None:
             if not isinstance(grid, Grid):
-                raise ValueError(f"`grid` must be a popdens.grids.Grid, got {grid!r}")
+                raise ValueError(f"`grid` must be a popdens.solvers.grids.Grid, got {grid!r}")
             if abs(grid.upper - nrn.boundary) > 1e-12 * max(1.0, abs(nrn.boundary)):
                 raise ValueError(f"`grid` must end at the neuron's boundary {nrn.boundary!r} mV, "
                                  f"got {grid.upper!r}")

@@ -46,8 +46,8 @@ import numba
 import numpy as np
 
 from .. import _validation as v
-from .._kernels import MS_TO_S, NO_REFCOUNT, advance_potential, drift_value, hazard_value, survival
-from ..models import CODE_LIF, CODE_PIF
+from ..model._kernels import MS_TO_S, NO_REFCOUNT, advance_potential, drift_value, hazard_value, survival
+from ..model.neurons import CODE_LIF, CODE_PIF
 from ._base import SolverBase
 
 __all__ = ["RefractoryDensitySolver"]

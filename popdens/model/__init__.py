@@ -1,0 +1,11 @@
+"""Neuron models, escape functions, noise models and populations, input drives, the safe expression
+parser and the compiled building blocks they share (the bottom layer above the shared ground floor)."""
+
+from . import drive, hazard
+from .neurons import EIF, LIF, PIF, QIF, CustomNeuron, NeuronBase
+from .noise import EscapeNoise, Population, WhiteNoise
+
+__all__ = [
+    "CustomNeuron", "EIF", "EscapeNoise", "LIF", "NeuronBase", "PIF", "Population", "QIF", "WhiteNoise",
+    "drive", "hazard",
+]

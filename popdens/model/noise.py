@@ -1,0 +1,97 @@
+"""Noise models and the population (neuron model + noise).
+
+Two noise models are supported:
+
+* :class:`EscapeNoise` -- each neuron fires with an instantaneous rate (the
+  hazard, Hz) that depends on its membrane potential; there is no hard
+  threshold.
+* :class:`WhiteNoise` -- each neuron receives Gaussian white-noise input,
+  with the convention
+
+  .. math:: \\tau_m\\,du = (F(u) + \\mu(t))\\,dt + \\sigma\\sqrt{\\tau_m}\\,dW,
+
+  so a free LIF membrane has stationary variance :math:`\\sigma^2/2`
+  (sigma in mV, time in ms).  A spike occurs when ``u`` reaches the
+  neuron's ``boundary``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Union
+
+from .. import _validation as v
+from .drive import Constant, Drive
+from .hazard import EscapeFunction
+from .neurons import NeuronBase
+
+__all__ = ["EscapeNoise", "WhiteNoise", "Population"]
+
+
+@dataclass(frozen=True)
+class EscapeNoise:
+    """Escape noise with a given escape function.
+
+    Parameters
+    ----------
+    hazard : EscapeFunction
+        E.g. ``popdens.hazard.Exponential(rate=10.0, width=2.0)``.
+    """
+
+    hazard: EscapeFunction
+
+    def __post_init__(self):
+        if not isinstance(self.hazard, EscapeFunction):
+            raise ValueError(
+                f"`hazard` must be an escape function from popdens.hazard, got {self.hazard!r}"
+            )
+
+
+@dataclass(frozen=True)
+class WhiteNoise:
+    """Gaussian white-noise input of amplitude ``sigma`` (mV).
+
+    Convention: ``tau_m du = (F(u) + mu) dt + sigma sqrt(tau_m) dW``; a free
+    LIF membrane then has variance ``sigma**2 / 2`` (mV^2).
+
+    Parameters
+    ----------
+    sigma : float or Drive
+        Noise amplitude in mV (> 0), or a drive giving it over time (ms).
+    """
+
+    sigma: Union[float, Drive]
+
+    def __post_init__(self):
+        s = self.sigma
+        if isinstance(s, Drive):
+            return
+        object.__setattr__(self, "sigma", v.positive("sigma", s))
+
+    @property
+    def sigma_drive(self) -> Drive:
+        """The amplitude as a drive (mV over ms)."""
+        return self.sigma if isinstance(self.sigma, Drive) else Constant(self.sigma)
+
+
+@dataclass(frozen=True)
+class Population:
+    """A large population of identical, independent neurons with one noise model.
+
+    Parameters
+    ----------
+    neuron : NeuronBase
+        LIF, EIF, QIF, PIF or CustomNeuron.
+    noise : EscapeNoise or WhiteNoise
+    """
+
+    neuron: NeuronBase
+    noise: Union[EscapeNoise, WhiteNoise]
+
+    def __post_init__(self):
+        if not isinstance(self.neuron, NeuronBase):
+            raise ValueError(f"`neuron` must be a popdens neuron model, got {self.neuron!r}")
+        if not isinstance(self.noise, (EscapeNoise, WhiteNoise)):
+            raise ValueError(f"`noise` must be EscapeNoise or WhiteNoise, got {self.noise!r}")
+
+

@@ -1,0 +1,335 @@
+"""Linear stability of a stationary state of a circuit.
+
+Around a fixed point, a rate perturbation ``delta A_l exp(lam t)`` changes
+the drive of ``k`` by ``tau_m,k J_kl C_kl K_kl(lam) exp(-lam d_kl) delta A_l``
+and (white noise) its variance by ``tau_m,k J_kl^2 C_kl K_kl(lam)
+exp(-lam d_kl) delta A_l``; the rate answers through the transfer functions
+for mean and variance modulation.  Self-consistency gives the characteristic
+equation (Brunel & Hakim 1999, Neural Comput. 11:1621; Brunel 2000)
+
+.. math:: \\det\\big(I - M(\\lambda)\\big) = 0,\\qquad
+          M_{kl}(\\lambda) = \\sum_{\\text{pathways } l\\to k}
+          \\big[\\chi^{\\mu}_k(\\lambda)\\,\\tau_{m,k} J_{kl}
+          + \\chi^{\\sigma^2}_k(\\lambda)\\,\\tau_{m,k} J_{kl}^2\\big]\\,C_{kl}\\,
+          \\hat K_{kl}(\\lambda)\\,e^{-\\lambda d_{kl}} / 1000,
+
+with ``chi^mu`` in Hz/mV, ``chi^sigma2`` in Hz/mV^2, ``lam`` in 1/ms and the
+rates in Hz.  Roots are found by a damped complex secant iteration from a grid of
+starting points; the leading root (largest real
+part) decides stability and its imaginary part the oscillation frequency.
+An independent count of the unstable roots by the argument principle checks
+that none was missed.
+
+Units at the boundary: rates Hz, eigenvalues reported as growth rate (1/s)
+and frequency (Hz).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from .. import _validation as v
+from ..exceptions import ConvergenceError
+from .circuit import HZ_TO_PER_MS, Circuit
+from .states import FixedPoint
+
+__all__ = ["Stability", "characteristic_matrix", "count_roots", "stability"]
+
+#: Secant iteration for characteristic roots: iterations, step / residual tolerance, and the
+#: residual |det| (relative to 1 + its value at the start) accepted for a root.
+ROOT_MAX_ITER = 60
+ROOT_TOL = 1e-10
+ROOT_ACCEPT = 1e-8
+#: Step halvings tried when an iterate leaves the region where the transfer functions exist.
+BACKTRACK = 6
+#: Iterations without a smaller residual after which a start is stopped.
+STALL = 4
+#: Relative step of the numerical derivative of det(I - M).
+DERIV_STEP = 1e-6
+#: Two roots closer than this (1/ms) are the same.
+SAME_ROOT = 1e-6
+
+
+def _default_transfer() -> Callable:
+    from ..theory.linear_response import transfer  # noqa: PLC0415
+
+    return transfer
+
+
+def _freq_of(lam_per_ms):
+    """Complex frequency (Hz) of exp(lam t): lam = 2 pi i f, lam in 1/ms."""
+    return np.asarray(lam_per_ms, dtype=complex) * 1000.0 / (2j * math.pi)
+
+
+def characteristic_matrix(circuit: Circuit, state: FixedPoint, lam, transfer: Callable | None = None):
+    """``M(lam)`` of the characteristic equation ``det(I - M) = 0`` (module docstring).
+
+    Parameters
+    ----------
+    circuit : Circuit
+    state : FixedPoint
+    lam : complex or array_like of complex
+        Eigenvalue candidates (1/ms).
+    transfer : callable, optional
+        ``transfer(population, mu, freqs, modulate)`` with complex ``freqs``
+        (Hz, ``lam = 2 pi i f``) returning the rate response in Hz/mV for
+        ``modulate="mean"`` and Hz/mV^2 (per unit variance ``sigma**2``) for
+        ``modulate="noise"``.  Default: ``popdens.transfer``.
+
+    Returns
+    -------
+    ndarray of complex, shape ``lam.shape + (n, n)``
+    """
+    transfer = _default_transfer() if transfer is None else transfer
+    lam = np.asarray(lam, dtype=complex)
+    f = _freq_of(lam).ravel()
+    n = circuit.n
+    out = np.zeros((f.size, n, n), dtype=complex)
+    chi_m, chi_v = {}, {}
+    same = {}  # cohorts with equal population and input share their transfer functions
+    for p in circuit.pathways:
+        k, l = circuit.index(p.target), circuit.index(p.source)
+        a = circuit.cohorts[k]
+        if k not in chi_m:
+            pop = circuit.population_at(k, state.sigma[k])
+            try:
+                key = (pop, float(state.mu[k]))
+                hash(key)
+            except TypeError:  # pragma: no cover - unhashable custom parameters
+                key = (id(pop), k)
+            if key in same:
+                chi_m[k], chi_v[k] = chi_m[same[key]], chi_v[same[key]]
+            else:
+                same[key] = k
+                chi_m[k] = np.asarray(transfer(pop, float(state.mu[k]), f, "mean"), dtype=complex)
+                chi_v[k] = (np.asarray(transfer(pop, float(state.mu[k]), f, "noise"), dtype=complex)
+                            if a.diffusive else np.zeros(f.size, dtype=complex))
+        kern = p.kernel_laplace(lam.ravel())
+        out[:, k, l] += (chi_m[k] * a.tau_m * p.weight + chi_v[k] * a.tau_m * p.weight ** 2) \
+            * p.in_degree * kern * HZ_TO_PER_MS
+    return out.reshape(lam.shape + (n, n))
+
+
+@dataclass(frozen=True, eq=False)
+class Stability:
+    """Linear stability of a fixed point.
+
+    Attributes
+    ----------
+    state : FixedPoint
+    roots : ndarray of complex
+        Roots ``lam`` of ``det(I - M(lam))`` found (1/ms), leading first;
+        only ``Im lam >= 0`` (roots come in conjugate pairs).
+    growth_rate : float
+        Real part of the leading root (1/s); > 0: unstable.
+    frequency : float
+        Imaginary part of the leading root / 2 pi (Hz): the oscillation
+        frequency at onset (0 for a real root).
+    stable : bool
+    n_unstable : int
+        Number of roots (conjugates counted) with ``0 < Re lam <= max_growth``
+        and ``|Im lam| <= 2 pi max_frequency`` counted independently by the
+        argument principle (winding number of ``det(I - M)`` round that box).
+    complete : bool
+        True when the secant search found as many unstable roots as counted.
+    """
+
+    state: FixedPoint
+    roots: np.ndarray
+    growth_rate: float
+    frequency: float
+    stable: bool
+    n_unstable: int = -1
+    complete: bool = True
+
+    def __repr__(self):
+        word = "stable" if self.stable else "unstable"
+        return (f"<Stability {word}: leading root {self.growth_rate:.4g} 1/s, {self.frequency:.4g} Hz; "
+                f"{self.roots.size} roots, {self.n_unstable} unstable by the argument principle>")
+
+
+def _det_fn(circuit, state, transfer):
+    n = circuit.n
+    eye = np.eye(n)
+
+    def det(lam_arr):
+        lam_arr = np.asarray(lam_arr, dtype=complex)
+        flat = lam_arr.ravel()
+        out = np.full(flat.shape, np.nan + 0j)
+
+        def fill(lo, hi):
+            # an escape-noise transfer function is defined only for growth rates above the decay rate
+            # of the ISI density: where it raises, bisect and leave NaN at the offending points
+            try:
+                m = characteristic_matrix(circuit, state, flat[lo:hi], transfer)
+                out[lo:hi] = np.linalg.det(eye - m)
+            except ValueError:
+                if hi - lo > 1:
+                    mid = (lo + hi) // 2
+                    fill(lo, mid)
+                    fill(mid, hi)
+
+        if flat.size:
+            fill(0, flat.size)
+        return out.reshape(lam_arr.shape)
+
+    return det
+
+
+def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None = None,
+              max_frequency: float = 500.0, min_growth: float = -200.0, max_growth: float = 200.0,
+              n_frequency: int = 24, n_growth: int = 4) -> Stability:
+    """Leading roots of the characteristic equation at a fixed point.
+
+    Parameters
+    ----------
+    circuit : Circuit
+    state : FixedPoint
+        From :func:`fixed_points`.
+    transfer : callable, optional
+        See :func:`characteristic_matrix`.
+    max_frequency : float
+        Highest oscillation frequency searched (Hz).
+    min_growth, max_growth : float
+        Range of growth rates (1/s) of the starting grid.
+    n_frequency, n_growth : int
+        Starting grid size.
+
+    Returns
+    -------
+    Stability
+
+    Raises
+    ------
+    ConvergenceError
+        When no root is found from any start (enlarge the search region).
+
+    Notes
+    -----
+    Starts on a grid in ``[min_growth, max_growth] x [0, 2 pi max_frequency]``
+    (1/s x rad/s);
+    each start runs a damped secant iteration on ``det(I - M(lam))`` with
+    all starts advanced together (one transfer-function call per
+    iteration and point).  The leading root is the one with the largest real
+    part among the roots found; that no unstable root was missed in
+    ``0 < Re <= max_growth``, ``|f| <= max_frequency`` is checked by the
+    argument principle (``n_unstable``, ``complete``), and ``stable`` needs
+    both.  Escape-noise transfer functions exist only above the decay rate of
+    the ISI density: iterates that leave that region are pulled back.
+    """
+    det = _det_fn(circuit, state, transfer)
+    g = np.linspace(min_growth, max_growth, v.positive_int("n_growth", n_growth)) * 1e-3
+    w = 2 * math.pi * np.linspace(0.0, max_frequency, v.positive_int("n_frequency", n_frequency)) * 1e-3
+    w[0] = 1e-6  # off the real axis (real roots are approached from just above)
+    z = (g[:, None] + 1j * w[None, :]).ravel()
+    # secant iteration (one evaluation of det per iteration and start; order 1.6), all starts together
+    zp = z + DERIV_STEP * np.maximum(1e-3, np.abs(z))
+    f = det(z)
+    fp = det(zp)
+    f_start = np.abs(f)
+    active = np.isfinite(f) & np.isfinite(fp)
+    best = np.where(np.isfinite(f), np.abs(f), np.inf)
+    stall = np.zeros(z.size, dtype=np.int64)
+    z[~active] = np.nan
+    # damping: never move further than a tenth of the search box per iteration
+    lim = 0.1 * max(abs(max_growth - min_growth) * 1e-3, 2 * math.pi * max_frequency * 1e-3)
+    for _ in range(ROOT_MAX_ITER):
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
+            break
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = f[idx] * (z[idx] - zp[idx]) / (f[idx] - fp[idx])
+        step = np.where(np.isfinite(step), step, 0.0)
+        big = np.abs(step) > lim
+        step[big] *= lim / np.abs(step[big])
+        z_new = z[idx] - step
+        f_new = det(z_new)
+        for _ in range(BACKTRACK):
+            # outside the region where the transfer functions are defined: shorten the step
+            out = ~np.isfinite(f_new)
+            if not np.any(out):
+                break
+            step[out] *= 0.5
+            z_new[out] = z[idx[out]] - step[out]
+            f_new[out] = det(z_new[out])
+        zp[idx], fp[idx] = z[idx], f[idx]
+        z[idx], f[idx] = z_new, f_new
+        bad = ~np.isfinite(f_new)  # left the region where the transfer functions are defined
+        # stalled: the residual has not fallen for STALL iterations (quadrature noise of the transfer
+        # functions sets a floor); stop those starts, the acceptance test below decides
+        better = np.abs(f_new) < best[idx]
+        best[idx] = np.where(better, np.abs(f_new), best[idx])
+        stall[idx] = np.where(better, 0, stall[idx] + 1)
+        conv = ((np.abs(step) < ROOT_TOL * np.maximum(1.0, np.abs(z_new)))
+                | (stall[idx] > STALL) | (f_new == 0.0)) & ~bad
+        active[idx[conv | bad]] = False
+        z[idx[bad]] = np.nan
+    # accept end points that are roots (the transfer functions carry quadrature noise, so the
+    # iteration may stall just short of ROOT_TOL; a residual below ROOT_ACCEPT suffices)
+    roots = []
+    for zi, fi, f0 in zip(z, f, f_start):
+        if not (np.isfinite(zi) and abs(fi) < ROOT_ACCEPT * (1.0 + f0)):
+            continue
+        zi = complex(zi.real, abs(zi.imag)) if abs(zi.imag) > 1e-9 else complex(zi.real, 0.0)
+        # genuine roots at any growth rate are kept (a strongly damped system has its leading root left
+        # of the box); frequencies far above the box are outside what was searched
+        if zi.imag > 2 * math.pi * max_frequency * 1e-3 * 1.5:
+            continue
+        if any(abs(zi - r) < SAME_ROOT * max(1.0, abs(zi)) for r in roots):
+            continue
+        roots.append(zi)
+    if not roots:
+        raise ConvergenceError("no root of the characteristic equation was found in the search region; "
+                               "widen `min_growth`/`max_frequency`")
+    roots = np.array(sorted(roots, key=lambda r: -r.real))
+    lead = roots[0]
+    n_count = count_roots(det, 0.0, max_growth * 1e-3, 2 * math.pi * max_frequency * 1e-3)
+    w_max = 2 * math.pi * max_frequency * 1e-3
+    inside = [r for r in roots if 0.0 < r.real <= max_growth * 1e-3 and r.imag <= w_max]
+    n_found = sum(1 if r.imag == 0.0 else 2 for r in inside)
+    stable = bool(lead.real < 0.0) and n_count == 0
+    return Stability(state=state, roots=roots, growth_rate=float(lead.real * 1e3),
+                     frequency=float(lead.imag * 1e3 / (2 * math.pi)), stable=stable,
+                     n_unstable=int(n_count), complete=bool(n_found == n_count))
+
+
+def count_roots(det: Callable, re_lo: float, re_hi: float, im_max: float, n0: int = 400,
+                max_points: int = 200_000) -> int:
+    """Number of zeros of ``det`` in the box ``re_lo < Re < re_hi``, ``|Im| < im_max`` (1/ms).
+
+    Argument principle: the winding number of ``det`` along the box boundary
+    (counter-clockwise), valid when ``det`` has no poles inside (true for
+    stable uncoupled populations; the synaptic poles lie at ``-1/tau_syn``).
+    The boundary is refined until no phase step exceeds pi/4.
+
+    Raises
+    ------
+    ConvergenceError
+        If ``det`` vanishes on the boundary or the phase cannot be resolved.
+    """
+    corners = [complex(re_lo, -im_max), complex(re_hi, -im_max), complex(re_hi, im_max),
+               complex(re_lo, im_max), complex(re_lo, -im_max)]
+    lengths = [abs(b - a) for a, b in zip(corners[:-1], corners[1:])]
+    total = sum(lengths)
+    n = n0
+    while True:
+        pts = []
+        for (a, b), ln in zip(zip(corners[:-1], corners[1:]), lengths):
+            m = max(8, int(math.ceil(n * ln / total)))
+            pts.append(a + (b - a) * np.arange(m) / m)
+        z = np.concatenate(pts + [np.array([corners[0]])])
+        val = det(z)
+        if np.any(~np.isfinite(val)) or np.any(np.abs(val) == 0.0):
+            raise ConvergenceError("det(I - M) is not finite or vanishes on the counting contour")
+        dphi = np.angle(val[1:] / val[:-1])
+        if np.max(np.abs(dphi)) < math.pi / 4:
+            return int(round(np.sum(dphi) / (2 * math.pi)))
+        if z.size > max_points:
+            raise ConvergenceError("the phase of det(I - M) could not be resolved on the counting contour")
+        n *= 4
+
+

@@ -1,0 +1,113 @@
+"""The result of a circuit run over time (mean field or spiking twin)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .._files import atomic_write
+from ..result import STATUS_OK
+
+__all__ = ["CircuitResult"]
+
+
+@dataclass(frozen=True, eq=False)
+class CircuitResult:
+    """Rates over time of every cohort of a circuit.
+
+    Attributes
+    ----------
+    names : tuple of str
+        Cohort names, the order of the first axis of the arrays.
+    t : ndarray, shape (n_times,)
+        Output times (ms) from 0.
+    rate : ndarray, shape (n_cohorts, n_times)
+        Population rates (Hz): ``rate[:, 0]`` the initial rate, ``rate[:, j]``
+        the mean over ``(t[j-1], t[j]]``.
+    mu, sigma : ndarray, shape (n_cohorts, n_times) or None
+        Total drive (mV) and noise amplitude (mV, NaN for escape noise) at
+        ``t`` (mean-field integration only).
+    mean_u : ndarray, shape (n_cohorts, n_times) or None
+        Monte Carlo: mean membrane potential (mV) at ``t``.
+    method : str
+        ``"mean-field"`` or ``"montecarlo"``.
+    status, message : int, str
+        0 and "completed" on success.
+    dt : float
+        Internal step (ms).
+    sizes : tuple of int or None
+        Monte Carlo: neurons per cohort.
+    spike_times, spike_ids : ndarray or None
+        Monte Carlo, on request: spike times (ms) and neuron indices
+        (cohort ``k`` owns ids ``offsets[k] .. offsets[k+1]-1``).
+    diagnostics : dict
+        Wall time (s), version, counters.
+    """
+
+    names: tuple
+    t: np.ndarray
+    rate: np.ndarray
+    method: str
+    mu: np.ndarray | None = None
+    sigma: np.ndarray | None = None
+    mean_u: np.ndarray | None = None
+    status: int = STATUS_OK
+    message: str = "completed"
+    dt: float = float("nan")
+    sizes: tuple | None = None
+    spike_times: np.ndarray | None = None
+    spike_ids: np.ndarray | None = None
+    diagnostics: dict = field(default_factory=dict)
+
+    @property
+    def success(self) -> bool:
+        return self.status == STATUS_OK
+
+    def rate_of(self, name: str) -> np.ndarray:
+        """Rate (Hz) of the cohort ``name``."""
+        if name not in self.names:
+            raise ValueError(f"unknown cohort {name!r}; known: {list(self.names)}")
+        return self.rate[self.names.index(name)]
+
+    @property
+    def offsets(self) -> np.ndarray:
+        """First neuron id of each cohort (Monte Carlo)."""
+        if self.sizes is None:
+            raise ValueError("neuron ids exist only for Monte Carlo results")
+        return np.concatenate([[0], np.cumsum(self.sizes)])
+
+    def mean_rate(self, t_from: float = 0.0) -> np.ndarray:
+        """Time-averaged rate (Hz) of each cohort over ``(t_from, t_end]`` (ms)."""
+        sel = self.t[1:] > t_from + 1e-9
+        if not np.any(sel):
+            raise ValueError(f"`t_from` = {t_from!r} ms leaves no output interval")
+        return self.rate[:, 1:][:, sel].mean(axis=1)
+
+    def save(self, path) -> "Path":  # noqa: F821
+        """Save arrays as ``.npz`` (atomic)."""
+        from pathlib import Path
+        import json
+
+        path = Path(path)
+        if path.suffix != ".npz":
+            path = path.with_suffix(".npz")
+        arrays = {"t": self.t, "rate": self.rate}
+        for k in ("mu", "sigma", "mean_u", "spike_times", "spike_ids"):
+            if getattr(self, k) is not None:
+                arrays[k] = getattr(self, k)
+        meta = {"names": list(self.names), "method": self.method, "status": self.status,
+                "message": self.message, "dt": self.dt, "sizes": list(self.sizes) if self.sizes else None}
+        arrays["_meta"] = np.frombuffer(json.dumps(meta).encode("utf-8"), dtype=np.uint8)
+        atomic_write(path, lambda fh: np.savez_compressed(fh, **arrays))
+        return path
+
+    def plot(self, ax=None, **kwargs):
+        """Rates (Hz) of every cohort against time (ms); returns the Axes."""
+        from ..plotting import plot_circuit_rates
+
+        return plot_circuit_rates(self, ax, **kwargs)
+
+    def __repr__(self) -> str:
+        return (f"<CircuitResult {self.method}: {list(self.names)}, {self.t.size} times to {self.t[-1]:g} ms, "
+                f"status={self.status} ({self.message})>")

@@ -1,0 +1,199 @@
+"""Stationary states (fixed points) of a circuit.
+
+A stationary state is a set of rates ``A`` (Hz) with ``A_k = Phi_k(mu_k(A),
+sigma_k(A))``, where ``Phi_k`` is the stationary rate (gain function) of
+cohort ``k`` and ``mu, sigma`` the diffusion-approximation input
+(:meth:`popdens.network.Circuit.stationary_input`).  :func:`fixed_points`
+finds all of them in a rate box: for one cohort by scanning ``A - Phi``
+for sign changes and polishing with Brent's method, for several by Powell's
+hybrid method from a grid of starting points, keeping distinct solutions
+whose residual is below tolerance.
+
+Units: rates in Hz, drives and noise amplitudes in mV.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+from scipy.optimize import brentq, root
+
+from .. import _validation as v
+from ..model.noise import WhiteNoise
+from .circuit import Circuit
+
+__all__ = ["FixedPoint", "fixed_points", "solver_gain"]
+
+
+#: Default rate box (Hz) searched for fixed points.
+DEFAULT_RATE_RANGE = (0.0, 200.0)
+
+
+#: Scan points for one cohort (sign changes of A - Phi).
+SCAN_POINTS = 400
+
+
+#: Starting points per cohort and dimension for several cohorts.
+STARTS_PER_DIM = 5
+
+
+#: Absolute residual (Hz) accepted for a fixed point.
+RESIDUAL_TOL = 1e-7
+
+
+#: Two fixed points closer than this (relative, plus 1e-6 Hz) are the same.
+SAME_POINT = 1e-6
+
+
+def solver_gain(population, mu: float) -> float:
+    """Stationary rate (Hz) of ``population`` at drive ``mu`` (mV) from the density solvers.
+
+    The exact stationary state of the discrete solver (refractory density for
+    escape noise, Fokker--Planck for white noise at the population's
+    ``sigma``), so the mean-field integrator of :func:`popdens.network.simulate_network`
+    settles exactly here.
+    """
+    from ..solvers.registry import resolve_method
+
+    cls = resolve_method(population, None)
+    s = cls(population, 0.1)
+    sigma = float(population.noise.sigma) if isinstance(population.noise, WhiteNoise) else None
+    s.initialize(float(mu), sigma, "stationary")
+    return float(s.instantaneous_rate(float(mu), sigma))
+
+
+def _default_gain() -> Callable:
+    from ..theory.steady_state import gain  # noqa: PLC0415 - scipy-heavy, loaded on first use
+
+    return gain
+
+
+@dataclass(frozen=True, eq=False)
+class FixedPoint:
+    """A stationary state of a circuit.
+
+    Attributes
+    ----------
+    names : tuple of str
+    rates : ndarray
+        Rates (Hz).
+    mu : ndarray
+        Total drive (mV).
+    sigma : ndarray
+        Total noise amplitude (mV; NaN for escape noise).
+    residual : float
+        ``max |A - Phi(A)|`` (Hz).
+    """
+
+    names: tuple
+    rates: np.ndarray
+    mu: np.ndarray
+    sigma: np.ndarray
+    residual: float
+
+    def __repr__(self):
+        body = ", ".join(f"{n}={r:.6g} Hz" for n, r in zip(self.names, self.rates))
+        return f"<FixedPoint {body}; residual {self.residual:.2g} Hz>"
+
+
+def _rates_of(circuit: Circuit, gain: Callable, rates: np.ndarray) -> np.ndarray:
+    mu, sg = circuit.stationary_input(np.maximum(rates, 0.0))
+    out = np.empty(circuit.n)
+    for k in range(circuit.n):
+        if circuit.cohorts[k].diffusive and not sg[k] > 0:
+            raise ValueError(f"cohort {circuit.names[k]!r}: noise amplitude {sg[k]!r} mV at rates {rates} Hz; "
+                             "white-noise populations need sigma > 0")
+        out[k] = float(gain(circuit.population_at(k, sg[k]), float(mu[k])))
+    return out
+
+
+def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Callable | None = None,
+                 starts_per_dim: int = STARTS_PER_DIM, scan_points: int = SCAN_POINTS) -> list[FixedPoint]:
+    """All self-consistent stationary states with rates in ``rate_range``.
+
+    Parameters
+    ----------
+    circuit : Circuit
+        External input taken at t = 0.
+    rate_range : (float, float)
+        Rate box (Hz) searched, ``0 <= low < high``.
+    gain : callable, optional
+        ``gain(population, mu) -> rate (Hz)``; white-noise populations carry
+        their total ``sigma``.  Default: ``popdens.gain`` when
+        available, else :func:`solver_gain`.
+    starts_per_dim : int
+        Starting points per cohort (several cohorts).
+    scan_points : int
+        Scan points (one cohort).
+
+    Returns
+    -------
+    list of FixedPoint
+        Sorted by the rate of the first cohort.
+
+    Examples
+    --------
+    >>> import popdens
+    >>> from popdens.network import Cohort, Circuit, Pathway
+    >>> pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(3.0))
+    >>> c = Circuit([Cohort("E", pop, drive=12.0)], [Pathway("E", "E", 0.1, 200, 1.5)])
+    >>> [round(float(fp.rates[0]), 2) for fp in fixed_points(c, (0.0, 300.0))]
+    [0.06, 17.57, 242.04]
+
+    Notes
+    -----
+    With several cohorts the search is a multistart root finder: fixed
+    points whose basin of attraction (for Powell's method) contains none
+    of the ``starts_per_dim ** n`` starts are missed; raise
+    ``starts_per_dim`` when in doubt.
+    """
+    if not isinstance(circuit, Circuit):
+        raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
+    lo, hi = (v.non_negative("rate_range[0]", rate_range[0]), v.positive("rate_range[1]", rate_range[1]))
+    v.less_than("rate_range[0]", lo, "rate_range[1]", hi)
+    gain = _default_gain() if gain is None else gain
+    n = circuit.n
+    found: list[np.ndarray] = []
+
+    def resid(r):
+        return r - _rates_of(circuit, gain, r)
+
+    def add(r):
+        r = np.asarray(r, dtype=float)
+        if np.any(r < lo - 1e-9) or np.any(r > hi + 1e-9) or not np.all(np.isfinite(r)):
+            return
+        if np.max(np.abs(resid(r))) > RESIDUAL_TOL * max(1.0, float(np.max(r))):
+            return
+        for f in found:
+            if np.all(np.abs(f - r) <= SAME_POINT * np.maximum(1.0, np.abs(r))):
+                return
+        found.append(r)
+
+    if n == 1:
+        grid = np.linspace(lo, hi, v.positive_int("scan_points", scan_points))
+        vals = np.array([resid(np.array([x]))[0] for x in grid])
+        for i in range(grid.size - 1):
+            if vals[i] == 0.0:
+                add([grid[i]])
+            elif vals[i] * vals[i + 1] < 0.0:
+                x = brentq(lambda a: resid(np.array([a]))[0], grid[i], grid[i + 1], xtol=1e-13, rtol=1e-14)
+                add([x])
+        if vals[-1] == 0.0:
+            add([grid[-1]])
+    else:
+        per = v.positive_int("starts_per_dim", starts_per_dim)
+        axis = lo + (hi - lo) * (np.arange(per) + 0.5) / per
+        # rates spread on a square-root scale: low rates are where most cortical states live
+        axis = lo + (hi - lo) * ((axis - lo) / (hi - lo)) ** 2
+        for start in itertools.product(axis, repeat=n):
+            sol = root(resid, np.array(start), method="hybr", options={"xtol": 1e-12})
+            if sol.success or np.max(np.abs(sol.fun)) < RESIDUAL_TOL:
+                add(sol.x)
+    out = []
+    for r in sorted(found, key=lambda x: tuple(x)):
+        mu, sg = circuit.stationary_input(r)
+        out.append(FixedPoint(circuit.names, r, mu, sg, float(np.max(np.abs(resid(r))))))
+    return out

@@ -1,0 +1,266 @@
+"""Front end of the spiking twin of a circuit: connectivity, flattened parameters, the compiled run.
+
+The step itself is in :mod:`popdens.twins._network`.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+import time
+
+import numpy as np
+
+from .._version import __version__
+from .. import _validation as v
+from ..progress import Progress
+from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
+from ..solvers._recording import make_grid
+from .circuit import DEFAULT_DT, STEP_TOL, Circuit, Pathway
+from .result import CircuitResult
+
+__all__ = ["montecarlo_network"]
+
+logger = logging.getLogger(__name__)
+
+
+#: Monte Carlo: steps per compiled call (progress, interruption, spike-buffer growth).
+MC_BLOCK = 1000
+
+
+#: Monte Carlo: default burn-in (ms) before t = 0, discarded.
+DEFAULT_BURN_IN_MS = 200.0
+
+
+#: Monte Carlo: initial capacity of the spike buffer, spikes per neuron.
+SPIKES_PER_NEURON_GUESS = 8
+
+
+def _flat(arrays, dtype):
+    ptr = np.zeros(len(arrays) + 1, dtype=np.int64)
+    for i, a in enumerate(arrays):
+        ptr[i + 1] = ptr[i] + np.asarray(a).size
+    flat = np.concatenate([np.asarray(a, dtype=dtype).ravel() for a in arrays]) if arrays else np.zeros(0, dtype)
+    return np.ascontiguousarray(flat, dtype=dtype), ptr
+
+
+def _delay_steps(p: Pathway, dt: float) -> int:
+    m = int(round(p.delay / dt))
+    if m < 1 or abs(p.delay / dt - m) > STEP_TOL * max(1.0, m):
+        raise ValueError(f"pathway {p.label}: `delay` = {p.delay!r} ms must be a whole number (>= 1) of "
+                         f"steps `dt` = {dt!r} ms in the Monte Carlo twin")
+    return m
+
+
+def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, seed=None, *,
+                       burn_in: float | None = None, record_interval: float | None = None,
+                       record_spikes: bool = False, bridge: bool = True,
+                       progress: bool | None = None) -> CircuitResult:
+    """Direct simulation of the spiking network a circuit describes.
+
+    Each cohort has ``size`` neurons; each pathway gives every target
+    neuron ``in_degree`` distinct, randomly chosen presynaptic neurons
+    (fixed in-degree, no self-connections), with the pathway's PSP jump,
+    delay and synaptic kernel.  External input: the drive, white noise of
+    amplitude ``sigma_ext`` (white-noise cohorts) and, if given,
+    independent Poisson spike trains (:class:`PoissonBackground`).  See
+    :mod:`popdens.twins._network` for the step.
+
+    Parameters
+    ----------
+    circuit : Circuit
+    t_end : float
+        Duration (ms) after the burn-in.
+    dt : float, optional
+        Step (ms), default 0.1; every delay must be a whole number (>= 1) of steps.
+    seed : int or numpy.random.Generator, optional
+        The same seed gives bit-identical results (connectivity included).
+    burn_in : float, optional
+        Time (ms) simulated before t = 0 at the external input of t = 0 and
+        discarded; default 200 ms.  Neurons start at potentials drawn
+        uniformly between reset and threshold.
+    record_interval : float, optional
+        Bin width (ms) of the rates; default ``dt``.
+    record_spikes : bool
+        Keep spike times (ms) and neuron ids.
+    bridge : bool
+        Brownian-bridge crossing detection for white noise (default True).
+    progress : bool, optional
+        Progress line on stderr (default: only on a terminal, long runs).
+
+    Returns
+    -------
+    CircuitResult
+        ``rate`` (Hz; spike count per bin / (size * bin width)), ``mean_u``
+        (mV); ``rate[:, 0]`` is NaN (a finite network has no instantaneous
+        rate).  ``diagnostics`` holds the numbers of synapses, spikes and
+        synaptic events and the wall time.
+    """
+    from ..twins._escape import seed_compiled_rng
+    from ..twins._network import NOISE_ESCAPE, NOISE_WHITE, csr_by_source, draw_in_degree, run_network
+
+    if not isinstance(circuit, Circuit):
+        raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
+    dt = DEFAULT_DT if dt is None else dt
+    grid = make_grid(t_end, dt, record_interval, None)
+    dt = grid.dt
+    burn_in = DEFAULT_BURN_IN_MS if burn_in is None else v.non_negative("burn_in", burn_in)
+    n_burn = int(round(burn_in / dt))
+    rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
+    asm = circuit.cohorts
+    npop = circuit.n
+    sizes = np.array([a.size for a in asm], dtype=np.int64)
+    start = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
+    n_total = int(start[-1])
+    wall0 = time.perf_counter()
+
+    # -- per-cohort parameters
+    nrns = [a.population.neuron for a in asm]
+    noise = np.array([NOISE_WHITE if a.diffusive else NOISE_ESCAPE for a in asm], dtype=np.int64)
+    ncode = np.array([n_.code for n_ in nrns], dtype=np.int64)
+    tau_m = np.array([n_.tau_m for n_ in nrns], dtype=float)
+    reset = np.array([n_.reset for n_ in nrns], dtype=float)
+    boundary = np.array([n_.boundary for n_ in nrns], dtype=float)
+    has_cutoff = np.array([bool(n_.has_cutoff) for n_ in nrns])
+    tau_ref = np.array([n_.refractory for n_ in nrns], dtype=float)
+    theta = np.array([n_.threshold for n_ in nrns], dtype=float)
+    hzs = [a.population.noise.hazard if not a.diffusive else None for a in asm]
+    hcode = np.array([h.code if h is not None else 0 for h in hzs], dtype=np.int64)
+    uses_slope = np.array([bool(h.uses_slope) if h is not None else False for h in hzs])
+    npar_flat, npar_ptr = _flat([n_.kernel_params for n_ in nrns], float)
+    nops_flat, nprog_ptr = _flat([n_.program[0] for n_ in nrns], np.int64)
+    nargs_flat, _ = _flat([n_.program[1] for n_ in nrns], float)
+    hpar_flat, hpar_ptr = _flat([h.kernel_params if h is not None else np.zeros(1) for h in hzs], float)
+    hops_flat, hprog_ptr = _flat([h.program[0] if h is not None else np.zeros(1, np.int64) for h in hzs], np.int64)
+    hargs_flat, _ = _flat([h.program[1] if h is not None else np.zeros(1) for h in hzs], float)
+    size = max([n_.program[0].size for n_ in nrns] + [h.program[0].size for h in hzs if h is not None]) + 2
+    stack = np.empty(size)
+    xbuf = np.zeros(3)
+    bg_lam = np.array([a.background.count * a.background.rate * dt * 1e-3 if a.background else 0.0 for a in asm])
+    bg_drive = np.array([a.tau_m * a.background.weight / dt if a.background else 0.0 for a in asm])
+
+    # -- pathways: delays, drives, ring buffers, connectivity
+    pws = circuit.pathways
+    nq = len(pws)
+    q_src = np.array([circuit.index(p.source) for p in pws], dtype=np.int64)
+    q_tgt = np.array([circuit.index(p.target) for p in pws], dtype=np.int64)
+    q_m = np.array([_delay_steps(p, dt) for p in pws], dtype=np.int64)
+    q_head = np.zeros(nq, dtype=np.int64)
+    q_decay = np.array([math.exp(-dt / p.tau_syn) if p.tau_syn > 0 else 0.0 for p in pws])
+    q_drive = np.array([
+        asm[q_tgt[q]].tau_m * p.weight * ((-math.expm1(-dt / p.tau_syn)) if p.tau_syn > 0 else 1.0) / dt
+        for q, p in enumerate(pws)])
+    buf_len = [(q_m[q] + 1) * sizes[q_tgt[q]] for q in range(nq)]
+    q_buf_off = np.concatenate([[0], np.cumsum(buf_len)]).astype(np.int64)[:nq]
+    x_len = [sizes[q_tgt[q]] for q in range(nq)]
+    q_x_off = np.concatenate([[0], np.cumsum(x_len)]).astype(np.int64)[:nq]
+    buf = np.zeros(int(sum(buf_len)) if nq else 1, dtype=np.float32)  # spike counts: exact up to 2**24
+    xs = np.zeros(int(sum(x_len)) if nq else 1)
+    seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
+    ptrs, idxs = [], []
+    for q, p in enumerate(pws):
+        ns = int(sizes[q_src[q]])
+        perm = np.arange(ns, dtype=np.int32)
+        sources = draw_in_degree(int(sizes[q_tgt[q]]), ns, p.in_degree, p.source == p.target, perm)
+        ptr, tg = csr_by_source(sources, p.in_degree, ns)
+        ptrs.append(ptr)
+        idxs.append(tg)
+    ptr_flat, q_ptr_off = _flat(ptrs, np.int64) if nq else (np.zeros(1, np.int64), np.zeros(1, np.int64))
+    idx_flat, q_idx_off = _flat(idxs, np.int32) if nq else (np.zeros(1, np.int32), np.zeros(1, np.int64))
+    in_lists = [[q for q in range(nq) if q_tgt[q] == k] for k in range(npop)]
+    out_lists = [[q for q in range(nq) if q_src[q] == k] for k in range(npop)]
+    in_list, in_ptr = _flat([np.array(x, dtype=np.int64) for x in in_lists], np.int64)
+    out_list, out_ptr = _flat([np.array(x, dtype=np.int64) for x in out_lists], np.int64)
+    if in_list.size == 0:
+        in_list = np.zeros(1, np.int64)
+    if out_list.size == 0:
+        out_list = np.zeros(1, np.int64)
+    n_synapses = int(sum(p.in_degree * sizes[q_tgt[q]] for q, p in enumerate(pws)))
+
+    # -- neuron state
+    u = np.empty(n_total)
+    for k, n_ in enumerate(nrns):
+        hi = n_.threshold if n_.threshold > n_.reset else n_.boundary
+        u[start[k]:start[k + 1]] = rng.uniform(n_.reset, hi, size=int(sizes[k]))
+    ref = np.zeros(n_total)
+    age = np.repeat(tau_ref + 0.0, sizes)
+    lam = np.zeros(n_total)
+    thr = rng.exponential(1.0, size=n_total)
+    hz = np.zeros(n_total)
+
+    def ext(times):
+        # the Poisson background is drawn as spikes, so only the drive and the white noise enter here
+        mu = np.array([np.broadcast_to(a.drive(times), times.shape) for a in asm], dtype=float)
+        var = np.array([np.broadcast_to(a.sigma_ext(times) ** 2 if a.diffusive else 0.0 * times, times.shape)
+                        for a in asm], dtype=float)
+        if not (np.all(np.isfinite(mu)) and np.all(np.isfinite(var)) and np.all(var >= 0)):
+            raise FloatingPointError("the external drive or noise is not finite (or negative variance)")
+        return np.ascontiguousarray(mu), np.ascontiguousarray(np.sqrt(var))
+
+    fixed = (start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref, hcode, theta, uses_slope,
+             npar_flat, npar_ptr, nops_flat, nargs_flat, nprog_ptr, hpar_flat, hpar_ptr, hops_flat, hargs_flat,
+             hprog_ptr, bg_lam, bg_drive)
+    net = (q_src, q_tgt, q_m, q_head, q_buf_off, q_x_off, q_drive, q_decay, q_ptr_off, q_idx_off,
+           in_ptr, in_list, out_ptr, out_list, buf, xs, ptr_flat, idx_flat, u, ref, age, lam, thr, hz)
+    no_spk = (np.zeros(1), np.zeros(1, dtype=np.int64))
+    mu_b, sg_b = ext(np.zeros(1))
+    n_burn_spikes = 0
+    for b0 in range(0, n_burn, MC_BLOCK):
+        b1 = min(n_burn, b0 + MC_BLOCK)
+        m_ = np.ascontiguousarray(np.repeat(mu_b, b1 - b0 + 1, axis=1))
+        s_ = np.ascontiguousarray(np.repeat(sg_b, b1 - b0 + 1, axis=1))
+        cnt = np.zeros((b1 - b0, npop), dtype=np.int64)
+        mu_out = np.zeros((b1 - b0, npop))
+        run_network(*fixed, m_, s_, dt, bool(bridge), *net, 0.0, False, *no_spk, 0, cnt, mu_out, stack, xbuf)
+        n_burn_spikes += int(cnt.sum())
+
+    n = grid.n_steps
+    counts = np.zeros((n, npop), dtype=np.int64)
+    mean_u = np.zeros((n, npop))
+    cap = n_total * SPIKES_PER_NEURON_GUESS if record_spikes else 1
+    spk_t = np.empty(cap)
+    spk_i = np.empty(cap, dtype=np.int64)
+    n_spk = 0
+    bar = Progress(n, "network Monte Carlo", progress)
+    k = 0
+    status, message = STATUS_OK, "completed"
+    try:
+        for end in range(MC_BLOCK, n + MC_BLOCK, MC_BLOCK):
+            end = min(end, n)
+            while k < end:
+                m_, s_ = ext(grid.step_times(k, end))
+                done, n_spk, full = run_network(*fixed, m_, s_, dt, bool(bridge), *net, k * dt, bool(record_spikes),
+                                                spk_t, spk_i, n_spk, counts[k:end], mean_u[k:end], stack, xbuf)
+                k += done
+                if full:
+                    grow = max(cap, n_spk + n_total)
+                    spk_t = np.concatenate([spk_t[:n_spk], np.empty(grow)])
+                    spk_i = np.concatenate([spk_i[:n_spk], np.empty(grow, dtype=np.int64)])
+                    cap = spk_t.size
+            bar.update(k)
+    except FloatingPointError as exc:
+        status, message = STATUS_FAILED, str(exc)
+    except KeyboardInterrupt:
+        status, message = STATUS_INTERRUPTED, f"interrupted by the user at t = {k * dt:g} ms"
+        logger.warning(message)
+    finally:
+        bar.close()
+    e = grid.every
+    n_out = k // e
+    c_out = counts[: n_out * e].reshape(n_out, e, npop).sum(axis=1).T
+    rate = c_out / (sizes[:, None] * e * dt * 1e-3)
+    rate = np.concatenate([np.full((npop, 1), np.nan), rate], axis=1)
+    idx = np.arange(n_out + 1) * e
+    mu_rec = np.concatenate([np.full((npop, 1), np.nan), mean_u[e - 1: n_out * e: e].T], axis=1)
+    n_spikes = int(counts[:k].sum())
+    out_deg = {p.label: p.in_degree * int(sizes[q_tgt[q]]) / int(sizes[q_src[q]]) for q, p in enumerate(pws)}
+    events = int(sum(counts[:k, q_src[q]].sum() * out_deg[p.label] for q, p in enumerate(pws)))
+    return CircuitResult(
+        names=circuit.names, t=idx * dt, rate=rate, method="montecarlo", mean_u=mu_rec,
+        status=status, message=message, dt=dt, sizes=tuple(int(x) for x in sizes),
+        spike_times=spk_t[:n_spk].copy() if record_spikes else None,
+        spike_ids=spk_i[:n_spk].copy() if record_spikes else None,
+        diagnostics={"wall_time_s": time.perf_counter() - wall0, "version": __version__, "steps": k,
+                     "burn_in_ms": n_burn * dt, "burn_in_spikes": n_burn_spikes, "n_neurons": n_total,
+                     "n_synapses": n_synapses, "n_spikes": n_spikes, "synaptic_events": events},
+    )

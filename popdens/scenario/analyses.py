@@ -1,0 +1,271 @@
+"""Steady-state and linear-response analyses named in a scenario file.
+
+Each analysis table of a scenario (``[gain]``, ``[stationary]``,
+``[transfer]``) is parsed into a small frozen object here.  The object
+computes its numbers with the same public functions a script would call
+(:func:`popdens.gain`, :func:`popdens.stationary`, :func:`popdens.transfer`)
+and writes a CSV table and figures into an output folder.
+
+Tables
+------
+``[gain]``
+    ``mu``: the mean drives (mV), a list or a range table
+    ``{start = ..., stop = ..., count = ..., spacing = "linear" | "log"}``;
+    ``sigma`` (optional, white noise only): a list of noise levels (mV), one
+    gain curve each (default: the ``[noise]`` sigma).
+``[stationary]``
+    ``mu``: one drive (mV) or a list of drives.
+``[transfer]``
+    ``mu``: the stationary drive (mV); ``frequencies`` (Hz): a list or a
+    range table; ``modulate``: ``"mean"`` (default, Hz/mV), ``"noise"`` (the
+    variance sigma^2, Hz/mV^2) or ``"sigma"`` (Hz/mV), the last two for white noise.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from ..exceptions import ScenarioError
+
+__all__ = ["GainCurve", "StationaryStats", "TransferCurve", "parse_analyses", "ANALYSIS_TABLES",
+           "describe_population", "write_table"]
+
+#: Most points accepted in one range (guards against typos such as 1e9).
+MAX_POINTS = 100_000
+RANGE_KEYS = {"start", "stop", "count", "spacing"}
+
+
+def _err(src, table, key, value, expected):
+    return ScenarioError(f"{src}: [{table}] key `{key}` = {value!r}: expected {expected}")
+
+
+def _unknown(src, table, data, allowed, required=()):
+    import difflib
+
+    if not isinstance(data, dict):
+        raise ScenarioError(f"{src}: [{table}] must be a table, got {data!r}")
+    for k in data:
+        if k not in allowed:
+            near = difflib.get_close_matches(k, sorted(allowed), n=1)
+            hint = f"; did you mean `{near[0]}`?" if near else f"; valid keys: {', '.join(sorted(allowed))}"
+            raise ScenarioError(f"{src}: [{table}] unknown key `{k}`{hint}")
+    for k in required:
+        if k not in data:
+            raise ScenarioError(f"{src}: [{table}] missing required key `{k}`")
+
+
+def _finite(src, table, key, x) -> float:
+    if isinstance(x, bool) or not isinstance(x, (int, float)) or not math.isfinite(x):
+        raise _err(src, table, key, x, "a finite number")
+    return float(x)
+
+
+def parse_values(src, table, key, value, *, positive=False) -> np.ndarray:
+    """A number, a list of numbers or a range table ``{start, stop, count, spacing}`` → 1-D array."""
+    if isinstance(value, dict):
+        _unknown(src, f"{table}.{key}", value, RANGE_KEYS, ("start", "stop", "count"))
+        lo = _finite(src, f"{table}.{key}", "start", value["start"])
+        hi = _finite(src, f"{table}.{key}", "stop", value["stop"])
+        n = value["count"]
+        if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= MAX_POINTS:
+            raise _err(src, f"{table}.{key}", "count", n, f"an integer from 1 to {MAX_POINTS}")
+        spacing = value.get("spacing", "linear")
+        if spacing == "linear":
+            out = np.linspace(lo, hi, n)
+        elif spacing == "log":
+            if lo <= 0 or hi <= 0:
+                raise _err(src, f"{table}.{key}", "start", lo, "positive bounds for log spacing")
+            out = np.geomspace(lo, hi, n)
+        else:
+            raise _err(src, f"{table}.{key}", "spacing", spacing, "'linear' or 'log'")
+    elif isinstance(value, list):
+        if not value or len(value) > MAX_POINTS:
+            raise _err(src, table, key, value, f"a list of 1 to {MAX_POINTS} numbers")
+        out = np.array([_finite(src, table, key, x) for x in value])
+    else:
+        out = np.array([_finite(src, table, key, value)])
+    if positive and np.any(out <= 0):
+        raise _err(src, table, key, value, "positive values")
+    return out
+
+
+def write_table(path: Path, columns: dict, header: dict) -> None:
+    """Write ``columns`` (name → 1-D array) as CSV with ``# key: value`` header lines, atomically."""
+    from .._files import atomic_write
+
+    names = list(columns)
+    data = np.column_stack([np.asarray(columns[n], dtype=float) for n in names])
+    lines = [f"# {k}: {val}" for k, val in header.items()]
+    lines.append(",".join(names))
+    lines += [",".join(f"{x:.12g}" for x in row) for row in data]
+    text = "\n".join(lines) + "\n"
+    atomic_write(Path(path), lambda fh: fh.write(text.encode("utf-8")))
+
+
+def describe_population(population) -> str:
+    """One JSON line naming the neuron model, the noise model and their parameters."""
+    import json
+
+    from .._files import jsonable
+
+    noise = population.noise
+    d = {"neuron": {"model": type(population.neuron).__name__, **population.neuron.parameters()},
+         "noise": {"kind": type(noise).__name__}}
+    if hasattr(noise, "hazard"):
+        d["noise"].update({"escape_function": type(noise.hazard).__name__, **noise.hazard.parameters()})
+    else:
+        d["noise"]["sigma_mV"] = noise.sigma
+    return json.dumps(jsonable(d), sort_keys=True)
+
+
+def _with_sigma(population, sigma):
+    from ..model.noise import Population, WhiteNoise
+
+    return population if sigma is None else Population(population.neuron, WhiteNoise(float(sigma)))
+
+
+def _save(fig, folder: Path, stem: str) -> list[str]:
+    from ..plotting import save_figure
+
+    return save_figure(fig, folder, stem)
+
+
+@dataclass(frozen=True)
+class GainCurve:
+    """Gain curves: stationary rate (Hz) over the drives ``mu`` (mV), one per noise level."""
+
+    mu: np.ndarray
+    sigmas: tuple = (None,)
+
+    def compute(self, population) -> np.ndarray:
+        """Rates (Hz), shape ``(len(sigmas), len(mu))``."""
+        from ..theory.steady_state import gain
+
+        return np.array([gain(_with_sigma(population, s), self.mu) for s in self.sigmas])
+
+    def write(self, population, folder: Path, header: dict) -> dict:
+        from ..plotting import plot_gain
+
+        rates = self.compute(population)
+        cols = {"mu_mV": self.mu}
+        labels = []
+        for s, row in zip(self.sigmas, rates):
+            name = "rate_Hz" if s is None else f"rate_Hz_sigma_{s:g}mV"
+            cols[name] = row
+            labels.append("rate" if s is None else f"sigma = {s:g} mV")
+        write_table(folder / "gain.csv", cols,
+                    {**header, "population": describe_population(population), "units": "mu mV, rate Hz"})
+        ax = plot_gain(self.mu, rates, labels=labels if len(labels) > 1 else None, title="gain function")
+        figs = _save(ax.figure, folder, "gain")
+        return {"table": "gain.csv", "figures": figs, "points": int(self.mu.size),
+                "max_rate_hz": float(np.nanmax(rates)), "min_rate_hz": float(np.nanmin(rates))}
+
+
+@dataclass(frozen=True)
+class StationaryStats:
+    """Stationary statistics (rate, CV, mean potential, ISI density) at the drives ``mu`` (mV)."""
+
+    mu: np.ndarray
+
+    def compute(self, population) -> list:
+        from ..theory.steady_state import stationary
+
+        return [stationary(population, float(m)) for m in self.mu]
+
+    def write(self, population, folder: Path, header: dict) -> dict:
+        from ..plotting import _axes, plot_isi
+
+        states = self.compute(population)
+        cols = {"mu_mV": self.mu, "rate_Hz": [s.rate for s in states], "cv": [s.cv for s in states],
+                "mean_u_mV": [s.mean_u for s in states]}
+        write_table(folder / "stationary.csv", cols, {**header, "population": describe_population(population),
+                                                        "units": "mu mV, rate Hz, cv 1, mean_u mV"})
+        ax = _axes(None)
+        for m, s in zip(self.mu, states):
+            plot_isi(s.isi_t, s.isi_density, ax=ax, label=f"mu = {m:g} mV: {s.rate:.3g} Hz, CV {s.cv:.2f}")
+        ax.legend(frameon=False, loc="upper right")
+        figs = _save(ax.figure, folder, "isi")
+        return {"table": "stationary.csv", "figures": figs,
+                "states": [{"mu_mV": float(m), "rate_hz": float(s.rate), "cv": float(s.cv),
+                            "mean_u_mV": float(s.mean_u)} for m, s in zip(self.mu, states)]}
+
+
+@dataclass(frozen=True)
+class TransferCurve:
+    """Transfer function at the stationary drive ``mu`` (mV) over ``freqs`` (Hz)."""
+
+    mu: float
+    freqs: np.ndarray
+    modulate: str = "mean"
+
+    @property
+    def unit(self) -> str:
+        from ..theory.linear_response import MODULATIONS
+
+        return MODULATIONS[self.modulate]
+
+    def compute(self, population) -> np.ndarray:
+        from ..theory.linear_response import transfer
+
+        return transfer(population, self.mu, self.freqs, modulate=self.modulate)
+
+    def write(self, population, folder: Path, header: dict) -> dict:
+        from ..plotting import plot_transfer
+
+        chi = self.compute(population)
+        u = self.unit.replace("/", "_per_").replace("^", "")
+        cols = {"frequency_Hz": self.freqs, f"real_{u}": chi.real, f"imag_{u}": chi.imag,
+                f"abs_{u}": np.abs(chi), "phase_rad": np.angle(chi)}
+        write_table(folder / "transfer.csv", cols,
+                    {**header, "population": describe_population(population),
+                     "units": f"frequency Hz, transfer {self.unit} ({self.modulate} modulation)",
+                     "stationary_drive_mV": f"{self.mu:g}"})
+        fig = plot_transfer(self.freqs, chi, unit=self.unit)
+        fig.suptitle(f"transfer function ({self.modulate} modulation) at mu = {self.mu:g} mV")
+        figs = _save(fig, folder, "transfer")
+        return {"table": "transfer.csv", "figures": figs, "frequencies": int(self.freqs.size),
+                "modulate": self.modulate}
+
+
+def _parse_gain(src, table, data, white):
+    _unknown(src, table, data, {"mu", "sigma"}, ("mu",))
+    mu = parse_values(src, table, "mu", data["mu"])
+    if "sigma" in data:
+        if not white:
+            raise ScenarioError(f"{src}: [{table}] key `sigma` applies to white noise only ([noise] kind = 'white')")
+        sig = parse_values(src, table, "sigma", data["sigma"], positive=True)
+        return GainCurve(mu, tuple(float(s) for s in sig))
+    return GainCurve(mu)
+
+
+def _parse_stationary(src, table, data, white):
+    _unknown(src, table, data, {"mu"}, ("mu",))
+    return StationaryStats(parse_values(src, table, "mu", data["mu"]))
+
+
+def _parse_transfer(src, table, data, white):
+    _unknown(src, table, data, {"mu", "frequencies", "modulate"}, ("mu", "frequencies"))
+    mu = _finite(src, table, "mu", data["mu"])
+    freqs = parse_values(src, table, "frequencies", data["frequencies"])
+    if np.any(freqs < 0):
+        raise _err(src, table, "frequencies", data["frequencies"], "frequencies >= 0 (Hz)")
+    modulate = data.get("modulate", "mean")
+    if modulate not in ("mean", "noise", "sigma"):
+        raise _err(src, table, "modulate", modulate, "'mean', 'noise' (sigma^2) or 'sigma'")
+    if modulate != "mean" and not white:
+        raise _err(src, table, "modulate", modulate, f"'mean' ('{modulate}' needs [noise] kind = 'white')")
+    return TransferCurve(mu, freqs, modulate)
+
+
+#: Analysis table name → parser.
+ANALYSIS_TABLES = {"gain": _parse_gain, "stationary": _parse_stationary, "transfer": _parse_transfer}
+
+
+def parse_analyses(src, data: dict, white: bool) -> tuple:
+    """The analysis objects named by the tables of ``data``, in a fixed order."""
+    return tuple((name, parser(src, name, data[name], white)) for name, parser in ANALYSIS_TABLES.items()
+                 if name in data)

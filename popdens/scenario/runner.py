@@ -1,0 +1,303 @@
+"""Run a scenario and write its outputs (one function serves the CLI, tests and scripts)."""
+
+from __future__ import annotations
+
+import json
+import math
+import shutil
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+
+from .._files import jsonable
+from .._version import __version__
+from ..exceptions import ScenarioError
+from ..result import STATUS_INTERRUPTED
+from ..solvers.frontend import simulate
+from ..twins.population import montecarlo
+from .report import html_report
+from .single import Scenario
+
+__all__ = ["run_scenario"]
+
+
+#: File written beside the outputs with the wall times: the only output that differs
+#: between two runs of the same scenario and seed.
+TIMING_FILE = "timing.json"
+
+
+def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwrite: bool = False,
+                 progress: bool | None = None) -> dict:
+    """Run ``scenario``: the time-domain prediction (and Monte Carlo twin) and the analyses it names.
+
+    Outputs go to a temporary folder next to the destination, which is renamed
+    into place only when complete, so an interrupted or failed run leaves no
+    partial output (and an existing folder being replaced stays intact until
+    the new one is complete).  An existing folder is replaced only with
+    ``overwrite=True`` and only if it is a popdens output folder (it holds the
+    ``summary.json`` of a run).  Without ``output`` the destination is the
+    scenario's ``output``, which must lie inside the scenario's folder, also
+    after following symbolic links.
+
+    Every file except ``timing.json`` is bit-identical between runs of the
+    same scenario with the same seed.
+
+    Returns
+    -------
+    dict
+        The summary written to ``summary.json``, plus ``output`` (the folder)
+        and ``timing`` (wall times, s).
+
+    Raises
+    ------
+    ScenarioError
+        If the scenario's output folder leads outside the scenario's folder.
+    FileExistsError
+        If the destination exists and may not be replaced.
+    KeyboardInterrupt
+        If the user interrupted the run (nothing is written then).
+    """
+    if output is not None:
+        dest = Path(output)
+    else:
+        base = scenario.source.parent
+        dest = base / scenario.output
+        inside = dest.resolve()
+        if not inside.is_relative_to(base.resolve()) or inside == base.resolve():
+            raise ScenarioError(f"{scenario.source}: [scenario] key `output` = {str(scenario.output)!r} leads "
+                                f"to {inside}, outside the scenario's folder (through a symbolic link); "
+                                f"give the folder with --out instead")
+    if dest.exists() or dest.is_symlink():
+        if not overwrite:
+            raise FileExistsError(f"output folder {dest} exists; choose another or pass overwrite")
+        if dest.is_symlink() or not _is_output_folder(dest):
+            raise FileExistsError(f"{dest} exists and is not a popdens output folder (no summary.json of a "
+                                  f"run); refusing to replace it")
+    dest.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{dest.name}.", dir=dest.parent))
+    try:
+        header = {"scenario": str(scenario.source.name), "scenario_sha256_16": scenario.digest,
+                  "popdens_version": __version__}
+        summary = {
+            "title": scenario.title,
+            "scenario": str(scenario.source),
+            "scenario_sha256_16": scenario.digest,
+            "version": __version__,
+            "caution": "model predictions for a research tool; not for clinical or safety decisions",
+        }
+        timing = {}
+        figures = []  # (file name, caption) pairs for the report
+        if hasattr(scenario, "circuit"):  # a network scenario
+            figures += _network(scenario, tmp, header, summary, timing, progress)
+        elif scenario.runs_in_time:
+            figures += _time_domain(scenario, tmp, header, summary, timing, progress)
+        for name, analysis in getattr(scenario, "analyses", ()):
+            t0 = time.perf_counter()
+            summary[name] = analysis.write(scenario.population, tmp, header)
+            timing[f"{name}_s"] = time.perf_counter() - t0
+            png = next(f for f in summary[name]["figures"] if f.endswith(".png"))
+            figures.append((png, CAPTIONS[name]))
+        summary["files"] = sorted([p.name for p in tmp.iterdir()] + ["report.html", "summary.json", TIMING_FILE])
+        (tmp / "summary.json").write_text(json.dumps(jsonable(summary), indent=2, sort_keys=True) + "\n")
+        (tmp / "report.html").write_text(html_report(scenario, summary, tmp, figures), encoding="utf-8")
+        (tmp / TIMING_FILE).write_text(json.dumps(timing, indent=2, sort_keys=True) + "\n")
+        _move_into_place(tmp, dest)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    summary["output"] = str(dest)
+    summary["timing"] = timing
+    return summary
+
+
+#: Report captions of the analysis figures.
+CAPTIONS = {"gain": "Gain function: stationary rate against mean drive",
+            "stationary": "Stationary interspike-interval densities",
+            "transfer": "Transfer function: magnitude and phase against frequency"}
+
+
+def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:
+    """The density prediction, and the Monte Carlo twin if requested; returns the report figures."""
+    pred = simulate(scenario.population, scenario.drive, scenario.t_end, scenario.dt,
+                    record_interval=scenario.record_interval, snapshot_interval=scenario.snapshot_interval,
+                    progress=progress)
+    _stop_if_interrupted(pred)
+    header = {**header, "units": "t ms, rate Hz, u mV, drive mV", "t_end_ms": scenario.t_end,
+              "record_interval_ms": scenario.record_interval}
+    pred.to_csv(tmp / "prediction.csv", header_extra=header)
+    timing["prediction_s"] = pred.diagnostics.get("wall_time_s")
+    summary["settings"] = {"t_end_ms": scenario.t_end, "dt_ms": pred.dt,
+                           "record_interval_ms": scenario.record_interval,
+                           "snapshot_interval_ms": scenario.snapshot_interval,
+                           "montecarlo_neurons": scenario.montecarlo_neurons, "seed": scenario.seed}
+    summary["prediction"] = {"method": pred.method, "status": pred.status, "message": pred.message,
+                             "peak_rate_hz": _finite_or_none(np.max(pred.rate)),
+                             "final_rate_hz": _finite_or_none(pred.rate[-1]),
+                             "diagnostics": pred.settings()}
+    mc = None
+    if scenario.montecarlo_neurons:
+        mc = montecarlo(scenario.population, scenario.drive, scenario.t_end, scenario.montecarlo_neurons,
+                        dt=pred.dt, seed=scenario.seed, record_interval=scenario.record_interval,
+                        progress=progress)
+        _stop_if_interrupted(mc)
+        mc.to_csv(tmp / "montecarlo.csv", header_extra=header)
+        n_cmp = min(mc.rate.size, pred.rate.size)
+        se = mc.rate_standard_error()[1:n_cmp]
+        z = np.abs(mc.rate[1:n_cmp] - pred.rate[1:n_cmp]) / np.maximum(se, 1e-12)
+        timing["montecarlo_s"] = mc.diagnostics.get("wall_time_s")
+        summary["montecarlo"] = {"n_neurons": mc.n_neurons, "seed": scenario.seed,
+                                 "status": mc.status, "message": mc.message,
+                                 "fraction_within_4_se": float(np.mean(z <= 4.0)) if z.size else None,
+                                 "diagnostics": mc.settings()}
+    return _figures(pred, mc, tmp)
+
+
+def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:
+    """Fixed points, their stability, the mean-field run and the spiking twin of a network scenario."""
+    from .analyses import write_table
+    from ..network.integrate import simulate_network
+    from ..network.twin import montecarlo_network
+    from ..network.linear_stability import stability
+    from ..network.states import fixed_points
+    from ..plotting import save_figure
+
+    c = scenario.circuit
+    names = list(c.names)
+    figures = []
+    summary["settings"] = {"t_end_ms": scenario.t_end, "dt_ms": scenario.dt,
+                           "record_interval_ms": scenario.record_interval, "montecarlo": scenario.montecarlo,
+                           "seed": scenario.seed, "rate_range_hz": list(scenario.rate_range)}
+    summary["cohorts"] = {a.name: {"size": a.size, "model": type(a.population.neuron).__name__,
+                                      "noise": type(a.population.noise).__name__} for a in c.cohorts}
+    if scenario.fixed_points:
+        t0 = time.perf_counter()
+        states = fixed_points(c, scenario.rate_range)
+        verdicts = [stability(c, st) for st in states] if scenario.stability else [None] * len(states)
+        timing["fixed_points_s"] = time.perf_counter() - t0
+        cols = {"state": list(range(len(states)))}
+        for k, nm in enumerate(names):
+            cols[f"rate_Hz_{nm}"] = [st.rates[k] for st in states]
+            cols[f"mu_mV_{nm}"] = [st.mu[k] for st in states]
+            cols[f"sigma_mV_{nm}"] = [st.sigma[k] if st.sigma is not None else float("nan") for st in states]
+        if scenario.stability:
+            cols["stable"] = [float(v.stable) for v in verdicts]
+            cols["growth_rate_per_s"] = [v.growth_rate for v in verdicts]
+            cols["frequency_Hz"] = [v.frequency for v in verdicts]
+        if states:
+            write_table(tmp / "fixed_points.csv", cols,
+                        {**header, "units": "rate Hz, mu mV, sigma mV, growth rate 1/s, frequency Hz; "
+                                            "stable 1/0"})
+        summary["fixed_points"] = [
+            {"rates_hz": dict(zip(names, map(float, st.rates))), "mu_mV": dict(zip(names, map(float, st.mu))),
+             **({} if v is None else {"stable": bool(v.stable), "leading_growth_rate_per_s": float(v.growth_rate),
+                                      "leading_frequency_hz": float(v.frequency), "n_unstable": int(v.n_unstable)})}
+            for st, v in zip(states, verdicts)]
+    if scenario.stability_grid is not None:
+        from ..network.maps import stability_map
+
+        inh, drv = scenario.stability_grid
+        t0 = time.perf_counter()
+        smap = stability_map(scenario.circuit_at, inh, drv, x_label="inhibition factor (x inhibitory weights)",
+                             y_label="external drive (mV)", rate_range=scenario.rate_range, progress=progress)
+        timing["stability_map_s"] = time.perf_counter() - t0
+        if not smap.complete:  # only Ctrl-C leaves a map incomplete: not an output
+            raise KeyboardInterrupt("interrupted while computing the stability map")
+        xx, yy = np.meshgrid(smap.x, smap.y)
+        write_table(tmp / "stability_map.csv",
+                    {"inhibition_factor": xx.ravel(), "drive_mV": yy.ravel(),
+                     "growth_rate_per_s": smap.growth_rate.ravel(), "frequency_Hz": smap.frequency.ravel(),
+                     **{f"rate_Hz_{nm}": smap.rates[..., k].ravel() for k, nm in enumerate(names)}},
+                    {**header, "units": "drive mV, growth rate 1/s (> 0: unstable), frequency Hz, rate Hz; "
+                                        "the least stable fixed point at each point"})
+        fig, _ = smap.plot()
+        save_figure(fig, tmp, "stability_map")
+        figures.append(("stability_map.png", "Linear stability over inhibition and external drive"))
+        summary["stability_map"] = {"points": int(smap.growth_rate.size),
+                                    "unstable_points": int(np.sum(smap.growth_rate > 0)),
+                                    "complete": bool(smap.complete)}
+    if scenario.t_end > 0:
+        mf = simulate_network(c, scenario.t_end, scenario.dt, record_interval=scenario.record_interval,
+                              progress=progress)
+        _stop_if_interrupted(mf)
+        timing["mean_field_s"] = mf.diagnostics.get("wall_time_s")
+        cols = {"t_ms": mf.t, **{f"rate_Hz_{nm}": mf.rate[k] for k, nm in enumerate(names)}}
+        write_table(tmp / "network_prediction.csv", cols, {**header, "method": mf.method, "units": "t ms, rate Hz"})
+        summary["prediction"] = {"method": mf.method, "status": mf.status, "message": mf.message,
+                                 "final_rates_hz": dict(zip(names, map(float, mf.rate[:, -1])))}
+        ax = mf.plot()
+        if scenario.montecarlo:
+            mc = montecarlo_network(c, scenario.t_end, scenario.dt, seed=scenario.seed,
+                                    record_interval=scenario.record_interval, progress=progress)
+            _stop_if_interrupted(mc)
+            timing["montecarlo_s"] = mc.diagnostics.get("wall_time_s")
+            cols = {"t_ms": mc.t, **{f"rate_Hz_{nm}": mc.rate[k] for k, nm in enumerate(names)}}
+            write_table(tmp / "network_montecarlo.csv", cols,
+                        {**header, "method": mc.method, "seed": scenario.seed, "units": "t ms, rate Hz"})
+            half = scenario.t_end / 2
+            summary["montecarlo"] = {"status": mc.status, "message": mc.message, "seed": scenario.seed,
+                                     "sizes": dict(zip(names, mc.sizes)) if mc.sizes else None,
+                                     "mean_rates_second_half_hz": dict(zip(names, map(float, mc.mean_rate(half)))),
+                                     "mean_field_second_half_hz": dict(zip(names, map(float, mf.mean_rate(half))))}
+            for k, nm in enumerate(names):
+                ax.plot(mc.t[1:], mc.rate[k, 1:], lw=0.7, alpha=0.6, color=f"C{k}", label=f"{nm} (spiking twin)")
+            ax.legend(frameon=False)
+        save_figure(ax.figure, tmp, "network_rate")
+        figures.append(("network_rate.png", "Rates of the cohorts over time"
+                        + (" (mean field and spiking twin)" if scenario.montecarlo else "")))
+    return figures
+
+
+def _finite_or_none(x):
+    x = float(x)
+    return x if math.isfinite(x) else None
+
+
+def _stop_if_interrupted(res) -> None:
+    """A run the user interrupted is not an output: stop here, the caller removes the temporary folder."""
+    if res.status == STATUS_INTERRUPTED:
+        raise KeyboardInterrupt(res.message)
+
+
+def _is_output_folder(path: Path) -> bool:
+    """True for a folder written by :func:`run_scenario` (its summary.json names a scenario hash)."""
+    try:
+        data = json.loads((path / "summary.json").read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    return isinstance(data, dict) and "scenario_sha256_16" in data and "version" in data
+
+
+def _move_into_place(tmp: Path, dest: Path) -> None:
+    """Rename the complete folder ``tmp`` to ``dest``; an old ``dest`` is removed only afterwards."""
+    if not dest.exists():
+        tmp.rename(dest)
+        return
+    old = Path(tempfile.mkdtemp(prefix=f".{dest.name}.old.", dir=dest.parent))
+    old.rmdir()
+    dest.rename(old)
+    try:
+        tmp.rename(dest)
+    except BaseException:
+        old.rename(dest)
+        raise
+    shutil.rmtree(old, ignore_errors=True)
+
+
+def _figures(pred, mc, folder: Path) -> list:
+    from ..plotting import plot_comparison, plot_density_map, plot_rate, save_figure
+
+    if mc is not None:
+        fig = plot_comparison(pred, mc)
+    else:
+        fig = plot_rate(pred).figure
+    save_figure(fig, folder, "rate")
+    out = [("rate.png", "Population rate over time, with the drive beneath"
+            + (" (solver against the Monte Carlo twin)" if mc is not None else ""))]
+    if pred.snapshots is not None and len(pred.snapshot_t) >= 2:
+        save_figure(plot_density_map(pred).figure, folder, "density")
+        out.append(("density.png", f"Density over time ({pred.axis_name})"))
+    return out
+
+

@@ -1,0 +1,83 @@
+"""Time grids and recording shared by the density solvers and the Monte Carlo twins."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .. import _validation as v
+
+#: Steps advanced per compiled call between progress updates / interrupts.
+BLOCK_STEPS = 5000
+
+
+@dataclass(frozen=True)
+class TimeGrid:
+    """Internal steps and recording schedule.
+
+    ``n_steps`` steps of ``dt`` ms cover ``[0, t_end]``; outputs every
+    ``every`` steps; snapshots every ``snap_every`` steps (0 = none).
+    """
+
+    t_end: float
+    dt: float
+    n_steps: int
+    every: int
+    snap_every: int
+
+    @property
+    def output_times(self) -> np.ndarray:
+        return np.arange(self.n_steps // self.every + 1) * self.every * self.dt
+
+    def step_times(self, k0: int, k1: int) -> np.ndarray:
+        """Times (ms) of the step boundaries k0..k1 (inclusive)."""
+        return np.arange(k0, k1 + 1) * self.dt
+
+
+def make_grid(t_end, dt, record_interval=None, snapshot_interval=None) -> TimeGrid:
+    t_end = v.positive("t_end", t_end)
+    dt = v.positive("dt", dt)
+    n = v.n_steps_for(t_end, dt)
+    every = 1
+    if record_interval is not None:
+        record_interval = v.positive("record_interval", record_interval)
+        every = v.n_steps_for(record_interval, dt, name_t="record_interval")
+        if n % every:
+            raise ValueError(
+                f"`record_interval` = {record_interval!r} ms must divide `t_end` = {t_end!r} ms"
+            )
+    snap = 0
+    if snapshot_interval is not None:
+        snapshot_interval = v.positive("snapshot_interval", snapshot_interval)
+        snap = v.n_steps_for(snapshot_interval, dt, name_t="snapshot_interval")
+    return TimeGrid(t_end, dt, n, every, snap)
+
+
+def block_ends(grid: TimeGrid, block: int = BLOCK_STEPS):
+    """Step indices at which compiled blocks end (snapshot steps included)."""
+    ends = set(range(block, grid.n_steps, block))
+    if grid.snap_every:
+        ends.update(range(grid.snap_every, grid.n_steps, grid.snap_every))
+    ends.add(grid.n_steps)
+    return sorted(ends)
+
+
+def downsample(grid: TimeGrid, rate0: float, rate, mean_u0, mean_u, refr0, refr, done: int):
+    """Outputs at recording times from per-step arrays covering ``done`` steps.
+
+    Rates are averaged over each recording interval (spike counts are
+    preserved); potentials and refractory fractions are sampled at its end.
+    """
+    e = grid.every
+    n_out = done // e
+    r = np.asarray(rate[: n_out * e]).reshape(n_out, e).mean(axis=1) if n_out else np.empty(0)
+    mu_s = np.asarray(mean_u[e - 1 : n_out * e : e])
+    rf_s = np.asarray(refr[e - 1 : n_out * e : e])
+    t = np.arange(n_out + 1) * e * grid.dt
+    return (t, np.concatenate([[rate0], r]), np.concatenate([[mean_u0], mu_s]),
+            np.concatenate([[refr0], rf_s]))
+
+
+
+__all__ = ["TimeGrid", "make_grid", "block_ends", "downsample", "BLOCK_STEPS"]

@@ -1,0 +1,434 @@
+"""Linear response of a population in its stationary state.
+
+A weak modulation ``eps * exp(2 pi i f t)`` of the input around the
+stationary drive ``mu`` modulates the population rate by ``eps * chi(f) *
+exp(2 pi i f t)``; ``chi`` is the transfer function (susceptibility).  This
+module computes it and what follows from it:
+
+* :func:`transfer` -- ``chi(f)`` in Hz/mV (mean drive) or Hz/mV^2 (noise
+  intensity ``sigma**2``), at real or complex frequencies;
+* :func:`response_kernel` -- the impulse response ``kappa(t)`` (Hz per mV ms),
+  the inverse Fourier transform of ``chi``;
+* :func:`linear_rate_response` -- the rate predicted for any weak drive,
+  ``r(t) = r0 + int kappa(t') [mu(t - t') - mu] dt'``, to compare with
+  :func:`popdens.simulate`.
+
+Methods
+-------
+* escape noise: the linearised renewal equation (Gerstner 2000, Neural
+  Comput. 12:43), compiled over frequencies, with closed-form tails
+  (:mod:`popdens.theory._renewal_response`);
+* white noise, any drift: threshold integration at complex frequency
+  (Richardson 2007, Phys. Rev. E 76:021919) with Richardson extrapolation in
+  the grid step (:mod:`popdens.theory._modulated_threshold`);
+* white-noise LIF, optionally: the closed form with parabolic-cylinder
+  functions (Brunel & Hakim 1999; Lindner & Schimansky-Geier 2001), needs
+  mpmath (:mod:`popdens.theory._lif_exact`).
+
+Complex frequencies
+-------------------
+``freqs`` may be complex.  The modulation ``exp(2 pi i f t)`` is then
+``exp(lambda t)`` with the Laplace variable ``lambda = 2 pi i f`` (1/s, t in
+s): ``f = lambda / (2 pi i)``, the growth rate is ``Re lambda = -2 pi Im f``
+(1/s) and the angular frequency ``Im lambda = 2 pi Re f``.  :func:`laplace_to_freq`
+converts.  Results for ``Re lambda < 0`` are analytic continuations and are
+valid while the stationary ISI density decays faster than ``exp(Re lambda t)``.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from .. import _validation as v
+from ._modulated_threshold import NODES_PER_SIGMA, Sweep
+from ._renewal_response import _renewal_sweep, free_trajectory
+from ..model.drive import as_drive
+from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..progress import Progress
+
+__all__ = ["transfer", "response_kernel", "linear_rate_response", "laplace_to_freq", "stationary_rate"]
+
+#: Age step (ms) of the renewal quadrature grid, at most (measured: second order, 6e-6 relative
+#: at 1 kHz for tau_m = 10 ms); refined for fast membranes.
+AGE_STEP_MS = 0.02
+#: Ages per membrane time constant, at least.
+AGES_PER_TAU = 250
+#: The age grid ends where the survivor function falls below this ...
+SURVIVOR_FLOOR = 1e-13
+#: ... or where the free trajectory has converged to within this (mV); beyond, closed-form tails.
+CONVERGED_MV = 1e-10
+#: Longest age grid considered (ms) before giving up on a vanishing rate.
+MAX_AGE_MS = 1e5
+#: Frequencies per compiled call (progress is reported between blocks).
+FREQ_BLOCK = 256
+#: Methods accepted by :func:`transfer`.
+METHODS = ("renewal", "threshold-integration", "closed-form")
+#: Modulated inputs accepted by :func:`transfer` and their units.
+MODULATIONS = {"mean": "Hz/mV", "noise": "Hz/mV^2", "sigma": "Hz/mV"}
+
+
+def laplace_to_freq(lam):
+    """Frequency (Hz, complex) of the Laplace variable ``lam`` (1/s): ``f = lam / (2 pi i)``."""
+    return np.asarray(lam, dtype=complex) / (2j * math.pi)
+
+
+# ---------------------------------------------------------------------------- escape noise
+class _AgeGrid:
+    """Stationary renewal quantities of an escape-noise population on a uniform age grid."""
+
+    def __init__(self, population, mu: float, prefer_tail: bool = False):
+        nrn, hz = population.neuron, population.noise.hazard
+        da = min(AGE_STEP_MS, nrn.tau_m / AGES_PER_TAU)
+        a_max = nrn.refractory + 20.0 * nrn.tau_m
+        tref = float(nrn.refractory)
+        while True:
+            # ages start at the end of the refractory period: before it the hazard and the
+            # membrane response vanish and S0 = 1, so the integrals there are exact
+            ages = tref + np.arange(0.0, a_max - tref + 0.5 * da, da)
+            u0 = free_trajectory(nrn, mu, ages)
+            if nrn.has_cutoff and np.any(u0 >= nrn.boundary):
+                raise ValueError(
+                    f"at `mu` = {mu!r} mV the free trajectory reaches the cut-off; the linear response of "
+                    "deterministic crossings is not supported by the escape-noise transfer function")
+            h0 = np.asarray(hz.rate(u0, nrn.threshold), dtype=float) * 1e-3  # 1/ms
+            cum = np.concatenate([[0.0], np.cumsum(0.5 * (h0[1:] + h0[:-1]) * da)])
+            surv = np.exp(-cum)
+            below = np.nonzero(surv < SURVIVOR_FLOOR)[0]
+            end = int(below[0]) if below.size else None
+            tail = False
+            slope_inf = float(nrn.drift_slope(float(u0[-1]))) / nrn.tau_m
+            if prefer_tail and slope_inf < 0 and a_max <= MAX_AGE_MS:
+                end = None  # decaying modes: carry the grid on to the closed-form tail
+            off = np.abs(u0 - u0[-1]) >= CONVERGED_MV
+            n_tau = int(math.ceil(nrn.tau_m / da))
+            if slope_inf < 0 and ages.size > n_tau and not np.any(off[-n_tau:]) and h0[-1] > 0:
+                conv = max(int(np.nonzero(off)[0][-1]) + 1 if np.any(off) else 0, 2)
+                if end is None or conv < end:
+                    end, tail = conv, True
+            if end is not None:
+                break
+            if a_max > MAX_AGE_MS:
+                raise ValueError(f"the stationary rate at `mu` = {mu!r} mV is too low for a transfer function")
+            a_max *= 2.0
+        n = end + 1
+        self.da, self.ages, self.u0, self.h0, self.surv = da, ages[:n], u0[:n], h0[:n], surv[:n]
+        self.tail = tail
+        self.tail_slope = slope_inf
+        self.hu = np.asarray(hz.slope(self.u0, nrn.threshold), dtype=float) * 1e-3  # 1/(ms mV)
+        self.gslope = np.asarray(nrn.drift_slope(0.5 * (self.u0[1:] + self.u0[:-1])), dtype=float) / nrn.tau_m
+        self.e_slope = np.exp(self.gslope * da)
+        w = np.full(n, da)
+        w[0] = w[-1] = 0.5 * da
+        self.weights = w
+        sc, hc = self.surv[-1], self.h0[-1]
+        # moments of the discrete ISI density P0 = h0 S0 (tails in closed form)
+        p0 = self.h0 * self.surv
+        self.mean_isi = float(np.sum(w * self.ages * p0)) + (sc * (self.ages[-1] + 1.0 / hc) if tail else 0.0)
+        a_c = self.ages[-1]
+        self.isi_second = float(np.sum(w * self.ages ** 2 * p0)) + (
+            sc * (a_c ** 2 + 2.0 * a_c / hc + 2.0 / hc ** 2) if tail else 0.0)
+        self.survivor_integral = tref + float(np.sum(w * self.surv)) + (sc / hc if tail else 0.0)
+        self.tref = tref
+
+    def sweep(self, s, tau_m):
+        s = np.ascontiguousarray(np.asarray(s, dtype=complex).ravel())
+        if s.size and self.tail:
+            hc = self.h0[-1]
+            if np.any(s.real <= -hc) or np.any(s.real <= self.tail_slope - hc):
+                raise ValueError("complex `freqs` decay faster than the stationary ISI density: "
+                                 f"need growth rate Re(lambda) > {-1000.0 * hc:.6g} 1/s")
+        elif s.size and np.any(SURVIVOR_FLOOR * np.exp(-s.real * self.ages[-1]) > 1e-10):
+            raise ValueError("complex `freqs` decay faster than the stationary ISI density: need growth rate "
+                             f"Re(lambda) > {1000.0 * math.log(SURVIVOR_FLOOR / 1e-10) / self.ages[-1]:.6g} 1/s")
+        out = np.empty((s.size, 2), dtype=complex)
+        _renewal_sweep(s, self.tref, self.da, float(tau_m), self.hu, self.h0, self.surv, self.gslope,
+                       self.e_slope, self.tail, self.tail_slope, out)
+        return out[:, 0], out[:, 1]
+
+
+def _escape_transfer(population, mu, s, progress):
+    grid = _AgeGrid(population, mu, prefer_tail=bool(np.any(s.real < 0)))
+    tau_m = population.neuron.tau_m
+    a0 = 1.0 / grid.mean_isi  # 1/ms
+    # Exactly, Q(0) = 0 and P_hat(0) = 1; subtracting the discrete values at zero frequency keeps
+    # quadrature errors from being amplified by 1/(1 - P_hat) at low frequencies.
+    q0, p0 = grid.sweep(np.zeros(1), tau_m)
+    out = np.empty(s.shape, dtype=complex)
+    bar = Progress(s.size, "transfer", enabled=progress)
+    for i0 in range(0, s.size, FREQ_BLOCK):
+        q, p_hat = grid.sweep(s[i0:i0 + FREQ_BLOCK], tau_m)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out[i0:i0 + FREQ_BLOCK] = a0 * (q - q0[0]) / (p0[0] - p_hat) * 1000.0  # Hz/mV
+        bar.update(min(i0 + FREQ_BLOCK, s.size))
+    bar.close()
+    zero = s == 0
+    if np.any(zero):
+        out[zero] = _escape_static_slope(population, mu)
+    return out
+
+
+def _escape_rate(population, mu):
+    return 1000.0 / _AgeGrid(population, mu).survivor_integral
+
+
+def _escape_static_slope(population, mu: float) -> float:
+    """d(rate)/d(mu) (Hz/mV) by a central difference of the renewal rate."""
+    eps = 1e-4 * max(1.0, abs(mu))
+    return (_escape_rate(population, mu + eps) - _escape_rate(population, mu - eps)) / (2.0 * eps)
+
+
+# ---------------------------------------------------------------------------- white noise
+def _sigma_of(population) -> float:
+    s = population.noise.sigma
+    if isinstance(s, (int, float)):
+        return float(s)
+    if s.is_constant:
+        return float(s(0.0))
+    raise ValueError("the linear response needs a constant noise amplitude `sigma` (mV)")
+
+
+def _white_transfer(population, mu, s, modulate, progress, nodes_per_sigma=NODES_PER_SIGMA):
+    """Threshold integration on grids of step h and h/2, combined (4 X_{h/2} - X_h)/3 (second order)."""
+    sigma = _sigma_of(population)
+    kind = "mean" if modulate == "mean" else "sigma2"
+    coarse = Sweep(population.neuron, mu, sigma, nodes_per_sigma)
+    fine = Sweep(population.neuron, mu, sigma, 2 * nodes_per_sigma)
+    out = np.empty(s.shape, dtype=complex)
+    bar = Progress(s.size, "transfer", enabled=progress)
+    for i0 in range(0, s.size, FREQ_BLOCK):
+        blk = s[i0:i0 + FREQ_BLOCK]
+        out[i0:i0 + FREQ_BLOCK] = (4.0 * fine.solve(blk, kind)[0] - coarse.solve(blk, kind)[0]) / 3.0
+        bar.update(min(i0 + FREQ_BLOCK, s.size))
+    bar.close()
+    if modulate == "sigma":
+        out = out * (2.0 * sigma)  # d(sigma^2) = 2 sigma d(sigma)
+    return out
+
+
+def stationary_rate(population, mu) -> float:
+    """Stationary rate (Hz) at drive ``mu`` (mV), on the grids of the linear-response methods.
+
+    Escape noise: ``1 / int S0(a) da`` (renewal theory); white noise: threshold
+    integration, extrapolated in the grid step.
+    """
+    population = _check_population(population)
+    mu = v.as_finite_float("mu", mu)
+    if isinstance(population.noise, EscapeNoise):
+        return _escape_rate(population, mu)
+    sigma = _sigma_of(population)
+    r1 = Sweep(population.neuron, mu, sigma).rate
+    r2 = Sweep(population.neuron, mu, sigma, 2 * NODES_PER_SIGMA).rate
+    return (4.0 * r2 - r1) / 3.0
+
+
+# ---------------------------------------------------------------------------- front end
+def _check_population(population):
+    if not isinstance(population, Population):
+        raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
+    if isinstance(population.noise, EscapeNoise) and population.noise.hazard.uses_slope:
+        raise ValueError("the linear response does not support escape functions that depend on du/dt")
+    return population
+
+
+def _check_freqs(freqs):
+    f = np.asarray(freqs)
+    if f.dtype.kind not in "biufc":
+        raise ValueError("`freqs` must be numbers (Hz)")
+    f = f.astype(complex)
+    if not np.all(np.isfinite(f)):
+        raise ValueError("`freqs` must be finite (Hz)")
+    return f
+
+
+def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | None = None,
+             progress: bool | None = None) -> np.ndarray:
+    """Transfer function of the population rate around the stationary state at drive ``mu``.
+
+    Parameters
+    ----------
+    population : Population
+        Escape noise (hazard depending on ``u`` only) or white noise with a
+        constant ``sigma``.
+    mu : float
+        Stationary drive (mV).
+    freqs : array_like of float or complex
+        Frequencies (Hz).  Complex values mean the modulation
+        ``exp(lambda t)`` with ``lambda = 2 pi i f`` (1/s); see the module
+        notes and :func:`laplace_to_freq`.
+    modulate : {"mean", "noise", "sigma"}
+        The modulated input: the mean drive ``mu`` (result in Hz/mV); the
+        noise intensity ``sigma**2`` (``"noise"``, Hz/mV^2, white noise
+        only); or the amplitude ``sigma`` (Hz/mV, white noise only).
+    method : {"renewal", "threshold-integration", "closed-form"}, optional
+        Default: ``"renewal"`` for escape noise, ``"threshold-integration"``
+        for white noise.  ``"closed-form"``: white-noise LIF only, needs
+        mpmath, ~10 ms per frequency.
+    progress : bool, optional
+        Progress line on stderr (default: on a terminal, for long runs).
+
+    Returns
+    -------
+    ndarray of complex, shape of ``freqs``
+        Rate modulation per unit input modulation; its phase is the lead of
+        the rate over the input.  ``chi(-f) = conj(chi(f))`` for real ``f``.
+
+    Notes
+    -----
+    Accuracy (measured, see ``tests/test_linear_response.py``): threshold
+    integration (200 and 400 nodes per mV of sigma, extrapolated) agrees with
+    the closed form for the LIF from 1 Hz to 1 kHz to 5e-11 ... 8e-6 relative
+    across sub- and suprathreshold regimes; before extrapolation its error is
+    second order in the step.  The renewal path (age step
+    ``min(0.02 ms, tau_m/250)``, trapezoidal, second order) is within 6e-6
+    of a 4x finer grid at 1 kHz.
+
+    Examples
+    --------
+    >>> import popdens
+    >>> pop = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 2.0),
+    ...                          popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0)))
+    >>> chi = transfer(pop, 18.0, [0.0, 10.0])
+    >>> chi.dtype.kind
+    'c'
+    """
+    population = _check_population(population)
+    mu = v.as_finite_float("mu", mu)
+    f = _check_freqs(freqs)
+    if modulate not in MODULATIONS:
+        raise ValueError(f"`modulate` must be one of {sorted(MODULATIONS)}, got {modulate!r}")
+    escape = isinstance(population.noise, EscapeNoise)
+    if method is None:
+        method = "renewal" if escape else "threshold-integration"
+    if method not in METHODS:
+        raise ValueError(f"`method` must be one of {list(METHODS)}, got {method!r}")
+    if escape and method != "renewal":
+        raise ValueError(f"`method` = {method!r} needs white noise; escape noise uses 'renewal'")
+    if not escape and method == "renewal":
+        raise ValueError("`method` = 'renewal' needs escape noise")
+    if escape and modulate != "mean":
+        raise ValueError(f"`modulate` must be 'mean' for escape noise, got {modulate!r}")
+    s = (2j * math.pi * 1e-3) * f.ravel()  # Laplace variable, 1/ms
+    if escape:
+        out = _escape_transfer(population, mu, s, progress)
+    elif method == "closed-form":
+        if population.neuron.code != 0:
+            raise ValueError("`method` = 'closed-form' is available for the LIF only")
+        from ._lif_exact import lif_response, siegert_slope
+
+        sigma = _sigma_of(population)
+        kind = "mean" if modulate == "mean" else "sigma2"
+        out = np.empty(s.shape, dtype=complex)
+        nz = s != 0
+        out[nz] = lif_response(population.neuron, mu, sigma, s[nz], kind)
+        if np.any(~nz):
+            out[~nz] = siegert_slope(population.neuron, mu, sigma, kind)
+        if modulate == "sigma":
+            out *= 2.0 * sigma
+    else:
+        out = _white_transfer(population, mu, s, modulate, progress)
+    return out.reshape(f.shape)
+
+
+# ---------------------------------------------------------------------------- time domain
+def _periodic_kernel(population, mu, dt, n, modulate, method, progress):
+    """Kernel samples kappa(m dt), m = 0..n-1, of period n dt (negative lags at the end), Hz/(mV ms)."""
+    freqs = np.arange(n // 2 + 1) * (1000.0 / (n * dt))  # Hz
+    chi = transfer(population, mu, freqs, modulate, method=method, progress=progress)
+    return chi, np.fft.irfft(chi, n) / dt
+
+
+def response_kernel(population, mu, dt: float, duration: float, modulate: str = "mean", *,
+                    method: str | None = None, progress: bool | None = None):
+    """Linear response kernel (impulse response) of the rate, from the transfer function.
+
+    ``kappa(t) = (1/2 pi) int chi(omega) exp(i omega t) d omega``, band-limited to
+    the Nyquist frequency ``1/(2 dt)``: the rate response to a weak input
+    pulse of area ``a`` (mV ms) is ``a * kappa(t)``.
+
+    Parameters
+    ----------
+    population : Population
+    mu : float
+        Stationary drive (mV).
+    dt : float
+        Time step (ms), > 0.
+    duration : float
+        Length of the kernel (ms); should exceed its decay time.  Computed on
+        a period of twice this, so that slow tails do not alias.
+    modulate, method, progress
+        As in :func:`transfer`.
+
+    Returns
+    -------
+    t : ndarray
+        Times (ms), ``0, dt, 2 dt, ...`` below ``duration``.
+    kernel : ndarray
+        ``kappa(t)`` in Hz/(mV ms) (Hz/(mV^2 ms) for ``modulate="noise"``).
+
+    Notes
+    -----
+    The band limit spreads a kernel that is singular at ``t = 0+`` (white-noise
+    LIF: ``kappa ~ t^(-1/2)``, from ``chi ~ f^(-1/2)``) over a few ``dt``, partly
+    onto negative times, which are not returned: ``sum(kernel) * dt`` falls
+    short of ``chi(0)`` by that part (measured 0.6 % for a white-noise LIF with
+    ``dt = 0.1`` ms, shrinking like ``sqrt(dt)``).  :func:`linear_rate_response`
+    keeps it.
+    """
+    dt = v.positive("dt", dt)
+    duration = v.positive("duration", duration)
+    n_half = max(2, int(math.ceil(duration / dt)))
+    _, kernel = _periodic_kernel(population, mu, dt, 2 * n_half, modulate, method, progress)
+    return np.arange(n_half) * dt, kernel[:n_half]
+
+
+def linear_rate_response(population, drive, t_end: float, dt: float, *, mu=None, kernel_duration=None,
+                         method: str | None = None, progress: bool | None = None):
+    """Rate predicted by linear response theory for a weak drive.
+
+    The population sits in its stationary state at drive ``mu`` (default:
+    ``drive(0)``) before t = 0; afterwards ``r(t) = r0 + int kappa(t')
+    [drive(t - t') - mu] dt'`` with the kernel of :func:`response_kernel`,
+    evaluated as a product in the frequency domain (exact for the
+    band-limited kernel, including its ringing around ``t' = 0``).  Valid
+    while the deviation stays weak; compare with :func:`popdens.simulate`.
+
+    Parameters
+    ----------
+    population : Population
+    drive : Drive or float
+        Input drive (mV) over time (ms).
+    t_end : float
+        Duration (ms).
+    dt : float
+        Time step (ms); must divide ``t_end``.
+    mu : float, optional
+        Stationary drive (mV) before t = 0.
+    kernel_duration : float, optional
+        Memory of the kernel (ms); default and minimum ``t_end``.  Raise it
+        when the kernel rings longer than the run (weak noise).
+    method, progress
+        As in :func:`transfer`.
+
+    Returns
+    -------
+    t : ndarray
+        Times (ms) ``0, dt, ..., t_end``.
+    rate : ndarray
+        Predicted rate (Hz) at those times.
+    """
+    drive = as_drive(drive)
+    dt = v.positive("dt", dt)
+    t_end = v.positive("t_end", t_end)
+    n_steps = v.n_steps_for(t_end, dt)
+    t = np.arange(n_steps + 1) * dt
+    mu0 = float(drive(0.0)) if mu is None else v.as_finite_float("mu", mu)
+    dmu = np.asarray(drive(t), dtype=float) - mu0
+    if not np.all(np.isfinite(dmu)):
+        raise ValueError("the drive is not finite on [0, t_end]")
+    memory = t_end if kernel_duration is None else max(t_end, v.positive("kernel_duration", kernel_duration))
+    n = 2 * max(t.size, int(math.ceil(memory / dt)) + 1)
+    chi, _ = _periodic_kernel(population, mu0, dt, n, "mean", method, progress)
+    conv = np.fft.irfft(chi * np.fft.rfft(dmu, n), n)[:t.size]
+    return t, stationary_rate(population, mu0) + conv

@@ -1,0 +1,558 @@
+"""Steady state of a population at constant drive: gain functions, ISI statistics, inverse design.
+
+For a constant drive ``mu`` (mV) a population settles into a stationary
+state: every neuron is a renewal process whose inter-spike intervals (ISIs)
+have a fixed distribution.  This module computes, without simulating,
+
+* :func:`gain` -- the stationary rate (Hz) over an array of drives;
+* :func:`gain_slope` -- its derivative d(rate)/d(mu) (Hz/mV);
+* :func:`stationary` -- rate, ISI coefficient of variation, ISI density and
+  survivor function, the stationary membrane (diffusive) or age (escape)
+  density and the mean potential, as a :class:`SteadyState`;
+* :func:`drive_for_rate` -- the drive giving a target rate;
+* :func:`drive_and_noise_for` -- for white noise, the (mu, sigma) pair giving a
+  target rate and CV.
+
+Methods
+-------
+* White noise, LIF: the Siegert formula (Siegert 1951; Brunel & Hakim 1999),
+  evaluated stably (:mod:`popdens.theory._siegert`).
+* White noise, PIF: the inverse-Gaussian closed form (Gerstein & Mandelbrot 1964).
+* White noise, any drift: threshold integration (Richardson 2007, Phys. Rev.
+  E 76:021919), :mod:`popdens.theory._stationary_white`: second order in the cell width
+  (fourth for the LIF's linear drift, measured against the Siegert formula),
+  Richardson-extrapolated from two widths.
+* Escape noise: renewal theory along the free trajectory after reset
+  (:mod:`popdens.theory._stationary_escape`).
+
+The ISI CV of white-noise populations comes from the first two moments of
+the passage time from reset to the boundary; the ISI density from the
+Laplace transform of the passage time, obtained by threshold integration at
+complex frequency and inverted by a damped discrete Fourier series.
+
+Units: drives and noise amplitudes in mV, times in ms, rates in Hz,
+densities in 1/mV (potential) or 1/ms (age, ISI).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from scipy.optimize import brentq
+
+from .. import _validation as v
+from ..exceptions import ConvergenceError, UnreachableTargetError
+from ..model.drive import Constant, Drive
+from ..model.neurons import CODE_LIF, CODE_PIF
+from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ._isi_diffusive import passage_time_density
+from ._renewal import STATUS_OK as _RENEWAL_OK
+from ._renewal import reaches_cutoff, renewal_moments
+from ._scales import scratch
+from ._siegert import siegert_rate, siegert_slopes
+from ._stationary_escape import CUTOFF_PROBES, renewal_args, renewal_rates_hz
+from ._stationary_white import cv_diffusive, diffusive_sweep, pif_rate_slope, threshold_rates
+
+__all__ = ["SteadyState", "gain", "gain_slope", "stationary", "drive_for_rate", "drive_and_noise_for"]
+
+#: Largest number of recorded renewal steps (ISI output).
+RECORD_CAPACITY = 200_000
+#: Step (mV) of the fourth-order central difference used for gain slopes where no
+#: closed form exists (truncation ~ (step/scale)^4 for a scale of ~1 mV).
+SLOPE_STEP_MV = 1e-2
+#: Survivor level down to which the ISI output grid extends by default.
+ISI_GRID_SURVIVOR = 1e-6
+#: Default number of points of the ISI output grid.
+ISI_GRID_POINTS = 2001
+#: Largest |drive| (mV) tried when bracketing an inverse problem.
+MAX_DRIVE_MV = 1e6
+
+METHODS = ("auto", "siegert", "inverse-gaussian", "threshold-integration", "renewal")
+
+
+# ---------------------------------------------------------------- helpers
+def _check_population(population) -> None:
+    if not isinstance(population, Population):
+        raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
+
+
+def _constant_sigma(population, sigma) -> float | None:
+    """The noise amplitude (mV) for the steady state, or None for escape noise."""
+    noise = population.noise
+    if isinstance(noise, EscapeNoise):
+        if sigma is not None:
+            raise ValueError("`sigma` applies to white-noise populations only; this population has escape noise")
+        return None
+    if sigma is not None:
+        return v.positive("sigma", sigma)
+    s = noise.sigma
+    if isinstance(s, Constant):
+        return float(s.mu)
+    if isinstance(s, Drive):
+        raise ValueError(
+            "the steady state needs a constant noise amplitude: `population.noise.sigma` is "
+            f"{s!r}; pass `sigma=` (mV) or use a number / popdens.drive.Constant"
+        )
+    return float(s)
+
+
+def _drives(mu) -> np.ndarray:
+    arr = np.asarray(mu, dtype=float)
+    if not np.all(np.isfinite(arr)):
+        raise ValueError("`mu` must contain only finite drives (mV)")
+    return arr
+
+
+
+def _resolve_method(population, method) -> str:
+    if method not in METHODS:
+        raise ValueError(f"`method` must be one of {list(METHODS)}, got {method!r}")
+    escape = isinstance(population.noise, EscapeNoise)
+    if method == "auto":
+        if escape:
+            return "renewal"
+        code = population.neuron.code
+        return {CODE_LIF: "siegert", CODE_PIF: "inverse-gaussian"}.get(code, "threshold-integration")
+    if escape and method != "renewal":
+        raise ValueError(f"`method` {method!r} is for white noise; escape noise uses 'renewal'")
+    if not escape and method == "renewal":
+        raise ValueError("`method` 'renewal' is for escape noise; white noise uses 'siegert' or 'threshold-integration'")
+    if method == "siegert" and population.neuron.code != CODE_LIF:
+        raise ValueError("`method` 'siegert' applies to the LIF only; use 'threshold-integration'")
+    if method == "inverse-gaussian" and population.neuron.code != CODE_PIF:
+        raise ValueError("`method` 'inverse-gaussian' applies to the PIF only; use 'threshold-integration'")
+    return method
+
+
+
+
+# ---------------------------------------------------------------- public API
+def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
+    """Stationary firing rate (Hz) for each constant drive in ``mu``.
+
+    Parameters
+    ----------
+    population : Population
+        Any neuron model with escape or white noise.
+    mu : float or array_like
+        Constant drives (mV).
+    sigma : float, optional
+        White-noise amplitude (mV) overriding the population's (for sweeps
+        over the noise); not allowed for escape noise.
+    method : {"auto", "siegert", "inverse-gaussian", "threshold-integration", "renewal"}
+        ``"auto"``: Siegert formula for the white-noise LIF, the
+        inverse-Gaussian closed form for the white-noise PIF, threshold
+        integration for other white-noise models, renewal theory for escape
+        noise.
+
+    Returns
+    -------
+    ndarray
+        Rates in Hz, the shape of ``mu``.
+
+    Raises
+    ------
+    ValueError
+        Bad arguments, or a noise amplitude that varies in time.
+    ConvergenceError
+        No stationary state could be computed (the message names the drive).
+
+    Examples
+    --------
+    >>> import popdens
+    >>> pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(5.0))
+    >>> r = gain(pop, [10.0, 20.0])
+    >>> bool(r[0] < r[1])
+    True
+    """
+    _check_population(population)
+    sg = _constant_sigma(population, sigma)
+    mus = _drives(mu)
+    m = _resolve_method(population, method)
+    if m == "siegert":
+        nrn = population.neuron
+        return siegert_rate(mus, sg, nrn.tau_m, nrn.threshold, nrn.reset, nrn.refractory, nrn.rest) * 1000.0
+    if m == "inverse-gaussian":
+        return pif_rate_slope(population.neuron, mus)[0]
+    if m == "threshold-integration":
+        return threshold_rates(population, mus, sg)
+    return renewal_rates_hz(population, mus)
+
+
+
+def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
+    """Derivative of the gain function, d(rate)/d(mu) (Hz/mV), at each drive in ``mu``.
+
+    Exact for the white-noise LIF (derivative of the Siegert formula);
+    otherwise a fourth-order central difference with step
+    ``SLOPE_STEP_MV`` (mV) of the accurate rates.
+
+    Parameters
+    ----------
+    population : Population
+    mu : float or array_like
+        Drives (mV).
+    sigma : float, optional
+        White-noise amplitude override (mV).
+    method : str
+        As in :func:`gain`.
+    """
+    _check_population(population)
+    sg = _constant_sigma(population, sigma)
+    mus = _drives(mu)
+    m = _resolve_method(population, method)
+    nrn = population.neuron
+    if m == "inverse-gaussian":
+        return pif_rate_slope(nrn, mus)[1]
+    if m == "siegert":
+        _, d_mu, _ = siegert_slopes(mus, sg, nrn.tau_m, nrn.threshold, nrn.reset, nrn.refractory, nrn.rest)
+        return d_mu * 1000.0
+    h = SLOPE_STEP_MV
+    stencil = np.stack([mus - 2 * h, mus - h, mus + h, mus + 2 * h])
+    r = gain(population, stencil, sigma=sigma, method=m)
+    return (8.0 * (r[2] - r[1]) - (r[3] - r[0])) / (12.0 * h)
+
+
+@dataclass(frozen=True, repr=False)
+class SteadyState:
+    """Stationary state of a population at constant drive (see :func:`stationary`).
+
+    Attributes
+    ----------
+    population : Population
+    mu : float
+        Drive (mV).
+    sigma : float or None
+        White-noise amplitude (mV); None for escape noise.
+    rate : float
+        Stationary rate (Hz).
+    cv : float
+        Coefficient of variation of the ISI (dimensionless).
+    mean_isi : float
+        Mean ISI (ms), ``1000/rate``.
+    mean_u : float
+        Mean membrane potential (mV), refractory neurons counted at reset.
+    refractory_fraction : float
+        Fraction of neurons in their absolute refractory period, ``rate * tau_ref``.
+    isi_t : ndarray
+        Time grid (ms) of the ISI statistics.
+    isi_density : ndarray
+        ISI probability density (1/ms) on ``isi_t``.
+    survivor : ndarray
+        Probability that an ISI exceeds ``isi_t`` (dimensionless).
+    isi_atom : tuple or None
+        ``(age, mass)`` when a free trajectory reaches a spike cut-off under
+        escape noise: the survivors fire deterministically at that age (ms).
+    u, density, flux : ndarray or None
+        White noise: potential grid (mV), density of non-refractory neurons
+        (1/mV; integrates to ``1 - refractory_fraction``) and probability
+        flux (Hz).
+    age, age_density : ndarray or None
+        Escape noise: age since the last spike (ms) and the stationary age
+        density (1/ms; integrates to 1 over all ages, ``rate * survivor``).
+    method : str
+        How the rate was computed.
+    """
+
+    population: Any
+    mu: float
+    sigma: float | None
+    rate: float
+    cv: float
+    mean_isi: float
+    mean_u: float
+    refractory_fraction: float
+    isi_t: np.ndarray
+    isi_density: np.ndarray
+    survivor: np.ndarray
+    method: str
+    isi_atom: tuple | None = None
+    u: np.ndarray | None = None
+    density: np.ndarray | None = None
+    flux: np.ndarray | None = None
+    age: np.ndarray | None = None
+    age_density: np.ndarray | None = None
+    diagnostics: dict = field(default_factory=dict)
+
+    def __repr__(self) -> str:
+        who = f"{type(self.population.neuron).__name__}/{type(self.population.noise).__name__}"
+        noise = f", sigma={self.sigma:g} mV" if self.sigma is not None else ""
+        return (f"<SteadyState {who} at mu={self.mu:g} mV{noise}: rate {self.rate:.6g} Hz, CV {self.cv:.4g}, "
+                f"mean u {self.mean_u:.4g} mV, refractory fraction {self.refractory_fraction:.3g} ({self.method})>")
+
+    def plot(self):
+        """ISI density and the stationary (potential or age) density; returns the Figure."""
+        from ..plotting import plot_steady_state
+
+        return plot_steady_state(self)
+
+
+def _default_isi_grid(t_max: float) -> np.ndarray:
+    return np.linspace(0.0, t_max, ISI_GRID_POINTS)
+
+
+def _escape_stationary(population, mu: float, isi_t) -> SteadyState:
+    from scipy.interpolate import CubicHermiteSpline
+
+    nrn, hz, kn, kh = renewal_args(population)
+    stack, xbuf = scratch(nrn.program, hz.program)
+    mode = 1 if (nrn.has_cutoff and reaches_cutoff(*kn, float(nrn.reset), float(nrn.boundary), mu,
+                                                    CUTOFF_PROBES, stack, xbuf)) else 0
+    rec = np.zeros((RECORD_CAPACITY, 5))
+    m0, m1, mi, a_end, s_end, atom, n_rec, st = renewal_moments(
+        *kn, float(nrn.tau_m), float(nrn.reset), float(nrn.boundary), float(nrn.refractory), mu, *kh,
+        float(nrn.threshold), mode, np.zeros((10, 5)), rec, True, stack, xbuf)
+    if st != _RENEWAL_OK:
+        raise ConvergenceError(f"the renewal integrals did not converge at `mu` = {mu!r} mV")
+    if not math.isfinite(m0):
+        raise ValueError(f"at `mu` = {mu!r} mV the neurons stop firing (the hazard vanishes along the free "
+                         "trajectory): the rate is 0 and there is no stationary ISI distribution")
+    rec = rec[:n_rec]
+    rate_ms = 1.0 / m0
+    h_end = rec[-1, 4]
+    if isi_t is None:
+        t_max = rec[-1, 0]
+        if not atom and s_end > ISI_GRID_SURVIVOR and h_end > 0.0:
+            t_max = a_end + math.log(s_end / ISI_GRID_SURVIVOR) / h_end
+        isi_t = _default_isi_grid(max(t_max, 1e-9))
+    else:
+        isi_t = v.finite_array("isi_t", isi_t)
+        if np.any(isi_t < 0.0):
+            raise ValueError("`isi_t` must be >= 0 (ms)")
+    a_rec = rec[:, 0]
+    keep = np.concatenate([[True], np.diff(a_rec) > 0.0])
+    a_rec, u_rec, big_h, du_rec, h_rec = (rec[keep, k] for k in range(5))
+    big_h_at = np.zeros(isi_t.shape)
+    u_at = np.full(isi_t.shape, float(nrn.reset))
+    inside = (isi_t >= a_rec[0]) & (isi_t <= a_rec[-1])
+    if a_rec.size >= 2:
+        big_h_at[inside] = CubicHermiteSpline(a_rec, big_h, h_rec)(isi_t[inside])
+        u_at[inside] = CubicHermiteSpline(a_rec, u_rec, du_rec)(isi_t[inside])
+    beyond = isi_t > a_rec[-1]
+    if atom:
+        surv = np.where(beyond, 0.0, np.exp(-big_h_at))
+    else:
+        big_h_at[beyond] = big_h[-1] + h_end * (isi_t[beyond] - a_rec[-1])
+        u_at[beyond] = u_rec[-1]
+        surv = np.exp(-big_h_at)
+    free = isi_t >= nrn.refractory
+    du_at = np.interp(isi_t, a_rec, du_rec)
+    haz = np.where(free, np.asarray(hz.rate(u_at, nrn.threshold, du_at), dtype=float) * 1e-3, 0.0)
+    if atom:
+        haz = np.where(beyond, 0.0, haz)
+    mean_isi = m0
+    var = 2.0 * m1 - m0 * m0
+    cv = math.sqrt(max(var, 0.0)) / mean_isi if math.isfinite(var) else float("nan")
+    return SteadyState(
+        population=population, mu=mu, sigma=None, rate=rate_ms * 1000.0, cv=cv, mean_isi=mean_isi,
+        mean_u=float(mi * rate_ms), refractory_fraction=float(rate_ms * nrn.refractory),
+        isi_t=isi_t, isi_density=haz * surv, survivor=surv, method="renewal",
+        isi_atom=(float(a_end), float(s_end)) if atom else None,
+        age=isi_t, age_density=rate_ms * surv,
+        diagnostics={"renewal_steps": int(n_rec), "mode": "potential" if mode else "age"},
+    )
+
+
+def _diffusive_stationary(population, mu: float, sigma: float, isi_t, method: str) -> SteadyState:
+    nrn = population.neuron
+    sw = diffusive_sweep(population, mu, sigma)
+    rate = sw.rate
+    if method == "siegert":
+        rate = float(siegert_rate(mu, sigma, nrn.tau_m, nrn.threshold, nrn.reset, nrn.refractory, nrn.rest)) * 1000.0
+    mean_isi = sw.t1 + nrn.refractory
+    var = sw.t2 - sw.t1 * sw.t1
+    if method == "inverse-gaussian":
+        # closed forms (Gerstein & Mandelbrot 1964): mean d/v, variance 2 D d / v^3
+        v_ms, dd = mu / nrn.tau_m, sigma * sigma / (2.0 * nrn.tau_m)
+        dist = nrn.boundary - nrn.reset
+        rate = float(pif_rate_slope(nrn, np.array(mu))[0])
+        mean_isi, var = nrn.refractory + dist / v_ms, 2.0 * dd * dist / v_ms ** 3
+    cv = math.sqrt(max(var, 0.0)) / mean_isi
+
+    std = math.sqrt(max(var, 0.0))
+    if isi_t is None:
+        # past the mean by many standard deviations: S < ~1e-6 for Poisson-like tails (cv ~ 1)
+        isi_t = _default_isi_grid(nrn.refractory + sw.t1 + 14.0 * std)
+    else:
+        isi_t = v.finite_array("isi_t", isi_t)
+        if np.any(isi_t < 0.0):
+            raise ValueError("`isi_t` must be >= 0 (ms)")
+    dens, surv, residual = passage_time_density(population, mu, sigma, isi_t - nrn.refractory, sw.t1, std)
+    return SteadyState(
+        population=population, mu=mu, sigma=sigma, rate=rate, cv=cv, mean_isi=1000.0 / rate,
+        mean_u=sw.mean_u, refractory_fraction=float(rate * 1e-3 * nrn.refractory),
+        isi_t=isi_t, isi_density=dens, survivor=surv, method=method,
+        u=sw.u, density=sw.density, flux=sw.flux,
+        diagnostics={"cells": int(sw.u.size - 1), "threshold_integration_rate_hz": sw.rate,
+                     "mean_passage_ms": sw.t1, "isi_spectrum_residual": residual},
+    )
+
+
+def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> SteadyState:
+    """Stationary state at the constant drive ``mu`` (mV).
+
+    Parameters
+    ----------
+    population : Population
+    mu : float
+        Drive (mV).
+    sigma : float, optional
+        White-noise amplitude override (mV).
+    isi_t : array_like, optional
+        Times (ms) at which to report the ISI density and survivor function;
+        default 2001 points up to where the survivor function falls to
+        ``ISI_GRID_SURVIVOR`` (escape) or well past the mean ISI (white noise).
+    method : str
+        As in :func:`gain`.
+
+    Returns
+    -------
+    SteadyState
+        Rate (Hz), CV, ISI density (1/ms) and survivor on ``isi_t``, the
+        stationary potential density (white noise) or age density (escape
+        noise), mean potential (mV).
+    """
+    _check_population(population)
+    sg = _constant_sigma(population, sigma)
+    mu = v.as_finite_float("mu", mu)
+    m = _resolve_method(population, method)
+    if sg is None:
+        return _escape_stationary(population, mu, isi_t)
+    return _diffusive_stationary(population, mu, sg, isi_t, m)
+
+
+def _rate_ceiling_hz(population) -> float:
+    tau_ref = population.neuron.refractory
+    return math.inf if tau_ref == 0.0 else 1000.0 / tau_ref
+
+
+def drive_for_rate(population, rate, *, sigma=None, bracket=None) -> float | np.ndarray:
+    """Drive (mV) at which the stationary rate equals ``rate`` (Hz).
+
+    The gain function increases with the drive, so the root is bracketed by
+    expanding an interval around the drive that puts the drift's fixed point
+    at threshold, then refined with Brent's method on ``log(rate)``.
+
+    Parameters
+    ----------
+    population : Population
+    rate : float or array_like
+        Target rates (Hz), > 0 and below the ceiling ``1000/refractory``.
+    sigma : float, optional
+        White-noise amplitude override (mV).
+    bracket : (float, float), optional
+        Drives (mV) known to bracket the answer.
+
+    Returns
+    -------
+    float or ndarray
+        Drive(s) in mV.
+
+    Raises
+    ------
+    UnreachableTargetError
+        The target rate is not reached by any drive (e.g. above the
+        refractory ceiling, or above the saturation of the escape function).
+    """
+    _check_population(population)
+    _constant_sigma(population, sigma)
+    targets = np.asarray(rate, dtype=float)
+    out = np.array([_one_drive(population, float(t), sigma, bracket) for t in targets.ravel()])
+    return float(out[0]) if targets.ndim == 0 else out.reshape(targets.shape)
+
+
+def _one_drive(population, target, sigma, bracket) -> float:
+    if not (math.isfinite(target) and target > 0.0):
+        raise UnreachableTargetError(f"`rate` must be a finite rate > 0 Hz, got {target!r}")
+    ceiling = _rate_ceiling_hz(population)
+    if target >= ceiling:
+        raise UnreachableTargetError(
+            f"`rate` = {target!r} Hz is not reachable: the refractory period "
+            f"{population.neuron.refractory!r} ms caps the rate below {ceiling:g} Hz")
+    log_t = math.log(target)
+
+    def f(m):
+        r = float(gain(population, m, sigma=sigma))
+        return math.log(max(r, 1e-300)) - log_t
+
+    if bracket is not None:
+        lo, hi = (v.as_finite_float("bracket", b) for b in bracket)
+        if not (f(lo) < 0.0 < f(hi)):
+            raise UnreachableTargetError(f"`bracket` = {bracket!r} mV does not bracket the rate {target!r} Hz")
+    else:
+        nrn = population.neuron
+        centre = -float(nrn.drift(nrn.threshold))
+        width = max(1.0, abs(nrn.boundary - nrn.reset))
+        lo, hi = centre - width, centre + width
+        while f(lo) > 0.0:
+            lo = centre - 2.0 * (centre - lo)
+            if abs(lo) > MAX_DRIVE_MV:
+                raise UnreachableTargetError(
+                    f"`rate` = {target!r} Hz is below the rate at every drive down to {lo:g} mV")
+        while f(hi) < 0.0:
+            hi = centre + 2.0 * (hi - centre)
+            if abs(hi) > MAX_DRIVE_MV:
+                reached = float(gain(population, hi, sigma=sigma))
+                raise UnreachableTargetError(
+                    f"`rate` = {target!r} Hz is not reachable: the rate is still {reached:.6g} Hz at "
+                    f"`mu` = {hi:g} mV (saturation of the escape function or of the drift)")
+    return float(brentq(f, lo, hi, xtol=1e-12, rtol=1e-13, maxiter=200))
+
+
+
+def drive_and_noise_for(population, rate, cv, *, sigma_range=None, n_scan=24) -> tuple[float, float]:
+    """The (mu, sigma) pair (mV, mV) giving stationary ``rate`` (Hz) and ISI ``cv``, white noise.
+
+    Along the curve of constant rate the CV is scanned over ``n_scan``
+    log-spaced noise amplitudes in ``sigma_range``; the first crossing of the
+    target is refined with Brent's method (the drive solved by
+    :func:`drive_for_rate` at every trial amplitude).
+
+    Parameters
+    ----------
+    population : Population
+        White-noise population (its own sigma is ignored).
+    rate : float
+        Target rate (Hz).
+    cv : float
+        Target coefficient of variation, > 0.
+    sigma_range : (float, float), optional
+        Noise amplitudes (mV) searched; default ``(1e-3, 10)`` times
+        ``boundary - reset``.
+    n_scan : int
+        Number of scan points.
+
+    Raises
+    ------
+    UnreachableTargetError
+        No amplitude in the range gives the target CV at this rate (the
+        message gives the CV range found).
+    """
+    _check_population(population)
+    if not isinstance(population.noise, WhiteNoise):
+        raise ValueError("`drive_and_noise_for` needs a white-noise population")
+    cv = v.positive("cv", cv)
+    rate = v.positive("rate", rate)
+    nrn = population.neuron
+    span = float(nrn.boundary - nrn.reset)
+    lo, hi = (1e-3 * span, 10.0 * span) if sigma_range is None else (v.positive("sigma_range", s) for s in sigma_range)
+    n_scan = v.positive_int("n_scan", n_scan)
+
+    def cv_at(s):
+        m = drive_for_rate(population, rate, sigma=s)
+        return cv_diffusive(population, m, s), m
+
+    sigmas = np.geomspace(lo, hi, max(n_scan, 2))
+    vals = []
+    for s in sigmas:
+        vals.append(cv_at(float(s))[0] - cv)
+        if len(vals) >= 2 and vals[-2] * vals[-1] <= 0.0:
+            s_root = brentq(lambda s: cv_at(s)[0] - cv, float(sigmas[len(vals) - 2]), float(s), xtol=1e-12, rtol=1e-10)
+            return cv_at(s_root)[1], float(s_root)
+    found = np.asarray(vals) + cv
+    raise UnreachableTargetError(
+        f"`cv` = {cv!r} is not reachable at `rate` = {rate!r} Hz for sigma in [{lo:g}, {hi:g}] mV: "
+        f"the CV ranges over [{found.min():.4g}, {found.max():.4g}] there")

@@ -1,0 +1,243 @@
+"""Monte Carlo twins: direct simulation of N independent neurons.
+
+Every density prediction can be checked against a direct simulation of the
+neurons it describes.  :func:`montecarlo` simulates ``n`` independent
+neurons with the same model, noise and drive and returns the same
+:class:`~popdens.Result` as :func:`~popdens.simulate`.
+"""
+
+from __future__ import annotations
+
+import logging
+import time
+
+import numpy as np
+
+from .._version import __version__
+from .. import _validation as v
+from ._escape import run_escape, seed_compiled_rng
+from ..solvers.refractory import _newborn
+from ..solvers._recording import block_ends, downsample, make_grid
+from ..model.drive import as_drive
+from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..progress import Progress
+from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK, Result
+
+__all__ = ["montecarlo"]
+
+logger = logging.getLogger(__name__)
+
+#: Default time step (ms).
+DEFAULT_DT = 0.1
+#: Default burn-in (ms) at the initial drive for ``initial="stationary"``,
+#: in membrane time constants beyond the refractory period, plus a floor.
+BURN_IN_TAUS = 20.0
+BURN_IN_MIN_MS = 500.0
+#: Initial capacity of the spike buffer, per neuron.
+SPIKES_PER_NEURON_GUESS = 16
+
+
+def _escape_args(population, dt):
+    nrn = population.neuron
+    hz = population.noise.hazard
+    return (
+        nrn.code, np.ascontiguousarray(nrn.kernel_params, dtype=float), nrn.program[0], nrn.program[1],
+        float(nrn.tau_m), float(nrn.reset), float(nrn.boundary), bool(nrn.has_cutoff),
+        hz.code, np.ascontiguousarray(hz.kernel_params, dtype=float), hz.program[0], hz.program[1],
+        float(nrn.threshold), bool(hz.uses_slope), float(nrn.refractory), float(dt),
+    )
+
+
+class _EscapeEnsemble:
+    """State of N escape-noise neurons (see :mod:`popdens.twins._escape`)."""
+
+    def __init__(self, population, n, dt, rng):
+        nrn = population.neuron
+        self.args = _escape_args(population, dt)
+        self.dt = dt
+        self.u = np.full(n, float(nrn.reset))
+        # start free (age = refractory) so the burn-in begins with a spike-free reset state
+        self.age = np.full(n, float(nrn.refractory))
+        self.lam = np.zeros(n)
+        self.thr = rng.exponential(1.0, size=n)
+        self.h = np.zeros(n)
+        size = max(nrn.program[0].size, population.noise.hazard.program[0].size) + 2
+        self.stack = np.empty(size)
+        self.xbuf = np.zeros(3)
+        self.refractory = nrn.refractory
+
+    def run(self, mu, t0, record, spk_t, spk_i, n_spk):
+        n = mu.size - 1
+        count = np.empty(n, dtype=np.int64)
+        mean_u = np.empty(n)
+        refr = np.empty(n)
+        done, n_spk, full = run_escape(*self.args, self.u, self.age, self.lam, self.thr, self.h, mu, t0,
+                                       record, spk_t, spk_i, n_spk, count, mean_u, refr,
+                                       self.stack, self.xbuf)
+        return done, n_spk, full, count[:done], mean_u[:done], refr[:done]
+
+    def instantaneous_rate(self, population, mu):
+        nrn, hz = population.neuron, population.noise.hazard
+        free = self.age >= nrn.refractory
+        return float(np.mean(hz.rate(self.u, nrn.threshold, nrn.velocity(self.u, mu)) * free))
+
+    def start_synchronous(self, population, mu0):
+        """All neurons fire at t = 0: reset, age 0, fresh integrated hazard."""
+        u0, h0 = _newborn(*self.args[:6], *self.args[8:14], self.args[14], self.dt, float(mu0),
+                          self.stack, self.xbuf)
+        self.u[:] = u0
+        self.h[:] = h0
+        self.age[:] = 0.5 * self.dt  # as the density solver: fired within the step before t = 0
+        self.lam[:] = 0.0
+
+    def mean_potential(self):
+        return float(self.u.mean())
+
+    def refractory_fraction(self):
+        return float(np.mean(self.age < self.refractory - 1e-9 * self.dt))
+
+
+def _make_ensemble(population, n, dt, rng, options):
+    if isinstance(population.noise, EscapeNoise):
+        if options:
+            raise ValueError(f"unknown option(s) {sorted(options)} for escape-noise Monte Carlo")
+        return _EscapeEnsemble(population, n, dt, rng)
+    if isinstance(population.noise, WhiteNoise):
+        from ._diffusive import DiffusiveEnsemble  # noqa: PLC0415 - optional until available
+
+        return DiffusiveEnsemble(population, n, dt, rng, **options)
+    raise ValueError(f"unsupported noise {population.noise!r}")  # pragma: no cover
+
+
+def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stationary",
+               burn_in=None, record_interval=None, record_spikes=False, progress=None,
+               **options) -> Result:
+    """Simulate ``n`` independent neurons directly.
+
+    Parameters
+    ----------
+    population : Population
+        Neuron model and noise model (the same object the density solvers take).
+    drive : Drive or float
+        Input drive ``mu(t)`` (mV); a number means a constant drive.
+    t_end : float
+        Duration (ms).
+    n : int
+        Number of neurons.
+    dt : float, optional
+        Time step (ms), must divide ``t_end``; default 0.1 ms.
+    seed : int or numpy.random.Generator, optional
+        Seed or generator; the same seed gives bit-identical results.
+    initial : {"stationary", "synchronous"}
+        ``"stationary"``: neurons first run for ``burn_in`` ms at the drive
+        of t = 0, so that t = 0 finds them in the stationary state;
+        ``"synchronous"``: all neurons fire at t = 0.
+    burn_in : float, optional
+        Burn-in (ms) for ``initial="stationary"``; default
+        ``max(500, refractory + 20 tau_m)``.
+    record_interval : float, optional
+        Bin width (ms) of the population rate; default ``dt``.
+    record_spikes : bool
+        Keep spike times and neuron indices (``Result.spike_times``,
+        ``Result.spike_ids``, ``Result.isis()``).
+    progress : bool, optional
+        Show progress on stderr (default: only on a terminal, long runs).
+    **options
+        Noise-specific options (diffusive noise: see ``popdens.twins._diffusive``).
+
+    Returns
+    -------
+    Result
+        Same fields as :func:`popdens.simulate`; ``rate`` is the spike count
+        per bin divided by ``n`` and the bin width (Hz); ``n_neurons`` is set
+        and ``rate_standard_error()`` gives the Poisson standard error.
+
+    Examples
+    --------
+    >>> import popdens
+    >>> pop = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 2.0),
+    ...                          popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0)))
+    >>> res = popdens.montecarlo(pop, 15.0, t_end=10.0, n=1000, seed=1)
+    >>> res.n_neurons
+    1000
+    """
+    if not isinstance(population, Population):
+        raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
+    drive = as_drive(drive)
+    n = v.positive_int("n", n)
+    dt = DEFAULT_DT if dt is None else dt
+    grid = make_grid(t_end, dt, record_interval, None)
+    rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
+    if initial not in ("stationary", "synchronous"):
+        raise ValueError(f"`initial` must be 'stationary' or 'synchronous', got {initial!r}")
+    nrn = population.neuron
+    wall0 = time.perf_counter()
+    seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
+    ens = _make_ensemble(population, n, grid.dt, rng, options)
+    mu0 = float(drive(0.0))
+    if not np.isfinite(mu0):
+        raise ValueError("the drive is not finite at t = 0")
+    no_spikes = (np.zeros(1), np.zeros(1, dtype=np.int64))
+    if initial == "stationary":
+        if burn_in is None:
+            burn_in = max(BURN_IN_MIN_MS, nrn.refractory + BURN_IN_TAUS * nrn.tau_m)
+        burn_in = v.non_negative("burn_in", burn_in)
+        n_burn = int(round(burn_in / grid.dt))
+        for k0 in range(0, n_burn, 5000):
+            k1 = min(n_burn, k0 + 5000)
+            ens.run(np.full(k1 - k0 + 1, mu0), 0.0, False, *no_spikes, 0)
+    else:
+        if burn_in is not None:
+            v.warn_ignored("burn_in", "initial='synchronous' starts all neurons at a spike")
+        ens.start_synchronous(population, mu0)
+    rate0 = ens.instantaneous_rate(population, mu0)
+    meanu0, refr0 = ens.mean_potential(), ens.refractory_fraction()
+
+    counts = np.zeros(grid.n_steps)
+    mean_u = np.empty(grid.n_steps)
+    refr = np.empty(grid.n_steps)
+    cap = n * SPIKES_PER_NEURON_GUESS if record_spikes else 1
+    spk_t = np.empty(cap)
+    spk_i = np.empty(cap, dtype=np.int64)
+    n_spk = 0
+    bar = Progress(grid.n_steps, "montecarlo", progress)
+    k = 0
+    status, message = STATUS_OK, "completed"
+    try:
+        for end in block_ends(grid, 2000):
+            while k < end:
+                tk = grid.step_times(k, end)
+                mu = drive(tk)
+                if not np.all(np.isfinite(mu)):
+                    raise FloatingPointError(f"the drive is not finite at t = {tk[~np.isfinite(mu)][0]:g} ms")
+                done, n_spk, full, c, mu_out, rf = ens.run(mu, k * grid.dt, record_spikes, spk_t, spk_i, n_spk)
+                counts[k:k + done] = c
+                mean_u[k:k + done] = mu_out
+                refr[k:k + done] = rf
+                k += done
+                if full:
+                    spk_t = np.concatenate([spk_t[:n_spk], np.empty(max(cap, n_spk + n))])
+                    spk_i = np.concatenate([spk_i[:n_spk], np.empty(max(cap, n_spk + n), dtype=np.int64)])
+                    cap = spk_t.size
+            bar.update(k)
+    except FloatingPointError as exc:
+        status, message = STATUS_FAILED, str(exc)
+    except KeyboardInterrupt:
+        status, message = STATUS_INTERRUPTED, f"interrupted by the user at t = {k * grid.dt:g} ms"
+        logger.warning(message)
+    finally:
+        bar.close()
+    rate = counts / (n * grid.dt * 1e-3)
+    t, r_out, mu_o, rf_o = downsample(grid, rate0, rate, meanu0, mean_u, refr0, refr, k)
+    return Result(
+        t=t, rate=r_out, mean_u=mu_o, refractory_fraction=rf_o, drive=drive(t),
+        method="montecarlo", population=population, status=status, message=message,
+        dt=grid.dt, n_steps=k, n_neurons=n,
+        spike_times=spk_t[:n_spk].copy() if record_spikes else None,
+        spike_ids=spk_i[:n_spk].copy() if record_spikes else None,
+        diagnostics={"wall_time_s": time.perf_counter() - wall0, "version": __version__,
+                     "burn_in_ms": burn_in if initial == "stationary" else 0.0,
+                     "n_spikes": int(counts[:k].sum()), "dt_ms": grid.dt, "initial": initial,
+                     "seed": seed if isinstance(seed, (int, np.integer)) or seed is None else "generator"},
+    )
+
