@@ -98,11 +98,13 @@ def seed_kernel_rng(seed):  # pragma: no cover - compiled
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
 def _advance_finite(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                     hcode, hpar, hops, hargs, theta, uses_slope, tau_ref, dt,
-                    m, w, u, h, head, old, old_w, size, poisson, mu,
+                    m, w, u, h, head, old, old_w, own, size, poisson, mu,
                     out_rate, out_mean_u, out_refr, stack, xbuf):  # pragma: no cover - compiled
     """Advance ``len(mu) - 1`` steps of the finite population in place (module docstring).
 
-    ``old`` holds the last bin's mass, potential and cached hazard, ``old_w[0]`` its variance.
+    ``old`` holds the last bin's mass, potential and cached hazard, ``old_w[0]`` its variance;
+    ``own[j]`` (mV) is subtracted from the drive of the neurons of age ``(j + 1/2) dt`` (zero for an
+    isolated population; see :meth:`MesoscopicSolver.set_own_input`).
     Returns ``(head, steps_done, ok, clipped)``; ``clipped`` counts steps whose
     expected fraction left [0, 1] and was clipped.
     """
@@ -134,7 +136,8 @@ def _advance_finite(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff
             wj = w[p]
             un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                                       hcode, hpar, hops, hargs, theta, uses_slope,
-                                      (j + 0.5) * dt, tau_ref, dt, e_dt, u[p], h[p], mu0, mu1, stack, xbuf)
+                                      (j + 0.5) * dt, tau_ref, dt, e_dt, u[p], h[p],
+                                      mu0 - own[j], mu1 - own[j + 1], stack, xbuf)
             s = survival(big_h)
             q = 1.0 - s
             fired += mj * q
@@ -164,7 +167,8 @@ def _advance_finite(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff
         wo = old_w[0]
         un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                                   hcode, hpar, hops, hargs, theta, uses_slope,
-                                  tau_ref + dt, tau_ref, dt, e_dt, old[1], old[2], mu0, mu1, stack, xbuf)
+                                  tau_ref + dt, tau_ref, dt, e_dt, old[1], old[2],
+                                  mu0 - own[n_bins], mu1 - own[n_bins], stack, xbuf)
         s = survival(big_h)
         q = 1.0 - s
         fired += mo * q
@@ -179,7 +183,7 @@ def _advance_finite(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff
             u_old = un
         d1 = 0.0
         if uses_slope:
-            d1 = (drift_value(ncode, npar, nops, nargs, u_old, stack, xbuf) + mu1) / tau_m
+            d1 = (drift_value(ncode, npar, nops, nargs, u_old, stack, xbuf) + mu1 - own[n_bins]) / tau_m
         old[0] = m_old
         old[1] = u_old
         old[2] = hazard_value(hcode, hpar, hops, hargs, u_old, theta, d1, stack, xbuf)
@@ -214,7 +218,7 @@ def _advance_finite(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff
         if head < 0:
             head += n_bins
         unb, hnb = _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta,
-                            uses_slope, tau_ref, dt, mu1, stack, xbuf)
+                            uses_slope, tau_ref, dt, mu1 - own[0], stack, xbuf)
         m[head] = a
         w[head] = 0.0
         u[head] = unb
@@ -278,9 +282,25 @@ class MesoscopicSolver(RefractoryDensitySolver):
         self.burn_in = v.non_negative("burn_in", burn_in)
         self.w = np.zeros(self.n_bins)
         self.old_w = np.zeros(1)  # variance of the last bin (its mass, potential, hazard: ``old``)
+        self.own = np.zeros(self.n_bins + 1)  # drive (mV) removed by age: see set_own_input
         self.clipped = 0
         self._start = None  # state set by initialize(), restored by new_trial()
         self._stationary_start = False
+
+    def set_own_input(self, drive_by_age) -> None:
+        """Drive (mV) that a neuron of age ``a`` must *not* receive, given at the ages ``axis``.
+
+        In a network the drive of a cohort is computed from its whole activity,
+        which includes each neuron's own spikes.  A neuron does not synapse on
+        itself, so the network integrator passes here the part of the drive
+        that a neuron's own last spike contributes (its delayed, filtered PSP
+        drive as a function of its age) and scales the population term to
+        match (:mod:`popdens.network.integrate`).  Set before :meth:`initialize`.
+        """
+        own = np.asarray(drive_by_age, dtype=float)
+        if own.shape != self.own.shape or not np.all(np.isfinite(own)):
+            raise ValueError(f"`drive_by_age` must be {self.own.size} finite values (mV) on `axis`")
+        self.own[:] = own
 
     # ----------------------------------------------------------------- init
     def initialize(self, mu0: float, sigma0=None, initial="stationary") -> None:
@@ -347,7 +367,7 @@ class MesoscopicSolver(RefractoryDensitySolver):
         mean_u = np.empty(n)
         refr = np.empty(n)
         head, done, ok, clipped = _advance_finite(
-            *self._nargs, self.m, self.w, self.u, self.h, self.head, self.old, self.old_w, self.size,
+            *self._nargs, self.m, self.w, self.u, self.h, self.head, self.old, self.old_w, self.own, self.size,
             self.counts == "poisson", mu, rate, mean_u, refr, self._stack, self._xbuf)
         self.head = int(head)
         self.clipped += int(clipped)
