@@ -19,6 +19,8 @@ from popdens.network import Circuit, Cohort, Pathway, montecarlo_network, simula
 ESCAPE = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 2.0), popdens.EscapeNoise(hazard.Exponential(20.0, 2.0)))
 WHITE = popdens.Population(popdens.LIF(10.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(3.0))
 EIF_WHITE = popdens.Population(popdens.EIF(10.0, 15.0, 1.0, 25.0, 5.0, 1.0), popdens.WhiteNoise(3.0))
+ADAPTING = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 2.0, adaptation=[popdens.Adaptation(50.0, 1.0)]),
+                              ESCAPE.noise)
 
 #: 5.3 = 53 * 0.1 only up to round-off (53 * 0.1 = 5.300000000000001): the jump must still be
 #: seen on the boundary; 7.0 is exact.
@@ -36,7 +38,8 @@ def _check(before, after, t, t_jump, must_differ=True):
 
 
 @pytest.mark.parametrize("t_jump", JUMP_TIMES)
-@pytest.mark.parametrize("pop", [ESCAPE, WHITE, EIF_WHITE], ids=["refractory-density", "fokker-planck", "fp-eif"])
+@pytest.mark.parametrize("pop", [ESCAPE, WHITE, EIF_WHITE, ADAPTING],
+                         ids=["refractory-density", "fokker-planck", "fp-eif", "adapting"])
 def test_density_solvers_do_not_respond_before_a_jump(pop, t_jump):
     base = 14.0
     for stim in (drive.Step(t_jump, base, base + 8.0), drive.Step(t_jump, base, base - 8.0),
@@ -58,7 +61,7 @@ def test_noise_jump_does_not_act_early():
     _check(ref.rate, res.rate, ref.t, 5.3)
 
 
-@pytest.mark.parametrize("pop", [ESCAPE, WHITE], ids=["escape", "white"])
+@pytest.mark.parametrize("pop", [ESCAPE, WHITE, ADAPTING], ids=["escape", "white", "adapting"])
 def test_twins_do_not_respond_before_a_jump(pop):
     base = 14.0
     kw = dict(t_end=10.0, n=3000, seed=5, burn_in=50.0)
