@@ -19,6 +19,7 @@ from ._version import __version__
 from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, PopdensError, ScenarioError,
                          UnreachableTargetError)
 from .model import drive, hazard
+from .model.adaptation import Adaptation, MovingThreshold
 from .model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
 from .model.noise import EscapeNoise, Population, WhiteNoise
 from .network.circuit import Circuit, Cohort, Pathway, PoissonBackground
@@ -42,6 +43,7 @@ _sys.modules[__name__ + ".hazard"] = hazard
 
 __all__ = [
     "AccuracyWarning",
+    "Adaptation",
     "Circuit",
     "CircuitResult",
     "Cohort",
@@ -53,6 +55,7 @@ __all__ = [
     "ExpressionError",
     "FixedPoint",
     "LIF",
+    "MovingThreshold",
     "PIF",
     "Pathway",
     "PoissonBackground",

@@ -10,7 +10,7 @@ import warnings
 import numpy as np
 
 from .._version import __version__
-from ._recording import block_ends, downsample, make_grid
+from ._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps
 from ..model.drive import as_drive
 from ..model.noise import Population, WhiteNoise
 from ..progress import Progress
@@ -47,7 +47,7 @@ class _AccuracyGuard:
                 warnings.warn(msg, AccuracyWarning, stacklevel=3 + depth)
 
 
-def _integrate(solver, drive, sigma_drive, grid, guard, bar, offset: int = 0):
+def _integrate(solver, mu_at, sigma_at, grid, guard, bar, offset: int = 0):
     """Advance an initialised solver over ``grid`` in compiled blocks.
 
     Returns the per-step ``rate``, ``mean_u``, ``refr`` arrays, the steps done,
@@ -64,10 +64,10 @@ def _integrate(solver, drive, sigma_drive, grid, guard, bar, offset: int = 0):
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in block_ends(grid):
+        for end in split_at_jumps(block_ends(grid), mu_at, sigma_at):
             tk = grid.step_times(k, end)
-            mu = drive(tk)
-            sg = sigma_drive(tk) if sigma_drive is not None else None
+            mu = mu_at.values(k, end)
+            sg = sigma_at.values(k, end) if sigma_at is not None else None
             if not np.all(np.isfinite(mu)) or (sg is not None and not np.all(np.isfinite(sg))):
                 bad = tk[~np.isfinite(mu)] if not np.all(np.isfinite(mu)) else tk
                 status, message = STATUS_FAILED, f"the drive is not finite at t = {bad[0]:g} ms"
@@ -196,8 +196,10 @@ def simulate(population, drive, t_end, dt=None, *, n=None, seed=None, trials=Non
     sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
 
     wall0 = time.perf_counter()
-    mu0 = float(drive(0.0))
-    sigma0 = float(sigma_drive(0.0)) if sigma_drive is not None else None
+    mu_at = BoundarySamples(drive, grid)
+    sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
+    mu0 = mu_at.start()
+    sigma0 = sigma_at.start() if sigma_at is not None else None
     if not np.isfinite(mu0) or (sigma0 is not None and not np.isfinite(sigma0)):
         raise ValueError("the drive is not finite at t = 0")
     solver.initialize(mu0, sigma0, initial)
@@ -209,7 +211,7 @@ def simulate(population, drive, t_end, dt=None, *, n=None, seed=None, trials=Non
 
     bar = Progress(grid.n_steps, f"{cls.method_name}", progress)
     try:
-        rate, mean_u, refr, k, status, message, snaps_t, snaps = _integrate(solver, drive, sigma_drive, grid,
+        rate, mean_u, refr, k, status, message, snaps_t, snaps = _integrate(solver, mu_at, sigma_at, grid,
                                                                             guard, bar)
     finally:
         bar.close()
@@ -255,7 +257,8 @@ def _simulate_finite(population, drive, t_end, dt, n, seed, trials, method, init
     _check_options(cls, options, ("self", "population", "dt", "size"))
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
     wall0 = time.perf_counter()
-    mu0 = float(drive(0.0))
+    mu_at = BoundarySamples(drive, grid)
+    mu0 = mu_at.start()
     if not np.isfinite(mu0):
         raise ValueError("the drive is not finite at t = 0")
     trial_rates = np.full((n_trials, grid.n_steps // grid.every + 1), np.nan)
@@ -282,7 +285,7 @@ def _simulate_finite(population, drive, t_end, dt, n, seed, trials, method, init
             guard.check(np.array([mu0]), None, depth=1)
             start = (solver.instantaneous_rate(mu0, None), solver.mean_potential(), solver.refractory_fraction())
             rate, mean_u, refr, k, status, message, snaps_t, snaps = _integrate(
-                solver, drive, None, grid, guard, bar, offset=trial * grid.n_steps)
+                solver, mu_at, None, grid, guard, bar, offset=trial * grid.n_steps)
             t, r_out, mu_o, rf_o = downsample(grid, start[0], rate, start[1], mean_u, start[2], refr, k)
             trial_rates[trial, : r_out.size] = r_out
             clipped += solver.clipped

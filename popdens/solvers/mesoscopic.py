@@ -70,7 +70,9 @@ import numpy as np
 from .. import _validation as v
 from ..result import STATUS_OK
 from ..model._kernels import MS_TO_S, NO_REFCOUNT, drift_value, hazard_value, survival
-from .refractory import AGE_TOL, RefractoryDensitySolver, _bin_step, _newborn, _old_bin_map, _trajectory
+from ..model.adaptation import refuse
+from ._age_step import AGE_TOL, _bin_step, _newborn, _refire_survival
+from .refractory import RefractoryDensitySolver, _old_bin_map, _trajectory
 
 __all__ = ["MesoscopicSolver", "COUNT_MODELS", "seed_kernel_rng"]
 
@@ -229,6 +231,14 @@ def _advance_finite(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff
             head += n_bins
         unb, hnb = _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta,
                             uses_slope, tau_ref, dt, mu1 - own[0], stack, xbuf)
+        # without refractoriness a neuron reborn within the step may fire again before its end:
+        # each of the `spikes` neurons adds a geometric number of spikes (refractory._advance counts
+        # fired / s_nb, the mean of this), while the mass reborn stays spikes / N
+        s_nb = _refire_survival(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta,
+                                uses_slope, tau_ref, dt, mu1 - own[0], hnb, stack, xbuf)
+        extra = 0
+        if s_nb < 1.0 and spikes > 0:
+            extra = np.random.negative_binomial(spikes, s_nb)
         m[head] = a
         w[head] = 0.0
         u[head] = unb
@@ -245,7 +255,7 @@ def _advance_finite(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff
         else:
             out_mean_u[k] = um / m_new if m_new > 0.0 else unb
             out_refr[k] = rm / m_new if m_new > 0.0 else 0.0
-        out_rate[k] = a / (dt * MS_TO_S)
+        out_rate[k] = (spikes + extra) / size / (dt * MS_TO_S)
         if not math.isfinite(out_mean_u[k]):
             return head, k + 1, False, clipped
     return head, n, True, clipped
@@ -283,6 +293,7 @@ class MesoscopicSolver(RefractoryDensitySolver):
 
     def __init__(self, population, dt: float, size: int, counts: str = "binomial",
                  max_age: float | None = None, burn_in: float | None = None):
+        refuse(population, "finite-size integration (`n`)")
         if max_age is None:
             max_age = population.neuron.refractory + DEFAULT_MEMORY_TAUS * population.neuron.tau_m
         super().__init__(population, dt, max_age)

@@ -22,23 +22,28 @@ STEP = drive.Step(t=20.0, before=15.0, after=22.0)
 
 
 def test_without_n_the_front_end_is_the_deterministic_solver_stepped_by_hand():
-    """n=None runs today's solver: the same numbers as advancing it directly in one call."""
+    """n=None runs today's solver: the same numbers as advancing it directly, in two calls split at the
+    drive's jump (t = 20 ms: the first ends at its left limit, the second starts after it)."""
     pop = lif_pop()
     res = popdens.simulate(pop, STEP, t_end=60.0, dt=0.1, n=None)
     sol = RefractoryDensitySolver(pop, 0.1)
     sol.initialize(15.0)
-    rate, _, _ = sol.advance(STEP(np.arange(601) * 0.1))
+    before, _, _ = sol.advance(np.full(201, 15.0))
+    after, _, _ = sol.advance(np.full(401, 22.0))
+    rate = np.concatenate([before, after])
     assert res.method == "refractory-density" and res.n_neurons is None and res.trial_rates is None
     np.testing.assert_array_equal(res.rate[1:], rate)
 
 
-def test_huge_population_follows_the_deterministic_solver():
-    """N = 1e9: the realised activity is the expected one up to binomial noise.
+@pytest.mark.parametrize("tau_ref", [2.0, 0.0])
+def test_huge_population_follows_the_deterministic_solver(tau_ref):
+    """N = 1e9: the realised activity is the expected one up to binomial noise (without a refractory
+    period a neuron may fire twice within a step: those spikes count as in the infinite solver).
 
     Standard error of a 1 ms bin: sqrt(r / (N b)) (Poisson count of N independent neurons; common
     practice); every bin within 5 SE of the infinite-population solution.
     """
-    pop = lif_pop()
+    pop = lif_pop(tau_ref)
     det = popdens.simulate(pop, STEP, t_end=60.0, dt=0.1, record_interval=1.0)
     fin = popdens.simulate(pop, STEP, t_end=60.0, dt=0.1, record_interval=1.0, n=10**9, seed=3, burn_in=20.0)
     assert fin.success and fin.method == "mesoscopic" and fin.n_neurons == 10**9
@@ -113,6 +118,13 @@ def test_stationary_variance_of_1ms_bins_matches_the_renewal_closed_form():
 def test_misuse_names_the_parameter(kwargs, match):
     with pytest.raises(ValueError, match=match):
         popdens.simulate(lif_pop(), 15.0, t_end=5.0, **kwargs)
+
+
+def test_adapting_neurons_are_refused_naming_the_parameter():
+    nrn = popdens.LIF(10.0, 20.0, 0.0, 2.0, adaptation=[popdens.Adaptation(tau=100.0, jump=1.0)])
+    pop = popdens.Population(nrn, popdens.EscapeNoise(hazard.Exponential(20.0, 2.0)))
+    with pytest.raises(ValueError, match="`adaptation`"):
+        popdens.simulate(pop, 15.0, t_end=5.0, n=100)
 
 
 def test_white_noise_populations_have_no_finite_size_integrator():
