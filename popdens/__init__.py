@@ -27,6 +27,7 @@ from .network.integrate import simulate_network
 from .network.linear_stability import Stability, stability
 from .network.maps import StabilityMap, stability_map
 from .network.result import CircuitResult
+from .network.spectra import spectral_matrix
 from .network.states import FixedPoint, fixed_points
 from .network.twin import montecarlo_network
 from .result import Result, load_result
@@ -89,6 +90,7 @@ __all__ = [
     "response_kernel",
     "simulate",
     "simulate_network",
+    "spectral_matrix",
     "spike_train_spectrum",
     "stability",
     "stability_map",
