@@ -7,11 +7,11 @@ from __future__ import annotations
 
 import logging
 import math
-import time
 
 import numpy as np
 
 from .._version import __version__
+from ..model._jit import Stopwatch
 from .. import _validation as v
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
@@ -112,7 +112,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     sizes = np.array([a.size for a in asm], dtype=np.int64)
     start = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
     n_total = int(start[-1])
-    wall0 = time.perf_counter()
+    watch = Stopwatch()
 
     # -- per-cohort parameters
     nrns = [a.population.neuron for a in asm]
@@ -260,7 +260,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
         status=status, message=message, dt=dt, sizes=tuple(int(x) for x in sizes),
         spike_times=spk_t[:n_spk].copy() if record_spikes else None,
         spike_ids=spk_i[:n_spk].copy() if record_spikes else None,
-        diagnostics={"wall_time_s": time.perf_counter() - wall0, "version": __version__, "steps": k,
+        diagnostics={**watch.times(), "version": __version__, "steps": k,
                      "burn_in_ms": n_burn * dt, "burn_in_spikes": n_burn_spikes, "n_neurons": n_total,
                      "n_synapses": n_synapses, "n_spikes": n_spikes, "synaptic_events": events},
     )

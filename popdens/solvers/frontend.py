@@ -4,12 +4,12 @@ from __future__ import annotations
 
 import inspect
 import logging
-import time
 import warnings
 
 import numpy as np
 
 from .._version import __version__
+from ..model._jit import Stopwatch
 from ._recording import block_ends, downsample, make_grid
 from ..model.drive import as_drive
 from ..model.noise import Population, WhiteNoise
@@ -121,7 +121,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     solver = cls(population, grid.dt, **options)
     sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
 
-    wall0 = time.perf_counter()
+    watch = Stopwatch()
     mu0 = float(drive(0.0))
     sigma0 = float(sigma_drive(0.0)) if sigma_drive is not None else None
     if not np.isfinite(mu0) or (sigma0 is not None and not np.isfinite(sigma0)):
@@ -176,7 +176,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
         status, message = STATUS_FAILED, f"probability mass drifted by {mass_error:.3g}"
     t, r_out, mu_o, rf_o = downsample(grid, rate0, rate, meanu0, mean_u, refr0, refr, k)
     diagnostics = {
-        "wall_time_s": time.perf_counter() - wall0,
+        **watch.times(),
         "version": __version__,
         "mass_error": mass_error,
         "method": cls.method_name,

@@ -84,7 +84,7 @@ GUARD_MASS = 1e-6
 AGE_TOL = 1e-9
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
               hcode, hpar, hops, hargs, theta, uses_slope,
               age0, tau_ref, dt, e_dt, u, h_cached, mu0, mu1, stack, xbuf):  # pragma: no cover
@@ -132,7 +132,7 @@ def _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
     return u_new, h_new, 0.5 * (h_start + h_new) * free * MS_TO_S
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta, uses_slope,
              tau_ref, dt, mu1, stack, xbuf):  # pragma: no cover
     """Potential (mV) and hazard (Hz) of neurons that fired during the step just ended.

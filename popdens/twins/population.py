@@ -9,11 +9,11 @@ neurons with the same model, noise and drive and returns the same
 from __future__ import annotations
 
 import logging
-import time
 
 import numpy as np
 
 from .._version import __version__
+from ..model._jit import Stopwatch
 from .. import _validation as v
 from ._escape import run_escape, seed_compiled_rng
 from ..solvers.refractory import _newborn
@@ -171,7 +171,7 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     if initial not in ("stationary", "synchronous"):
         raise ValueError(f"`initial` must be 'stationary' or 'synchronous', got {initial!r}")
     nrn = population.neuron
-    wall0 = time.perf_counter()
+    watch = Stopwatch()
     seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
     ens = _make_ensemble(population, n, grid.dt, rng, options)
     mu0 = float(drive(0.0))
@@ -235,7 +235,7 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
         dt=grid.dt, n_steps=k, n_neurons=n,
         spike_times=spk_t[:n_spk].copy() if record_spikes else None,
         spike_ids=spk_i[:n_spk].copy() if record_spikes else None,
-        diagnostics={"wall_time_s": time.perf_counter() - wall0, "version": __version__,
+        diagnostics={**watch.times(), "version": __version__,
                      "burn_in_ms": burn_in if initial == "stationary" else 0.0,
                      "n_spikes": int(counts[:k].sum()), "dt_ms": grid.dt, "initial": initial,
                      "seed": seed if isinstance(seed, (int, np.integer)) or seed is None else "generator"},
