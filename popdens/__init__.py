@@ -29,6 +29,7 @@ _sys.modules[__name__ + ".hazard"] = hazard
 #: so that ``import popdens`` and ``popdens --help`` stay fast: the numerical modules pull in scipy,
 #: numba and sympy, about 1.5 s together.  ``from popdens import X`` works as usual.
 _LAZY = {
+    "Adaptation": "model.adaptation", "MovingThreshold": "model.adaptation",
     "CustomNeuron": "model.neurons", "EIF": "model.neurons", "LIF": "model.neurons", "PIF": "model.neurons",
     "QIF": "model.neurons",
     "EscapeNoise": "model.noise", "Population": "model.noise", "WhiteNoise": "model.noise",
@@ -59,6 +60,7 @@ __getattr__, __dir__ = _lazy_names(__name__, _LAZY, globals())
 
 __all__ = [
     "AccuracyWarning",
+    "Adaptation",
     "Agreement",
     "Circuit",
     "CircuitResult",
@@ -71,6 +73,7 @@ __all__ = [
     "ExpressionError",
     "FixedPoint",
     "LIF",
+    "MovingThreshold",
     "PIF",
     "Pathway",
     "PoissonBackground",

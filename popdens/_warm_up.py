@@ -81,6 +81,19 @@ def _white_theory():
     popdens.transfer(eif, 18.0, [10.0])
 
 
+def _adapting():
+    import popdens
+
+    esc, white, *_ = _populations()
+    cell = popdens.LIF(tau_m=10.0, threshold=20.0, reset=0.0, refractory=2.0,
+                       adaptation=[popdens.Adaptation(tau=50.0, jump=0.5), popdens.MovingThreshold(tau=30.0, jump=0.5)])
+    current = popdens.LIF(tau_m=10.0, threshold=20.0, reset=0.0, refractory=2.0,
+                          adaptation=[popdens.Adaptation(tau=50.0, jump=0.5)])
+    popdens.simulate(popdens.Population(cell, esc.noise), 16.0, t_end=1.0, dt=0.1, progress=False)
+    for pop in (popdens.Population(cell, esc.noise), popdens.Population(current, white.noise)):
+        popdens.montecarlo(pop, 16.0, t_end=1.0, n=10, dt=0.1, seed=1, progress=False)
+
+
 def _network():
     import popdens
 
@@ -96,6 +109,7 @@ def _network():
 
 #: Warm-up problems by name, each reaching a group of kernels (tiny sizes: their run time is negligible).
 TASKS: dict[str, Callable[[], None]] = {
+    "adapting": _adapting,
     "escape solver": _escape_solver,
     "escape theory": _escape_theory,
     "escape twin": _escape_twin,

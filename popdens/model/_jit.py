@@ -27,18 +27,25 @@ from numba.core import event
 
 __all__ = ["compile_seconds", "EXPECTED_SECONDS", "quiet_compilation", "Stopwatch"]
 
-#: Typical cold compile time (s, measured on a 2-core machine) of each kernel called from Python,
-#: including the helpers compiled with it.  Kernels not listed are announced without a time.
+#: Cold compile time (s) of each kernel called from Python, including the helpers compiled with it,
+#: measured on a fast 2-core machine under load (DEVELOPERS.md, "Compiled loops").  Kernels taking
+#: under a second are not listed and are announced without a time.
 EXPECTED_SECONDS = {
-    "refractory._advance": 4.0,
-    "refractory._trajectory": 1.0,
-    "_escape.run_escape": 1.0,
-    "_diffusive.run_diffusive": 2.0,
-    "fokker_planck._advance": 1.0,
-    "_renewal.renewal_rates": 2.0,
-    "_renewal.renewal_moments": 2.0,
-    "_threshold.stationary_sweep": 1.0,
-    "_network.run_network": 3.0,
+    "refractory._advance": 2.5,
+    "refractory._trajectory": 1.2,
+    "_refractory_adapting.advance_adapting": 4.0,
+    "_refractory_adapting.stationary_profile": 11.0,
+    "_escape.run_escape": 2.1,
+    "_escape.run_escape_adapting": 2.2,
+    "_diffusive.run_diffusive": 1.1,
+    "_diffusive.run_diffusive_adapting": 2.6,
+    "fokker_planck._advance": 2.7,
+    "_renewal.renewal_rates": 8.4,
+    "_renewal.renewal_moments": 5.1,
+    "_renewal_response._renewal_sweep": 1.9,
+    "_threshold.stationary_sweep": 1.4,
+    "_threshold.rates_for_drives": 1.1,
+    "_network.run_network": 5.5,
 }
 
 #: Environment variable that silences the compilation notices (the messages, not the timing).
@@ -108,7 +115,7 @@ class _Listener(event.Listener):
         stream = sys.stderr
         name = _kernel_name(ev.data["dispatcher"])
         expected = EXPECTED_SECONDS.get(name)
-        about = f", usually {expected:g}-{8 * expected:g} s" if expected else ""
+        about = f", about {expected:g} s on a fast machine" if expected else ""
         text = (f"popdens: compiling {name} (once per installation{about}; "
                 "`popdens compile` does it ahead of time)")
         try:
