@@ -19,6 +19,9 @@ __all__ = ["main"]
 
 #: Exit code after Ctrl-C (128 + SIGINT, the shell convention).
 EXIT_INTERRUPTED = 130
+#: Exit code after SIGTERM (128 + SIGTERM).
+EXIT_TERMINATED = 143
+_TERMINATED = [False]
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -407,15 +410,42 @@ def _show_warning(message, category, filename, lineno, file=None, line=None):
     print(f"popdens: warning: {message}", file=sys.stderr)
 
 
+class _Terminated(KeyboardInterrupt):
+    """SIGTERM, handled exactly like Ctrl-C (same clean-up), exit code 143."""
+
+
+def _on_sigterm(signum, frame):
+    _TERMINATED[0] = True
+    raise _Terminated("terminated (SIGTERM)")
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit code."""
+    import signal
+    import threading
+
     args = _parser().parse_args(argv)
     logging.basicConfig(level=logging.WARNING, format="popdens: %(message)s")
-    with warnings.catch_warnings():
-        # accuracy warnings are shown once each, as one plain line, never raised
-        warnings.simplefilter("always", AccuracyWarning)
-        warnings.showwarning = _show_warning
-        return _main(args)
+    # SIGTERM (kill, a batch scheduler's time limit) takes the Ctrl-C path: temporary output removed,
+    # a folder being replaced kept, finished sweep points saved
+    previous = None
+    _TERMINATED[0] = False
+    if threading.current_thread() is threading.main_thread():
+        previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    try:
+        with warnings.catch_warnings():
+            # accuracy warnings are shown once each, as one plain line, never raised
+            warnings.simplefilter("always", AccuracyWarning)
+            warnings.showwarning = _show_warning
+            code = _main(args)
+    except _Terminated:
+        code = EXIT_INTERRUPTED
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+    if _TERMINATED[0] and code == EXIT_INTERRUPTED:
+        return EXIT_TERMINATED
+    return code
 
 
 def _main(args) -> int:
@@ -525,7 +555,8 @@ def _main(args) -> int:
         print(f"popdens: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
-        print("popdens: interrupted by the user; no partial output was kept", file=sys.stderr)
+        why = "terminated (SIGTERM)" if _TERMINATED[0] else "interrupted by the user"
+        print(f"popdens: {why}; no partial output was kept", file=sys.stderr)
         return EXIT_INTERRUPTED
     except Exception as exc:  # internal failure: report briefly, keep the traceback for developers
         logging.getLogger(__name__).exception("internal error: %s", exc)

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._files import jsonable
+from .._files import jsonable, remove_stale_temporaries, stale_temporaries, temp_prefix
 from .._version import __version__
 from ..model._jit import Stopwatch
 from ..exceptions import ScenarioError
@@ -77,7 +77,8 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
             raise FileExistsError(f"{dest} exists and is not a popdens output folder (no summary.json of a "
                                   f"run); refusing to replace it")
     dest.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{dest.name}.", dir=dest.parent))
+    _clean_leftovers(dest)
+    tmp = Path(tempfile.mkdtemp(prefix=temp_prefix(dest.name), dir=dest.parent))
     try:
         header = {"scenario": str(scenario.source.name), "scenario_sha256_16": scenario.digest,
                   "popdens_version": __version__}
@@ -278,12 +279,26 @@ def _is_output_folder(path: Path) -> bool:
     return isinstance(data, dict) and "scenario_sha256_16" in data and "version" in data
 
 
+def _clean_leftovers(dest: Path) -> None:
+    """Remove the hidden folders a killed run (SIGKILL, power loss) left beside ``dest``.
+
+    A run writes into ``.NAME.pPID.xxxxxxxx`` and, when replacing an output, parks the old one in
+    ``.NAME.old.pPID.xxxxxxxx`` for a moment; only folders whose process has ended are touched.
+    A parked previous output whose replacement never arrived is put back in place."""
+    for old in stale_temporaries(dest, "old"):
+        if not dest.exists() and not dest.is_symlink() and _is_output_folder(old):
+            old.rename(dest)
+        else:
+            shutil.rmtree(old, ignore_errors=True)
+    remove_stale_temporaries(dest)
+
+
 def _move_into_place(tmp: Path, dest: Path) -> None:
     """Rename the complete folder ``tmp`` to ``dest``; an old ``dest`` is removed only afterwards."""
     if not dest.exists():
         tmp.rename(dest)
         return
-    old = Path(tempfile.mkdtemp(prefix=f".{dest.name}.old.", dir=dest.parent))
+    old = Path(tempfile.mkdtemp(prefix=temp_prefix(dest.name, "old"), dir=dest.parent))
     old.rmdir()
     dest.rename(old)
     try:

@@ -9,8 +9,9 @@ import warnings
 import numpy as np
 
 from .._version import __version__
+from .. import _validation as v
 from ..model._jit import Stopwatch
-from ._recording import block_ends, downsample, make_grid
+from ._recording import block_ends, downsample, make_grid, steps_per_call
 from ..model.drive import as_drive
 from ..model.noise import Population, WhiteNoise
 from ..progress import Progress
@@ -119,6 +120,9 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     if unknown:
         raise ValueError(f"unknown option(s) {unknown} for method {cls.method_name!r}; allowed: {allowed}")
     solver = cls(population, grid.dt, **options)
+    n_snap = grid.n_steps // grid.snap_every + 1 if grid.snap_every else 0
+    v.check_memory("t_end", t_end, 8.0 * (3 * grid.n_steps + n_snap * (solver.axis.size + 1)),
+                   f"recording {grid.n_steps} steps" + (f" and {n_snap} density snapshots" if n_snap else ""))
     sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
 
     watch = Stopwatch()
@@ -144,7 +148,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in block_ends(grid):
+        for end in block_ends(grid, steps_per_call(solver.axis.size)):
             tk = grid.step_times(k, end)
             mu = drive(tk)
             sg = sigma_drive(tk) if sigma_drive is not None else None

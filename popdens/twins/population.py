@@ -18,7 +18,7 @@ from .. import _validation as v
 from ._escape import run_escape, run_escape_adapting, seed_compiled_rng
 from ..model.adaptation import KIND_CURRENT, step_args
 from ..solvers._age_step import _newborn
-from ..solvers._recording import block_ends, downsample, make_grid
+from ..solvers._recording import block_ends, downsample, make_grid, steps_per_call
 from ..model.drive import as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..progress import Progress
@@ -37,6 +37,8 @@ BURN_IN_MIN_MS = 500.0
 #: ... and in time constants of the slowest adaptation component: the mean adaptation relaxes
 #: at least this fast, so its distance to the stationary state falls below exp(-8) ~ 3e-4.
 BURN_IN_ADAPTATION_TAUS = 8.0
+#: Most steps per compiled call (fewer for large ensembles: ``steps_per_call``).
+MC_BLOCK_STEPS = 2000
 #: Initial capacity of the spike buffer, per neuron.
 SPIKES_PER_NEURON_GUESS = 16
 
@@ -205,6 +207,8 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     if initial not in ("stationary", "synchronous"):
         raise ValueError(f"`initial` must be 'stationary' or 'synchronous', got {initial!r}")
     nrn = population.neuron
+    per_neuron = 8.0 * (6 + len(nrn.adaptation)) + (16.0 * SPIKES_PER_NEURON_GUESS if record_spikes else 0.0)
+    v.check_memory("n", n, n * per_neuron + 24.0 * grid.n_steps, f"the state of {n} neurons")
     watch = Stopwatch()
     seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
     ens = _make_ensemble(population, n, grid.dt, rng, options)
@@ -212,17 +216,30 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     if not np.isfinite(mu0):
         raise ValueError("the drive is not finite at t = 0")
     no_spikes = (np.zeros(1), np.zeros(1, dtype=np.int64))
+    n_burn = 0
     if initial == "stationary":
         if burn_in is None:
             burn_in = default_burn_in(nrn)
         burn_in = v.non_negative("burn_in", burn_in)
         n_burn = int(round(burn_in / grid.dt))
-        for k0 in range(0, n_burn, 5000):
-            k1 = min(n_burn, k0 + 5000)
+    elif burn_in is not None:
+        v.warn_ignored("burn_in", "initial='synchronous' starts all neurons at a spike")
+    per_call = steps_per_call(n, MC_BLOCK_STEPS)
+    bar = Progress(n_burn + grid.n_steps, "montecarlo", progress)
+    try:
+        for k0 in range(0, n_burn, per_call):
+            k1 = min(n_burn, k0 + per_call)
             ens.run(np.full(k1 - k0 + 1, mu0), 0.0, False, *no_spikes, 0)
-    else:
-        if burn_in is not None:
-            v.warn_ignored("burn_in", "initial='synchronous' starts all neurons at a spike")
+            bar.update(k1)
+    except KeyboardInterrupt:
+        bar.close()
+        message = f"interrupted by the user during the burn-in ({k0 * grid.dt:g} of {burn_in:g} ms)"
+        logger.warning(message)
+        return Result(t=np.zeros(1), rate=np.full(1, np.nan), mean_u=np.full(1, np.nan),
+                      refractory_fraction=np.full(1, np.nan), drive=drive(np.zeros(1)), method="montecarlo",
+                      population=population, status=STATUS_INTERRUPTED, message=message, dt=grid.dt, n_steps=0,
+                      n_neurons=n, diagnostics={**watch.times(), "version": __version__})
+    if initial == "synchronous":
         ens.start_synchronous(population, mu0)
     rate0 = ens.instantaneous_rate(population, mu0)
     meanu0, refr0 = ens.mean_potential(), ens.refractory_fraction()
@@ -234,11 +251,10 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     spk_t = np.empty(cap)
     spk_i = np.empty(cap, dtype=np.int64)
     n_spk = 0
-    bar = Progress(grid.n_steps, "montecarlo", progress)
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in block_ends(grid, 2000):
+        for end in block_ends(grid, per_call):
             while k < end:
                 tk = grid.step_times(k, end)
                 mu = drive(tk)
@@ -253,7 +269,7 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
                     spk_t = np.concatenate([spk_t[:n_spk], np.empty(max(cap, n_spk + n))])
                     spk_i = np.concatenate([spk_i[:n_spk], np.empty(max(cap, n_spk + n), dtype=np.int64)])
                     cap = spk_t.size
-            bar.update(k)
+            bar.update(n_burn + k)
     except FloatingPointError as exc:
         status, message = STATUS_FAILED, str(exc)
     except KeyboardInterrupt:
