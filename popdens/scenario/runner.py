@@ -70,14 +70,16 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
             raise ScenarioError(f"{scenario.source}: [scenario] key `output` = {str(scenario.output)!r} leads "
                                 f"to {inside}, outside the scenario's folder (through a symbolic link); "
                                 f"give the folder with --out instead")
+    if dest.parent.is_dir():
+        _clean_leftovers(dest)
     if dest.exists() or dest.is_symlink():
         if not overwrite:
-            raise FileExistsError(f"output folder {dest} exists; choose another or pass overwrite")
+            raise FileExistsError(f"output folder {dest} exists; choose another, or replace it with --overwrite "
+                                  "(overwrite=True in Python)")
         if dest.is_symlink() or not _is_output_folder(dest):
             raise FileExistsError(f"{dest} exists and is not a popdens output folder (no summary.json of a "
                                   f"run); refusing to replace it")
     dest.parent.mkdir(parents=True, exist_ok=True)
-    _clean_leftovers(dest)
     tmp = Path(tempfile.mkdtemp(prefix=temp_prefix(dest.name), dir=dest.parent))
     try:
         header = {"scenario": str(scenario.source.name), "scenario_sha256_16": scenario.digest,

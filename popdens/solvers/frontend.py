@@ -11,7 +11,7 @@ import numpy as np
 from .._version import __version__
 from .. import _validation as v
 from ..model._jit import Stopwatch
-from ._recording import block_ends, downsample, make_grid, steps_per_call
+from ._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps, steps_per_call
 from ..model.drive import as_drive
 from ..model.noise import Population, WhiteNoise
 from ..progress import Progress
@@ -120,17 +120,19 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     if unknown:
         raise ValueError(f"unknown option(s) {unknown} for method {cls.method_name!r}; allowed: {allowed}")
     solver = cls(population, grid.dt, **options)
-    n_snap = grid.n_steps // grid.snap_every + 1 if grid.snap_every else 0
-    v.check_memory("t_end", t_end, 8.0 * (3 * grid.n_steps + n_snap * (solver.axis.size + 1)),
-                   f"recording {grid.n_steps} steps" + (f" and {n_snap} density snapshots" if n_snap else ""))
     sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
 
     watch = Stopwatch()
-    mu0 = float(drive(0.0))
-    sigma0 = float(sigma_drive(0.0)) if sigma_drive is not None else None
+    mu_at = BoundarySamples(drive, grid)
+    sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
+    mu0 = mu_at.start()
+    sigma0 = sigma_at.start() if sigma_at is not None else None
     if not np.isfinite(mu0) or (sigma0 is not None and not np.isfinite(sigma0)):
         raise ValueError("the drive is not finite at t = 0")
     solver.initialize(mu0, sigma0, initial)
+    n_snap = grid.n_steps // grid.snap_every + 1 if grid.snap_every else 0
+    v.check_memory("t_end", t_end, 8.0 * (3 * grid.n_steps + n_snap * (solver.axis.size + 1)),
+                   f"recording {grid.n_steps} steps" + (f" and {n_snap} density snapshots" if n_snap else ""))
     guard = _AccuracyGuard(solver)
     guard.check(np.array([mu0]), None if sigma0 is None else np.array([sigma0]))
     rate0 = solver.instantaneous_rate(mu0, sigma0)
@@ -148,10 +150,10 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in block_ends(grid, steps_per_call(solver.axis.size)):
+        for end in split_at_jumps(block_ends(grid, steps_per_call(solver.axis.size)), mu_at, sigma_at):
             tk = grid.step_times(k, end)
-            mu = drive(tk)
-            sg = sigma_drive(tk) if sigma_drive is not None else None
+            mu = mu_at.values(k, end)
+            sg = sigma_at.values(k, end) if sigma_at is not None else None
             if not np.all(np.isfinite(mu)) or (sg is not None and not np.all(np.isfinite(sg))):
                 bad = tk[~np.isfinite(mu)] if not np.all(np.isfinite(mu)) else tk
                 status, message = STATUS_FAILED, f"the drive is not finite at t = {bad[0]:g} ms"

@@ -8,6 +8,7 @@ neurons with the same model, noise and drive and returns the same
 
 from __future__ import annotations
 
+import copy
 import logging
 
 import numpy as np
@@ -18,7 +19,8 @@ from .. import _validation as v
 from ._escape import run_escape, run_escape_adapting, seed_compiled_rng
 from ..model.adaptation import KIND_CURRENT, step_args
 from ..solvers._age_step import _newborn
-from ..solvers._recording import block_ends, downsample, make_grid, steps_per_call
+from ..solvers._recording import (WORK_PER_CALL, BoundarySamples, block_ends, downsample, make_grid, split_at_jumps,
+                                  steps_per_call)
 from ..model.drive import as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..progress import Progress
@@ -82,7 +84,7 @@ class _EscapeEnsemble:
         self.adapt = step_args(nrn, dt) if nrn.adapting else None
         self.st = np.zeros((len(nrn.adaptation), n))  # adaptation of each neuron (mV)
 
-    def run(self, mu, t0, record, spk_t, spk_i, n_spk):
+    def run(self, mu, sig, t0, record, spk_t, spk_i, n_spk):
         n = mu.size - 1
         count = np.empty(n, dtype=np.int64)
         mean_u = np.empty(n)
@@ -142,6 +144,47 @@ def _make_ensemble(population, n, dt, rng, options):
 
         return DiffusiveEnsemble(population, n, dt, rng, **options)
     raise ValueError(f"unsupported noise {population.noise!r}")  # pragma: no cover
+
+
+def _part(ens, n: int, i0: int, i1: int):
+    """The neurons ``i0:i1`` of an ensemble as an ensemble of their own (views of the per-neuron
+    arrays; 2-D per-neuron arrays such as the adaptation state are copied, see :func:`_commit`)."""
+    part = copy.copy(ens)
+    for name, value in vars(ens).items():
+        if isinstance(value, np.ndarray) and value.ndim >= 1 and value.shape[-1] == n:
+            piece = value[..., i0:i1]
+            setattr(part, name, piece if value.ndim == 1 else np.ascontiguousarray(piece))
+    return part
+
+
+def _commit(ens, part, n: int, i0: int, i1: int) -> None:
+    for name, value in vars(ens).items():
+        if isinstance(value, np.ndarray) and value.ndim >= 2 and value.shape[-1] == n:
+            value[..., i0:i1] = getattr(part, name)
+
+
+def _run(ens, n, mu, sg, t0, record, spk_t, spk_i, n_spk):
+    """``ens.run`` for one step, in compiled calls of at most WORK_PER_CALL neurons each, so that
+    Ctrl-C (handled between calls) acts within a second however large the ensemble.  Each part
+    draws its random numbers in turn: the results depend on ``n`` and the seed only."""
+    if n <= WORK_PER_CALL:
+        return ens.run(mu, sg, t0, record, spk_t, spk_i, n_spk)
+    if mu.size != 2:
+        raise AssertionError("an ensemble this large advances one step per call")  # pragma: no cover
+    if record and spk_t.shape[0] - n_spk < n:
+        return 0, n_spk, True, np.zeros(0), np.zeros(0), np.zeros(0)
+    count = mean_u = refr = 0.0
+    for i0 in range(0, n, WORK_PER_CALL):
+        i1 = min(n, i0 + WORK_PER_CALL)
+        part = _part(ens, n, i0, i1)
+        before = n_spk
+        _, n_spk, _, c, m, r = part.run(mu, sg, t0, record, spk_t, spk_i, n_spk)
+        spk_i[before:n_spk] += i0  # ids within the part -> ids in the ensemble (time order kept)
+        _commit(ens, part, n, i0, i1)
+        count += float(c[0])
+        mean_u += float(m[0]) * (i1 - i0)
+        refr += float(r[0]) * (i1 - i0)
+    return 1, n_spk, False, np.array([count]), np.array([mean_u / n]), np.array([refr / n])
 
 
 def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stationary",
@@ -212,9 +255,13 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     watch = Stopwatch()
     seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
     ens = _make_ensemble(population, n, grid.dt, rng, options)
-    mu0 = float(drive(0.0))
+    mu_at = BoundarySamples(drive, grid)
+    sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
+    sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
+    mu0 = mu_at.start()
     if not np.isfinite(mu0):
         raise ValueError("the drive is not finite at t = 0")
+    sigma0 = sigma_at.start() if sigma_at is not None else None
     no_spikes = (np.zeros(1), np.zeros(1, dtype=np.int64))
     n_burn = 0
     if initial == "stationary":
@@ -229,7 +276,8 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     try:
         for k0 in range(0, n_burn, per_call):
             k1 = min(n_burn, k0 + per_call)
-            ens.run(np.full(k1 - k0 + 1, mu0), 0.0, False, *no_spikes, 0)
+            _run(ens, n, np.full(k1 - k0 + 1, mu0), None if sigma0 is None else np.full(k1 - k0 + 1, sigma0),
+                 0.0, False, *no_spikes, 0)
             bar.update(k1)
     except KeyboardInterrupt:
         bar.close()
@@ -254,13 +302,15 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in block_ends(grid, per_call):
+        for end in split_at_jumps(block_ends(grid, per_call), mu_at, sigma_at):
             while k < end:
                 tk = grid.step_times(k, end)
-                mu = drive(tk)
+                mu = mu_at.values(k, end)
                 if not np.all(np.isfinite(mu)):
                     raise FloatingPointError(f"the drive is not finite at t = {tk[~np.isfinite(mu)][0]:g} ms")
-                done, n_spk, full, c, mu_out, rf = ens.run(mu, k * grid.dt, record_spikes, spk_t, spk_i, n_spk)
+                sg = sigma_at.values(k, end) if sigma_at is not None else None
+                done, n_spk, full, c, mu_out, rf = _run(ens, n, mu, sg, k * grid.dt, record_spikes, spk_t, spk_i,
+                                                        n_spk)
                 counts[k:k + done] = c
                 mean_u[k:k + done] = mu_out
                 refr[k:k + done] = rf
