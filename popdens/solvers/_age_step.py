@@ -86,7 +86,7 @@ def _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, t
     return un, hazard_value(hcode, hpar, hops, hargs, un, theta, d1, stack, xbuf)
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _refire_survival(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta, uses_slope,
                      tau_ref, dt, mu1, h_newborn, stack, xbuf):  # pragma: no cover
     """Probability that a neuron born in the step just ended does not fire again before its end.
