@@ -12,12 +12,12 @@ from __future__ import annotations
 
 import logging
 import math
-import time
 
 import numpy as np
 
 from .. import _validation as v
 from .._version import __version__
+from ..model._jit import Stopwatch
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers.registry import resolve_method
@@ -262,7 +262,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             var[tgt[q]] += cvar[q] * s_values[q]
         return mu, np.sqrt(np.maximum(var, 0.0))
 
-    wall0 = time.perf_counter()
+    watch = Stopwatch()
     mu0, sg0 = inputs(0, [ln.s for ln in lines])
     solvers = []
     for k, a in enumerate(circuit.cohorts):
@@ -363,7 +363,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         method="mesoscopic" if finite_size else "mean-field",
         status=status, message=message, dt=dt,
         sizes=tuple(a.size for a in circuit.cohorts) if finite_size else None,
-        diagnostics={"wall_time_s": time.perf_counter() - wall0, "version": __version__, "steps": kept,
+        diagnostics={**watch.times(), "version": __version__, "steps": kept,
                      "mass_error": max(mass),
                      **({"finite_size": [nm for nm, f in zip(circuit.names, finite) if f], "burn_in_ms": n_burn * dt,
                          "seed": seed if isinstance(seed, (int, np.integer)) or seed is None else "generator"}
