@@ -21,7 +21,9 @@ from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, Pop
 from .model import drive, hazard
 from .model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
 from .model.noise import EscapeNoise, Population, WhiteNoise
+from .network.boundaries import BoundaryCurves, boundary_curves
 from .network.circuit import Circuit, Cohort, Pathway, PoissonBackground
+from .network.continuation import BifurcationDiagram, bifurcation_diagram
 from .network.integrate import simulate_network
 from .network.linear_stability import Stability, stability
 from .network.maps import StabilityMap, stability_map
@@ -42,6 +44,8 @@ _sys.modules[__name__ + ".hazard"] = hazard
 
 __all__ = [
     "AccuracyWarning",
+    "BifurcationDiagram",
+    "BoundaryCurves",
     "Circuit",
     "CircuitResult",
     "Cohort",
@@ -68,6 +72,8 @@ __all__ = [
     "UnreachableTargetError",
     "WhiteNoise",
     "__version__",
+    "bifurcation_diagram",
+    "boundary_curves",
     "drive",
     "drive_and_noise_for",
     "drive_for_rate",
