@@ -13,6 +13,7 @@ import numpy as np
 
 from .._version import __version__
 from .. import _validation as v
+from ..model.adaptation import refuse
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers._recording import make_grid
@@ -108,6 +109,8 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     n_burn = int(round(burn_in / dt))
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
     asm = circuit.cohorts
+    for a in asm:
+        refuse(a.population, f"the spiking network twin (cohort {a.name!r})")
     npop = circuit.n
     sizes = np.array([a.size for a in asm], dtype=np.int64)
     start = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
