@@ -14,7 +14,7 @@ are followed from point to point by the secant iteration started at the previous
 roots (a warm start costing a few transfer-function evaluations), and the
 full search with its argument-principle count runs every ``CHECK_EVERY``
 points and at the ends; where the count disagrees with the followed roots,
-the segment is redone with the full search.  Special points between two
+the full search runs there and its roots are followed back.  Special points between two
 branch points are then located precisely:
 
 * **fold** (saddle-node): the parameter component of the tangent changes sign.
@@ -378,8 +378,8 @@ class _Continuation:
 
     def stability_along(self, pts):
         """Roots at every branch point: followed from point to point, certified by the argument
-        principle every CHECK_EVERY points and at the end; on a disagreement the segment since the
-        last certified point is redone with full searches."""
+        principle every CHECK_EVERY points and at the end; on a disagreement a full search runs there
+        and its roots are followed back through the segment since the last certified point."""
         m = len(pts)
         roots = [None] * m
         nun = np.full(m, -1, dtype=int)
@@ -407,9 +407,16 @@ class _Continuation:
             n_count = self.count(pts[i], known)
             if n_count >= 0 and n_count == self.in_box(known):
                 roots[i], nun[i], cert[i] = known, n_count, True
-            else:  # a root appeared or vanished unseen: redo the segment with full searches
-                for j in range(last + 1, i + 1):
-                    do_search(j)
+            else:
+                # a root appeared or vanished unseen: a full search here, and its roots followed back
+                # through the segment (a full search only where they are lost)
+                do_search(i)
+                for j in range(i - 1, last, -1):
+                    back = self.track(pts[j], roots[j + 1]) if len(roots[j + 1]) else None
+                    if back is None:
+                        do_search(j)
+                    else:
+                        roots[j], nun[j] = back, self.in_box(back)
             last = i
         return roots, nun, cert
 
@@ -535,10 +542,10 @@ def bifurcation_diagram(circuit: Circuit, parameter, span, *, rate_range=DEFAULT
     >>> import popdens
     >>> from popdens.network import Cohort, Circuit, Pathway
     >>> pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(3.0))
-    >>> c = Circuit([Cohort("E", pop, drive=12.0)], [Pathway("E", "E", 0.1, 200, 1.5)])
-    >>> d = bifurcation_diagram(c, "cohort.E.drive", (10.0, 14.0), rate_range=(0.0, 300.0), stability=False)
-    >>> [round(p.parameter, 4) for p in d.folds()]
-    [11.1036, 12.7541]
+    >>> c = Circuit([Cohort("E", pop, drive=12.0)], [Pathway("E", "E", 0.1, 150, 1.5)])
+    >>> d = bifurcation_diagram(c, "cohort.E.drive", (6.0, 18.0), rate_range=(0.0, 400.0), stability=False)
+    >>> sorted(round(p.parameter, 4) for p in d.folds())
+    [10.0507, 14.5326]
 
     Notes
     -----

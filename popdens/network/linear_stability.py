@@ -60,6 +60,10 @@ MARGINAL_GROWTH = 1e-3
 MARGIN_NEAR = 2e-3
 #: Attempts with the counting contour's left edge moved further right.
 MARGIN_TRIES = 4
+#: When no root is found, the starting grid's lowest growth rate is multiplied by this, up to
+#: WIDEN_TRIES times (strongly damped states have their leading root at -1e3 .. -1e4 1/s).
+WIDEN_FACTOR = 5.0
+WIDEN_TRIES = 3
 
 
 def _default_transfer() -> Callable:
@@ -356,7 +360,8 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
     Raises
     ------
     ConvergenceError
-        When no root is found from any start (enlarge the search region).
+        When no root is found from any start, also after moving the starting grid's left edge
+        WIDEN_TRIES times further left (enlarge the search region).
 
     Notes
     -----
@@ -383,6 +388,16 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
     lim = 0.1 * max(abs(max_growth - min_growth) * 1e-3, 2 * math.pi * max_frequency * 1e-3)
     w_max = 2 * math.pi * max_frequency * 1e-3
     roots = _accepted_roots(*_secant_roots(det, z, lim), 1.5 * w_max)
+    lo = min_growth
+    for _ in range(WIDEN_TRIES if not roots.size else 0):
+        # a strongly damped state: its roots lie left of the box; start further left
+        lo = lo * WIDEN_FACTOR if lo < 0 else lo - 1000.0
+        g = np.linspace(lo, max_growth, v.positive_int("n_growth", n_growth)) * 1e-3
+        z = (g[:, None] + 1j * w[None, :]).ravel()
+        roots = _accepted_roots(*_secant_roots(det, z, 0.1 * max(abs(max_growth - lo) * 1e-3, w_max)),
+                                1.5 * w_max)
+        if roots.size:
+            break
     if not roots.size:
         raise ConvergenceError("no root of the characteristic equation was found in the search region; "
                                "widen `min_growth`/`max_frequency`")
