@@ -343,7 +343,8 @@ def plot_bifurcation_diagram(diagram, ax=None):
                 mk = "o" if sp.kind == "fold" else "s"
                 axk.plot(sp.parameter, sp.rates[k], mk, color=_KIND_COLOURS[sp.kind], ms=6, mec="k", mew=0.6,
                          zorder=5)
-                text = "fold" if sp.kind == "fold" else f"onset {sp.frequency:.0f} Hz"
+                text = (f"fold at {sp.parameter:.4g}" if sp.kind == "fold"
+                        else f"onset {sp.frequency:.0f} Hz at {sp.parameter:.4g}")
                 # alternate above / below so that neighbouring labels do not overprint
                 axk.annotate(text, (sp.parameter, sp.rates[k]), xytext=(5, 5 if i % 2 == 0 else -11),
                              textcoords="offset points", fontsize=7)
