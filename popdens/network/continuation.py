@@ -239,8 +239,6 @@ class _Continuation:
         self.n = circuit.n
         self.lo, self.hi = span
         self.rate_lo, self.rate_hi = rate_range
-        self.rate_range = rate_range
-        self.gain = gain
         self.transfer = transfer
         self.analyse = analyse
         self.max_step = max_step
@@ -319,10 +317,9 @@ class _Continuation:
         """Both directions from the seed, joined into one branch ordered along the curve."""
         u0 = np.concatenate([a0, [p0]])
         fw, fw_t, fw_s, closed = self._trace_one(u0, +1.0)
-        self.first_tangent = fw_t[0]
         if closed:
             return fw, fw_t, fw_s, True
-        bw, bw_t, bw_s, _ = self._trace_one(u0, -self.first_tangent * self.scale())
+        bw, bw_t, bw_s, _ = self._trace_one(u0, -fw_t[0] * self.scale())
         # backward part reversed: its tangents flipped, its segments based at the later point
         pts = bw[:0:-1] + fw
         tans = [-t for t in bw_t[:0:-1]] + fw_t
@@ -421,7 +418,9 @@ class _Continuation:
         return roots, nun, cert
 
     # -- special points
-    def locate_fold(self, seg, u_a, u_b, t_a, t_b):
+    def locate_fold(self, u_a, u_b, t_a, t_b):
+        """The fold between branch points ``u_a`` and ``u_b`` (tangents ``t_a``, ``t_b``): the extremum of
+        the parameter with the fastest-moving rate held fixed (module docstring)."""
         t_mid = 0.5 * (t_a + t_b)
         k = int(np.argmax(np.abs(t_mid[:self.n])))
         sign = 1.0 if t_a[-1] > 0 else -1.0  # p rises then falls: a maximum of p(A_k)
@@ -601,13 +600,14 @@ def bifurcation_diagram(circuit: Circuit, parameter, span, *, rate_range=DEFAULT
                               analysed=bool(stability), complete=complete)
 
 
-def _plain_branch(job, pts, closed, special=None):
+def _plain_branch(job, pts, closed):
+    """A branch without its stability (what an interrupted run keeps)."""
     m = len(pts)
     arr = np.array(pts)
     return Branch(parameter=arr[:, -1], rates=arr[:, :job.n], stable=np.zeros(m, dtype=bool),
                   growth_rate=np.full(m, np.nan), frequency=np.full(m, np.nan), n_unstable=np.full(m, -1),
                   certified=np.zeros(m, dtype=bool),
-                  special=np.array(special if special is not None else [""] * m, dtype=object), closed=closed)
+                  special=np.array([""] * m, dtype=object), closed=closed)
 
 
 def _analyse_branch(job: _Continuation, bi, pts, tans, segs, closed):
@@ -623,7 +623,7 @@ def _analyse_branch(job: _Continuation, bi, pts, tans, segs, closed):
         seg = segs[i - 1]
         ta, tb = tans[i - 1], tans[i]
         if ta[-1] * tb[-1] < 0:
-            u = job.locate_fold(seg, pts[i - 1], pts[i], ta, tb)
+            u = job.locate_fold(pts[i - 1], pts[i], ta, tb)
             located = u is not None
             if u is None:
                 u = pts[i - 1] if abs(ta[-1]) < abs(tb[-1]) else pts[i]
