@@ -42,9 +42,10 @@ import math
 import numpy as np
 
 from .. import _validation as v
+from ._adapted import escape_adapted
 from ._modulated_threshold import NODES_PER_SIGMA, Sweep
-from ._renewal_response import _renewal_sweep, free_trajectory
-from ..model.adaptation import refuse
+from ._renewal_response import _renewal_sweep, adapted_trajectory, free_trajectory
+from ..model.neurons import CODE_LIF
 from ..model.drive import as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..progress import Progress
@@ -66,6 +67,10 @@ MAX_AGE_MS = 1e5
 FREQ_BLOCK = 256
 #: Methods accepted by :func:`transfer`.
 METHODS = ("renewal", "threshold-integration", "closed-form")
+#: Block of frequencies per dense Laplace transform (memory: this many rows of the age grid).
+LAPLACE_BLOCK = 8
+#: Step (mV, relative to 1 + |z|) of the central differences in the post-spike adaptation.
+STATE_STEP_MV = 1e-3
 #: Modulated inputs accepted by :func:`transfer` and their units.
 MODULATIONS = {"mean": "Hz/mV", "noise": "Hz/mV^2", "sigma": "Hz/mV"}
 
@@ -79,7 +84,8 @@ def laplace_to_freq(lam):
 class _AgeGrid:
     """Stationary renewal quantities of an escape-noise population on a uniform age grid."""
 
-    def __init__(self, population, mu: float, prefer_tail: bool = False):
+    def __init__(self, population, mu: float, prefer_tail: bool = False, z0=None):
+        """``z0``: adaptation (mV, one per component) with which neurons leave a spike, for adapting neurons."""
         nrn, hz = population.neuron, population.noise.hazard
         da = min(AGE_STEP_MS, nrn.tau_m / AGES_PER_TAU)
         a_max = nrn.refractory + 20.0 * nrn.tau_m
@@ -88,12 +94,15 @@ class _AgeGrid:
             # ages start at the end of the refractory period: before it the hazard and the
             # membrane response vanish and S0 = 1, so the integrals there are exact
             ages = tref + np.arange(0.0, a_max - tref + 0.5 * da, da)
-            u0 = free_trajectory(nrn, mu, ages)
+            if z0 is None:
+                u0, shift = free_trajectory(nrn, mu, ages), np.zeros(ages.shape)
+            else:
+                u0, shift, _ = adapted_trajectory(nrn, mu, ages, z0)
             if nrn.has_cutoff and np.any(u0 >= nrn.boundary):
                 raise ValueError(
                     f"at `mu` = {mu!r} mV the free trajectory reaches the cut-off; the linear response of "
                     "deterministic crossings is not supported by the escape-noise transfer function")
-            h0 = np.asarray(hz.rate(u0, nrn.threshold), dtype=float) * 1e-3  # 1/ms
+            h0 = np.asarray(hz.rate(u0, nrn.threshold + shift), dtype=float) * 1e-3  # 1/ms
             cum = np.concatenate([[0.0], np.cumsum(0.5 * (h0[1:] + h0[:-1]) * da)])
             surv = np.exp(-cum)
             below = np.nonzero(surv < SURVIVOR_FLOOR)[0]
@@ -102,7 +111,7 @@ class _AgeGrid:
             slope_inf = float(nrn.drift_slope(float(u0[-1]))) / nrn.tau_m
             if prefer_tail and slope_inf < 0 and a_max <= MAX_AGE_MS:
                 end = None  # decaying modes: carry the grid on to the closed-form tail
-            off = np.abs(u0 - u0[-1]) >= CONVERGED_MV
+            off = (np.abs(u0 - u0[-1]) >= CONVERGED_MV) | (np.abs(shift - shift[-1]) >= CONVERGED_MV)
             n_tau = int(math.ceil(nrn.tau_m / da))
             if slope_inf < 0 and ages.size > n_tau and not np.any(off[-n_tau:]) and h0[-1] > 0:
                 conv = max(int(np.nonzero(off)[0][-1]) + 1 if np.any(off) else 0, 2)
@@ -117,7 +126,7 @@ class _AgeGrid:
         self.da, self.ages, self.u0, self.h0, self.surv = da, ages[:n], u0[:n], h0[:n], surv[:n]
         self.tail = tail
         self.tail_slope = slope_inf
-        self.hu = np.asarray(hz.slope(self.u0, nrn.threshold), dtype=float) * 1e-3  # 1/(ms mV)
+        self.hu = np.asarray(hz.slope(self.u0, nrn.threshold + shift[:n]), dtype=float) * 1e-3  # 1/(ms mV)
         self.gslope = np.asarray(nrn.drift_slope(0.5 * (self.u0[1:] + self.u0[:-1])), dtype=float) / nrn.tau_m
         self.e_slope = np.exp(self.gslope * da)
         w = np.full(n, da)
@@ -133,7 +142,9 @@ class _AgeGrid:
         self.survivor_integral = tref + float(np.sum(w * self.surv)) + (sc / hc if tail else 0.0)
         self.tref = tref
 
-    def sweep(self, s, tau_m):
+    def sweep(self, s, tau_m, weight=None):
+        """``(Q, P_hat)`` at the Laplace variables ``s`` (1/ms); with ``weight`` (an array on the ages)
+        both integrands are multiplied by it (the tails by its last value)."""
         s = np.ascontiguousarray(np.asarray(s, dtype=complex).ravel())
         if s.size and self.tail:
             hc = self.h0[-1]
@@ -144,9 +155,31 @@ class _AgeGrid:
             raise ValueError("complex `freqs` decay faster than the stationary ISI density: need growth rate "
                              f"Re(lambda) > {1000.0 * math.log(SURVIVOR_FLOOR / 1e-10) / self.ages[-1]:.6g} 1/s")
         out = np.empty((s.size, 2), dtype=complex)
-        _renewal_sweep(s, self.tref, self.da, float(tau_m), self.hu, self.h0, self.surv, self.gslope,
+        surv = self.surv if weight is None else np.ascontiguousarray(self.surv * weight)
+        _renewal_sweep(s, self.tref, self.da, float(tau_m), self.hu, self.h0, surv, self.gslope,
                        self.e_slope, self.tail, self.tail_slope, out)
         return out[:, 0], out[:, 1]
+
+    def laplace(self, f, f_tail, s):
+        """``int f(a) exp(-s a) da`` on the ages (trapezoid) plus ``f_tail exp(-h_c (a - a_c))`` beyond them."""
+        out = np.empty(s.size, dtype=complex)
+        wf = self.weights * f
+        for i0 in range(0, s.size, LAPLACE_BLOCK):
+            blk = s[i0:i0 + LAPLACE_BLOCK]
+            out[i0:i0 + LAPLACE_BLOCK] = np.exp(-np.outer(blk, self.ages)) @ wf
+        if self.tail:
+            hc = self.h0[-1]
+            out += f_tail * np.exp(-s * self.ages[-1]) / (hc + s)
+        return out
+
+    def density(self, population, mu, z0):
+        """ISI density ``h S`` (1/ms) on the ages for the adaptation ``z0`` (mV) left by a spike, and the
+        adaptation components along the way (shape ``(K, n)``)."""
+        nrn, hz = population.neuron, population.noise.hazard
+        u, shift, z = adapted_trajectory(nrn, mu, self.ages, z0)
+        h = np.asarray(hz.rate(u, nrn.threshold + shift), dtype=float) * 1e-3
+        surv = np.exp(-np.concatenate([[0.0], np.cumsum(0.5 * (h[1:] + h[:-1]) * self.da)]))
+        return h * surv, z
 
 
 def _escape_transfer(population, mu, s, progress):
@@ -168,6 +201,103 @@ def _escape_transfer(population, mu, s, progress):
     if np.any(zero):
         out[zero] = _escape_static_slope(population, mu)
     return out
+
+
+def _escape_transfer_adapting(population, mu, s, progress):
+    """Escape noise with adaptation: the linearised renewal equation of the spike-weighted closure.
+
+    A neuron leaves a spike with the adaptation ``z = jump + x`` (:mod:`popdens.theory._adapted`), where
+    ``x(t)`` is the mean adaptation of the neurons firing at ``t``: ``A x = int P(t|t') w(t|t') A(t') dt'``.
+    Linearising both equations around the stationary state (input ``eps exp(s t)``, no subthreshold coupling,
+    so the adaptation along a trajectory depends on ``z`` only):
+
+    .. math:: \\delta A (1 - \\hat P) = A_0 Q\\,\\delta\\mu + A_0 Q_z \\delta x,\\qquad
+              A_0 (I - R_z)\\,\\delta x = (\\hat P_w - x_0)\\,\\delta A + A_0 Q_w \\delta\\mu,
+
+    with ``Q``, ``P_hat`` of the renewal equation along the adapted trajectory (Gerstner 2000), ``Q_w``,
+    ``P_hat_w`` the same weighted with the adaptation reaching the spike, and ``Q_z``, ``R_z`` the Laplace
+    transforms of the derivatives of ``P`` and ``P w`` with respect to ``z`` (central differences).  Hence
+    ``chi = A_0 [Q + Q_z M Q_w] / [1 - P_hat - Q_z M (P_hat_w - x_0)]``, ``M = (I - R_z)^-1``.  The zero-frequency
+    values are subtracted where they vanish exactly, as in the renewal case.
+    """
+    nrn = population.neuron
+    state = escape_adapted(population, mu)
+    z0 = np.asarray(state.post_spike, dtype=float)
+    k = z0.size
+    grid = _AgeGrid(population, mu, prefer_tail=bool(np.any(s.real < 0)), z0=z0)
+    tau_m = nrn.tau_m
+    a0 = 1.0 / grid.mean_isi
+    _, _, zpath = adapted_trajectory(nrn, mu, grid.ages, z0)
+    zero = np.zeros(1, dtype=complex)
+    q0, p0 = grid.sweep(zero, tau_m)
+    qw = [grid.sweep(s, tau_m, zpath[d]) for d in range(k)]
+    pw0 = np.array([grid.sweep(zero, tau_m, zpath[d])[1][0] for d in range(k)])
+    # derivatives of P and P w with respect to the post-spike state (central differences)
+    dq = np.zeros((k, s.size), dtype=complex)
+    dr = np.zeros((k, k, s.size), dtype=complex)
+    dq0 = np.zeros(k, dtype=complex)
+    for c in range(k):
+        eps = STATE_STEP_MV * (1.0 + abs(z0[c]))
+        parts = []
+        for sign in (1.0, -1.0):
+            zz = z0.copy()
+            zz[c] += sign * eps
+            p, zp = grid.density(population, mu, zz)
+            parts.append((p, p[-1], zp))
+        (pp, tp, zp), (pm, tm, zm) = parts
+        dp, dt_ = (pp - pm) / (2 * eps), (tp - tm) / (2 * eps)
+        dq[c] = grid.laplace(dp, dt_, s)
+        dq0[c] = grid.laplace(dp, dt_, zero)[0]
+        for d in range(k):
+            f = (pp * zp[d] - pm * zm[d]) / (2 * eps)
+            dr[d, c] = grid.laplace(f, (tp * zp[d, -1] - tm * zm[d, -1]) / (2 * eps), s)
+    q, p_hat = grid.sweep(s, tau_m)
+    out = np.empty(s.shape, dtype=complex)
+    for i in range(s.size):
+        m = np.linalg.inv(np.eye(k) - dr[:, :, i])
+        qz = dq[:, i] - dq0
+        q_w = np.array([qw[d][0][i] for d in range(k)])
+        p_w = np.array([qw[d][1][i] for d in range(k)]) - pw0
+        with np.errstate(divide="ignore", invalid="ignore"):
+            out[i] = a0 * ((q[i] - q0[0]) + qz @ m @ q_w) / ((p0[0] - p_hat[i]) - qz @ m @ p_w) * 1000.0
+    at_zero = s == 0
+    if np.any(at_zero):
+        eps = 1e-4 * max(1.0, abs(mu))
+        out[at_zero] = (escape_adapted(population, mu + eps).rate
+                        - escape_adapted(population, mu - eps).rate) / (2.0 * eps)
+    return out
+
+
+def _white_transfer_adapting(population, mu, s, method, progress):
+    """White noise with mean adaptation: ``chi = chi_0 / (1 + L)`` (see :func:`transfer`, Notes)."""
+    from .steady_state import _adapted_state, _renewal_population, _resolve_method
+
+    nrn = population.neuron
+    sigma = _sigma_of(population)
+    renewal = _renewal_population(population)
+    st = _adapted_state(population, mu, sigma, _resolve_method(renewal, "auto"))
+    mu_eff = st.effective_drive
+    chi0 = transfer(renewal, mu_eff, s / (2j * math.pi * 1e-3), "mean", method=method, progress=progress)
+    chi0ms = chi0 * 1e-3  # 1/(ms mV)
+    taus = np.array([a.tau for a in nrn.adaptation])
+    jumps = np.array([a.jump for a in nrn.adaptation])
+    coup = np.array([a.coupling for a in nrn.adaptation])
+    loop = np.zeros(s.shape, dtype=complex)
+    if np.any(coup != 0.0):
+        if nrn.code != CODE_LIF:
+            raise ValueError("the white-noise linear response with a subthreshold `coupling` is available for "
+                             "the LIF only (its mean potential obeys a closed equation)")
+        r0 = st.rate * 1e-3
+        with np.errstate(divide="ignore", invalid="ignore"):
+            held = np.where(s == 0, nrn.refractory, -np.expm1(-s * nrn.refractory) / s)
+        dmean_u = ((1.0 - r0 * nrn.refractory)
+                   + ((nrn.reset - nrn.rest - mu_eff) * held - nrn.tau_m * (nrn.threshold - nrn.reset)) * chi0ms
+                   ) / (1.0 + s * nrn.tau_m)
+    else:
+        dmean_u = np.zeros(s.shape, dtype=complex)
+    for a_k, b_k, t_k in zip(coup, jumps, taus):
+        loop += (a_k * dmean_u + b_k * t_k * chi0ms) / (1.0 + s * t_k)
+    return chi0 / (1.0 + loop)
 
 
 def _escape_rate(population, mu):
@@ -216,6 +346,10 @@ def stationary_rate(population, mu) -> float:
     """
     population = _check_population(population)
     mu = v.as_finite_float("mu", mu)
+    if population.neuron.adapting:
+        from .steady_state import gain
+
+        return float(gain(population, mu))
     if isinstance(population.noise, EscapeNoise):
         return _escape_rate(population, mu)
     sigma = _sigma_of(population)
@@ -228,7 +362,6 @@ def stationary_rate(population, mu) -> float:
 def _check_population(population):
     if not isinstance(population, Population):
         raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
-    refuse(population, "the linear response (transfer, spectra)")
     if isinstance(population.noise, EscapeNoise) and population.noise.hazard.uses_slope:
         raise ValueError("the linear response does not support escape functions that depend on du/dt")
     return population
@@ -312,7 +445,12 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
     if escape and modulate != "mean":
         raise ValueError(f"`modulate` must be 'mean' for escape noise, got {modulate!r}")
     s = (2j * math.pi * 1e-3) * f.ravel()  # Laplace variable, 1/ms
-    if escape:
+    if population.neuron.adapting:
+        if modulate != "mean":
+            raise ValueError(f"`modulate` must be 'mean' for adapting neurons, got {modulate!r}")
+        out = (_escape_transfer_adapting(population, mu, s, progress) if escape
+               else _white_transfer_adapting(population, mu, s, method, progress))
+    elif escape:
         out = _escape_transfer(population, mu, s, progress)
     elif method == "closed-form":
         if population.neuron.code != 0:
