@@ -97,6 +97,22 @@ def _renewal_sweep(s_arr, tref, da, tau_m, hu, h0, surv, gslope, e_slope, with_t
         out[i, 1] = p
 
 
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def _laplace_uniform(s_arr, a0, da, fs, out):  # pragma: no cover - compiled
+    """out[i, m] = sum_k fs[m, k] exp(-s_i (a0 + k da)) (weights already in ``fs``); phases by recursion."""
+    n = fs.shape[1]
+    for i in range(s_arr.shape[0]):
+        s = s_arr[i]
+        z = cmath.exp(-s * da)
+        for m in range(fs.shape[0]):
+            phase = cmath.exp(-s * a0)
+            acc = 0.0 + 0.0j
+            for k in range(n):
+                acc += fs[m, k] * phase
+                phase *= z
+            out[i, m] = acc
+
+
 def free_trajectory(neuron, mu: float, ages: np.ndarray) -> np.ndarray:
     """Potential (mV) after reset at constant drive ``mu``, held at reset while refractory."""
     t_free = np.maximum(ages - neuron.refractory, 0.0)
