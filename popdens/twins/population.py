@@ -18,7 +18,7 @@ from .. import _validation as v
 from ._escape import run_escape, run_escape_adapting, seed_compiled_rng
 from ..model.adaptation import KIND_CURRENT, step_args
 from ..solvers._age_step import _newborn
-from ..solvers._recording import block_ends, downsample, make_grid
+from ..solvers._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps
 from ..model.drive import as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..progress import Progress
@@ -80,7 +80,7 @@ class _EscapeEnsemble:
         self.adapt = step_args(nrn, dt) if nrn.adapting else None
         self.st = np.zeros((len(nrn.adaptation), n))  # adaptation of each neuron (mV)
 
-    def run(self, mu, t0, record, spk_t, spk_i, n_spk):
+    def run(self, mu, sig, t0, record, spk_t, spk_i, n_spk):
         n = mu.size - 1
         count = np.empty(n, dtype=np.int64)
         mean_u = np.empty(n)
@@ -208,9 +208,13 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     wall0 = time.perf_counter()
     seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
     ens = _make_ensemble(population, n, grid.dt, rng, options)
-    mu0 = float(drive(0.0))
+    mu_at = BoundarySamples(drive, grid)
+    sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
+    sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
+    mu0 = mu_at.start()
     if not np.isfinite(mu0):
         raise ValueError("the drive is not finite at t = 0")
+    sigma0 = sigma_at.start() if sigma_at is not None else None
     no_spikes = (np.zeros(1), np.zeros(1, dtype=np.int64))
     if initial == "stationary":
         if burn_in is None:
@@ -219,7 +223,8 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
         n_burn = int(round(burn_in / grid.dt))
         for k0 in range(0, n_burn, 5000):
             k1 = min(n_burn, k0 + 5000)
-            ens.run(np.full(k1 - k0 + 1, mu0), 0.0, False, *no_spikes, 0)
+            ens.run(np.full(k1 - k0 + 1, mu0), None if sigma0 is None else np.full(k1 - k0 + 1, sigma0),
+                    0.0, False, *no_spikes, 0)
     else:
         if burn_in is not None:
             v.warn_ignored("burn_in", "initial='synchronous' starts all neurons at a spike")
@@ -238,13 +243,15 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in block_ends(grid, 2000):
+        for end in split_at_jumps(block_ends(grid, 2000), mu_at, sigma_at):
             while k < end:
                 tk = grid.step_times(k, end)
-                mu = drive(tk)
+                mu = mu_at.values(k, end)
                 if not np.all(np.isfinite(mu)):
                     raise FloatingPointError(f"the drive is not finite at t = {tk[~np.isfinite(mu)][0]:g} ms")
-                done, n_spk, full, c, mu_out, rf = ens.run(mu, k * grid.dt, record_spikes, spk_t, spk_i, n_spk)
+                sg = sigma_at.values(k, end) if sigma_at is not None else None
+                done, n_spk, full, c, mu_out, rf = ens.run(mu, sg, k * grid.dt, record_spikes, spk_t, spk_i,
+                                                           n_spk)
                 counts[k:k + done] = c
                 mean_u[k:k + done] = mu_out
                 refr[k:k + done] = rf
