@@ -274,14 +274,16 @@ def _advance_adapting(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay
                       a0, b0, a1, b1, rhs, pg, cp, z):  # pragma: no cover - compiled
     """:func:`_advance` with mean adaptation currents ``w`` (mV, shape ``(K,)``), see the module docstring.
 
-    ``aux`` holds the effective drive at the step start (mV), the mean potential (mV) and the mass
-    fired in the previous step.
+    ``aux`` holds the summed adaptation subtracted from the drive at the last step end (mV), the mean
+    potential (mV) and the mass fired in the previous step.  The drive at a call's first boundary is
+    ``mu[0] - aux[0]``, so a jump on that boundary (its right limit in ``mu[0]``) acts from it on, and
+    splitting a span into calls changes nothing.
     """
     n = h.shape[0]
     n_steps = mu.shape[0] - 1
     n_comp = w.shape[0]
     phi = (1.0 - frac) if n_delay == 0 else 0.0
-    _coefficients(ff, dist, aux[0], sigma[0], tau_m, a0, b0)
+    _coefficients(ff, dist, mu[0] - aux[0], sigma[0], tau_m, a0, b0)
     for k in range(n_steps):
         q = buf[head] / dt
         buf[head] = 0.0
@@ -290,7 +292,7 @@ def _advance_adapting(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay
         for c in range(n_comp):
             w_end += w[c] * decay[c] + coup[c] * (1.0 - decay[c]) * (aux[1] - rest) + kick[c] * aux[2]
         mu_end = mu[k + 1] - w_end
-        outflow = _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, aux[0], mu_end, sigma[k], sigma[k + 1],
+        outflow = _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, mu[k] - aux[0], mu_end, sigma[k], sigma[k + 1],
                         a0, b0, a1, b1, rhs, pg, cp, z)
         head, refr = _reinject(buf, head, n_delay, frac, outflow)
         su = 0.0
@@ -299,7 +301,7 @@ def _advance_adapting(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay
         mean_u = su + refr * reset
         for c in range(n_comp):
             w[c] = w[c] * decay[c] + coup[c] * (1.0 - decay[c]) * (0.5 * (aux[1] + mean_u) - rest) + kick[c] * outflow
-        aux[0] = mu_end
+        aux[0] = w_end
         aux[1] = mean_u
         aux[2] = outflow
         out_rate[k] = outflow / (dt * MS_TO_S)
@@ -488,7 +490,7 @@ class FokkerPlanckSolver(SolverBase):
             decay, coup, kick, rest = self._adapt
             if initial == "synchronous":
                 self.w[:] = kick
-            self.aux[:] = (float(mu0) - float(self.w.sum()), self.mean_potential(),
+            self.aux[:] = (float(self.w.sum()), self.mean_potential(),
                            self._stationary_flux * self.dt if initial == "stationary" else 0.0)
 
     def _stationary_density(self, mu: float, sigma: float) -> float:
