@@ -18,11 +18,13 @@ def adapting_lif(*terms):
 @pytest.mark.parametrize("closure", ["spike-weighted", "quasi-renewal"])
 def test_zero_adaptation_reproduces_the_renewal_solver(closure):
     """The adapting step with zero jumps is the renewal step bit for bit (synchronous start); the stationary
-    start is found by another route (a root of the adaptation means) and agrees to round-off."""
+    start is found by another route (a root of the adaptation means, the old bin's fixed point with Aitken
+    extrapolation): measured 5e-12 from the fully converged renewal state, against whose plain iteration
+    (stopped at a 1e-13 change per iteration, 6e-11 from it) the tolerance is set."""
     d = drive.Step(t=30.0, before=15.0, after=25.0)
     zero = adapting_lif(popdens.Adaptation(tau=80.0, jump=0.0), popdens.MovingThreshold(tau=30.0, jump=0.0))
     plain = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 2.0), ESCAPE)
-    for initial, tol in (("synchronous", 0.0), ("stationary", 1e-11)):
+    for initial, tol in (("synchronous", 0.0), ("stationary", 1e-10)):
         a = popdens.simulate(plain, d, t_end=100.0, initial=initial)
         b = popdens.simulate(zero, d, t_end=100.0, initial=initial, adaptation_closure=closure)
         np.testing.assert_allclose(b.rate, a.rate, rtol=tol, atol=0.0)
