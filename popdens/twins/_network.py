@@ -35,7 +35,7 @@ import numpy as np
 from ..model._kernels import NO_REFCOUNT
 from ._diffusive import BRIDGE_SKIP, REF_TOL, _move
 from ..model.neurons import CODE_LIF
-from ..solvers._age_step import _bin_step, _newborn
+from ..solvers._age_step import _bin_step, _newborn, _refire_survival
 from ..solvers._refractory_adapting import adapt_end, adapt_start, adapt_sums
 
 NOISE_WHITE, NOISE_ESCAPE = 0, 1
@@ -107,7 +107,7 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
     cap = spk_t.shape[0]
     tol = REF_TOL * dt
     for k in range(n_steps):
-        if record and cap - n_spk < n_total:
+        if record and cap - n_spk < 2 * n_total:
             return k, n_spk, True
         for p in range(n_pop):
             i0 = start[p]
@@ -161,6 +161,7 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                     d0 += nb * bg_drive[p]
                     d1 += nb * bg_drive[p]
                 fired = False
+                n_fire = 1
                 u_start = u[i]
                 w0 = 0.0
                 w1 = 0.0
@@ -244,6 +245,21 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                             d_n = d1 + w1 - wn
                         u[i], hz[i] = _newborn(ncode[p], npar, nops, nargs, tm, rs, hcode[p], hpar, hops, hargs,
                                                theta[p] + th_n, uses_slope[p], tr, dt, d_n, stack, xbuf)
+                        # firing again within the birth step (tau_ref < dt/2; see _refire_survival)
+                        s_nb = _refire_survival(ncode[p], npar, nops, nargs, tm, rs, hcode[p], hpar, hops, hargs,
+                                                theta[p] + th_n, uses_slope[p], tr, dt, d_n, hz[i], stack, xbuf)
+                        while s_nb < 1.0 and np.random.random() >= s_nb:
+                            n_fire += 1
+                            if adapting:  # each spike with its kick, as in run_escape_adapting
+                                for c in range(kinds.shape[0]):
+                                    st[c, i] += kick[c]
+                                wn, th_n = adapt_sums(kinds, st, i)
+                                d_n = d1 + w1 - wn
+                                u[i], hz[i] = _newborn(ncode[p], npar, nops, nargs, tm, rs, hcode[p], hpar, hops,
+                                                       hargs, theta[p] + th_n, uses_slope[p], tr, dt, d_n, stack, xbuf)
+                                s_nb = _refire_survival(ncode[p], npar, nops, nargs, tm, rs, hcode[p], hpar, hops,
+                                                        hargs, theta[p] + th_n, uses_slope[p], tr, dt, d_n, hz[i],
+                                                        stack, xbuf)
                         age[i] = 0.5 * dt
                         lam[i] = 0.0
                         thr[i] = np.random.exponential(1.0)
@@ -255,11 +271,13 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                         age[i] += dt
                 su += u[i]
                 if fired:
-                    count += 1
+                    count += n_fire
                     if record:
-                        spk_t[n_spk] = t0 + (k + 0.5) * dt
-                        spk_i[n_spk] = i
-                        n_spk += 1
+                        for _ in range(n_fire):
+                            if n_spk < cap:  # room for 2 n_total per step (re-firings are rare)
+                                spk_t[n_spk] = t0 + (k + 0.5) * dt
+                                spk_i[n_spk] = i
+                                n_spk += 1
                     for jq in range(out_ptr[p], out_ptr[p + 1]):
                         q = out_list[jq]
                         tg = q_tgt[q]
@@ -272,7 +290,7 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                         j0 = q_idx_off[q] + ptr_flat[p0]
                         j1 = q_idx_off[q] + ptr_flat[p0 + 1]
                         for j in range(j0, j1):
-                            buf[base + idx_flat[j]] += 1.0
+                            buf[base + idx_flat[j]] += n_fire
             out_count[k, p] = count
             out_mean_u[k, p] = su / n_p
         for q in range(q_head.shape[0]):
