@@ -4,13 +4,14 @@ from __future__ import annotations
 
 import inspect
 import logging
-import time
 import warnings
 
 import numpy as np
 
 from .._version import __version__
-from ._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps
+from .. import _validation as v
+from ..model._jit import Stopwatch
+from ._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps, steps_per_call
 from ..model.drive import as_drive
 from ..model.noise import Population, WhiteNoise
 from ..progress import Progress
@@ -24,6 +25,8 @@ logger = logging.getLogger(__name__)
 
 #: Default internal time step (ms) when the solver does not define one.
 DEFAULT_DT = 0.1
+#: Drive samples over the run handed to the solver's ``plan`` (resolution chosen for their range).
+PLAN_SAMPLES = 20_001
 #: Tolerance on total probability before a run is flagged as failed.
 MASS_TOLERANCE = 1e-9
 
@@ -121,14 +124,24 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     solver = cls(population, grid.dt, **options)
     sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
 
-    wall0 = time.perf_counter()
+    watch = Stopwatch()
     mu_at = BoundarySamples(drive, grid)
     sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
     mu0 = mu_at.start()
     sigma0 = sigma_at.start() if sigma_at is not None else None
     if not np.isfinite(mu0) or (sigma0 is not None and not np.isfinite(sigma0)):
         raise ValueError("the drive is not finite at t = 0")
+    # the drive over the run (sampled), so that solvers can choose a resolution that suits all of it
+    ks = np.unique(np.linspace(0, grid.n_steps, min(grid.n_steps + 1, PLAN_SAMPLES)).astype(np.int64))
+    jt = np.asarray(list(mu_at.jumps.values()) + list(sigma_at.jumps.values() if sigma_at else []), dtype=float)
+    ts = np.concatenate([ks * grid.dt, jt])
+    with np.errstate(all="ignore"):  # non-finite values are reported by the run itself
+        solver.plan(np.concatenate([drive(ts), drive.left_limit(jt)]),
+                    None if sigma_drive is None else np.concatenate([sigma_drive(ts), sigma_drive.left_limit(jt)]))
     solver.initialize(mu0, sigma0, initial)
+    n_snap = grid.n_steps // grid.snap_every + 1 if grid.snap_every else 0
+    v.check_memory("t_end", t_end, 8.0 * (3 * grid.n_steps + n_snap * (solver.axis.size + 1)),
+                   f"recording {grid.n_steps} steps" + (f" and {n_snap} density snapshots" if n_snap else ""))
     guard = _AccuracyGuard(solver)
     guard.check(np.array([mu0]), None if sigma0 is None else np.array([sigma0]))
     rate0 = solver.instantaneous_rate(mu0, sigma0)
@@ -146,7 +159,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in split_at_jumps(block_ends(grid), mu_at, sigma_at):
+        for end in split_at_jumps(block_ends(grid, steps_per_call(solver.axis.size)), mu_at, sigma_at):
             tk = grid.step_times(k, end)
             mu = mu_at.values(k, end)
             sg = sigma_at.values(k, end) if sigma_at is not None else None
@@ -178,7 +191,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
         status, message = STATUS_FAILED, f"probability mass drifted by {mass_error:.3g}"
     t, r_out, mu_o, rf_o = downsample(grid, rate0, rate, meanu0, mean_u, refr0, refr, k)
     diagnostics = {
-        "wall_time_s": time.perf_counter() - wall0,
+        **watch.times(),
         "version": __version__,
         "mass_error": mass_error,
         "method": cls.method_name,

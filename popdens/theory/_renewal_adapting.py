@@ -52,7 +52,7 @@ def n_components(k: int) -> int:
     return 2 * k + 5
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _rhs(code, p, ops, args, tau_m, mu, hcode, hp, hops, hargs, theta, kinds, taus, coup, rest,
          a, y, out, stack, xbuf):  # pragma: no cover - compiled
     k = kinds.shape[0]

@@ -50,8 +50,9 @@ from ..model.neurons import CODE_LIF, CODE_PIF
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ._adapted import escape_adapted, white_adapted
 from ._isi_diffusive import passage_time_density
+from ._isi_markov import isi_chain
 from ._renewal import STATUS_OK as _RENEWAL_OK
-from ._renewal import reaches_cutoff, renewal_moments
+from ._renewal import RENEWAL_TOL, reaches_cutoff, renewal_moments
 from ._scales import scratch
 from ._siegert import siegert_rate, siegert_slopes
 from ._stationary_escape import CUTOFF_PROBES, renewal_args, renewal_rates_hz
@@ -281,6 +282,11 @@ class SteadyState:
     age, age_density : ndarray or None
         Escape noise: age since the last spike (ms) and the stationary age
         density (1/ms; integrates to 1 over all ages, ``rate * survivor``).
+    serial_correlation : ndarray or None
+        Adapting escape-noise neurons with one adaptation component (no
+        coupling): correlation coefficients of ISIs 1, 2, ... apart, from the
+        Markov chain of the post-spike adaptation (exact up to its grids);
+        None otherwise (renewal neurons: zero).
     method : str
         How the rate was computed.
     """
@@ -303,6 +309,7 @@ class SteadyState:
     flux: np.ndarray | None = None
     age: np.ndarray | None = None
     age_density: np.ndarray | None = None
+    serial_correlation: np.ndarray | None = None
     diagnostics: dict = field(default_factory=dict)
 
     def __repr__(self) -> str:
@@ -380,7 +387,9 @@ def _escape_stationary(population, mu: float, isi_t) -> SteadyState:
         isi_t=isi_t, isi_density=haz * surv, survivor=surv, method="renewal",
         isi_atom=(float(a_end), float(s_end)) if atom else None,
         age=isi_t, age_density=rate_ms * surv,
-        diagnostics={"renewal_steps": int(n_rec), "mode": "potential" if mode else "age"},
+        # global error bound of the adaptive integration: the local tolerances summed over its steps
+        diagnostics={"renewal_steps": int(n_rec), "mode": "potential" if mode else "age",
+                     "rate_error_hz": rate_ms * 1000.0 * RENEWAL_TOL * max(int(n_rec), 1)},
     )
 
 
@@ -415,6 +424,7 @@ def _diffusive_stationary(population, mu: float, sigma: float, isi_t, method: st
         isi_t=isi_t, isi_density=dens, survivor=surv, method=method,
         u=sw.u, density=sw.density, flux=sw.flux,
         diagnostics={"cells": int(sw.u.size - 1), "threshold_integration_rate_hz": sw.rate,
+                     "rate_error_hz": 0.0 if method in ("siegert", "inverse-gaussian") else sw.rate_error,
                      "mean_passage_ms": sw.t1, "isi_spectrum_residual": residual},
     )
 
@@ -525,14 +535,23 @@ def _adapted_stationary(population, mu: float, sg, isi_t, method: str) -> Steady
     surv, dens = _adapted_isi(population, mu, st.post_spike, isi_t)
     var = 2.0 * st.m1 - st.m0 * st.m0
     rate_ms = 1.0 / st.m0
+    cv = math.sqrt(max(var, 0.0)) / st.m0
+    diagnostics = {"post_spike_adaptation_mV": [float(x) for x in st.post_spike],
+                   "cv": "of the closure's renewal process: neglects the spread of the adaptation carried "
+                         "into a spike and the serial correlations it causes"}
+    chain = None
+    if len(nrn.adaptation) == 1 and nrn.adaptation[0].coupling_value == 0.0:
+        chain = isi_chain(population, mu, z_start=float(st.post_spike[0]))
+        cv = chain.cv
+        diagnostics.update({"cv": "exact: from the Markov chain of the post-spike adaptation",
+                            "closure_renewal_cv": math.sqrt(max(var, 0.0)) / st.m0,
+                            "markov_rate_hz": chain.rate})
     return SteadyState(
-        population=population, mu=mu, sigma=None, rate=st.rate, cv=math.sqrt(max(var, 0.0)) / st.m0,
+        population=population, mu=mu, sigma=None, rate=st.rate, cv=cv,
         mean_isi=st.m0, mean_u=st.mean_u, refractory_fraction=float(rate_ms * nrn.refractory),
         isi_t=isi_t, isi_density=dens, survivor=surv, method="renewal (spike-weighted adaptation)",
         age=isi_t, age_density=rate_ms * surv,
-        diagnostics={"post_spike_adaptation_mV": [float(x) for x in st.post_spike],
-                     "cv": "of the closure's renewal process: neglects the spread of the adaptation carried "
-                           "into a spike and the serial correlations it causes"})
+        serial_correlation=None if chain is None else chain.serial_correlation, diagnostics=diagnostics)
 
 
 def _rate_ceiling_hz(population) -> float:
