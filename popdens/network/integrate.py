@@ -202,6 +202,11 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         if not any(finite):
             raise ValueError("`finite_size`: the circuit has no escape-noise cohort; finite white-noise "
                              "populations are simulated by montecarlo_network")
+        for nm, cohort, fin in zip(circuit.names, circuit.cohorts, finite):
+            if fin and cohort.population.neuron.adaptation:
+                raise ValueError(f"`finite_size`: cohort {nm!r} has adapting neurons (`adaptation`), which the "
+                                 "finite-size integration does not support yet; simulate the finite network with "
+                                 "montecarlo_network")
         burn_in = DEFAULT_BURN_IN_MS if burn_in is None else v.non_negative("burn_in", burn_in)
         n_burn = int(round(burn_in / dt))
         rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)

@@ -70,6 +70,10 @@ def test_finite_size_arguments_are_checked():
         simulate_network(recurrent(50, 20.0, 14.0), 10.0, seed=3)
     with pytest.raises(ValueError, match="`burn_in`"):
         simulate_network(recurrent(50, 20.0, 14.0), 10.0, finite_size=True, burn_in=-1.0)
+    adapting = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 2.0, adaptation=[popdens.Adaptation(100.0, 1.0)]),
+                                  popdens.EscapeNoise(hazard.Exponential(20.0, 2.0)))
+    with pytest.raises(ValueError, match="`finite_size`: cohort 'A' has adapting neurons"):
+        simulate_network(Circuit([Cohort("A", adapting, size=50, drive=15.0)]), 10.0, finite_size=True)
 
 
 # ------------------------------------------------------------------------------- spectral matrix
