@@ -195,6 +195,7 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     mu : float or array_like
         Drives (mV).
     sigma : float, optional
@@ -402,6 +403,7 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     mu : float
         Drive (mV).
     sigma : float, optional
@@ -444,6 +446,7 @@ def drive_for_rate(population, rate, *, sigma=None, bracket=None) -> float | np.
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     rate : float or array_like
         Target rates (Hz), > 0 and below the ceiling ``1000/refractory``.
     sigma : float, optional
