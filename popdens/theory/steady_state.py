@@ -169,6 +169,13 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     ndarray
         Rates in Hz, the shape of ``mu``.
 
+    Raises
+    ------
+    ValueError
+        Bad arguments, or a noise amplitude that varies in time.
+    ConvergenceError
+        No stationary state could be computed (the message names the drive).
+
     Notes
     -----
     Adapting neurons (``adaptation=[...]``): escape noise gives the
@@ -177,13 +184,6 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     sum_k w_k)`` with ``w_k = a_k(<u> - rest) + jump_k tau_k r`` (see
     :mod:`popdens.theory._adapted`); ``method`` then names how the renewal
     part is computed.
-
-    Raises
-    ------
-    ValueError
-        Bad arguments, or a noise amplitude that varies in time.
-    ConvergenceError
-        No stationary state could be computed (the message names the drive).
 
     Examples
     --------
