@@ -27,7 +27,7 @@ the input is treated as the white noise of the diffusion approximation and
 correlations it induces are neglected).  It fails near an instability (a
 root of ``det(I - M)`` close to the imaginary axis) and for large
 fluctuations (small ``N``, nonlinear gain).  Measured against the spiking
-twin in ``tests/network/test_network_spectra.py`` (table in DEVELOPERS.md).
+twin in ``tests/network/test_network_finite.py`` (table in DEVELOPERS.md).
 """
 
 from __future__ import annotations
@@ -46,11 +46,20 @@ __all__ = ["spectral_matrix"]
 
 def spectral_matrix(circuit: Circuit, state: FixedPoint, freqs, *, transfer: Callable | None = None,
                     sizes=None) -> np.ndarray:
-    """Cross-spectral matrix (Hz) of the cohorts' activities at a stable fixed point (module docstring).
+    """Cross-spectral matrix (Hz) of the cohorts' activities at a stable fixed point.
+
+    Linear response of finite cohorts (Lindner, Doiron & Longtin 2005; Trousdale et al. 2012):
+    ``C(f) = (I - M(f))^-1 D(f) (I - M(f))^-H``, with ``M`` the coupling through transfer
+    functions, synaptic kernels and delays and ``D = diag(S_k(f) / N_k)`` the single-neuron
+    spike-train spectra (renewal formula) over the cohort sizes.  An approximation: it holds
+    around a stable asynchronous state and fails near an instability and for large fluctuations
+    (small cohorts, strongly nonlinear gain); both noise models; adapting cohorts are refused
+    (the renewal spectra do not cover them).
 
     Parameters
     ----------
     circuit : Circuit
+        The network; its cohorts' ``size`` are the numbers of neurons unless ``sizes`` is given.
     state : FixedPoint
         From :func:`~popdens.fixed_points`; should be stable (:func:`~popdens.stability`).
     freqs : array_like of float

@@ -124,6 +124,15 @@ def simulate(population, drive, t_end, dt=None, *, n=None, seed=None, trials=Non
     dt : float, optional
         Internal time step (ms); must divide ``t_end``.  Default: the
         solver's default (0.1 ms for the refractory-density solver).
+    n : int, optional
+        Number of neurons.  Default None: the infinite population
+        (deterministic solvers).  Escape noise only.
+    seed : int or numpy.random.Generator, optional
+        With ``n``: seed of the random spike counts; the same seed gives
+        bit-identical results.
+    trials : int, optional
+        With ``n``: number of independent realisations (default 1), kept in
+        ``Result.trial_rates``; ``Result.rate`` is the first.
     method : str or type, optional
         Solver name from ``popdens.solvers.METHODS`` or a solver class.
     initial : str or array_like, optional
@@ -135,15 +144,6 @@ def simulate(population, drive, t_end, dt=None, *, n=None, seed=None, trials=Non
         rate is averaged over each interval.  Default: every step.
     snapshot_interval : float, optional
         Interval (ms) between density snapshots (multiple of ``dt``).
-    n : int, optional
-        Number of neurons.  Default None: the infinite population
-        (deterministic solvers).  Escape noise only.
-    seed : int or numpy.random.Generator, optional
-        With ``n``: seed of the random spike counts; the same seed gives
-        bit-identical results.
-    trials : int, optional
-        With ``n``: number of independent realisations (default 1), kept in
-        ``Result.trial_rates``; ``Result.rate`` is the first.
     progress : bool, optional
         Show a progress line on stderr (default: only on a terminal, for
         long runs).

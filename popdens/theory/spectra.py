@@ -135,6 +135,7 @@ def spike_train_spectrum(population, mu, freqs, *, with_moments: bool = False):
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     mu : float
         Stationary drive (mV).
     freqs : array_like of float
@@ -147,7 +148,8 @@ def spike_train_spectrum(population, mu, freqs, *, with_moments: bool = False):
     ndarray of float
         Two-sided spectral density (Hz), without the ``r0^2 delta(f)`` peak;
         ``S(0) = r0 CV^2`` and ``S -> r0`` at high frequency.
-    (rate, cv2) : tuple of float, only with ``with_moments``
+    (rate, cv2) : tuple of float
+        Only with ``with_moments``: the stationary rate (Hz) and the squared ISI CV.
     """
     f = _real_freqs(freqs)
     ren = _Renewal(population, mu)
@@ -174,6 +176,25 @@ def population_rate_spectrum(population, mu, freqs, n, *, bin_width=None) -> np.
 
     using ``sum_k sinc^2(pi (f + k/b) b) = 1`` for the flat part ``r0`` (exact) and
     the folded terms ``|k| <= ALIASES`` for the rest (standard sampling theory).
+
+    Parameters
+    ----------
+    population : Population
+        The neurons and their noise model.
+    mu : float
+        Stationary drive (mV).
+    freqs : array_like of float
+        Frequencies (Hz).
+    n : int
+        Number of neurons, >= 1.
+    bin_width : float, optional
+        Width (ms) of the bins the rate is averaged over and sampled at; default
+        None: the spectrum of the instantaneous rate.
+
+    Returns
+    -------
+    ndarray of float
+        Two-sided spectral density of the population rate (Hz).
     """
     n = v.positive_int("n", n)
     if bin_width is None:
