@@ -21,6 +21,7 @@ from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, Pop
 from .model import drive, hazard
 from .model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
 from .model.noise import EscapeNoise, Population, WhiteNoise
+from .model.synaptic import ColouredNoise
 from .network.circuit import Circuit, Cohort, Pathway, PoissonBackground
 from .network.integrate import simulate_network
 from .network.linear_stability import Stability, stability
@@ -31,7 +32,7 @@ from .network.twin import montecarlo_network
 from .result import Result, load_result
 from .solvers.frontend import simulate
 from .sweeps.engine import Curve, SweepResult, grid_points, load_sweep, point_seed, sweep
-from .theory.linear_response import linear_rate_response, response_kernel, transfer
+from .theory.linear_response import high_frequency_limit, linear_rate_response, response_kernel, transfer
 from .theory.spectra import population_rate_spectrum, spike_train_spectrum
 from .theory.steady_state import SteadyState, drive_and_noise_for, drive_for_rate, gain, gain_slope, stationary
 from .twins.population import montecarlo
@@ -45,6 +46,7 @@ __all__ = [
     "Circuit",
     "CircuitResult",
     "Cohort",
+    "ColouredNoise",
     "ConvergenceError",
     "Curve",
     "CustomNeuron",
@@ -76,6 +78,7 @@ __all__ = [
     "gain_slope",
     "grid_points",
     "hazard",
+    "high_frequency_limit",
     "linear_rate_response",
     "load_result",
     "load_sweep",

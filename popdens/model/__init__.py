@@ -4,8 +4,9 @@ parser and the compiled building blocks they share (the bottom layer above the s
 from . import drive, hazard
 from .neurons import EIF, LIF, PIF, QIF, CustomNeuron, NeuronBase
 from .noise import EscapeNoise, Population, WhiteNoise
+from .synaptic import ColouredNoise
 
 __all__ = [
-    "CustomNeuron", "EIF", "EscapeNoise", "LIF", "NeuronBase", "PIF", "Population", "QIF", "WhiteNoise",
+    "ColouredNoise", "CustomNeuron", "EIF", "EscapeNoise", "LIF", "NeuronBase", "PIF", "Population", "QIF", "WhiteNoise",
     "drive", "hazard",
 ]

@@ -119,13 +119,21 @@ def describe_population(population) -> str:
         d["noise"].update({"escape_function": type(noise.hazard).__name__, **noise.hazard.parameters()})
     else:
         d["noise"]["sigma_mV"] = noise.sigma
+        if hasattr(noise, "tau_syn"):
+            d["noise"]["tau_syn_ms"] = noise.tau_syn
     return json.dumps(jsonable(d), sort_keys=True)
 
 
 def _with_sigma(population, sigma):
     from ..model.noise import Population, WhiteNoise
+    from ..model.synaptic import ColouredNoise
 
-    return population if sigma is None else Population(population.neuron, WhiteNoise(float(sigma)))
+    if sigma is None:
+        return population
+    noise = population.noise
+    if isinstance(noise, ColouredNoise):
+        return Population(population.neuron, ColouredNoise(float(sigma), noise.tau_syn))
+    return Population(population.neuron, WhiteNoise(float(sigma)))
 
 
 def _save(fig, folder: Path, stem: str) -> list[str]:
@@ -236,7 +244,8 @@ def _parse_gain(src, table, data, white):
     mu = parse_values(src, table, "mu", data["mu"])
     if "sigma" in data:
         if not white:
-            raise ScenarioError(f"{src}: [{table}] key `sigma` applies to white noise only ([noise] kind = 'white')")
+            raise ScenarioError(f"{src}: [{table}] key `sigma` applies to white noise only (or coloured) "
+                                "([noise] kind = 'white' or 'coloured')")
         sig = parse_values(src, table, "sigma", data["sigma"], positive=True)
         return GainCurve(mu, tuple(float(s) for s in sig))
     return GainCurve(mu)
@@ -257,7 +266,8 @@ def _parse_transfer(src, table, data, white):
     if modulate not in ("mean", "noise", "sigma"):
         raise _err(src, table, "modulate", modulate, "'mean', 'noise' (sigma^2) or 'sigma'")
     if modulate != "mean" and not white:
-        raise _err(src, table, "modulate", modulate, f"'mean' ('{modulate}' needs [noise] kind = 'white')")
+        raise _err(src, table, "modulate", modulate,
+                   f"'mean' ('{modulate}' needs [noise] kind = 'white' or 'coloured')")
     return TransferCurve(mu, freqs, modulate)
 
 

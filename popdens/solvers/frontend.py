@@ -12,7 +12,7 @@ import numpy as np
 from .._version import __version__
 from ._recording import block_ends, downsample, make_grid
 from ..model.drive import as_drive
-from ..model.noise import Population, WhiteNoise
+from ..model.noise import Population
 from ..progress import Progress
 from ..exceptions import AccuracyWarning
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK, Result
@@ -119,7 +119,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     if unknown:
         raise ValueError(f"unknown option(s) {unknown} for method {cls.method_name!r}; allowed: {allowed}")
     solver = cls(population, grid.dt, **options)
-    sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
+    sigma_drive = getattr(population.noise, "sigma_drive", None)  # white or coloured noise
 
     wall0 = time.perf_counter()
     mu0 = float(drive(0.0))

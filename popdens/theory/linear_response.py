@@ -24,6 +24,15 @@ Methods
 * white-noise LIF, optionally: the closed form with parabolic-cylinder
   functions (Brunel & Hakim 1999; Lindner & Schimansky-Geier 2001), needs
   mpmath (:mod:`popdens.theory._lif_exact`).
+* coloured noise (:class:`~popdens.ColouredNoise`): the white-noise methods
+  applied with threshold and reset moved by ``sigma alpha/2 sqrt(tau_syn/tau_m)``
+  (the effective-boundary transfer function, Schuecker, Diesmann & Helias
+  2015, Phys. Rev. E 92:052119), first order in ``sqrt(tau_syn/tau_m)`` and
+  valid while ``2 pi f tau_syn`` is small; for noise modulation the boundary
+  moves with ``sigma``, which for the LIF is a mean modulation
+  ``-(1 + i omega tau_m) d(shift)`` (change of variable ``u -> u - shift(t)``).
+  At high frequencies the true response tends to a finite, lag-free limit
+  (Fourcaud & Brunel 2002): :func:`high_frequency_limit`.
 
 Complex frequencies
 -------------------
@@ -45,10 +54,13 @@ from .. import _validation as v
 from ._modulated_threshold import NODES_PER_SIGMA, Sweep
 from ._renewal_response import _renewal_sweep, free_trajectory
 from ..model.drive import as_drive
+from ..model.effective import white_equivalent
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..model.synaptic import ColouredNoise
 from ..progress import Progress
 
-__all__ = ["transfer", "response_kernel", "linear_rate_response", "laplace_to_freq", "stationary_rate"]
+__all__ = ["transfer", "response_kernel", "linear_rate_response", "laplace_to_freq", "stationary_rate",
+           "high_frequency_limit"]
 
 #: Age step (ms) of the renewal quadrature grid, at most (measured: second order, 6e-6 relative
 #: at 1 kHz for tau_m = 10 ms); refined for fast membranes.
@@ -217,6 +229,7 @@ def stationary_rate(population, mu) -> float:
     mu = v.as_finite_float("mu", mu)
     if isinstance(population.noise, EscapeNoise):
         return _escape_rate(population, mu)
+    population = white_equivalent(population)
     sigma = _sigma_of(population)
     r1 = Sweep(population.neuron, mu, sigma).rate
     r2 = Sweep(population.neuron, mu, sigma, 2 * NODES_PER_SIGMA).rate
@@ -298,6 +311,8 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
     f = _check_freqs(freqs)
     if modulate not in MODULATIONS:
         raise ValueError(f"`modulate` must be one of {sorted(MODULATIONS)}, got {modulate!r}")
+    if isinstance(population.noise, ColouredNoise):
+        return _coloured_transfer(population, mu, f, modulate, method, progress)
     escape = isinstance(population.noise, EscapeNoise)
     if method is None:
         method = "renewal" if escape else "threshold-integration"
@@ -329,6 +344,79 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
     else:
         out = _white_transfer(population, mu, s, modulate, progress)
     return out.reshape(f.shape)
+
+
+def _coloured_transfer(population, mu, f, modulate, method, progress):
+    """Effective-boundary transfer function of a coloured-noise population (module notes)."""
+    if method == "renewal":
+        raise ValueError("`method` = 'renewal' needs escape noise")
+    white = white_equivalent(population)
+    out = transfer(white, mu, f, modulate, method=method, progress=progress)
+    if modulate == "mean":
+        return out
+    nrn = population.neuron
+    if nrn.has_cutoff or nrn.code not in (0, 3):
+        raise ValueError("noise modulation of coloured-noise populations is available for the LIF and PIF "
+                         f"(the moving boundary is a mean modulation only for a linear drift), not {nrn!r}")
+    sigma = _sigma_of(white)
+    shift = white.neuron.reset - nrn.reset
+    # d(shift)/d(sigma) = shift / sigma; per unit sigma^2: shift / (2 sigma^2)
+    per = shift / sigma if modulate == "sigma" else shift / (2.0 * sigma * sigma)
+    lam_tau = 2j * math.pi * 1e-3 * f * nrn.tau_m
+    leak = 1.0 if nrn.code == 0 else 0.0
+    chi_mu = transfer(white, mu, f, "mean", method=method, progress=progress)
+    return out - chi_mu * (leak + lam_tau) * per
+
+
+def high_frequency_limit(population, mu) -> float:
+    r"""Finite high-frequency limit (Hz/mV) of the mean-input transfer function with coloured noise.
+
+    With a synaptically filtered current the potential is differentiable and
+    crosses the threshold only with positive velocity ``v = (F(theta) + mu +
+    I_s)/tau_m``; the rate is the flux ``int_{v>0} v P(theta, I_s) dI_s``.  A
+    fast modulation ``eps e^{i omega t}`` of the drive cannot move the density
+    (its response falls as ``1/omega``) but moves every velocity at once, so the
+    rate follows without lag (Fourcaud & Brunel 2002, Neural Comput. 14:2057):
+
+    .. math:: \chi(\omega\to\infty) = p(\theta)/\tau_m,
+
+    with ``p(theta)`` the stationary potential density at threshold (the
+    neurons there with ``v < 0`` are absent: they would come from above).
+    ``p(theta)`` is taken from the effective white-noise density (threshold
+    and reset shifted, :mod:`popdens.model.effective`) evaluated at the true
+    threshold, to first order in ``k = sqrt(tau_syn/tau_m)``: for the LIF
+    ``p(theta) ~ tau_m nu0 alpha k / sigma`` (the boundary layer's own shape is
+    a correction of the same order; the error is measured against the Monte
+    Carlo twin in the contributor guide).
+
+    Parameters
+    ----------
+    population : Population
+        Hard-threshold neuron (LIF, PIF, custom without cut-off) with
+        :class:`~popdens.ColouredNoise` of constant ``sigma``.
+    mu : float
+        Stationary drive (mV).
+
+    Returns
+    -------
+    float
+        The limit in Hz/mV, real and positive (no phase lag).
+    """
+    population = _check_population(population)
+    mu = v.as_finite_float("mu", mu)
+    if not isinstance(population.noise, ColouredNoise):
+        raise ValueError("the finite high-frequency limit needs coloured noise (white noise: the response "
+                         "falls as f^-1/2 for the LIF, escape noise: see `transfer`)")
+    nrn = population.neuron
+    if nrn.has_cutoff:
+        raise ValueError("the high-frequency limit p(theta)/tau_m applies to hard thresholds; with a spike "
+                         f"cut-off the potential crosses by its own drift ({nrn!r})")
+    from ._stationary_white import diffusive_sweep  # noqa: PLC0415
+
+    white = white_equivalent(population)
+    sw = diffusive_sweep(white, mu, _sigma_of(white))
+    p_theta = float(np.interp(nrn.boundary, sw.u, sw.density))
+    return p_theta / nrn.tau_m * 1000.0
 
 
 # ---------------------------------------------------------------------------- time domain

@@ -24,6 +24,11 @@ Methods
   Richardson-extrapolated from two widths.
 * Escape noise: renewal theory along the free trajectory after reset
   (:mod:`popdens.theory._stationary_escape`).
+* Coloured noise (:class:`~popdens.ColouredNoise`): every white-noise method
+  above, applied to the white-noise population with threshold and reset
+  moved up by ``sigma alpha/2 sqrt(tau_syn/tau_m)`` (Brunel & Sergi 1998;
+  Fourcaud & Brunel 2002; only the reset for models with a spike cut-off):
+  first order in ``sqrt(tau_syn/tau_m)``, see :mod:`popdens.model.effective`.
 
 The ISI CV of white-noise populations comes from the first two moments of
 the passage time from reset to the boundary; the ISI density from the
@@ -37,7 +42,7 @@ densities in 1/mV (potential) or 1/ms (age, ISI).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -47,7 +52,9 @@ from .. import _validation as v
 from ..exceptions import ConvergenceError, UnreachableTargetError
 from ..model.drive import Constant, Drive
 from ..model.neurons import CODE_LIF, CODE_PIF
+from ..model.effective import white_equivalent
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..model.synaptic import ColouredNoise
 from ._isi_diffusive import passage_time_density
 from ._renewal import STATUS_OK as _RENEWAL_OK
 from ._renewal import reaches_cutoff, renewal_moments
@@ -97,6 +104,15 @@ def _constant_sigma(population, sigma) -> float | None:
             f"{s!r}; pass `sigma=` (mV) or use a number / popdens.drive.Constant"
         )
     return float(s)
+
+
+def _as_white(population, sigma):
+    """Coloured noise -> its white-noise equivalent (the ``sigma`` override consumed); else unchanged."""
+    if isinstance(population.noise, ColouredNoise):
+        if sigma is not None:
+            sigma = v.positive("sigma", sigma)
+        return white_equivalent(population, sigma), None
+    return population, sigma
 
 
 def _drives(mu) -> np.ndarray:
@@ -169,6 +185,7 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     True
     """
     _check_population(population)
+    population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
     m = _resolve_method(population, method)
@@ -201,6 +218,7 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         As in :func:`gain`.
     """
     _check_population(population)
+    population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
     m = _resolve_method(population, method)
@@ -416,12 +434,19 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         noise), mean potential (mV).
     """
     _check_population(population)
+    original = population
+    population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
     mu = v.as_finite_float("mu", mu)
     m = _resolve_method(population, method)
     if sg is None:
         return _escape_stationary(population, mu, isi_t)
-    return _diffusive_stationary(population, mu, sg, isi_t, m)
+    out = _diffusive_stationary(population, mu, sg, isi_t, m)
+    if population is original:
+        return out
+    shift = float(population.neuron.reset - original.neuron.reset)
+    return replace(out, population=original, method=f"{m} (boundary shift)",
+                   diagnostics={**out.diagnostics, "boundary_shift_mV": shift})
 
 
 def _rate_ceiling_hz(population) -> float:
@@ -532,8 +557,8 @@ def drive_and_noise_for(population, rate, cv, *, sigma_range=None, n_scan=24) ->
         message gives the CV range found).
     """
     _check_population(population)
-    if not isinstance(population.noise, WhiteNoise):
-        raise ValueError("`drive_and_noise_for` needs a white-noise population")
+    if not isinstance(population.noise, (WhiteNoise, ColouredNoise)):
+        raise ValueError("`drive_and_noise_for` needs a white- or coloured-noise population")
     cv = v.positive("cv", cv)
     rate = v.positive("rate", rate)
     nrn = population.neuron
@@ -543,7 +568,7 @@ def drive_and_noise_for(population, rate, cv, *, sigma_range=None, n_scan=24) ->
 
     def cv_at(s):
         m = drive_for_rate(population, rate, sigma=s)
-        return cv_diffusive(population, m, s), m
+        return cv_diffusive(white_equivalent(population, s), m, s), m
 
     sigmas = np.geomspace(lo, hi, max(n_scan, 2))
     vals = []
