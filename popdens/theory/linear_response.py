@@ -29,8 +29,9 @@ Methods
   (the effective-boundary transfer function, Schuecker, Diesmann & Helias
   2015, Phys. Rev. E 92:052119), first order in ``sqrt(tau_syn/tau_m)`` and
   valid while ``2 pi f tau_syn`` is small; for noise modulation the boundary
-  moves with ``sigma``, which for the LIF is a mean modulation
-  ``-(1 + i omega tau_m) d(shift)`` (change of variable ``u -> u - shift(t)``).
+  moves with ``sigma``, which for a linear drift is a mean modulation
+  ``(F'(theta) - i omega tau_m) d(shift)`` (change of variable ``u -> u - shift(t)``;
+  for nonlinear drifts ``F'`` is taken at the threshold, an approximation).
   At high frequencies the true response tends to a finite, lag-free limit
   (Fourcaud & Brunel 2002): :func:`high_frequency_limit`.
 
@@ -352,18 +353,15 @@ def _coloured_transfer(population, mu, f, modulate, method, progress):
         raise ValueError("`method` = 'renewal' needs escape noise")
     white = white_equivalent(population)
     out = transfer(white, mu, f, modulate, method=method, progress=progress)
-    if modulate == "mean":
-        return out
     nrn = population.neuron
-    if nrn.has_cutoff or nrn.code not in (0, 3):
-        raise ValueError("noise modulation of coloured-noise populations is available for the LIF and PIF "
-                         f"(the moving boundary is a mean modulation only for a linear drift), not {nrn!r}")
-    sigma = _sigma_of(white)
     shift = white.neuron.reset - nrn.reset
+    if modulate == "mean" or shift == 0.0:
+        return out
+    sigma = _sigma_of(white)
     # d(shift)/d(sigma) = shift / sigma; per unit sigma^2: shift / (2 sigma^2)
     per = shift / sigma if modulate == "sigma" else shift / (2.0 * sigma * sigma)
     lam_tau = 2j * math.pi * 1e-3 * f * nrn.tau_m
-    leak = 1.0 if nrn.code == 0 else 0.0
+    leak = -float(nrn.drift_slope(nrn.threshold))  # exact for linear drifts (LIF, PIF)
     chi_mu = transfer(white, mu, f, "mean", method=method, progress=progress)
     return out - chi_mu * (leak + lam_tau) * per
 

@@ -47,10 +47,12 @@ def test_population_accepts_coloured_noise_and_its_white_equivalent_shifts_the_l
     assert (w.neuron.tau_m, w.neuron.refractory, w.neuron.rest) == (20.0, 2.0, 0.0)
 
 
-def test_cutoff_models_move_only_the_reset():
+def test_cutoff_models_are_not_shifted():
     eif = popdens.EIF(20.0, 15.0, 2.0, 30.0, 10.0, 2.0)
-    s = shifted_neuron(eif, 0.7)
-    assert (s.cutoff, s.soft_threshold, s.reset) == (30.0, 15.0, pytest.approx(10.7))
+    w = white_equivalent(popdens.Population(eif, popdens.ColouredNoise(4.0, 2.0)))
+    assert w.neuron == eif and w.noise == popdens.WhiteNoise(4.0)
+    with pytest.raises(ValueError, match="cut-off"):
+        shifted_neuron(eif, 0.7)
 
 
 def test_time_varying_sigma_needs_a_number_for_the_shift():

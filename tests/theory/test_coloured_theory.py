@@ -77,11 +77,17 @@ def test_transfer_recovers_white_noise_as_tau_syn_vanishes():
     assert np.max(np.abs(chi_c / chi_w - 1.0)) < 1e-4
 
 
-def test_noise_modulation_needs_a_linear_drift():
-    eif = popdens.Population(popdens.EIF(20.0, 15.0, 2.0, 30.0, 10.0, 2.0), popdens.ColouredNoise(4.0, 2.0))
-    with pytest.raises(ValueError, match="LIF and PIF"):
-        popdens.transfer(eif, 14.0, [10.0], "noise")
-    assert np.isfinite(popdens.transfer(eif, 14.0, [10.0])[0])
+def test_noise_modulation_of_other_drifts():
+    # a custom drift written as the LIF's gives the LIF's response (the moving-boundary term uses F'(theta))
+    lin = popdens.CustomNeuron("-u", tau_m=20.0, threshold=20.0, reset=10.0, refractory=2.0)
+    chi_c = popdens.transfer(popdens.Population(lin, popdens.ColouredNoise(4.0, 2.0)), 18.0, [30.0], "noise")
+    chi_l = popdens.transfer(lif_coloured(), 18.0, [30.0], "noise")
+    assert abs(chi_c[0] / chi_l[0] - 1.0) < 1e-5
+    # a spike cut-off moves nothing: the white-noise response (the twin measures the error)
+    eif = popdens.EIF(20.0, 15.0, 2.0, 30.0, 10.0, 2.0)
+    chi_c = popdens.transfer(popdens.Population(eif, popdens.ColouredNoise(4.0, 2.0)), 14.0, [10.0], "noise")
+    chi_w = popdens.transfer(popdens.Population(eif, popdens.WhiteNoise(4.0)), 14.0, [10.0], "noise")
+    assert chi_c[0] == chi_w[0]
 
 
 def test_high_frequency_limit_is_first_order_density_at_threshold():
