@@ -19,6 +19,7 @@ from ._version import __version__
 from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, PopdensError, ScenarioError,
                          UnreachableTargetError)
 from .model import drive, hazard
+from .model.adaptation import Adaptation, MovingThreshold
 from .model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
 from .model.noise import EscapeNoise, Population, WhiteNoise
 from .model.synaptic import ColouredNoise
@@ -43,6 +44,7 @@ _sys.modules[__name__ + ".hazard"] = hazard
 
 __all__ = [
     "AccuracyWarning",
+    "Adaptation",
     "Circuit",
     "CircuitResult",
     "Cohort",
@@ -55,6 +57,7 @@ __all__ = [
     "ExpressionError",
     "FixedPoint",
     "LIF",
+    "MovingThreshold",
     "PIF",
     "Pathway",
     "PoissonBackground",

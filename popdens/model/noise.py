@@ -101,5 +101,9 @@ class Population:
             raise ValueError(f"`neuron` must be a popdens neuron model, got {self.neuron!r}")
         if not isinstance(self.noise, NOISE_MODELS):
             raise ValueError(f"`noise` must be EscapeNoise, WhiteNoise or ColouredNoise, got {self.noise!r}")
+        if isinstance(self.noise, (WhiteNoise, ColouredNoise)) and self.neuron.moving_thresholds:
+            raise ValueError("`adaptation` holds a MovingThreshold, which needs escape noise; with white or "
+                             "coloured noise the threshold is the absorbing boundary: use popdens.Adaptation "
+                             "currents instead")
 
 

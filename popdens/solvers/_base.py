@@ -9,8 +9,11 @@ Rules for implementers
    initial drive ``mu0`` (mV) (and noise ``sigma0`` for diffusive noise).
 3. ``advance(mu, sigma)`` takes the drive at the step boundaries of a block
    of steps, ``mu`` of shape ``(n + 1,)`` (mV, from the current time), and
-   advances ``n`` steps.  It calls the private ``_advance_impl`` which
-   returns per-step arrays ``rate`` (Hz, mean over each step), ``mean_u``
+   advances ``n`` steps; the drive is linear within each step.  A jump at a
+   step boundary is passed by ending one call with the value before it and
+   starting the next with the value after it (the front ends split their
+   blocks at the jumps the drive lists, ``Drive.jump_times``).  It calls
+   the private ``_advance_impl`` which returns per-step arrays ``rate`` (Hz, mean over each step), ``mean_u``
    (mV, at the step end), ``refractory`` (fraction at the step end) and a
    ``(success, message)`` pair.  ``advance`` does the bookkeeping (time,
    counters, status).
@@ -75,6 +78,10 @@ class SolverBase:
 
     def diagnostics(self) -> dict:
         return {}
+
+    def plan(self, mu: np.ndarray, sigma: np.ndarray | None) -> None:
+        """Samples of the drive ``mu`` (and noise ``sigma``, mV) over the coming run, before
+        :meth:`initialize`, for solvers that choose their resolution from them (default: ignored)."""
 
     def accuracy_issues(self, mu: np.ndarray, sigma: np.ndarray | None) -> list[tuple[str, str]]:
         """Settings too coarse for the current state and the drive ``mu`` (mV) just used.

@@ -10,7 +10,7 @@ import warnings
 import numpy as np
 
 from .._version import __version__
-from ._recording import block_ends, downsample, make_grid
+from ._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps
 from ..model.drive import as_drive
 from ..model.noise import Population
 from ..progress import Progress
@@ -24,6 +24,8 @@ logger = logging.getLogger(__name__)
 
 #: Default internal time step (ms) when the solver does not define one.
 DEFAULT_DT = 0.1
+#: Drive samples over the run handed to the solver's ``plan`` (resolution chosen for their range).
+PLAN_SAMPLES = 20_001
 #: Tolerance on total probability before a run is flagged as failed.
 MASS_TOLERANCE = 1e-9
 
@@ -122,10 +124,19 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     sigma_drive = getattr(population.noise, "sigma_drive", None)  # white or coloured noise
 
     wall0 = time.perf_counter()
-    mu0 = float(drive(0.0))
-    sigma0 = float(sigma_drive(0.0)) if sigma_drive is not None else None
+    mu_at = BoundarySamples(drive, grid)
+    sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
+    mu0 = mu_at.start()
+    sigma0 = sigma_at.start() if sigma_at is not None else None
     if not np.isfinite(mu0) or (sigma0 is not None and not np.isfinite(sigma0)):
         raise ValueError("the drive is not finite at t = 0")
+    # the drive over the run (sampled), so that solvers can choose a resolution that suits all of it
+    ks = np.unique(np.linspace(0, grid.n_steps, min(grid.n_steps + 1, PLAN_SAMPLES)).astype(np.int64))
+    jt = np.asarray(list(mu_at.jumps.values()) + list(sigma_at.jumps.values() if sigma_at else []), dtype=float)
+    ts = np.concatenate([ks * grid.dt, jt])
+    with np.errstate(all="ignore"):  # non-finite values are reported by the run itself
+        solver.plan(np.concatenate([drive(ts), drive.left_limit(jt)]),
+                    None if sigma_drive is None else np.concatenate([sigma_drive(ts), sigma_drive.left_limit(jt)]))
     solver.initialize(mu0, sigma0, initial)
     guard = _AccuracyGuard(solver)
     guard.check(np.array([mu0]), None if sigma0 is None else np.array([sigma0]))
@@ -144,10 +155,10 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in block_ends(grid):
+        for end in split_at_jumps(block_ends(grid), mu_at, sigma_at):
             tk = grid.step_times(k, end)
-            mu = drive(tk)
-            sg = sigma_drive(tk) if sigma_drive is not None else None
+            mu = mu_at.values(k, end)
+            sg = sigma_at.values(k, end) if sigma_at is not None else None
             if not np.all(np.isfinite(mu)) or (sg is not None and not np.all(np.isfinite(sg))):
                 bad = tk[~np.isfinite(mu)] if not np.all(np.isfinite(mu)) else tk
                 status, message = STATUS_FAILED, f"the drive is not finite at t = {bad[0]:g} ms"
