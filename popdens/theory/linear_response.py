@@ -368,6 +368,16 @@ def _coloured_transfer(population, mu, f, modulate, method, progress):
     return out - chi_mu * (leak + lam_tau) * per
 
 
+#: Density at the wall of the half-space (Milne) problem of the kinetic boundary layer,
+#: ``z dP/ds + d/dz (z P + dP/dz) = 0`` on ``s > 0`` with ``P(0, z < 0) = 0``, per unit flux into
+#: the wall (velocities and lengths in thermal units).  Computed here by a second-order upwind
+#: finite-difference solution (``tests/references.py::milne_layer``): 0.917, 0.921, 0.925 at
+#: steps (0.01, 0.05), (0.005, 0.025), (0.0025, 0.025) in (s, z), converging slowly (square-root
+#: singularity at the wall); the same solution gives the extrapolation length 1.449-1.456
+#: against the exact |zeta(1/2)| = 1.4604 (Hagan, Doering & Levermore 1989).
+MILNE_WALL_DENSITY = 0.93
+
+
 def high_frequency_limit(population, mu) -> float:
     r"""Finite high-frequency limit (Hz/mV) of the mean-input transfer function with coloured noise.
 
@@ -380,14 +390,17 @@ def high_frequency_limit(population, mu) -> float:
 
     .. math:: \chi(\omega\to\infty) = p(\theta)/\tau_m,
 
-    with ``p(theta)`` the stationary potential density at threshold (the
-    neurons there with ``v < 0`` are absent: they would come from above).
-    ``p(theta)`` is taken from the effective white-noise density (threshold
-    and reset shifted, :mod:`popdens.model.effective`) evaluated at the true
-    threshold, to first order in ``k = sqrt(tau_syn/tau_m)``: for the LIF
-    ``p(theta) ~ tau_m nu0 alpha k / sigma`` (the boundary layer's own shape is
-    a correction of the same order; the error is measured against the Monte
-    Carlo twin in the contributor guide).
+    with ``p(theta)`` the stationary potential density at threshold.  To first
+    order in ``k = sqrt(tau_syn/tau_m)`` the density there is that of the
+    kinetic boundary layer, ``p(theta) = c sqrt(2) tau_m nu0 k / sigma`` with
+    ``c = MILNE_WALL_DENSITY`` (the outer, effective white-noise density would
+    extrapolate to ``alpha/sqrt(2) = 1.46`` instead of ``c``), so
+
+    .. math:: \chi_\infty = c\,\sqrt{2}\,\nu_0\,k/\sigma,
+
+    ``nu0`` the effective-boundary rate.  An approximation: measured against the
+    Monte Carlo twin (LIF, contributor guide) it is 15 % low at
+    ``tau_syn/tau_m = 0.1``, where ``k = 0.32`` is not small.
 
     Parameters
     ----------
@@ -411,12 +424,11 @@ def high_frequency_limit(population, mu) -> float:
     if nrn.has_cutoff:
         raise ValueError("the high-frequency limit p(theta)/tau_m applies to hard thresholds; with a spike "
                          f"cut-off the potential crosses by its own drift ({nrn!r})")
-    from ._stationary_white import diffusive_sweep  # noqa: PLC0415
-
     white = white_equivalent(population)
-    sw = diffusive_sweep(white, mu, _sigma_of(white))
-    p_theta = float(np.interp(nrn.boundary, sw.u, sw.density))
-    return p_theta / nrn.tau_m * 1000.0
+    sigma = _sigma_of(white)
+    nu0 = stationary_rate(population, mu)
+    k = math.sqrt(population.noise.tau_syn / nrn.tau_m)
+    return MILNE_WALL_DENSITY * math.sqrt(2.0) * nu0 * k / sigma
 
 
 # ---------------------------------------------------------------------------- time domain

@@ -195,6 +195,9 @@ class ColouredEnsemble:
 
     def __init__(self, population, n, dt, rng):
         nrn = population.neuron
+        if getattr(nrn, "adaptation", None):
+            raise ValueError("the coloured-noise Monte Carlo twin does not support `adaptation` yet; "
+                             "remove it from the neuron model")
         noise = population.noise
         self.population = population
         self.sigma_drive = noise.sigma_drive
