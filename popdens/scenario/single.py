@@ -10,7 +10,8 @@ Top-level tables
                 "coloured" with ``sigma`` (mV) and ``tau_syn`` (ms)
 ``[input]``     ``shape`` = "constant" | "step" | "pulse" | "ramp" | "sine" | "trace" and its parameters
 ``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``
-``[gain]``, ``[stationary]``, ``[transfer]``  steady-state and linear-response analyses
+``[gain]``, ``[stationary]``, ``[transfer]``, ``[approximations]``  steady-state and linear-response
+                analyses, the coloured-noise approximations against the twin
                 (see :mod:`popdens.scenario.analyses`)
 ``[[cohort]]``, ``[[pathway]]``, ``[network]``  a network scenario instead (see
                 :mod:`popdens.scenario.network`)
@@ -185,6 +186,11 @@ def parse_single_scenario(data: dict, source: str | Path = "<scenario>") -> Scen
     noise = population.noise
 
     analyses = parse_analyses(src, data, white=isinstance(noise, (WhiteNoise, ColouredNoise)))
+    if "approximations" in data and not isinstance(noise, ColouredNoise):
+        raise ScenarioError(f"{src}: [approximations] compares the approximations of filtered (coloured) noise "
+                            "with the twin: it needs [noise] kind = 'coloured'")
+    if "approximations" in data and noise.constant_sigma() is None:  # pragma: no cover - scenario sigma is a number
+        raise ScenarioError(f"{src}: [approximations] needs a constant [noise] `sigma`")
     digest = hashlib.sha256(repr(sorted(flatten(data))).encode()).hexdigest()[:16]
     if "run" not in data:
         return Scenario(source=Path(src), title=title, output=out_path, population=population, drive=None,

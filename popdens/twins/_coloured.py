@@ -214,11 +214,12 @@ class ColouredEnsemble:
         self.xbuf = np.zeros(3)
         self.reset = float(nrn.reset)
 
-    def run(self, mu, t0, record, spk_t, spk_i, n_spk):
-        """Advance ``len(mu) - 1`` steps from time ``t0`` (ms) with drive ``mu`` (mV) at the step boundaries."""
+    def run(self, mu, sig, t0, record, spk_t, spk_i, n_spk):
+        """Advance ``len(mu) - 1`` steps from time ``t0`` (ms) with drive ``mu`` and noise amplitude ``sig``
+        (mV) at the step boundaries."""
         mu = np.ascontiguousarray(mu, dtype=float)
         n = mu.size - 1
-        sig = np.ascontiguousarray(self.sigma_drive(t0 + self.dt * np.arange(n + 1)), dtype=float)
+        sig = np.ascontiguousarray(sig, dtype=float)
         if not np.all(np.isfinite(sig) & (sig >= 0)):
             raise FloatingPointError("the noise amplitude must stay finite and >= 0 mV")
         count = np.empty(n, dtype=np.int64)

@@ -229,7 +229,7 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
     ens = _make_ensemble(population, n, grid.dt, rng, options)
     mu_at = BoundarySamples(drive, grid)
-    sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
+    sigma_drive = getattr(population.noise, "sigma_drive", None)  # white or coloured noise
     sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
     mu0 = mu_at.start()
     if not np.isfinite(mu0):

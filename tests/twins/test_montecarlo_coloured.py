@@ -51,7 +51,8 @@ def test_free_membrane_variance_of_filtered_noise(rng):
     ens = ColouredEnsemble(pop, n, 0.05, rng)
     popdens.twins._escape.seed_compiled_rng(5)
     no = (np.zeros(1), np.zeros(1, dtype=np.int64))
-    ens.run(np.zeros(int(20 * tau_m / 0.05) + 1), 0.0, False, *no, 0)
+    m = int(20 * tau_m / 0.05) + 1
+    ens.run(np.zeros(m), np.full(m, sigma), 0.0, False, *no, 0)
     se = math.sqrt(2.0 / (n - 1))
     assert abs(np.var(ens.u) / (kern * var_i) - 1.0) < 4 * se
     assert abs(np.var(ens.cur) / var_i - 1.0) < 4 * se
