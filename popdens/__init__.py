@@ -8,43 +8,61 @@ below it; ``tests/test_layering.py`` enforces it): the shared ground floor
 (``_version``, ``exceptions``, ``_validation``, ``_files``, ``progress``,
 ``plotting``, ``result``), then ``model``, ``theory``, ``solvers``,
 ``twins``, ``network``, ``sweeps``, ``scenario`` and the command line.
-This module only re-exports the public names.
+This module only re-exports the public names, importing each on first use.
 """
 
 from __future__ import annotations
 
 import sys as _sys
 
+from ._lazy import lazy_names as _lazy_names
 from ._version import __version__
 from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, PopdensError, ScenarioError,
                          UnreachableTargetError)
 from .model import drive, hazard
-from .model.adaptation import Adaptation, MovingThreshold
-from .model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
-from .model.noise import EscapeNoise, Population, WhiteNoise
-from .model.synaptic import ColouredNoise
-from .network.circuit import Circuit, Cohort, Pathway, PoissonBackground
-from .network.integrate import simulate_network
-from .network.linear_stability import Stability, stability
-from .network.maps import StabilityMap, stability_map
-from .network.result import CircuitResult
-from .network.states import FixedPoint, fixed_points
-from .network.twin import montecarlo_network
-from .result import Result, load_result
-from .solvers.frontend import simulate
-from .sweeps.engine import Curve, SweepResult, grid_points, load_sweep, point_seed, sweep
-from .theory.linear_response import high_frequency_limit, linear_rate_response, response_kernel, transfer
-from .theory.spectra import population_rate_spectrum, spike_train_spectrum
-from .theory.steady_state import SteadyState, drive_and_noise_for, drive_for_rate, gain, gain_slope, stationary
-from .twins.population import montecarlo
 
 # ``import popdens.drive`` and ``import popdens.hazard`` keep working: both are public modules
 _sys.modules[__name__ + ".drive"] = drive
 _sys.modules[__name__ + ".hazard"] = hazard
 
+#: Where each public name lives.  They are imported on first use (module ``__getattr__``, PEP 562)
+#: so that ``import popdens`` and ``popdens --help`` stay fast: the numerical modules pull in scipy,
+#: numba and sympy, about 1.5 s together.  ``from popdens import X`` works as usual.
+_LAZY = {
+    "Adaptation": "model.adaptation", "MovingThreshold": "model.adaptation",
+    "CustomNeuron": "model.neurons", "EIF": "model.neurons", "LIF": "model.neurons", "PIF": "model.neurons",
+    "QIF": "model.neurons",
+    "EscapeNoise": "model.noise", "Population": "model.noise", "WhiteNoise": "model.noise",
+    "ColouredNoise": "model.synaptic",
+    "Circuit": "network.circuit", "Cohort": "network.circuit", "Pathway": "network.circuit",
+    "PoissonBackground": "network.circuit",
+    "simulate_network": "network.integrate",
+    "Stability": "network.linear_stability", "stability": "network.linear_stability",
+    "StabilityMap": "network.maps", "stability_map": "network.maps",
+    "CircuitResult": "network.result",
+    "FixedPoint": "network.states", "fixed_points": "network.states",
+    "montecarlo_network": "network.twin",
+    "Result": "result", "load_result": "result",
+    "simulate": "solvers.frontend",
+    "Curve": "sweeps.engine", "SweepResult": "sweeps.engine", "grid_points": "sweeps.engine",
+    "load_sweep": "sweeps.engine", "point_seed": "sweeps.engine", "sweep": "sweeps.engine",
+    "linear_rate_response": "theory.linear_response", "response_kernel": "theory.linear_response",
+    "transfer": "theory.linear_response", "high_frequency_limit": "theory.linear_response",
+    "population_rate_spectrum": "theory.spectra", "spike_train_spectrum": "theory.spectra",
+    "SteadyState": "theory.steady_state", "drive_and_noise_for": "theory.steady_state",
+    "drive_for_rate": "theory.steady_state", "gain": "theory.steady_state", "gain_slope": "theory.steady_state",
+    "stationary": "theory.steady_state",
+    "montecarlo": "twins.population",
+    "Agreement": "twins.agreement", "agreement": "twins.agreement",
+}
+
+
+__getattr__, __dir__ = _lazy_names(__name__, _LAZY, globals())
+
 __all__ = [
     "AccuracyWarning",
     "Adaptation",
+    "Agreement",
     "Circuit",
     "CircuitResult",
     "Cohort",
@@ -73,6 +91,7 @@ __all__ = [
     "UnreachableTargetError",
     "WhiteNoise",
     "__version__",
+    "agreement",
     "drive",
     "drive_and_noise_for",
     "drive_for_rate",

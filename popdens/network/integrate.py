@@ -21,11 +21,11 @@ from __future__ import annotations
 
 import logging
 import math
-import time
 
 import numpy as np
 
 from .._version import __version__
+from ..model._jit import Stopwatch
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers.registry import resolve_method
@@ -218,7 +218,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             shift = np.where(filtered & (sg > 0), 0.5 * ALPHA * fw / (np.where(sg > 0, sg, 1.0) * np.sqrt(tau_ms)), 0.0)
         return mu, sg, shift
 
-    wall0 = time.perf_counter()
+    watch = Stopwatch()
     mu0, sg0, shift0 = inputs(0, [ln.s for ln in lines])
 
     def moving(mu, shift, shift_before):
@@ -319,7 +319,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     return CircuitResult(
         names=circuit.names, t=idx * dt, rate=r_out, mu=mus[:, idx], sigma=sg_out, method="mean-field",
         status=status, message=message, dt=dt,
-        diagnostics={"wall_time_s": time.perf_counter() - wall0, "version": __version__, "steps": done,
+        diagnostics={**watch.times(), "version": __version__, "steps": done,
                      "mass_error": max(mass),
                      "solvers": {nm: s.method_name for nm, s in zip(circuit.names, solvers)},
                      **{f"{nm}:{k}": val for nm, s in zip(circuit.names, solvers)
