@@ -44,6 +44,8 @@ def shifted_neuron(neuron: NeuronBase, shift: float) -> NeuronBase:
     if neuron.has_cutoff:
         raise ValueError(f"{type(neuron).__name__} has a spike cut-off, not a threshold to shift")
     params = dict(neuron.parameters())
+    if "adaptation" in params:  # the components themselves (parameters() lists them as records)
+        params["adaptation"] = list(neuron.adaptation)
     params["reset"] = float(params["reset"]) + shift
     params["threshold"] = float(params["threshold"]) + shift
     return type(neuron)(**params)

@@ -47,6 +47,15 @@ def test_population_accepts_coloured_noise_and_its_white_equivalent_shifts_the_l
     assert (w.neuron.tau_m, w.neuron.refractory, w.neuron.rest) == (20.0, 2.0, 0.0)
 
 
+def test_shifted_neuron_keeps_its_adaptation():
+    """An adapting neuron under coloured noise: the boundary moves, the adaptation components stay."""
+    comp = popdens.Adaptation(tau=100.0, jump=1.0)
+    nrn = popdens.LIF(20.0, 20.0, 10.0, 2.0, adaptation=[comp])
+    s = shifted_neuron(nrn, 0.5)
+    assert (s.threshold, s.reset) == (20.5, 10.5)
+    assert list(s.adaptation) == [comp]
+
+
 def test_cutoff_models_are_not_shifted():
     eif = popdens.EIF(20.0, 15.0, 2.0, 30.0, 10.0, 2.0)
     w = white_equivalent(popdens.Population(eif, popdens.ColouredNoise(4.0, 2.0)))
