@@ -91,6 +91,8 @@ class Population:
     neuron : NeuronBase
         LIF, EIF, QIF, PIF or CustomNeuron.
     noise : EscapeNoise, WhiteNoise or ColouredNoise
+        How the neurons fire: escape noise (a hazard), white-noise input, or
+        white noise filtered by an exponential synapse.
     """
 
     neuron: NeuronBase
