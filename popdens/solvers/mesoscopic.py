@@ -47,7 +47,7 @@ Step (over ``[t, t + dt]``; ``s_j`` = survival of bin ``j`` over the step, ``P_j
 As ``N -> infinity`` the drawn fraction tends to ``f-bar``, ``sum m_j -> 1``
 and the step is the infinite solver's step.  The approximation (the linear
 estimate of step 1) is the one of Schwalger et al.; its error against the
-Monte Carlo twin is measured in ``tests/solvers/test_mesoscopic.py`` and
+Monte Carlo twin is measured in ``tests/solvers/test_mesoscopic_twin.py`` and
 tabulated in DEVELOPERS.md.
 
 Observables use the corrected age structure ``m_j + c w_j`` with
