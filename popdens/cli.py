@@ -312,6 +312,15 @@ def _network_command(args, sc) -> int:
         both = ", ".join(f"{k} {m['mean_field_second_half_hz'][k]:.4g} / {v:.4g} Hz"
                          for k, v in m["mean_rates_second_half_hz"].items())
         print(f"  mean rates over the second half, mean field / spiking twin: {both}")
+        fl = m.get("fluctuations")
+        if fl:
+            per = "; ".join(f"{k} s.d. {v['sd_hz']:.3g} Hz (independent neurons {v['sd_independent_neurons_hz']:.3g} Hz), "
+                            f"peak {v['spectral_peak_hz']:.3g} Hz" for k, v in fl.items() if isinstance(v, dict))
+            mode = fl.get("predicted_mode_hz")
+            print(f"  rate fluctuations of the spiking twin: {per}"
+                  + (f"; least damped predicted mode {mode:.3g} Hz" if mode else ""))
+    for note in summary.get("notes", []):
+        print(f"  note: {note}")
     print("  (model predictions from a research tool; not a basis for clinical or safety decisions)")
     return 0
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["save_figure", "plot_agreement", "plot_circuit_rates", "plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate",
+__all__ = ["save_figure", "plot_agreement", "plot_circuit_comparison", "plot_circuit_rates", "plot_rate_spectrum", "plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate",
            "plot_stability_map", "plot_steady_state", "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map",
            "plot_transfer"]
 
@@ -297,6 +297,49 @@ def plot_circuit_rates(result, ax=None, **kwargs):
     ax.set_ylabel("population rate (Hz)")
     ax.legend(frameon=False)
     return ax
+
+
+#: Line styles of cohorts in circuit figures (colour and dash differ, so cohorts stay apart in print).
+_COHORT_STYLES = (("C0", "-"), ("C3", "--"), ("C2", "-."), ("C1", ":"), ("C4", "-"), ("C5", "--"))
+
+
+def plot_circuit_comparison(mean_field, twin=None, ax=None):
+    """Mean-field rates (thick) and, if given, the spiking twin's (thin, same colour and dash) of every
+    cohort against time (ms); returns the Figure."""
+    ax = _axes(ax)
+    for k, nm in enumerate(mean_field.names):
+        colour, dash = _COHORT_STYLES[k % len(_COHORT_STYLES)]
+        if twin is not None:
+            ax.plot(twin.t[1:], twin.rate[k, 1:], color=colour, ls=dash, lw=0.7, alpha=0.55,
+                    label=f"{nm}: spiking twin (N = {twin.sizes[k]})")
+        ax.plot(mean_field.t[1:], mean_field.rate[k, 1:], color=colour, ls=dash, lw=2.4, label=f"{nm}: mean field")
+    ax.set_xlabel("time (ms)")
+    ax.set_ylabel("population rate (Hz)")
+    ax.legend(frameon=False, fontsize="small", ncol=2)
+    return ax.figure
+
+
+def plot_rate_spectrum(spectra, names, marks=(), floor=None, ax=None):
+    """Power spectra of the cohorts' rates (``CircuitResult.rate_spectrum``) on log axes, with
+    vertical lines at predicted frequencies (``marks``: (Hz, label) pairs) and, per cohort, the level
+    of independent neurons (``floor``: name -> Hz^2/Hz).  Returns the Figure."""
+    ax = _axes(ax)
+    freqs, power = spectra
+    sel = freqs > 0
+    for k, nm in enumerate(names):
+        colour, dash = _COHORT_STYLES[k % len(_COHORT_STYLES)]
+        ax.plot(freqs[sel], power[k][sel], color=colour, ls=dash, lw=1.4, marker="o", ms=2.5,
+                label=f"{nm}: spiking twin")
+        if floor and nm in floor:
+            ax.axhline(floor[nm], color=colour, ls=":", lw=0.8, label=f"{nm}: independent neurons")
+    for i, (f, label) in enumerate(marks):
+        ax.axvline(f, color="0.3", ls=(0, (4, 2)) if i == 0 else ":", lw=1.0, label=label)
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_ylabel("rate power spectrum (Hz²/Hz)")
+    ax.legend(frameon=False, fontsize="small")
+    return ax.figure
 
 
 def plot_stability_map(smap, ax=None):

@@ -132,10 +132,14 @@ def test_shipped_scenarios_run(tmp_path, path):
     local = tmp_path / path.name
     shutil.copy(path, local)
     text = local.read_text()
-    # reduced settings: fewer Monte Carlo neurons
+    # reduced settings: fewer Monte Carlo neurons, a shorter network run and a coarser stability map
     import re
 
-    local.write_text(re.sub(r"montecarlo_neurons = \d+", "montecarlo_neurons = 5000", text))
+    text = re.sub(r"montecarlo_neurons = \d+", "montecarlo_neurons = 5000", text)
+    if "[network]" in text:
+        text = re.sub(r"\nt_end = [\d.]+", "\nt_end = 100.0", text)
+        text = re.sub(r"count = \d+ }", "count = 2 }", text)
+    local.write_text(text)
     assert main(["run", str(local), "--quiet"]) == 0
 
 

@@ -11,6 +11,11 @@ from .._version import __version__
 __all__ = ["html_report"]
 
 
+def _hz(rates: dict) -> str:
+    """``{'E': 16.1...}`` as ``E 16.1, I 16.2`` (no Python reprs in the report)."""
+    return ", ".join(f"{k} {v:.4g}" for k, v in rates.items())
+
+
 def html_report(scenario, summary: dict, folder: Path, figures: list) -> str:
     """A self-contained HTML page: figures embedded, parameters, settings, diagnostics, caution.
 
@@ -56,8 +61,13 @@ def html_report(scenario, summary: dict, folder: Path, figures: list) -> str:
             run_rows.append((f"fixed point {i}", ", ".join(f"{k}: {v}" for k, v in fp.items())))
         if "montecarlo" in summary:
             m = summary["montecarlo"]
-            run_rows.append(("spiking twin: mean rates, second half (Hz)", m["mean_rates_second_half_hz"]))
-            run_rows.append(("mean field: mean rates, second half (Hz)", m["mean_field_second_half_hz"]))
+            run_rows.append(("spiking twin: mean rates, second half (Hz)", _hz(m["mean_rates_second_half_hz"])))
+            run_rows.append(("mean field: mean rates, second half (Hz)", _hz(m["mean_field_second_half_hz"])))
+            for k, fl in m.get("fluctuations", {}).items():
+                if isinstance(fl, dict):
+                    run_rows.append((f"spiking twin {k}: rate s.d. / independent neurons / spectral peak",
+                                     f"{fl['sd_hz']:.3g} Hz / {fl['sd_independent_neurons_hz']:.3g} Hz / "
+                                     f"{fl['spectral_peak_hz']:.3g} Hz"))
     elif "prediction" in summary:
         run_rows = [("t_end (ms)", scenario.t_end), ("dt (ms)", summary["prediction"]["diagnostics"]["dt_ms"]),
                     ("record interval (ms)", scenario.record_interval or "every step"),
@@ -97,6 +107,7 @@ def html_report(scenario, summary: dict, folder: Path, figures: list) -> str:
         model_check = [("Monte Carlo check", rows)]
     else:
         model_check = []
+    notes = "".join(f'<p class="caution"><b>Note:</b> {html.escape(n)}</p>' for n in summary.get("notes", []))
     title = html.escape(scenario.title)
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8"><title>{title}</title>
@@ -110,6 +121,7 @@ table{{border-collapse:collapse;margin:0.5em 0 1.5em}}th,td{{border:1px solid #c
 <p class="caution">These are predictions of a model of neurons, from a research tool. They are not a basis for
 clinical or safety decisions.</p>
 {verdict}
+{notes}
 {chr(10).join(sections)}
 <p>Units: time ms, rate Hz, potentials and drive mV, frequency Hz. Tables:
 {", ".join(f"<code>{html.escape(t)}</code>" for t in tables)} (their header lines state the units of each column).</p>
