@@ -9,6 +9,7 @@ from typing import Any
 
 import numpy as np
 
+from ._display import Displayable, dataframe, fmt, rate_range
 from ._files import atomic_write, jsonable
 
 __all__ = ["Result", "load_result"]
@@ -23,7 +24,7 @@ VOLATILE_DIAGNOSTICS = ("wall_time_s", "compile_time_s")
 
 
 @dataclass(frozen=True, eq=False)
-class Result:
+class Result(Displayable):
     """Outcome of a simulation (density solver or Monte Carlo).
 
     Attributes
@@ -113,6 +114,27 @@ class Result:
             raise ValueError("standard errors exist only for Monte Carlo results")
         width = np.diff(self.t, prepend=np.nan) * 1e-3
         return np.sqrt(np.maximum(self.rate, 0.0) / (self.n_neurons * width))
+
+    def _card(self):
+        pop = self.population
+        who = f"{type(pop.neuron).__name__}, {type(pop.noise).__name__}" if pop is not None else "?"
+        rows = [("method", self.method), ("population", who),
+                ("time span", f"0 to {self.t[-1]:g} ms, {self.t.size - 1} intervals, dt = {self.dt:g} ms"),
+                ("rate", rate_range(self.rate[1:])),
+                ("drive", f"{np.nanmin(self.drive):.4g} to {np.nanmax(self.drive):.4g} mV")]
+        if self.n_neurons is not None:
+            rows.append(("neurons", fmt(self.n_neurons)))
+        if "compile_time_s" in self.diagnostics:
+            rows.append(("run time", f"{fmt(self.diagnostics.get('wall_time_s'), 's', 3)} "
+                                     f"(+ {fmt(self.diagnostics['compile_time_s'], 's', 3)} compiling)"))
+        for w in self.diagnostics.get("accuracy_warnings", []):
+            rows.append(("accuracy warning", w))
+        return "Result", rows, f"status {self.status}: {self.message}"
+
+    def to_dataframe(self):
+        """The time courses as a pandas DataFrame, one row per output time, units in the column names."""
+        return dataframe({"t_ms": self.t, "rate_Hz": self.rate, "mean_u_mV": self.mean_u,
+                          "refractory_fraction": self.refractory_fraction, "drive_mV": self.drive})
 
     def __repr__(self) -> str:
         pop = self.population

@@ -25,6 +25,8 @@ import time
 
 from numba.core import event
 
+from ..progress import interactive
+
 __all__ = ["compile_seconds", "EXPECTED_SECONDS", "quiet_compilation", "Stopwatch"]
 
 #: Cold compile time (s) of each kernel called from Python, including the helpers compiled with it,
@@ -118,11 +120,7 @@ class _Listener(event.Listener):
         about = f", about {expected:g} s on a fast machine" if expected else ""
         text = (f"popdens: compiling {name} (once per installation{about}; "
                 "`popdens compile` does it ahead of time)")
-        try:
-            tty = stream.isatty()
-        except (AttributeError, ValueError):
-            tty = False
-        if tty:
+        if interactive(stream):
             stream.write(text + " ...")
             stream.flush()
             _state.ticker = _Ticker(stream, text + " ...")

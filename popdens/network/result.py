@@ -7,13 +7,14 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .._files import atomic_write
+from .._display import Displayable, dataframe, rate_range
 from ..result import STATUS_OK
 
 __all__ = ["CircuitResult"]
 
 
 @dataclass(frozen=True, eq=False)
-class CircuitResult:
+class CircuitResult(Displayable):
     """Rates over time of every cohort of a circuit.
 
     Attributes
@@ -136,6 +137,18 @@ class CircuitResult:
         from ..plotting import plot_circuit_rates
 
         return plot_circuit_rates(self, ax, **kwargs)
+
+    def _card(self):
+        rows = [("method", self.method),
+                ("time span", f"0 to {self.t[-1]:g} ms, {self.t.size - 1} intervals, dt = {self.dt:g} ms")]
+        for k, nm in enumerate(self.names):
+            size = f" (N = {self.sizes[k]})" if self.sizes else ""
+            rows.append((f"rate of {nm}{size}", rate_range(self.rate[k, 1:])))
+        return "CircuitResult", rows, f"status {self.status}: {self.message}"
+
+    def to_dataframe(self):
+        """Rates over time as a pandas DataFrame: ``t_ms`` and one ``rate_Hz_<cohort>`` column per cohort."""
+        return dataframe({"t_ms": self.t, **{f"rate_Hz_{nm}": self.rate[k] for k, nm in enumerate(self.names)}})
 
     def __repr__(self) -> str:
         return (f"<CircuitResult {self.method}: {list(self.names)}, {self.t.size} times to {self.t[-1]:g} ms, "

@@ -22,6 +22,7 @@ import numpy as np
 from scipy.optimize import brentq, root
 
 from .. import _validation as v
+from .._display import Displayable
 from ..model.noise import WhiteNoise
 from .circuit import Circuit
 
@@ -72,7 +73,7 @@ def _default_gain() -> Callable:
 
 
 @dataclass(frozen=True, eq=False)
-class FixedPoint:
+class FixedPoint(Displayable):
     """A stationary state of a circuit.
 
     Attributes
@@ -93,6 +94,13 @@ class FixedPoint:
     mu: np.ndarray
     sigma: np.ndarray
     residual: float
+
+    def _card(self):
+        rows = []
+        for k, nm in enumerate(self.names):
+            noise = f", noise {self.sigma[k]:.4g} mV" if np.isfinite(self.sigma[k]) else ""
+            rows.append((f"cohort {nm}", f"{self.rates[k]:.6g} Hz at a drive of {self.mu[k]:.4g} mV{noise}"))
+        return "FixedPoint", rows, f"self-consistent to {self.residual:.2g} Hz"
 
     def __repr__(self):
         body = ", ".join(f"{n}={r:.6g} Hz" for n, r in zip(self.names, self.rates))

@@ -85,6 +85,7 @@ def run_processes(evaluate, func, tasks, retries: int, workers: int):
     lost: dict[int, int] = {}
     while pending or suspects:
         pool = ProcessPoolExecutor(max_workers=workers, mp_context=_pool_context(), initializer=_worker_init)
+        procs: dict = {}
         futures: dict = {}
         broken = False
         try:
@@ -98,6 +99,7 @@ def run_processes(evaluate, func, tasks, retries: int, workers: int):
                     except BrokenProcessPool:  # a worker died; restart the pool
                         queue.appendleft(t)
                         broken = True
+                    procs.update(getattr(pool, "_processes", None) or {})  # not public API; guarded
                 if not futures:
                     break
                 done, _ = wait(list(futures), return_when=FIRST_COMPLETED)
@@ -112,7 +114,7 @@ def run_processes(evaluate, func, tasks, retries: int, workers: int):
                             lost[task[0]] = n
                             if n > retries:
                                 yield lost_record(task, n, "WorkerLost: the worker process running this "
-                                                           "point died")
+                                                           f"point died{_death_cause(procs)}")
                                 continue
                         suspects.append(task)
                         continue
@@ -122,6 +124,27 @@ def run_processes(evaluate, func, tasks, retries: int, workers: int):
                     yield rec
         finally:
             _stop_pool(pool)
+
+
+def _death_cause(procs: dict) -> str:
+    """`` (killed by SIGKILL)``, `` (exit code 3)``...: how the pool's dead workers ended, if known."""
+    causes = set()
+    for p in procs.values():
+        p.join(timeout=0.5)
+        code = p.exitcode
+        if code is None or code == 0:
+            continue
+        if code < 0:
+            try:
+                causes.add(f"killed by {signal.Signals(-code).name}")
+            except ValueError:
+                causes.add(f"killed by signal {-code}")
+        else:
+            causes.add(f"exit code {code}")
+    hint = ""
+    if any("SIGKILL" in c for c in causes):
+        hint = "; SIGKILL often means the machine ran out of memory"
+    return f" ({', '.join(sorted(causes))}{hint})" if causes else ""
 
 
 def _stop_pool(pool: ProcessPoolExecutor) -> None:

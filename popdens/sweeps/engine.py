@@ -25,6 +25,7 @@ recorded as failed with its error; the other points go on.  See
 from __future__ import annotations
 
 import itertools
+import functools
 import json
 import logging
 import math
@@ -42,6 +43,7 @@ from typing import Any, Callable
 
 import numpy as np
 
+from .._display import Displayable, dataframe, fmt
 from .._version import __version__
 from . import _backends as backends
 from . import _store as store
@@ -182,6 +184,40 @@ def evaluate_point(func: Callable, index: int, params: dict, entropy: int, retri
             "worker": f"{socket.gethostname()}:{os.getpid()}"}
 
 
+@functools.lru_cache(maxsize=8)
+def _loaded(payload: bytes) -> Callable:
+    import cloudpickle
+
+    return cloudpickle.loads(payload)
+
+
+def evaluate_serialised(payload: bytes, index: int, params: dict, entropy: int, retries: int) -> dict:
+    """:func:`evaluate_point` for a function sent by value (cloudpickle), in a worker process.
+
+    A function defined in a notebook or a script's ``__main__`` cannot be imported by a worker, so
+    it travels as bytes; if even that fails (a module the worker lacks), the point's record says so
+    instead of the worker dying with the cause lost on its stderr."""
+    try:
+        func = _loaded(payload)
+    except Exception as exc:
+        why = "".join(traceback.format_exception_only(exc)).strip()
+        return {"index": index, "params": params, "status": "failed", "outputs": {}, "curves": {},
+                "attempts": 1, "error": f"the sweep function could not be loaded in the worker: {why}",
+                "wall_time_s": 0.0, "worker": f"{socket.gethostname()}:{os.getpid()}"}
+    return evaluate_point(func, index, params, entropy, retries)
+
+
+def _serialised(func) -> bytes:
+    """``func`` as bytes for worker processes (by value where it is not importable, e.g. a notebook)."""
+    import cloudpickle
+
+    try:
+        return cloudpickle.dumps(func)
+    except Exception as exc:
+        raise ValueError(f"`func` {func!r} cannot be sent to worker processes ({exc}); "
+                         "use backend='serial' or make it picklable") from None
+
+
 def _fingerprint(func) -> str:
     fp = getattr(func, "fingerprint", None)
     if callable(fp):
@@ -192,7 +228,7 @@ def _fingerprint(func) -> str:
 
 # ------------------------------------------------------------------ result
 @dataclass(frozen=True, eq=False)
-class SweepResult:
+class SweepResult(Displayable):
     """Outcome of a sweep: the points and one record per point (``None`` where not computed).
 
     Attributes
@@ -277,6 +313,32 @@ class SweepResult:
         """The tidy table as CSV text (one row per point and output value)."""
         header, rows = store.tidy_rows(self.points, self.records)
         return store.csv_text(header, rows)
+
+    def _card(self):
+        done = sum(r is not None for r in self.records)
+        rows = [("points", f"{len(self.points)} ({done} done, {len(self.failed)} failed)")]
+        if self.axes is not None:
+            for name, vals in self.axes.items():
+                rows.append((f"swept: {name}", ", ".join(f"{x:g}" if isinstance(x, (int, float)) else str(x)
+                                                        for x in list(vals)[:8]) + (" ..." if len(vals) > 8 else "")))
+        sc, cu = self.output_names()
+        for name in sc:
+            vals = self.values(name)
+            rows.append((f"output: {name}", f"{np.nanmin(vals):.4g} to {np.nanmax(vals):.4g}"
+                         if np.any(np.isfinite(vals)) else "n/a"))
+        for name in cu:
+            rows.append((f"curve output: {name}", "one curve per point"))
+        for i, params, err in self.failed[:3]:
+            rows.append((f"point {i} failed", f"{params}: {err}"))
+        d = self.diagnostics
+        status = (f"{d.get('backend', '?')} backend, {d.get('workers', '?')} worker(s), "
+                  f"{fmt(d.get('wall_time_s'), 's', 3)}; folder {self.output}")
+        return "SweepResult", rows, status
+
+    def to_dataframe(self):
+        """The tidy table (as ``results.csv``: one row per point and output value) as a pandas DataFrame."""
+        header, rows = store.tidy_rows(self.points, self.records)
+        return dataframe({h: [r[j] for r in rows] for j, h in enumerate(header)})
 
     def __repr__(self) -> str:
         done = sum(r is not None for r in self.records)
@@ -440,6 +502,7 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
         raise ImportError("the Dask backend needs the optional extra: pip install 'popdens[dask]'")
     n_workers = workers or _default_workers()
 
+    payload = None if backend == "serial" else _serialised(func)  # before anything is created
     manifest = {"layout": store.LAYOUT_VERSION, "version": __version__, "fingerprint": _fingerprint(func),
                 "points": pts, "axes": axes, "seed": seed}
     out = Path(output) if output is not None else None
@@ -454,9 +517,11 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
     if backend == "serial":
         gen = backends.run_serial(evaluate_point, func, tasks, retries)
     elif backend == "processes":
-        gen = backends.run_processes(evaluate_point, func, tasks, retries, min(n_workers, max(len(tasks), 1)))
+        gen = backends.run_processes(evaluate_serialised, payload, tasks, retries,
+                                     min(n_workers, max(len(tasks), 1)))
     else:
-        gen = backends.run_dask(evaluate_point, func, tasks, retries, n_workers, scheduler, uuid.uuid4().hex[:12])
+        gen = backends.run_dask(evaluate_serialised, payload, tasks, retries, n_workers, scheduler,
+                                uuid.uuid4().hex[:12])
     done = len(pts) - len(tasks)
     n_failed = sum(r is not None and r["status"] != "ok" for r in records)
     bar = _SweepProgress(len(pts), done, progress)

@@ -44,6 +44,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from .. import _validation as v
+from .._display import Displayable, fmt
 from ..exceptions import ConvergenceError, UnreachableTargetError
 from ..model.adaptation import refuse
 from ..model.drive import Constant, Drive
@@ -219,7 +220,7 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
 
 
 @dataclass(frozen=True, repr=False)
-class SteadyState:
+class SteadyState(Displayable):
     """Stationary state of a population at constant drive (see :func:`stationary`).
 
     Attributes
@@ -278,6 +279,16 @@ class SteadyState:
     age: np.ndarray | None = None
     age_density: np.ndarray | None = None
     diagnostics: dict = field(default_factory=dict)
+
+    def _card(self):
+        who = f"{type(self.population.neuron).__name__}, {type(self.population.noise).__name__}"
+        rows = [("population", who), ("drive", fmt(self.mu, "mV"))]
+        if self.sigma is not None:
+            rows.append(("noise sigma", fmt(self.sigma, "mV")))
+        rows += [("rate", fmt(self.rate, "Hz", 6)), ("ISI CV", fmt(self.cv)), ("mean ISI", fmt(self.mean_isi, "ms")),
+                 ("mean potential", fmt(self.mean_u, "mV")), ("refractory fraction", fmt(self.refractory_fraction, "", 3)),
+                 ("method", self.method)]
+        return "SteadyState", rows, None
 
     def __repr__(self) -> str:
         who = f"{type(self.population.neuron).__name__}/{type(self.population.noise).__name__}"
