@@ -11,7 +11,18 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["atomic_write", "jsonable", "temp_prefix", "remove_stale_temporaries"]
+__all__ = ["atomic_write", "jsonable", "temp_prefix", "remove_stale_temporaries", "csv_with_metadata"]
+
+
+def csv_with_metadata(header_line: str, meta_lines, body: str) -> str:
+    """CSV text: the column names first, then ``#`` metadata lines, then the rows.
+
+    Names first, so ``numpy.genfromtxt(path, delimiter=",", names=True)`` takes its names from the
+    header (not from a metadata line) and ``pandas.read_csv(path, comment="#")`` skips the
+    metadata; every popdens table uses this layout.
+    """
+    meta = "".join(f"# {line}\n" for line in meta_lines)
+    return f"{header_line}\n{meta}{body}"
 
 
 def temp_prefix(name: str, kind: str = "") -> str:

@@ -60,7 +60,8 @@ def _parser() -> argparse.ArgumentParser:
                                    "refractory=2 --noise kind=white sigma=4 --mu 5:30:26 --sigma 2 4 6")
     _population_flags(g)
     g.add_argument("--mu", required=True, metavar="START:STOP:POINTS",
-                   help="mean drives (mV): a range START:STOP:POINTS (linear) or a comma list")
+                   help="mean drives (mV): a range START:STOP:POINTS (evenly spaced; START:STOP:POINTS:log "
+                        "for log spacing) or a comma list")
     g.add_argument("--sigma", nargs="+", type=float, metavar="MV",
                    help="white noise only: one curve per noise level (mV)")
     _output_flags(g, "gain curve")
@@ -76,11 +77,12 @@ def _parser() -> argparse.ArgumentParser:
     tr = sub.add_parser("transfer", help="one-off transfer function (rate response per unit input modulation)",
                         description="Example: popdens transfer --neuron model=LIF tau_m=20 threshold=20 "
                                     "reset=10 refractory=2 --noise kind=white sigma=4 --mu 18 "
-                                    "--freq 1:1000:40")
+                                    "--freq 1:1000:40:log")
     _population_flags(tr)
     tr.add_argument("--mu", required=True, type=float, help="stationary mean drive (mV)")
     tr.add_argument("--freq", required=True, metavar="START:STOP:POINTS",
-                    help="frequencies (Hz): a log-spaced range START:STOP:POINTS or a comma list")
+                    help="frequencies (Hz): a range START:STOP:POINTS (evenly spaced) or "
+                         "START:STOP:POINTS:log (log-spaced), or a comma list")
     tr.add_argument("--modulate", choices=("mean", "noise", "sigma"), default="mean",
                     help="modulated input: the mean drive (default, Hz/mV), the noise variance sigma^2 "
                          "(Hz/mV^2) or the noise amplitude sigma (Hz/mV); the last two for white noise")
@@ -100,15 +102,20 @@ def _output_flags(p, what: str) -> None:
     p.add_argument("--plot", metavar="FILE", help=f"save a figure of the {what} (.png, .svg or .pdf)")
 
 
-def _values(text: str, flag: str, spacing: str) -> "np.ndarray":
-    """``START:STOP:POINTS`` (linear or log spacing) or a comma list → array."""
+def _values(text: str, flag: str) -> "np.ndarray":
+    """``START:STOP:POINTS[:log]`` (linear unless ``:log``, the same rule for every flag) or a comma
+    list → array."""
     import numpy as np
 
     from .scenario.analyses import MAX_POINTS
 
+    spacing = "linear"
     try:
         if ":" in text:
-            lo, hi, n = text.split(":")
+            parts = text.split(":")
+            if len(parts) == 4 and parts[3] in ("log", "lin"):
+                spacing = "log" if parts.pop() == "log" else "linear"
+            lo, hi, n = parts
             lo, hi, n = float(lo), float(hi), int(n)
             if not 1 <= n <= MAX_POINTS:
                 raise ValueError
@@ -119,9 +126,9 @@ def _values(text: str, flag: str, spacing: str) -> "np.ndarray":
             return np.linspace(lo, hi, n)
         out = np.array([float(x) for x in text.split(",")])
     except ValueError:
-        kind = "log-spaced, positive bounds" if spacing == "log" else "linear"
-        raise ScenarioError(f"{flag} {text!r}: expected START:STOP:POINTS ({kind}, 1 to {MAX_POINTS} points) "
-                            "or a comma-separated list of numbers") from None
+        raise ScenarioError(f"{flag} {text!r}: expected START:STOP:POINTS (evenly spaced; add :log for "
+                            f"log spacing, positive bounds; 1 to {MAX_POINTS} points) or a comma-separated "
+                            "list of numbers") from None
     if not np.all(np.isfinite(out)):
         raise ScenarioError(f"{flag} {text!r}: values must be finite")
     return out
@@ -173,7 +180,7 @@ def _analysis_command(args) -> int:
                 raise ScenarioError("--sigma applies to white noise only (--noise kind=white)")
             if args.sigma and min(args.sigma) <= 0:
                 raise ScenarioError(f"--sigma {args.sigma}: noise levels must be positive (mV)")
-            curve = GainCurve(_values(args.mu, "--mu", "linear"), tuple(args.sigma) if args.sigma else (None,))
+            curve = GainCurve(_values(args.mu, "--mu"), tuple(args.sigma) if args.sigma else (None,))
             rates = curve.compute(pop)
             cols = {"mu_mV": curve.mu}
             for s, row in zip(curve.sigmas, rates):
@@ -186,7 +193,7 @@ def _analysis_command(args) -> int:
                 fig = plot_gain(curve.mu, rates, labels=labels).figure
             _emit(args, cols, {"units": "mu mV, rate Hz"}, fig)
         elif args.command == "stationary":
-            st = StationaryStats(_values(args.mu, "--mu", "linear"))
+            st = StationaryStats(_values(args.mu, "--mu"))
             states = st.compute(pop)
             cols = {"mu_mV": st.mu, "rate_Hz": np.array([s.rate for s in states]),
                     "cv": np.array([s.cv for s in states]), "mean_u_mV": np.array([s.mean_u for s in states])}
@@ -203,7 +210,7 @@ def _analysis_command(args) -> int:
         else:
             if args.modulate != "mean" and not white:
                 raise ScenarioError(f"--modulate {args.modulate} needs white noise (--noise kind=white)")
-            tc = TransferCurve(args.mu, _values(args.freq, "--freq", "log"), args.modulate)
+            tc = TransferCurve(args.mu, _values(args.freq, "--freq"), args.modulate)
             if np.any(tc.freqs < 0):
                 raise ScenarioError(f"--freq {args.freq!r}: frequencies must be >= 0 (Hz)")
             chi = tc.compute(pop)
@@ -379,7 +386,7 @@ def _step_command(args) -> int:
         res.to_csv(args.csv)
         print(f"wrote {args.csv}")
     else:
-        print("# t_ms rate_hz mean_u_mv drive_mv")
+        print("# t_ms rate_Hz mean_u_mV drive_mV")
         for row in zip(res.t, res.rate, res.mean_u, res.drive):
             print(" ".join(f"{x:.6g}" for x in row))
     return 0 if res.success else 1

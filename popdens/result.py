@@ -10,7 +10,7 @@ from typing import Any
 import numpy as np
 
 from ._display import Displayable, dataframe, fmt, rate_range
-from ._files import atomic_write, jsonable
+from ._files import atomic_write, csv_with_metadata, jsonable
 
 __all__ = ["Result", "load_result"]
 
@@ -21,6 +21,8 @@ STATUS_INTERRUPTED = -2
 #: Diagnostics that differ between identical runs; kept out of output files so that the
 #: same scenario and seed give bit-identical files (wall times go to ``timing.json``).
 VOLATILE_DIAGNOSTICS = ("wall_time_s", "compile_time_s")
+#: Columns of :meth:`Result.to_csv` (and of ``popdens step``): units in the names.
+CSV_COLUMNS = ("t_ms", "rate_Hz", "mean_u_mV", "refractory_fraction", "drive_mV")
 
 
 @dataclass(frozen=True, eq=False)
@@ -149,7 +151,8 @@ class Result(Displayable):
     def to_csv(self, path: str | Path, *, header_extra: dict | None = None) -> Path:
         """Write ``t, rate, mean_u, refractory_fraction, drive`` as CSV (atomic).
 
-        The header line (``#``) records units, method, version, parameters and
+        Column names (units in them) come first, then one ``#`` line that records method, version,
+        parameters and
         the numerical settings (diagnostics without wall times), and nothing
         that differs between identical runs.
         """
@@ -159,11 +162,10 @@ class Result(Displayable):
         if self.population is not None:
             meta["neuron"] = {"model": type(self.population.neuron).__name__, **self.population.neuron.parameters()}
         meta["version"] = self.diagnostics.get("version")
-        lines = ["# popdens result; " + json.dumps(jsonable(meta), sort_keys=True)]
-        lines.append("t_ms,rate_hz,mean_u_mv,refractory_fraction,drive_mv")
         arr = np.column_stack([self.t, self.rate, self.mean_u, self.refractory_fraction, self.drive])
-        body = "\n".join(",".join(f"{x:.12g}" for x in row) for row in arr)
-        text = "\n".join(lines) + "\n" + body + "\n"
+        body = "".join(",".join(f"{x:.12g}" for x in row) + "\n" for row in arr)
+        meta_line = "popdens result; " + json.dumps(jsonable(meta), sort_keys=True)
+        text = csv_with_metadata(",".join(CSV_COLUMNS), [meta_line], body)
         atomic_write(path, lambda fh: fh.write(text.encode("utf-8")))
         return path
 

@@ -63,7 +63,7 @@ def test_run_writes_outputs_and_refuses_to_overwrite(tmp_path, capsys):
     assert "not a basis for\nclinical or safety decisions" in (out / "report.html").read_text()
     summary = json.loads((out / "summary.json").read_text())
     assert summary["prediction"]["status"] == 0 and summary["montecarlo"]["n_neurons"] == 2000
-    head = (out / "prediction.csv").read_text().splitlines()[0]
+    head = (out / "prediction.csv").read_text().splitlines()[1]  # the line after the column names
     assert "version" in head and "scenario_sha256_16" in head and "units" in head
     assert main(["run", str(p)]) == 2
     assert "exists" in capsys.readouterr().err

@@ -49,6 +49,7 @@ def run_serial(evaluate, func, tasks, retries: int):
 
 def _worker_init():  # runs in each pool worker before any task
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is handled by the parent only
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)  # a forked worker must not inherit the CLI's SIGTERM handler
     for name in _SINGLE_THREAD_ENV:
         os.environ.setdefault(name, "1")
 

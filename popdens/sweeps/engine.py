@@ -47,6 +47,7 @@ from .._display import Displayable, dataframe, fmt
 from .._version import __version__
 from . import _backends as backends
 from . import _store as store
+from .report import sweep_report
 from .. import _validation as v
 from ..progress import Progress
 
@@ -407,7 +408,8 @@ def _prepare_folder(out: Path, manifest: dict, resume: bool, overwrite: bool) ->
 def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int = 0,
           backend: str | None = None, workers: int | None = None, scheduler: str | None = None,
           retries: int = DEFAULT_RETRIES, resume: bool = False, overwrite: bool = False,
-          retry_failed: bool = False, figures: bool = True, progress: bool | None = None) -> SweepResult:
+          retry_failed: bool = False, figures: bool = True, progress: bool | None = None,
+          title: str | None = None) -> SweepResult:
     """Evaluate ``func`` at every point, in parallel, writing each finished point to ``output``.
 
     Parameters
@@ -450,7 +452,9 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
     figures : bool
         Draw heat maps and families of curves into ``output/figures``.
     progress : bool, optional
-        Progress line on stderr (default: only on a terminal).
+        Progress line on stderr (default: on a terminal or in a notebook).
+    title : str, optional
+        Title of the HTML report (``report.html`` in ``output``).
 
     Returns
     -------
@@ -551,11 +555,15 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
                    "version": __version__}
     res = SweepResult(points=pts, records=records, axes=axes, output=out, seed=seed, diagnostics=diagnostics)
     if out is not None:
-        _write_tables(res, out, figures)
+        _write_tables(res, out, figures, title)
     return res
 
 
-def _write_tables(res: SweepResult, out: Path, figures: bool) -> None:
+#: The sweep's HTML report, beside results.csv.
+REPORT = "report.html"
+
+
+def _write_tables(res: SweepResult, out: Path, figures: bool, title: str | None = None) -> None:
     header, rows = store.tidy_rows(res.points, res.records)
     store.durable_write(out / store.RESULTS, store.csv_text(
         header, rows, "popdens sweep; one row per point and output; units are part of each output name"))
@@ -565,47 +573,56 @@ def _write_tables(res: SweepResult, out: Path, figures: bool) -> None:
         store.durable_write(fpath, store.csv_text(fh, frows))
     elif fpath.exists():
         fpath.unlink()
-    if figures:
-        _figures(res, out / store.FIGURES)
+    shown = _figures(res, out / store.FIGURES) if figures else []
     summary = {"n_points": len(res.points), "n_ok": sum(r is not None and r["status"] == "ok" for r in res.records),
                "n_failed": len(res.failed), "shape": list(res.shape), "seed": res.seed,
                "outputs": res.output_names()[0], "curves": res.output_names()[1], **res.diagnostics}
     store.durable_write(out / store.SUMMARY, json.dumps(summary, indent=2, sort_keys=True) + "\n")
+    store.durable_write(out / REPORT, sweep_report(res, out, shown, title))
 
 
-def _figures(res: SweepResult, folder: Path) -> None:
-    """A heat map per scalar output on 2-D grids, lines on 1-D grids, a family per curve output."""
-    import matplotlib.pyplot as plt
-
-    from ..plotting import plot_sweep_curves, plot_sweep_line, plot_sweep_map
+def _figures(res: SweepResult, folder: Path) -> list[tuple[str, str]]:
+    """A heat map per scalar output on 2-D grids, lines on 1-D grids, a family per curve output
+    (coloured by the first swept parameter, styled by the second); returns (file, caption) pairs."""
+    from ..plotting import axis_label, plot_sweep_curves, plot_sweep_line, plot_sweep_map, save_figure
 
     folder.mkdir(parents=True, exist_ok=True)
     scalars, curves = res.output_names()
     figs = []
-    names = list(res.axes) if res.axes is not None else []
-    numeric = res.axes is not None and all(
-        all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in vs) for vs in res.axes.values())
+    names = list(res.axes) if res.axes is not None else list(res.points[0]) if res.points else []
+    numeric = {k: all(isinstance(p[k], (int, float)) and not isinstance(p[k], bool) for p in res.points)
+               for k in names}
+    varying = [k for k in names if len({repr(p[k]) for p in res.points}) > 1]
     for name in scalars:
         vals = res.values(name)
-        if numeric and len(names) == 2:
+        if res.axes is not None and len(names) == 2 and all(numeric.values()):
             fig = plot_sweep_map(res.axes[names[0]], res.axes[names[1]], vals, names[0], names[1], name)
-        elif numeric and len(names) == 1:
+            caption = f"{axis_label(name)} over {axis_label(names[0])} and {axis_label(names[1])}"
+        elif res.axes is not None and len(names) == 1 and numeric[names[0]]:
             fig = plot_sweep_line(res.axes[names[0]], vals, names[0], name)
+            caption = f"{axis_label(name)} against {axis_label(names[0])}"
         else:
             fig = plot_sweep_line(np.arange(len(res.points)), vals.ravel(), "point", name)
-        figs.append((name, fig))
+            caption = f"{axis_label(name)} at each point (parameters in results.csv)"
+        figs.append((name, fig, caption))
+    colour = next((k for k in varying if numeric[k]), None)
+    style = next((k for k in varying if k != colour and len({repr(p[k]) for p in res.points}) <= 4), None)
     for name in curves:
         x, y = res.curves(name)
         x_name = next(r["curves"][name]["x_name"] for r in res.records if r is not None and name in r["curves"])
         labels = [", ".join(f"{k}={p[k]:g}" if isinstance(p[k], float) else f"{k}={p[k]}" for k in p)
                   for p in res.points]
-        fig = plot_sweep_curves(x, y, x_name, name, labels)
-        figs.append((name, fig))
-    for name, fig in figs:
+        fig = plot_sweep_curves(x, y, x_name, name, labels,
+                                colour_by=(colour, [p[colour] for p in res.points]) if colour else None,
+                                style_by=(style, [p[style] for p in res.points]) if style and colour else None)
+        figs.append((name, fig, f"{axis_label(name)} against {axis_label(x_name)}, one curve per point"
+                     + (f", coloured by {axis_label(colour)}" if colour else "")))
+    out = []
+    for name, fig, caption in figs:
         safe = "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in name)
-        fig.savefig(folder / f"{safe}.png", dpi=120)
-        fig.savefig(folder / f"{safe}.svg")
-        plt.close(fig)
+        save_figure(fig, folder, safe)  # no dates, fixed SVG ids: reruns give the same bytes
+        out.append((f"{safe}.png", caption))
+    return out
 
 
 def load_sweep(folder: str | Path) -> SweepResult:

@@ -142,9 +142,10 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         Any neuron model with escape or white noise.
     mu : float or array_like
         Constant drives (mV).
-    sigma : float, optional
+    sigma : float or array_like, optional
         White-noise amplitude (mV) overriding the population's (for sweeps
-        over the noise); not allowed for escape noise.
+        over the noise); a list gives one gain curve per level, as a scenario's
+        ``[gain] sigma = [...]`` does.  Not allowed for escape noise.
     method : {"auto", "siegert", "inverse-gaussian", "threshold-integration", "renewal"}
         ``"auto"``: Siegert formula for the white-noise LIF, the
         inverse-Gaussian closed form for the white-noise PIF, threshold
@@ -154,7 +155,7 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     Returns
     -------
     ndarray
-        Rates in Hz, the shape of ``mu``.
+        Rates in Hz, the shape of ``mu`` (``(len(sigma),) + mu.shape`` for a list of ``sigma``).
 
     Raises
     ------
@@ -172,6 +173,11 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     True
     """
     _check_population(population)
+    if sigma is not None and np.ndim(sigma) > 0:
+        levels = np.asarray(sigma, dtype=float).ravel()
+        if levels.size == 0:
+            raise ValueError("`sigma` must hold at least one noise level (mV), got an empty list")
+        return np.stack([gain(population, mu, sigma=float(s), method=method) for s in levels])
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
     m = _resolve_method(population, method)
