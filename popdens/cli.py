@@ -573,6 +573,10 @@ def _main(args) -> int:
     except ValueError as exc:  # misuse found by the library after loading (message names the setting)
         print(f"popdens: error: {exc}", file=sys.stderr)
         return 2
+    except OSError as exc:  # the file system refused (a name too long, no space, no permission)
+        where = f"{exc.filename}: " if exc.filename else ""
+        print(f"popdens: error: {where}{exc.strerror or exc}", file=sys.stderr)
+        return 2
     except KeyboardInterrupt:
         why = "terminated (SIGTERM)" if _TERMINATED[0] else "interrupted by the user"
         print(f"popdens: {why}; no partial output was kept", file=sys.stderr)

@@ -46,6 +46,7 @@ import numpy as np
 from ..model import drive as drive_mod
 from ..exceptions import ScenarioError
 from .loader import load_scenario, parse_scenario
+from ._schema import short
 from .single import Scenario
 from ..sweeps.engine import Curve, SweepResult, sweep
 
@@ -57,6 +58,8 @@ MODES = ("grid", "list")
 #: Tables whose values may be swept.
 SWEEPABLE = ("neuron", "noise", "input", "run")
 RANGE_KEYS = {"start", "stop", "count"}
+#: Most parts of a swept dotted key (``noise.hazard.width`` has 3).
+MAX_KEY_PARTS = 6
 #: Largest number of values in a range (a guard against typos).
 MAX_RANGE_COUNT = 100_000
 
@@ -164,9 +167,9 @@ ANALYSES = {
 # ------------------------------------------------------------------ one point
 def _set_dotted(data: dict, key: str, value, src: str) -> None:
     parts = key.split(".")
-    if parts[0] not in SWEEPABLE or len(parts) < 2 or not all(parts):
-        raise ScenarioError(f"{src}: [sweep] key `{key}`: expected a dotted key into one of "
-                            f"{list(SWEEPABLE)}, e.g. \"neuron.tau_m\"")
+    if parts[0] not in SWEEPABLE or not 2 <= len(parts) <= MAX_KEY_PARTS or not all(parts):
+        raise ScenarioError(f"{src}: [sweep] key `{short(key)}` ({len(parts)} parts): expected a dotted key of at "
+                            f"most {MAX_KEY_PARTS} parts into one of {list(SWEEPABLE)}, e.g. \"neuron.tau_m\"")
     node = data
     for i, part in enumerate(parts[:-1]):
         nxt = node.get(part) if isinstance(node, dict) else None
@@ -332,7 +335,7 @@ def plan_sweep(sc: Scenario, *, validate_points: bool = True) -> SweepPlan:
         try:
             point_sc = point.scenario(params)
         except ScenarioError as exc:
-            raise ScenarioError(f"{src}: [sweep] point {i} {params}: {_unprefixed(exc, point.source)}") from None
+            raise ScenarioError(f"{src}: [sweep] point {i} {short(params)}: {_unprefixed(exc, point.source)}") from None
         if i == 0:
             try:
                 check(point_sc, options)

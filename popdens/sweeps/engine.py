@@ -409,7 +409,7 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
           backend: str | None = None, workers: int | None = None, scheduler: str | None = None,
           retries: int = DEFAULT_RETRIES, resume: bool = False, overwrite: bool = False,
           retry_failed: bool = False, figures: bool = True, progress: bool | None = None,
-          title: str | None = None) -> SweepResult:
+          title: str | None = None, no_worker_timeout: float | None = None) -> SweepResult:
     """Evaluate ``func`` at every point, in parallel, writing each finished point to ``output``.
 
     Parameters
@@ -455,6 +455,9 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
         Progress line on stderr (default: on a terminal or in a notebook).
     title : str, optional
         Title of the HTML report (``report.html`` in ``output``).
+    no_worker_timeout : float, optional
+        Dask: seconds without any connected worker after which the sweep gives up with a
+        ``ConnectionError`` (finished points are kept); default 120.
 
     Returns
     -------
@@ -507,12 +510,21 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
     n_workers = workers or _default_workers()
 
     payload = None if backend == "serial" else _serialised(func)  # before anything is created
+    # a Dask scheduler is reached before the output folder is made: a wrong address leaves nothing
+    connection = backends.dask_connect(n_workers, scheduler) if backend == "dask" else None
     manifest = {"layout": store.LAYOUT_VERSION, "version": __version__, "fingerprint": _fingerprint(func),
                 "points": pts, "axes": axes, "seed": seed}
     out = Path(output) if output is not None else None
     on_disk: dict[int, dict] = {}
     if out is not None:
-        on_disk = _prepare_folder(out, manifest, resume, overwrite)
+        try:
+            on_disk = _prepare_folder(out, manifest, resume, overwrite)
+        except BaseException:
+            if connection is not None:
+                connection[0].close()
+                if connection[1] is not None:
+                    connection[1].close()
+            raise
     if retry_failed:
         on_disk = {i: r for i, r in on_disk.items() if r["status"] == "ok"}
     records: list[dict | None] = [on_disk.get(i) for i in range(len(pts))]
@@ -525,7 +537,8 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
                                      min(n_workers, max(len(tasks), 1)))
     else:
         gen = backends.run_dask(evaluate_serialised, payload, tasks, retries, n_workers, scheduler,
-                                uuid.uuid4().hex[:12])
+                                uuid.uuid4().hex[:12], connection,
+                                backends.NO_WORKER_TIMEOUT if no_worker_timeout is None else no_worker_timeout)
     done = len(pts) - len(tasks)
     n_failed = sum(r is not None and r["status"] != "ok" for r in records)
     bar = _SweepProgress(len(pts), done, progress)
