@@ -12,7 +12,18 @@ from typing import Any
 import numpy as np
 
 __all__ = ["atomic_write", "jsonable", "temp_prefix", "remove_stale_temporaries", "csv_with_metadata",
-           "read_regular_file"]
+           "read_regular_file", "live_temporaries", "remove_live_temporaries"]
+
+#: Temporary output folders this process is writing now (removed by :func:`remove_live_temporaries`
+#: when the process must end at once, e.g. on a signal while a kernel compiles).
+live_temporaries: set = set()
+
+
+def remove_live_temporaries() -> None:
+    """Delete every folder in :data:`live_temporaries` (best effort; never raises)."""
+    for path in list(live_temporaries):
+        shutil.rmtree(path, ignore_errors=True)
+        live_temporaries.discard(path)
 
 
 def read_regular_file(path, max_bytes: int, what: str = "file") -> bytes:

@@ -9,7 +9,9 @@ from __future__ import annotations
 
 import argparse
 import logging
+import os
 import sys
+import threading
 import warnings
 
 from ._version import __version__
@@ -430,35 +432,128 @@ class _Terminated(KeyboardInterrupt):
     """SIGTERM, handled exactly like Ctrl-C (same clean-up), exit code 143."""
 
 
-def _on_sigterm(signum, frame):
-    _TERMINATED[0] = True
-    raise _Terminated("terminated (SIGTERM)")
+def _compiling() -> bool:
+    """True while numba compiles in this process (never imports numba itself)."""
+    jit = sys.modules.get("popdens.model._jit")
+    return jit is not None and jit.busy()
+
+
+_EXITING = threading.Lock()
+
+
+def _exit_now(signum: int) -> None:
+    """End the process at once on Ctrl-C or SIGTERM during a compilation.
+
+    An exception raised into numba while it compiles can be dropped (numba runs Python callbacks
+    from inside LLVM, where exceptions are printed and ignored: the signal was lost and the run went
+    on for minutes) or leave it half-made (a ``RuntimeError`` traceback, exit 1), and a long LLVM
+    pass runs no Python signal handler until it returns.  So the temporary output is removed here
+    and the process exits with the interrupted status; kernels compiled before stay cached (numba
+    writes each cache file by rename, so none is left half-written).
+    """
+    import signal
+
+    if not _EXITING.acquire(blocking=False):
+        return
+    terminated = signum == signal.SIGTERM
+    try:
+        files = sys.modules.get("popdens._files")
+        if files is not None:
+            files.remove_live_temporaries()
+        why = "terminated (SIGTERM)" if terminated else "interrupted by the user"
+        sys.stderr.write(f"\npopdens: {why} while compiling; no partial output was kept (kernels compiled "
+                         "so far stay cached)\n")
+        sys.stderr.flush()
+    finally:
+        os._exit(EXIT_TERMINATED if terminated else EXIT_INTERRUPTED)
+
+
+def _on_signal(signum, frame):
+    import signal
+
+    if signum == signal.SIGTERM:
+        _TERMINATED[0] = True
+    if _compiling():
+        _exit_now(signum)
+    if signum == signal.SIGTERM:
+        raise _Terminated("terminated (SIGTERM)")
+    raise KeyboardInterrupt
+
+
+def _watch_signals(fd: int) -> None:
+    """Acts on Ctrl-C and SIGTERM while the main thread is inside a compilation.
+
+    The C-level signal handler writes each signal's number to ``fd`` at once (``signal.set_wakeup_fd``),
+    even while the main thread runs a long LLVM pass that releases the GIL; outside compilations the
+    Python handler in the main thread does the usual clean-up, so nothing is done here.
+    """
+    import signal
+
+    wanted = {int(signal.SIGINT), int(signal.SIGTERM)}
+    while True:
+        try:
+            data = os.read(fd, 64)
+        except OSError:
+            return
+        if not data:
+            os.close(fd)
+            return
+        for signum in data:
+            if signum in wanted and _compiling():
+                _exit_now(signum)
+
+
+class _SignalGuard:
+    """Installs the command's SIGINT/SIGTERM handling for one ``main`` call (main thread only)."""
+
+    def __enter__(self):
+        import signal
+
+        self.active = threading.current_thread() is threading.main_thread()
+        if not self.active:
+            return self
+        self.previous = {s: signal.signal(s, _on_signal) for s in (signal.SIGINT, signal.SIGTERM)}
+        read_fd, self.write_fd = os.pipe()
+        os.set_blocking(self.write_fd, False)
+        try:
+            self.previous_fd = signal.set_wakeup_fd(self.write_fd, warn_on_full_buffer=False)
+        except ValueError:  # not allowed here
+            os.close(read_fd)
+            os.close(self.write_fd)
+            self.write_fd = None
+        else:
+            threading.Thread(target=_watch_signals, args=(read_fd,), daemon=True, name="popdens-signals").start()
+        return self
+
+    def __exit__(self, *exc):
+        import signal
+
+        if not self.active:
+            return False
+        if self.write_fd is not None:
+            signal.set_wakeup_fd(self.previous_fd)
+            os.close(self.write_fd)  # the watcher reads end of file and stops
+        for s, handler in self.previous.items():
+            signal.signal(s, handler)
+        return False
 
 
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit code."""
-    import signal
-    import threading
-
     args = _parser().parse_args(argv)
     logging.basicConfig(level=logging.WARNING, format="popdens: %(message)s")
     # SIGTERM (kill, a batch scheduler's time limit) takes the Ctrl-C path: temporary output removed,
-    # a folder being replaced kept, finished sweep points saved
-    previous = None
+    # a folder being replaced kept, finished sweep points saved; during a compilation both end the
+    # process at once (_exit_now)
     _TERMINATED[0] = False
-    if threading.current_thread() is threading.main_thread():
-        previous = signal.signal(signal.SIGTERM, _on_sigterm)
     try:
-        with warnings.catch_warnings():
+        with _SignalGuard(), warnings.catch_warnings():
             # accuracy warnings are shown once each, as one plain line, never raised
             warnings.simplefilter("always", AccuracyWarning)
             warnings.showwarning = _show_warning
             code = _main(args)
     except _Terminated:
         code = EXIT_INTERRUPTED
-    finally:
-        if previous is not None:
-            signal.signal(signal.SIGTERM, previous)
     if _TERMINATED[0] and code == EXIT_INTERRUPTED:
         return EXIT_TERMINATED
     return code

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._files import jsonable, remove_stale_temporaries, stale_temporaries, temp_prefix
+from .._files import jsonable, live_temporaries, remove_stale_temporaries, stale_temporaries, temp_prefix
 from .._version import __version__
 from ..model._jit import Stopwatch
 from ..exceptions import ScenarioError
@@ -81,6 +81,7 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
                                   f"run); refusing to replace it")
     dest.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=temp_prefix(dest.name), dir=dest.parent))
+    live_temporaries.add(tmp)
     try:
         header = {"scenario": str(scenario.source.name), "scenario_sha256_16": scenario.digest,
                   "popdens_version": __version__}
@@ -113,6 +114,8 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
+    finally:
+        live_temporaries.discard(tmp)
     summary["output"] = str(dest)
     summary["timing"] = timing
     return summary
