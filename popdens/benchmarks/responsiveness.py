@@ -98,12 +98,15 @@ def _interrupt(n: int, env: dict, on_compile: bool = False) -> str:
         (folder / "s.toml").write_text(SCENARIO.format(n=n), encoding="utf-8")
         proc = subprocess.Popen([sys.executable, "-m", "popdens", "run", str(folder / "s.toml"), "--quiet"],
                                 env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
-        if on_compile:
-            line = proc.stderr.readline()
-            if "compiling" not in line:
-                proc.kill()
-                return f"no compilation seen ({line.strip()!r})"
-            time.sleep(0.3)
+        if on_compile:  # signal inside the longest compilation of this run
+            seen = ""
+            while "compiling refractory._advance" not in seen:
+                line = proc.stderr.readline()
+                if not line:
+                    proc.kill()
+                    return f"no compilation seen ({seen.strip()!r})"
+                seen += line
+            time.sleep(0.1)
         else:
             t0 = time.monotonic()
             while not _hidden(folder) and proc.poll() is None and time.monotonic() - t0 < 300:
