@@ -171,6 +171,13 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     ndarray
         Rates in Hz, the shape of ``mu`` (``(len(sigma),) + mu.shape`` for a list of ``sigma``).
 
+    Raises
+    ------
+    ValueError
+        Bad arguments, or a noise amplitude that varies in time.
+    ConvergenceError
+        No stationary state could be computed (the message names the drive).
+
     Notes
     -----
     Adapting neurons (``adaptation=[...]``): escape noise gives the
@@ -179,13 +186,6 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     sum_k w_k)`` with ``w_k = a_k(<u> - rest) + jump_k tau_k r`` (see
     :mod:`popdens.theory._adapted`); ``method`` then names how the renewal
     part is computed.
-
-    Raises
-    ------
-    ValueError
-        Bad arguments, or a noise amplitude that varies in time.
-    ConvergenceError
-        No stationary state could be computed (the message names the drive).
 
     Examples
     --------
@@ -229,6 +229,7 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     mu : float or array_like
         Drives (mV).
     sigma : float, optional
@@ -452,6 +453,7 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     mu : float
         Drive (mV).
     sigma : float, optional
@@ -586,6 +588,7 @@ def drive_for_rate(population, rate, *, sigma=None, bracket=None) -> float | np.
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     rate : float or array_like
         Target rates (Hz), > 0 and below the ceiling ``1000/refractory``.
     sigma : float, optional
