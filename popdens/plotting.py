@@ -121,6 +121,7 @@ def plot_gain(mu, rates, labels=None, ax=None, title=None, dashed=None):
     Returns
     -------
     matplotlib.axes.Axes
+        The Axes drawn on.
     """
     ax = _axes(ax)
     mu = np.asarray(mu, dtype=float)
@@ -194,6 +195,7 @@ def plot_transfer(freqs, chi, labels=None, unit="Hz/mV"):
     chi : array_like of complex, shape (n,) or (n_curves, n)
         Transfer function values (``unit``).
     labels : sequence of str, optional
+        One legend label per curve.
     unit : str
         Unit of the magnitude axis.
 
@@ -254,6 +256,7 @@ def plot_density_map(result, ax=None, cmap="magma"):
     Returns
     -------
     matplotlib.axes.Axes
+        The Axes drawn on.
     """
     if result.snapshots is None or result.snapshot_t is None or len(result.snapshot_t) < 2:
         raise ValueError("the result holds fewer than two density snapshots; pass `snapshot_interval` "
@@ -394,7 +397,10 @@ def plot_sweep_curves(x, ys, x_name, name, labels, colour_by=None, style_by=None
     style_by : (str, array_like), optional
         A second swept parameter: one line style per value, in the legend.
 
-    Returns the Figure.
+    Returns
+    -------
+    matplotlib.figure.Figure
+        The figure of the family.
     """
     import matplotlib.pyplot as plt
 
