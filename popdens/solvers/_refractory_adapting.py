@@ -141,12 +141,15 @@ def advance_adapting(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutof
             un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                                       hcode, hpar, hops, hargs, theta + th1, uses_slope,
                                       (j + 0.5) * dt, tau_ref, dt, e_dt, u0, h[p], mu0 - w0, mu1 - w1, stack, xbuf)
-            adapt_end(kinds, decay, coup, rest, st, p, u0, un)
             s = survival(big_h)
             mf = mj * (1.0 - s)
             fired += mf
+            # adapt_end and the spike-weighted sum in one pass over the components
+            u_mid = 0.5 * (u0 + un) - rest
             for c in range(n_comp):
-                fw[c] += mf * st[c, p]
+                x = st[c, p] * decay[c] + coup[c] * (1.0 - decay[c]) * u_mid
+                st[c, p] = x
+                fw[c] += mf * x
             ms = mj * s
             if j == n_bins - 1:
                 u_last = un
