@@ -121,12 +121,20 @@ def _network():
     popdens.montecarlo_network(net, t_end=2.0, dt=0.1, seed=1, progress=False)
 
 
+def _finite_size():
+    import popdens
+
+    esc, *_ = _populations()
+    popdens.simulate(esc, 16.0, t_end=1.0, dt=0.1, n=10, seed=1, burn_in=0.0, progress=False)
+
+
 #: Warm-up problems by name, each reaching a group of kernels (tiny sizes: their run time is negligible).
 TASKS: dict[str, Callable[[], None]] = {
     "adapting": _adapting,
     "escape solver": _escape_solver,
     "escape theory": _escape_theory,
     "escape twin": _escape_twin,
+    "finite size": _finite_size,
     "network": _network,
     "synaptic input": _synaptic,
     "white solver": _white_solver,

@@ -5,11 +5,10 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["axis_label", "save_figure", "plot_agreement", "plot_bifurcation_diagram", "plot_boundary_curves", "plot_circuit_comparison",
-           "plot_circuit_rates", "plot_rate_spectrum",
-           "plot_comparison", "plot_density_map", "plot_gain", "plot_isi", "plot_rate",
-           "plot_stability_map", "plot_steady_state", "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map",
-           "plot_transfer"]
+__all__ = ["axis_label", "save_figure", "plot_agreement", "plot_bifurcation_diagram", "plot_boundary_curves",
+           "plot_circuit_comparison", "plot_circuit_rates", "plot_comparison", "plot_density_map", "plot_finite_circuit",
+           "plot_gain", "plot_isi", "plot_rate", "plot_rate_spectrum", "plot_spectra", "plot_stability_map",
+           "plot_steady_state", "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map", "plot_transfer", "plot_trials"]
 
 
 def save_figure(fig, folder, stem: str) -> list[str]:
@@ -122,6 +121,7 @@ def plot_gain(mu, rates, labels=None, ax=None, title=None, dashed=None):
     Returns
     -------
     matplotlib.axes.Axes
+        The Axes drawn on.
     """
     ax = _axes(ax)
     mu = np.asarray(mu, dtype=float)
@@ -195,6 +195,7 @@ def plot_transfer(freqs, chi, labels=None, unit="Hz/mV"):
     chi : array_like of complex, shape (n,) or (n_curves, n)
         Transfer function values (``unit``).
     labels : sequence of str, optional
+        One legend label per curve.
     unit : str
         Unit of the magnitude axis.
 
@@ -255,6 +256,7 @@ def plot_density_map(result, ax=None, cmap="magma"):
     Returns
     -------
     matplotlib.axes.Axes
+        The Axes drawn on.
     """
     if result.snapshots is None or result.snapshot_t is None or len(result.snapshot_t) < 2:
         raise ValueError("the result holds fewer than two density snapshots; pass `snapshot_interval` "
@@ -395,7 +397,10 @@ def plot_sweep_curves(x, ys, x_name, name, labels, colour_by=None, style_by=None
     style_by : (str, array_like), optional
         A second swept parameter: one line style per value, in the legend.
 
-    Returns the Figure.
+    Returns
+    -------
+    matplotlib.figure.Figure
+        The figure of the family.
     """
     import matplotlib.pyplot as plt
 
@@ -626,3 +631,99 @@ def plot_boundary_curves(curves, ax=None, labels=True):
         ax.set_title("green: folds, purple: oscillation onsets\n(thick: stability lost, thin dashed: other crossings)",
                      fontsize=9)
     return fig, ax
+
+
+def plot_trials(finite, prediction=None, n_show: int = 2, max_bins: int = 1000):
+    """Realisations of a finite population over their mean +/- one standard deviation.
+
+    ``finite`` is a :class:`~popdens.Result` of ``simulate(..., n=N, trials=M)``;
+    ``prediction`` (optional) the infinite-population result drawn on top.
+    The drive is shown underneath; a record longer than ``max_bins`` bins is
+    shown over its first ``max_bins`` (said in the title).  Returns the Figure.
+    """
+    import matplotlib.pyplot as plt
+
+    fig, (ax, axd) = plt.subplots(2, 1, figsize=(7.0, 4.8), sharex=True, constrained_layout=True,
+                                  gridspec_kw={"height_ratios": [3, 1]})
+    stop = min(finite.t.size, max_bins + 1)
+    t = finite.t[1:stop]
+    trials = finite.trial_rates if finite.trial_rates is not None else finite.rate[None]
+    for m in range(min(n_show, trials.shape[0])):
+        ax.step(t, trials[m, 1:stop], where="pre", color=f"C{m + 1}", lw=0.5, alpha=0.55,
+                label="single trials" if m == 0 else None)
+    if trials.shape[0] >= 2:
+        mean, sd = trials[:, 1:stop].mean(axis=0), trials[:, 1:stop].std(axis=0, ddof=1)
+        ax.fill_between(t, mean - sd, mean + sd, color="C0", alpha=0.3, lw=0, step="pre",
+                        label=f"mean ± SD over {trials.shape[0]} trials")
+        for edge in (mean - sd, mean + sd):
+            ax.step(t, edge, where="pre", color="C0", lw=0.6)
+        ax.step(t, mean, where="pre", color="C0", lw=1.3, label="trial mean")
+    if prediction is not None:
+        keep = prediction.t[1:] <= t[-1] + 1e-9
+        ax.plot(prediction.t[1:][keep], prediction.rate[1:][keep], color="k", lw=1.4, ls="--",
+                label="infinite population")
+    shown = "" if stop == finite.t.size else f" (first {t[-1]:g} ms of {finite.t[-1]:g} ms)"
+    ax.set_ylabel("population rate (Hz)")
+    ax.set_title(f"{finite.n_neurons} neurons{shown}", fontsize=10)
+    ax.legend(frameon=False, loc="best", fontsize=8)
+    axd.plot(finite.t[:stop], finite.drive[:stop], color="C3")
+    axd.set_ylabel("drive (mV)")
+    axd.set_xlabel("time (ms)")
+    ax.set_xlim(float(t[0]), float(t[-1]))
+    return fig
+
+
+def plot_spectra(curves, ylabel: str = "power spectrum (Hz)", title: str | None = None, bands: int = 60):
+    """Power spectra on log-log axes.
+
+    ``curves``: ``(freqs, power, standard_error or None, label)`` tuples (Hz).  An estimate with
+    standard errors is averaged over ``bands`` logarithmic frequency bands (the standard error of a
+    band mean: root-mean-square SE / sqrt(points), the periodogram ordinates being nearly
+    independent) and drawn with a +/- 2 SE band; one without is drawn as a line.  Returns the Figure.
+    """
+    import matplotlib.pyplot as plt
+
+    fig, ax = plt.subplots(figsize=(6.0, 4.0), constrained_layout=True)
+    for k, (f, p, se, label) in enumerate(curves):
+        f, p = np.asarray(f, float), np.asarray(p, float)
+        if se is None:
+            ax.plot(f, p, color="k" if k == 0 else f"C{k}", lw=1.6, ls="--", label=label)
+            continue
+        se = np.asarray(se, float)
+        edges = np.geomspace(f[0], f[-1] * (1 + 1e-9), bands + 1)
+        idx = np.digitize(f, edges) - 1
+        used = np.unique(idx)
+        fb = np.array([np.exp(np.mean(np.log(f[idx == i]))) for i in used])
+        pb = np.array([p[idx == i].mean() for i in used])
+        sb = np.array([np.sqrt(np.mean(se[idx == i] ** 2) / np.sum(idx == i)) for i in used])
+        ax.fill_between(fb, np.maximum(pb - 2 * sb, pb * 0.05), pb + 2 * sb, color=f"C{k}", alpha=0.25, lw=0)
+        ax.plot(fb, pb, color=f"C{k}", lw=1.0, marker=".", ms=3, label=label + " (±2 SE)")
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_ylabel(ylabel)
+    if title:
+        ax.set_title(title, fontsize=10)
+    ax.legend(frameon=False, fontsize=8)
+    return fig
+
+
+def plot_finite_circuit(finite, mean_field=None, spiking=None):
+    """Finite cohorts of a circuit run: one panel per cohort with the realisation of the mesoscopic
+    integration, the spiking twin (grey) and the mean field (dashed).  Returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    n = len(finite.names)
+    fig, axes = plt.subplots(n, 1, figsize=(7.0, 1.2 + 2.2 * n), sharex=True, constrained_layout=True,
+                             squeeze=False)
+    for k, (ax, nm) in enumerate(zip(axes[:, 0], finite.names)):
+        if spiking is not None:
+            ax.plot(spiking.t[1:], spiking.rate[k, 1:], color="0.55", lw=0.7, label="spiking twin")
+        size = f", {finite.sizes[k]} neurons" if finite.sizes else ""
+        ax.plot(finite.t[1:], finite.rate[k, 1:], color=f"C{k}", lw=0.8, label=f"finite-size integration{size}")
+        if mean_field is not None:
+            ax.plot(mean_field.t[1:], mean_field.rate[k, 1:], color="k", lw=1.3, ls="--", label="mean field")
+        ax.set_ylabel(f"{nm} rate (Hz)")
+        ax.legend(frameon=False, fontsize=8, loc="upper right")
+    axes[-1, 0].set_xlabel("time (ms)")
+    return fig

@@ -66,7 +66,10 @@ class Result(Displayable):
     spike_times, spike_ids : ndarray or None
         Monte Carlo only, on request: spike times (ms) and neuron indices.
     n_neurons : int or None
-        Monte Carlo only: population size.
+        Monte Carlo and finite-size runs: population size.
+    trial_rates : ndarray, shape (n_trials, n_times) or None
+        Finite-size runs with ``trials``: the rate (Hz) of every realisation
+        (``rate`` is the first); see :meth:`trial_mean`, :meth:`trial_variance`.
     diagnostics : dict
         Wall time (s), popdens version, mass error, counters, settings.
     """
@@ -90,6 +93,7 @@ class Result(Displayable):
     spike_ids: np.ndarray | None = None
     n_neurons: int | None = None
     diagnostics: dict = field(default_factory=dict)
+    trial_rates: np.ndarray | None = None
 
     @property
     def success(self) -> bool:
@@ -116,6 +120,46 @@ class Result(Displayable):
             raise ValueError("standard errors exist only for Monte Carlo results")
         width = np.diff(self.t, prepend=np.nan) * 1e-3
         return np.sqrt(np.maximum(self.rate, 0.0) / (self.n_neurons * width))
+
+    def _trials(self) -> np.ndarray:
+        if self.trial_rates is None:
+            raise ValueError("this result holds one realisation; run simulate(..., n=N, trials=M) for trial statistics")
+        return self.trial_rates
+
+    def trial_mean(self) -> np.ndarray:
+        """Mean rate (Hz) over the trials at each output time."""
+        return self._trials().mean(axis=0)
+
+    def trial_variance(self) -> np.ndarray:
+        """Variance (Hz^2) of the rate over the trials at each output time (unbiased, ``ddof = 1``)."""
+        tr = self._trials()
+        if tr.shape[0] < 2:
+            raise ValueError("the trial variance needs at least 2 trials")
+        return tr.var(axis=0, ddof=1)
+
+    def spectrum(self, segment: float = 1000.0, t_from: float = 0.0):
+        """Power spectrum (Hz) of the rate, estimated from the record after ``t_from`` (ms).
+
+        Averaged periodograms over segments of ``segment`` ms (frequency
+        resolution ``1000 / segment`` Hz), pooled over all trials when the
+        result holds several; two-sided, the convention of
+        :func:`popdens.population_rate_spectrum`.  The recorded rates are bin
+        averages over the record interval ``b``: compare with
+        ``r0/N + (S(f) - r0/N) sinc^2(pi f b)``, or record every step.
+
+        Returns
+        -------
+        SpectrumEstimate
+            ``freqs`` (Hz), ``power`` (Hz) and ``standard_error`` (Hz), ``segments``.
+        """
+        from ._spectral import estimate_spectra
+
+        if self.t.size < 3:
+            raise ValueError("the record is too short for a spectrum")
+        width = float(self.t[1] - self.t[0])
+        first = int(np.searchsorted(self.t, t_from - 1e-9 * width)) + 1  # bins (t[k-1], t[k]] after t_from
+        rates = self.trial_rates if self.trial_rates is not None else self.rate[None]
+        return estimate_spectra(rates[:, first:], width, segment, channels=False)
 
     def _card(self):
         pop = self.population
@@ -179,7 +223,7 @@ class Result(Displayable):
         if path.suffix != ".npz":
             path = path.with_suffix(".npz")
         arrays = {k: getattr(self, k) for k in ("t", "rate", "mean_u", "refractory_fraction", "drive")}
-        for k in ("snapshot_t", "snapshots", "axis", "spike_times", "spike_ids"):
+        for k in ("snapshot_t", "snapshots", "axis", "spike_times", "spike_ids", "trial_rates"):
             if getattr(self, k) is not None:
                 arrays[k] = getattr(self, k)
         meta = {"method": self.method, "status": self.status, "message": self.message, "dt": self.dt,

@@ -15,7 +15,7 @@ PACKAGE = Path(__file__).resolve().parents[1] / "popdens"
 LAYERS = (
     ("popdens._version", "popdens._lazy", "popdens._display", "popdens.exceptions", "popdens._validation",
      "popdens._files", "popdens.progress",
-     "popdens.plotting", "popdens.result"),
+     "popdens.plotting", "popdens._spectral", "popdens.result"),
     ("popdens.model",),
     ("popdens.theory",),
     ("popdens.solvers",),

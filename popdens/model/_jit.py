@@ -37,6 +37,7 @@ EXPECTED_SECONDS = {
     "refractory._trajectory": 1.2,
     "_refractory_adapting.advance_adapting": 4.0,
     "_refractory_adapting.stationary_profile": 11.0,
+    "mesoscopic._advance_finite": 10.0,
     "_escape.run_escape": 2.1,
     "_escape.run_escape_adapting": 2.2,
     "_diffusive.run_diffusive": 1.1,

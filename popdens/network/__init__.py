@@ -1,6 +1,7 @@
-"""Networks of coupled populations: the circuit specification, mean-field time integration, the
-spiking twin's front end, fixed points, linear stability, stability maps, and continuation (branches of
-fixed points with their folds and oscillation onsets; boundary curves in a parameter plane).
+"""Networks of coupled populations: the circuit specification, mean-field and finite-size time
+integration, the spiking twin's front end, fixed points, linear stability, stability maps, continuation
+(branches of fixed points with their folds and oscillation onsets; boundary curves in a parameter
+plane) and the predicted spectral matrix of finite cohorts.
 
 Names are imported on first use (PEP 562), so that reading a network scenario file
 (:mod:`.circuit` only) does not load the compiled solvers, scipy or numba.
@@ -21,6 +22,7 @@ _LAZY = {
     "stability": "linear_stability",
     "StabilityMap": "maps", "stability_map": "maps",
     "CircuitResult": "result",
+    "spectral_matrix": "spectra",
     "FixedPoint": "states", "fixed_points": "states", "solver_gain": "states",
     "montecarlo_network": "twin",
 }
@@ -29,7 +31,8 @@ __all__ = [
     "BifurcationDiagram", "BoundaryCurve", "BoundaryCurves", "Branch", "Circuit", "CircuitParameter",
     "CircuitResult", "Cohort", "FixedPoint", "Pathway", "PoissonBackground", "SpecialPoint", "Stability",
     "StabilityMap", "bifurcation_diagram", "boundary_curves", "characteristic_matrix", "count_roots",
-    "fixed_points", "montecarlo_network", "simulate_network", "solver_gain", "stability", "stability_map",
+    "fixed_points", "montecarlo_network", "simulate_network", "solver_gain", "spectral_matrix", "stability",
+    "stability_map",
 ]
 
 

@@ -24,6 +24,7 @@ import math
 
 import numpy as np
 
+from .. import _validation as v
 from .._version import __version__
 from ..model._jit import Stopwatch
 from ..progress import Progress
@@ -31,11 +32,13 @@ from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers.registry import resolve_method
 from ..solvers._recording import BoundarySamples, make_grid
 from ..solvers.fokker_planck import LOWER_STDS
+from ..solvers.mesoscopic import MesoscopicSolver, seed_kernel_rng
 from ..model.effective import shifted_neuron
 from ..model.noise import Population, WhiteNoise
 from ..model.synaptic import ALPHA
 from .circuit import DEFAULT_DT, HZ_TO_PER_MS, STEP_TOL, Circuit, Pathway
 from .result import CircuitResult
+from .twin import DEFAULT_BURN_IN_MS  # finite cohorts burn in as long as the spiking twin
 
 __all__ = ["simulate_network"]
 
@@ -102,14 +105,46 @@ class _DelayLine:
         return self.s
 
 
+def _own_spike_drive(circuit: Circuit, k: int, ages: np.ndarray, dt: float) -> np.ndarray:
+    """Drive (mV) that a neuron of cohort ``k`` at age ``a`` (ms) would get from its own last spike.
+
+    Each recurrent pathway with in-degree C among the other N - 1 neurons
+    gives ``tau_m J C/(N-1) s(a)``: the spike's delayed, filtered trace ``s``
+    (1/ms), the exponential kernel after the delay, or for instantaneous
+    synapses a unit-area hat of half-width ``dt`` centred on the delay (the
+    spiking twin delivers a spike over the step ``delay`` after it).  Spikes
+    before the last are not subtracted: exact while the kernel has decayed
+    within an inter-spike interval (delay + tau_syn short against 1/rate).
+    """
+    out = np.zeros(ages.size)
+    a = ages.copy()
+    a[-1] = max(a[-1], a[-2] + dt)  # the last bin: its youngest age
+    for p in circuit.pathways:
+        if circuit.index(p.source) != k or circuit.index(p.target) != k:
+            continue
+        size = circuit.cohorts[k].size
+        scale = circuit.cohorts[k].tau_m * p.weight * p.in_degree / (size - 1.0)
+        if p.tau_syn > 0:
+            late = a >= p.delay
+            trace = np.where(late, np.exp(-np.where(late, a - p.delay, 0.0) / p.tau_syn) / p.tau_syn, 0.0)
+        else:
+            trace = np.maximum(0.0, 1.0 - np.abs(a - p.delay) / dt) / dt
+        out += scale * trace
+    return out
+
+
 def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *, initial_rates=None,
                      record_interval: float | None = None, solver_options: dict | None = None,
-                     progress: bool | None = None) -> CircuitResult:
+                     progress: bool | None = None, finite_size: bool = False, seed=None,
+                     burn_in: float | None = None) -> CircuitResult:
     """Integrate the coupled population-density equations of a circuit.
 
     Every cohort is solved by its density solver (refractory density for
     escape noise, Fokker--Planck for white noise); all are stepped together,
-    coupled through delayed, filtered rates (module docstring).
+    coupled through delayed, filtered rates (module docstring).  With
+    ``finite_size=True`` every escape-noise cohort is a population of its
+    ``size`` neurons (mesoscopic equations, :mod:`popdens.solvers.mesoscopic`),
+    and the cohorts are coupled through their *realised* activities.
 
     Parameters
     ----------
@@ -130,11 +165,23 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         ``n_cells``, ``u_min`` for Fokker--Planck, ``max_age`` for escape).
     progress : bool, optional
         Progress line on stderr (default: only on a terminal, long runs).
+    finite_size : bool
+        Escape-noise cohorts are finite (their ``size``): one realisation of
+        the stochastic activity.  White-noise cohorts stay infinite
+        (deterministic); a circuit with none is refused.
+    seed : int or numpy.random.Generator, optional
+        With ``finite_size``: the same seed gives bit-identical results.
+    burn_in : float, optional
+        With ``finite_size``: time (ms) integrated before t = 0 at the external
+        input of t = 0 and discarded, so that t = 0 finds the network in its
+        fluctuating state; default 200 ms (as the spiking twin).
 
     Returns
     -------
     CircuitResult
-        ``rate`` (Hz), ``mu`` (mV) and ``sigma`` (mV) per cohort.
+        ``rate`` (Hz), ``mu`` (mV) and ``sigma`` (mV) per cohort; with
+        ``finite_size`` the realised activities (``method`` "mesoscopic") and
+        ``sizes``.
 
     Examples
     --------
@@ -162,12 +209,37 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     solver_options = {} if solver_options is None else dict(solver_options)
     for nm in solver_options:
         circuit.index(nm)
+    finite = [bool(finite_size) and not a.diffusive for a in circuit.cohorts]
+    n_burn = 0
+    if finite_size:
+        if not any(finite):
+            raise ValueError("`finite_size`: the circuit has no escape-noise cohort; finite white-noise "
+                             "populations are simulated by montecarlo_network")
+        for nm, cohort, fin in zip(circuit.names, circuit.cohorts, finite):
+            if fin and cohort.population.neuron.adaptation:
+                raise ValueError(f"`finite_size`: cohort {nm!r} has adapting neurons (`adaptation`), which the "
+                                 "finite-size integration does not support yet; simulate the finite network with "
+                                 "montecarlo_network")
+        burn_in = DEFAULT_BURN_IN_MS if burn_in is None else v.non_negative("burn_in", burn_in)
+        n_burn = int(round(burn_in / dt))
+        rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
+        seed_kernel_rng(int(rng.integers(0, 2**31 - 1)))
+    else:
+        for name, value in (("seed", seed), ("burn_in", burn_in)):
+            if value is not None:
+                raise ValueError(f"`{name}` = {value!r} applies to finite cohorts: pass `finite_size=True`")
 
-    lines = [_DelayLine(p, dt, r0[circuit.index(p.source)] * HZ_TO_PER_MS, grid.n_steps)
+    lines = [_DelayLine(p, dt, r0[circuit.index(p.source)] * HZ_TO_PER_MS, grid.n_steps + n_burn)
              for p in circuit.pathways]
     tgt = [circuit.index(p.target) for p in circuit.pathways]
     src = [circuit.index(p.source) for p in circuit.pathways]
     cmean = [circuit.cohorts[k].tau_m * p.weight * p.in_degree for p, k in zip(circuit.pathways, tgt)]
+    for q, p in enumerate(circuit.pathways):
+        if finite[tgt[q]] and src[q] == tgt[q]:
+            # no neuron synapses on itself: the population term counts all N neurons (C/(N-1) of each)
+            # and each age bin loses its own last spike's share (set_own_input below)
+            size = circuit.cohorts[tgt[q]].size
+            cmean[q] *= size / (size - 1.0)
     cvar = [circuit.cohorts[k].tau_m * p.weight ** 2 * p.in_degree if circuit.cohorts[k].diffusive else 0.0
             for p, k in zip(circuit.pathways, tgt)]
     tq = grid.step_times(0, grid.n_steps)
@@ -193,6 +265,12 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
                     ext_mu[k, j] += after - smp.drive(grid.dt * j)
                     ext_left[j][0][k] += before - smp.drive(grid.dt * j)
     jump_steps = sorted(j for j in ext_left if 0 < j < grid.n_steps)
+    if n_burn:  # the burn-in steps come first and see the external input of t = 0
+        ext_mu = np.concatenate([np.repeat(ext_mu[:, :1], n_burn, axis=1), ext_mu], axis=1)
+        ext_var = np.concatenate([np.repeat(ext_var[:, :1], n_burn, axis=1), ext_var], axis=1)
+        ext_fw = np.concatenate([np.repeat(ext_fw[:, :1], n_burn, axis=1), ext_fw], axis=1)
+        ext_left = {j + n_burn: val for j, val in ext_left.items()}
+        jump_steps = [j + n_burn for j in jump_steps]
     if not (np.all(np.isfinite(ext_mu)) and np.all(np.isfinite(ext_var))):
         raise ValueError("the external drive or noise of a cohort is not finite on [0, t_end]")
     diffusive = [a.diffusive for a in circuit.cohorts]
@@ -241,14 +319,19 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         pop_k = a.population
         if diffusive[k]:  # the solver's white-noise problem, boundaries at the initial shift
             pop_k = Population(shifted_neuron(a.population.neuron, float(shift0[k])), WhiteNoise(float(sg0[k])))
+        if finite[k]:
+            cls = MesoscopicSolver
+            opts = {"size": a.size, "burn_in": 0.0, **opts}
         try:
             s = cls(pop_k, dt, **opts)
         except TypeError as exc:
             raise ValueError(f"cohort {a.name!r}: bad solver option in {sorted(opts)}: {exc}") from None
+        if finite[k]:
+            s.set_own_input(_own_spike_drive(circuit, k, s.axis, dt))
         s.initialize(float(mu0[k]), float(sg0[k]) if diffusive[k] else None, "stationary")
         solvers.append(s)
 
-    n = grid.n_steps
+    n = grid.n_steps + n_burn
     rate = np.empty((nk, n))
     mus = np.empty((nk, n + 1))
     sgs = np.empty((nk, n + 1))
@@ -265,7 +348,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     block = MAX_BLOCK_STEPS
     for p in circuit.pathways:
         block = min(block, max(1, int(math.floor(p.delay / dt - 0.5 + STEP_TOL))))
-    bar = Progress(n, "network mean-field", progress)
+    bar = Progress(n, "network mesoscopic" if finite_size else "network mean-field", progress)
     status, message = STATUS_OK, "completed"
     done = 0
     try:
@@ -307,21 +390,31 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             if (done // nb) % max(1, PROGRESS_BLOCK // nb) == 0:
                 bar.update(done)
     except KeyboardInterrupt:
-        status, message = STATUS_INTERRUPTED, f"interrupted by the user at t = {done * dt:g} ms"
+        status, message = STATUS_INTERRUPTED, f"interrupted by the user at t = {(done - n_burn) * dt:g} ms"
         logger.warning(message)
     finally:
         bar.close()
     e = grid.every
-    n_out = done // e
-    r_out = np.concatenate([rate_init[:, None], rate[:, : n_out * e].reshape(nk, n_out, e).mean(axis=2)], axis=1)
+    kept = max(done - n_burn, 0)  # steps after the burn-in
+    n_out = kept // e
+    if n_burn:
+        rate_init = np.array([s_.instantaneous_rate(float(mus[k, n_burn]), float(sgs[k, n_burn]) if diffusive[k] else None)
+                              for k, s_ in enumerate(solvers)]) if done >= n_burn else np.full(nk, np.nan)
+    body = rate[:, n_burn: n_burn + n_out * e].reshape(nk, n_out, e).mean(axis=2)
+    r_out = np.concatenate([rate_init[:, None], body], axis=1)
     idx = np.arange(n_out + 1) * e
-    sg_out = np.where(np.array(diffusive)[:, None], sgs[:, idx], np.nan)
+    sg_out = np.where(np.array(diffusive)[:, None], sgs[:, n_burn + idx], np.nan)
     mass = [abs(s.mass() - 1.0) for s in solvers]
     return CircuitResult(
-        names=circuit.names, t=idx * dt, rate=r_out, mu=mus[:, idx], sigma=sg_out, method="mean-field",
+        names=circuit.names, t=idx * dt, rate=r_out, mu=mus[:, n_burn + idx], sigma=sg_out,
+        method="mesoscopic" if finite_size else "mean-field",
         status=status, message=message, dt=dt,
-        diagnostics={**watch.times(), "version": __version__, "steps": done,
+        sizes=tuple(a.size for a in circuit.cohorts) if finite_size else None,
+        diagnostics={**watch.times(), "version": __version__, "steps": kept,
                      "mass_error": max(mass),
+                     **({"finite_size": [nm for nm, f in zip(circuit.names, finite) if f], "burn_in_ms": n_burn * dt,
+                         "seed": seed if isinstance(seed, (int, np.integer)) or seed is None else "generator"}
+                        if finite_size else {}),
                      "solvers": {nm: s.method_name for nm, s in zip(circuit.names, solvers)},
                      **{f"{nm}:{k}": val for nm, s in zip(circuit.names, solvers)
                         for k, val in s.diagnostics().items()}},

@@ -85,6 +85,27 @@ class CircuitResult(Displayable):
             raise ValueError(f"`t_from` = {t_from!r} ms leaves no output interval")
         return self.rate[:, 1:][:, sel].mean(axis=1)
 
+    def spectra(self, segment: float = 1000.0, t_from: float = 0.0):
+        """Spectra and cross-spectra (Hz) of the cohorts' rates after ``t_from`` (ms).
+
+        Averaged periodograms over segments of ``segment`` ms (two-sided; the
+        convention of :func:`popdens.network.spectral_matrix`); the rates are
+        averages over the record interval (see :meth:`popdens.Result.spectrum`).
+
+        Returns
+        -------
+        SpectrumEstimate
+            ``freqs`` (Hz); ``power`` and ``standard_error``, shape ``(n_freqs, n_cohorts)``;
+            ``cross`` (complex, ``(n_freqs, n, n)``) and ``cross_error``.
+        """
+        from .._spectral import estimate_spectra
+
+        if self.t.size < 3:
+            raise ValueError("the record is too short for a spectrum")
+        width = float(self.t[1] - self.t[0])
+        first = int(np.searchsorted(self.t, t_from - 1e-9 * width)) + 1
+        return estimate_spectra(self.rate[:, first:], width, segment)
+
     def rate_spectrum(self, t_from: float = 0.0, segment_ms: float = 256.0):
         """Power spectrum of each cohort's rate fluctuations (Welch's method, one-sided).
 

@@ -25,6 +25,7 @@ populations instead of a single population::
     dt = 0.1                         # ms
     record_interval = 1.0            # ms
     montecarlo = true                # also simulate the spiking network
+    finite_size = true               # also integrate the escape-noise cohorts as finite (their `size`)
     seed = 1
     fixed_points = true              # self-consistent stationary states ...
     stability = true                 # ... and their linear stability
@@ -66,7 +67,7 @@ COHORT_KEYS = {"name", "size", "drive", "sigma_ext", "neuron", "noise", "backgro
 PATHWAY_KEYS = {"source", "target", "weight", "in_degree", "delay", "tau_syn"}
 BACKGROUND_KEYS = {"rate", "weight", "count"}
 NETWORK_KEYS = {"t_end", "dt", "record_interval", "montecarlo", "seed", "fixed_points", "stability",
-                "rate_range", "stability_map", "bifurcation"}
+                "rate_range", "stability_map", "bifurcation", "finite_size"}
 MAP_KEYS = {"inhibition", "drive", "curves"}
 BIFURCATION_KEYS = {"parameter", "start", "stop", "max_step", "seeds", "max_frequency"}
 #: Most seeds of a bifurcation diagram (each is a fixed-point search).
@@ -103,6 +104,8 @@ class NetworkScenario:
     map_curves: bool = False
     #: settings of the bifurcation diagram (parameter, span, max_step, seeds, max_frequency), or None
     bifurcation: dict | None = None
+    #: Also integrate the escape-noise cohorts as populations of their ``size`` (mesoscopic equations).
+    finite_size: bool = False
 
     def circuit_at(self, inhibition: float, drive: float) -> Circuit:
         """The circuit with every inhibitory weight scaled by ``inhibition`` and every external drive
@@ -204,6 +207,12 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
     montecarlo = _flag(src, "network", "montecarlo", net.get("montecarlo", False))
     if montecarlo and t_end == 0:
         raise err(src, "network", "montecarlo", True, "false, or a `t_end` > 0 for the spiking twin to run")
+    finite = _flag(src, "network", "finite_size", net.get("finite_size", False))
+    if finite and (t_end == 0 or all(a.diffusive for a in cohorts)):
+        raise err(src, "network", "finite_size", True, "false, or a `t_end` > 0 and an escape-noise cohort "
+                  "(finite white-noise cohorts are simulated by the spiking twin, `montecarlo`)")
+    if finite and any(a.population.neuron.adaptation for a in cohorts if not a.diffusive):
+        raise err(src, "network", "finite_size", True, "false for adapting escape-noise cohorts (not supported yet)")
     if t_end == 0 and not want_fp:
         raise ScenarioError(f"{src}: [network] nothing to compute: give `t_end` > 0 or `fixed_points` = true")
     grid = None
@@ -232,7 +241,8 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
     return NetworkScenario(source=Path(src), title=title, output=out_path, circuit=circuit, t_end=t_end, dt=dt,
                            record_interval=rec, montecarlo=montecarlo, seed=seed, fixed_points=want_fp,
                            stability=want_st, rate_range=(float(rr[0]), float(rr[1])), digest=digest, raw=data,
-                           stability_grid=grid, map_curves=map_curves, bifurcation=bifurcation)
+                           stability_grid=grid, map_curves=map_curves, bifurcation=bifurcation,
+                           finite_size=finite)
 
 
 def _parse_bifurcation(src, b, circuit) -> dict:

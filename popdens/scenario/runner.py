@@ -142,7 +142,9 @@ def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, tim
     summary["settings"] = {"t_end_ms": scenario.t_end, "dt_ms": pred.dt,
                            "record_interval_ms": scenario.record_interval,
                            "snapshot_interval_ms": scenario.snapshot_interval,
-                           "montecarlo_neurons": scenario.montecarlo_neurons, "seed": scenario.seed}
+                           "montecarlo_neurons": scenario.montecarlo_neurons, "seed": scenario.seed,
+                           **({"population_size": scenario.population_size, "trials": scenario.trials}
+                              if scenario.population_size else {})}
     summary["prediction"] = {"method": pred.method, "status": pred.status, "message": pred.message,
                              "peak_rate_hz": _finite_or_none(np.max(pred.rate)),
                              "final_rate_hz": _finite_or_none(pred.rate[-1]),
@@ -168,7 +170,79 @@ def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, tim
         save_figure(check.plot(), tmp, "agreement")
         figures.append(("agreement.png", "Does the Monte Carlo twin agree? Standardised residuals per bin "
                                          "and the verdict"))
+    if scenario.population_size:
+        figures += _finite_population(scenario, pred, mc, tmp, header, summary, timing, progress)
     return figures
+
+
+#: Longest segment (ms) of the spectra estimated in scenario reports (frequency resolution 1 Hz).
+SPECTRUM_SEGMENT_MS = 1000.0
+#: Most frequencies at which a report evaluates a predicted spectrum.
+SPECTRUM_POINTS = 120
+
+
+def _segment(t_end: float, width: float) -> float | None:
+    """Spectrum segment (ms): 1 s, or the longest whole number of bins that fits 4 times in the run."""
+    seg = min(SPECTRUM_SEGMENT_MS, t_end / 4.0)
+    bins = int(seg // width)
+    return bins * width if bins >= 8 else None
+
+
+def _finite_population(scenario, pred, mc, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:
+    """Realisations of the finite population: table, trials figure and fluctuation spectra."""
+    from ..model.drive import Constant
+    from ..plotting import plot_spectra, plot_trials, save_figure
+    from ..theory.spectra import population_rate_spectrum
+    from .analyses import write_table
+
+    n, m = scenario.population_size, scenario.trials
+    fin = simulate(scenario.population, scenario.drive, scenario.t_end, scenario.dt, n=n, trials=m,
+                   seed=scenario.seed, record_interval=scenario.record_interval, progress=progress)
+    _stop_if_interrupted(fin)
+    timing["finite_size_s"] = fin.diagnostics.get("wall_time_s")
+    tr = fin.trial_rates
+    cols = {"t_ms": fin.t, "trial_mean_Hz": tr.mean(axis=0),
+            "trial_sd_Hz": tr.std(axis=0, ddof=1) if m > 1 else np.full(fin.t.size, np.nan),
+            **{f"trial_{k + 1}_Hz": tr[k] for k in range(min(m, 5))}}
+    write_table(tmp / "finite_size.csv", cols,
+                {**header, "units": "t ms, rate Hz", "neurons": n, "trials": m, "seed": scenario.seed,
+                 "method": fin.method, "note": "rate[k]: spikes in (t[k-1], t[k]] / (neurons x interval)"})
+    save_figure(plot_trials(fin, pred), tmp, "finite_trials")
+    figures = [("finite_trials.png", f"Finite population of {n} neurons: single trials over the trial mean ± SD "
+                                     f"({m} trials), and the infinite population")]
+    info = {"n_neurons": n, "trials": m, "seed": scenario.seed, "status": fin.status, "message": fin.message,
+            "mean_rate_hz": _finite_or_none(np.mean(tr[:, 1:])),
+            "mean_trial_variance_hz2": _finite_or_none(np.mean(tr[:, 1:].var(axis=0, ddof=1))) if m > 1 else None,
+            "diagnostics": fin.settings()}
+    width = float(fin.t[1] - fin.t[0])
+    seg = _segment(scenario.t_end, width)
+    if seg is not None:
+        # fluctuations about the infinite population, per neuron (N x spectrum: independent of N)
+        est = _residual_spectrum(tr[:, 1:] - pred.rate[None, 1:], width, seg)
+        curves = [(est.freqs, n * est.power, n * est.standard_error, f"mesoscopic, {n} neurons")]
+        info["spectrum"] = {"segment_ms": seg, "segments": est.segments}
+        if mc is not None:
+            emc = _residual_spectrum((mc.rate[1:] - pred.rate[1:])[None], width, seg)
+            curves.append((emc.freqs, mc.n_neurons * emc.power, mc.n_neurons * emc.standard_error,
+                           f"Monte Carlo twin, {mc.n_neurons} neurons"))
+        if isinstance(scenario.drive, Constant):
+            f = np.unique(np.geomspace(est.freqs[0], est.freqs[-1], SPECTRUM_POINTS))
+            curves.insert(0, (f, population_rate_spectrum(scenario.population, scenario.drive.mu, f, 1,
+                                                          bin_width=width), None, "renewal theory"))
+        save_figure(plot_spectra(curves, "N x spectrum of the rate (Hz)",
+                                 f"fluctuations about the infinite population; {width:g} ms bins"), tmp,
+                    "finite_spectrum")
+        figures.append(("finite_spectrum.png", "Spectrum of the finite-size fluctuations per neuron (N x power "
+                        "spectrum of the rate minus the infinite population)"
+                        + (" against the Monte Carlo twin" if mc is not None else "")))
+    summary["finite_size"] = info
+    return figures
+
+
+def _residual_spectrum(x, width, seg):
+    from .._spectral import estimate_spectra
+
+    return estimate_spectra(x, width, seg, channels=False)
 
 
 def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:
@@ -184,7 +258,8 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
     figures = []
     summary["settings"] = {"t_end_ms": scenario.t_end, "dt_ms": scenario.dt,
                            "record_interval_ms": scenario.record_interval, "montecarlo": scenario.montecarlo,
-                           "seed": scenario.seed, "rate_range_hz": list(scenario.rate_range)}
+                           "seed": scenario.seed, "rate_range_hz": list(scenario.rate_range),
+                           **({"finite_size": True} if scenario.finite_size else {})}
     summary["cohorts"] = {a.name: {"size": a.size, "model": type(a.population.neuron).__name__,
                                       "noise": type(a.population.noise).__name__} for a in c.cohorts}
     summary["notes"] = c.density_notes()
@@ -297,6 +372,19 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
             fig = plot_rate_spectrum(spectra, mc.names, marks,
                                      floor={nm: 2.0 * r / n for nm, r, n in zip(names, mc.mean_rate(0.0), mc.sizes)})
             save_figure(fig, tmp, "network_spectrum")
+        fin = None
+        if scenario.finite_size:
+            fin = simulate_network(c, scenario.t_end, scenario.dt, record_interval=scenario.record_interval,
+                                   progress=progress, finite_size=True, seed=scenario.seed)
+            _stop_if_interrupted(fin)
+            timing["finite_size_s"] = fin.diagnostics.get("wall_time_s")
+            write_table(tmp / "network_finite_size.csv",
+                        {"t_ms": fin.t, **{f"rate_Hz_{nm}": fin.rate[k] for k, nm in enumerate(names)}},
+                        {**header, "method": fin.method, "seed": scenario.seed, "units": "t ms, rate Hz",
+                         "finite_cohorts": fin.diagnostics["finite_size"]})
+            summary["finite_size"] = {"status": fin.status, "message": fin.message, "seed": scenario.seed,
+                                      "cohorts": fin.diagnostics["finite_size"],
+                                      "mean_rates_hz": dict(zip(names, map(float, fin.mean_rate())))}
         save_figure(plot_circuit_comparison(mf, mc), tmp, "network_rate")
         figures.append(("network_rate.png", "Rates of the cohorts over time"
                         + (" (mean field thick, spiking twin thin)" if mc is not None else "")))
@@ -304,7 +392,63 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
             figures.append(("network_spectrum.png", "Rate fluctuations of the spiking twin: power spectrum, with "
                                                     "the oscillation frequencies the linear stability analysis "
                                                     "predicts and the level of independent neurons"))
+        if fin is not None:
+            from ..plotting import plot_finite_circuit
+
+            save_figure(plot_finite_circuit(fin, mf, mc if scenario.montecarlo else None), tmp, "network_finite_size")
+            figures.append(("network_finite_size.png", "Finite cohorts: one realisation of the finite-size "
+                            "integration" + (" beside the spiking twin of the same size" if scenario.montecarlo
+                                             else "") + ", and the mean field"))
+            figures += _network_spectra(scenario, fin, mc if scenario.montecarlo else None,
+                                        states if scenario.fixed_points else [], tmp, summary)
     return figures
+
+
+def _network_spectra(scenario, fin, mc, states, tmp: Path, summary: dict) -> list:
+    """Spectra of the finite cohorts' rates, the spiking twin's and, for one stable state, the prediction."""
+    from ..network.linear_stability import stability
+    from ..network.spectra import spectral_matrix
+    from ..exceptions import ConvergenceError
+    from ..model.drive import Constant
+    from ..plotting import plot_spectra, save_figure
+
+    c = scenario.circuit
+    width = float(fin.t[1] - fin.t[0])
+    seg = _segment(scenario.t_end, width)
+    if seg is None:
+        return []
+    est = fin.spectra(seg)
+    emc = mc.spectra(seg) if mc is not None else None
+    curves = []
+    predicted = False
+    if len(states) == 1 and all(isinstance(a.drive, Constant) for a in c.cohorts):
+        try:
+            ok = stability(c, states[0]).stable
+        except (ConvergenceError, ValueError):
+            ok = False
+        if ok:
+            f = np.unique(np.geomspace(est.freqs[0], est.freqs[-1], SPECTRUM_POINTS))
+            pred = spectral_matrix(c, states[0], f)
+            predicted = True
+    for k, nm in enumerate(c.names):
+        if c.cohorts[k].diffusive:
+            continue
+        if predicted:
+            w = np.sinc(f * width * 1e-3) ** 2  # rates averaged over the record interval
+            level = states[0].rates[k] / c.cohorts[k].size
+            curves.append((f, pred[:, k, k].real * w + level * (1 - w), None, f"{nm}: linear response"))
+        curves.append((est.freqs, est.power[:, k], est.standard_error[:, k], f"{nm}: finite cohorts"))
+        if emc is not None:
+            curves.append((emc.freqs, emc.power[:, k], emc.standard_error[:, k], f"{nm}: spiking twin"))
+    if not curves:
+        return []
+    save_figure(plot_spectra(curves, "power spectrum of the rate (Hz)", f"{width:g} ms bins, {seg:g} ms segments"),
+                tmp, "network_spectra")
+    summary["finite_size"]["spectrum"] = {"segment_ms": seg, "segments": est.segments,
+                                          "linear_response_prediction": predicted}
+    return [("network_spectra.png", "Power spectra of the escape-noise cohorts' rates: finite cohorts"
+             + (", spiking twin" if emc is not None else "") + (", linear-response prediction at the stable state"
+                                                                if predicted else ""))]
 
 
 def _root_marks(verdict) -> list:

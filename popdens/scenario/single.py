@@ -9,7 +9,9 @@ Top-level tables
 ``[noise]``     ``kind`` = "escape" with a ``[noise.hazard]`` table, "white" with ``sigma`` (mV), or
                 "coloured" with ``sigma`` (mV) and ``tau_syn`` (ms)
 ``[input]``     ``shape`` = "constant" | "step" | "pulse" | "ramp" | "sine" | "trace" and its parameters
-``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``
+``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``;
+                ``population_size`` (escape noise: also integrate a population of that many neurons, the
+                finite-size mesoscopic equations) with ``trials`` realisations (default 10)
 ``[gain]``, ``[stationary]``, ``[transfer]``, ``[approximations]``  steady-state and linear-response
                 analyses, the coloured-noise approximations against the twin
                 (see :mod:`popdens.scenario.analyses`)
@@ -72,7 +74,12 @@ INPUTS = {
     "sine": (drive_mod.Sine, {"mean", "amplitude", "frequency", "phase"}),
     "trace": (None, {"file", "times", "values"}),
 }
-RUN_KEYS = {"t_end", "dt", "record_interval", "snapshot_interval", "montecarlo_neurons", "seed"}
+RUN_KEYS = {"t_end", "dt", "record_interval", "snapshot_interval", "montecarlo_neurons", "seed", "population_size",
+            "trials"}
+#: Realisations of a finite population when ``population_size`` is given without ``trials``.
+DEFAULT_TRIALS = 10
+#: Most realisations of a finite population in a scenario.
+MAX_TRIALS = 100_000
 TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run", "sweep"} | set(ANALYSIS_TABLES)
 #: Largest accepted number of Monte Carlo neurons in a scenario.
 MAX_NEURONS = 10_000_000
@@ -102,6 +109,9 @@ class Scenario:
     snapshot_interval: float | None = None
     #: ``(table name, analysis object)`` pairs, see :mod:`popdens.scenario.analyses`
     analyses: tuple = ()
+    #: Neurons of the finite population integrated beside the infinite one (0: none) and its realisations.
+    population_size: int = 0
+    trials: int = 0
 
     @property
     def runs_in_time(self) -> bool:
@@ -234,9 +244,35 @@ def parse_single_scenario(data: dict, source: str | Path = "<scenario>") -> Scen
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise err(src, "run", "seed", seed, "a non-negative integer")
     _check_time_grid(src, t_end, dt, rec, snap)
+    n_fin, trials = _finite_population(src, run, population, t_end, dt)
     return Scenario(source=Path(src), title=title, output=out_path, population=population, drive=drv,
                     t_end=t_end, dt=dt, record_interval=rec, montecarlo_neurons=n_mc, seed=seed,
-                    digest=digest, raw=data, snapshot_interval=snap, analyses=analyses)
+                    digest=digest, raw=data, snapshot_interval=snap, analyses=analyses,
+                    population_size=n_fin, trials=trials)
+
+
+def _finite_population(src, run, population, t_end, dt) -> tuple[int, int]:
+    """``population_size`` and ``trials`` of ``[run]``: checked for the population and the step budget."""
+    if "population_size" not in run:
+        if "trials" in run:
+            raise err(src, "run", "trials", run["trials"], "given only with `population_size`")
+        return 0, 0
+    n = run["population_size"]
+    if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= MAX_NEURONS:
+        raise err(src, "run", "population_size", n, f"an integer from 1 to {MAX_NEURONS}")
+    if not isinstance(population.noise, EscapeNoise):
+        raise err(src, "run", "population_size", n, "absent for white noise (finite-size integration is for "
+                  "escape noise; use `montecarlo_neurons` for a finite white-noise population)")
+    if population.neuron.adaptation:
+        raise err(src, "run", "population_size", n, "absent for adapting neurons (not supported yet)")
+    trials = run.get("trials", DEFAULT_TRIALS)
+    if isinstance(trials, bool) or not isinstance(trials, int) or not 1 <= trials <= MAX_TRIALS:
+        raise err(src, "run", "trials", trials, f"an integer from 1 to {MAX_TRIALS}")
+    steps = t_end / (DEFAULT_DT if dt is None else dt) * trials
+    if steps > MAX_STEPS:
+        raise err(src, "run", "trials", trials, f"fewer: `trials` x `t_end` / `dt` = {steps:.3g} steps is more than "
+                  f"the limit of {MAX_STEPS:.0e}")
+    return n, trials
 
 
 

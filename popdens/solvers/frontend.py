@@ -18,7 +18,8 @@ from ..model.noise import Population
 from ..progress import Progress
 from ..exceptions import AccuracyWarning
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK, Result
-from .registry import resolve_method
+from .mesoscopic import seed_kernel_rng
+from .registry import resolve_finite_method, resolve_method
 
 __all__ = ["simulate"]
 
@@ -47,18 +48,69 @@ class _AccuracyGuard:
         self.seen: set[str] = set()
         self.messages: list[str] = []
 
-    def check(self, mu, sigma) -> None:
+    def check(self, mu, sigma, depth: int = 0) -> None:
+        """Warn once per setting; ``depth`` = calls between the public function and here."""
         for setting, msg in self.solver.accuracy_issues(mu, sigma):
             if setting not in self.seen:
                 self.seen.add(setting)
                 self.messages.append(msg)
-                warnings.warn(msg, AccuracyWarning, stacklevel=4)
+                warnings.warn(msg, AccuracyWarning, stacklevel=3 + depth)
 
 
-def simulate(population, drive, t_end, dt=None, *, method=None, initial="stationary",
-             record_interval=None, snapshot_interval=None, progress=None, error_control="auto",
-             rtol=RATE_RTOL, atol=RATE_ATOL, **options) -> Result:
+def _integrate(solver, mu_at, sigma_at, grid, guard, bar, offset: int = 0):
+    """Advance an initialised solver over ``grid`` in compiled blocks.
+
+    Returns the per-step ``rate``, ``mean_u``, ``refr`` arrays, the steps done,
+    ``status``, ``message`` and the snapshots (times, densities).  Ctrl-C ends
+    the run with the interrupted status; ``bar`` is updated at ``offset + k``.
+    """
+    rate = np.empty(grid.n_steps)
+    mean_u = np.empty(grid.n_steps)
+    refr = np.empty(grid.n_steps)
+    snaps_t, snaps = [], []
+    if grid.snap_every:
+        snaps_t.append(0.0)
+        snaps.append(solver.density().copy())
+    k = 0
+    status, message = STATUS_OK, "completed"
+    try:
+        for end in split_at_jumps(block_ends(grid, steps_per_call(solver.axis.size)), mu_at, sigma_at):
+            tk = grid.step_times(k, end)
+            mu = mu_at.values(k, end)
+            sg = sigma_at.values(k, end) if sigma_at is not None else None
+            if not np.all(np.isfinite(mu)) or (sg is not None and not np.all(np.isfinite(sg))):
+                bad = tk[~np.isfinite(mu)] if not np.all(np.isfinite(mu)) else tk
+                status, message = STATUS_FAILED, f"the drive is not finite at t = {bad[0]:g} ms"
+                break
+            r, mu_out, rf = solver.advance(mu, sg)
+            n_done = r.size
+            rate[k:k + n_done] = r
+            mean_u[k:k + n_done] = mu_out
+            refr[k:k + n_done] = rf
+            k += n_done
+            if solver.status != STATUS_OK:
+                status, message = solver.status, solver.message
+                break
+            guard.check(mu, sg, depth=2)
+            if grid.snap_every and k % grid.snap_every == 0:
+                snaps_t.append(k * grid.dt)
+                snaps.append(solver.density().copy())
+            bar.update(offset + k)
+    except KeyboardInterrupt:
+        status, message = STATUS_INTERRUPTED, f"interrupted by the user at t = {k * grid.dt:g} ms"
+        logger.warning(message)
+    return rate, mean_u, refr, k, status, message, snaps_t, snaps
+
+
+def simulate(population, drive, t_end, dt=None, *, n=None, seed=None, trials=None, method=None,
+             initial="stationary", record_interval=None, snapshot_interval=None, progress=None,
+             error_control="auto", rtol=RATE_RTOL, atol=RATE_ATOL, **options) -> Result:
     """Solve the population-density equation of ``population`` under ``drive``.
+
+    With ``n`` neurons the finite population is integrated instead: the
+    mesoscopic equations (Schwalger, Deger & Gerstner 2017) draw the number of
+    spikes of each step and return one realisation of the activity, at a cost
+    independent of ``n`` (escape noise; :mod:`popdens.solvers.mesoscopic`).
 
     Parameters
     ----------
@@ -72,6 +124,15 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     dt : float, optional
         Internal time step (ms); must divide ``t_end``.  Default: the
         solver's default (0.1 ms for the refractory-density solver).
+    n : int, optional
+        Number of neurons.  Default None: the infinite population
+        (deterministic solvers).  Escape noise only.
+    seed : int or numpy.random.Generator, optional
+        With ``n``: seed of the random spike counts; the same seed gives
+        bit-identical results.
+    trials : int, optional
+        With ``n``: number of independent realisations (default 1), kept in
+        ``Result.trial_rates``; ``Result.rate`` is the first.
     method : str or type, optional
         Solver name from ``popdens.solvers.METHODS`` or a solver class.
     initial : str or array_like, optional
@@ -103,7 +164,11 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
         Tolerance of the error control: relative (default 1e-3) and absolute
         (Hz, default 0.1) on each recorded rate.
     **options
-        Solver options (e.g. ``max_age`` for the refractory-density solver).
+        Solver options (e.g. ``max_age`` for the refractory-density solver;
+        with ``n`` also ``counts`` = "binomial" (default) or "poisson", the
+        distribution of the spike count per step, and ``burn_in`` (ms), the
+        time run at the initial drive before t = 0 so that a stationary start
+        is a sample of the finite population's fluctuations).
 
     Returns
     -------
@@ -111,7 +176,11 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
         ``t`` (ms), ``rate`` (Hz), ``mean_u`` (mV), ``refractory_fraction``,
         the drive (mV), optional snapshots, ``status``/``message`` and
         diagnostics.  ``rate[0]`` is the instantaneous rate of the initial
-        state; ``rate[k]`` the mean over ``(t[k-1], t[k]]``.
+        state; ``rate[k]`` the mean over ``(t[k-1], t[k]]``.  With ``n``:
+        ``rate[k]`` is the realised activity (spike count / (n x interval),
+        Hz), ``rate[0]`` the expected rate of the initial state, ``n_neurons``
+        is ``n`` and ``trial_rates`` holds every realisation (``trial_mean()``,
+        ``trial_variance()``, ``spectrum()``).
 
     Raises
     ------
@@ -136,21 +205,28 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     """
     if not isinstance(population, Population):
         raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
-    drive = as_drive(drive)
-    cls = resolve_method(population, method)
     if error_control not in ERROR_CONTROL:
         raise ValueError(f"`error_control` must be one of {list(ERROR_CONTROL)}, got {error_control!r}")
+    if n is not None:
+        if error_control not in ("auto", "off"):
+            raise ValueError(f"`error_control` = {error_control!r} applies to the deterministic solvers; a finite "
+                             "population (`n` given) is a random realisation whose time-step error a companion "
+                             "run cannot estimate: use 'auto' or 'off'")
+        return _simulate_finite(population, drive, t_end, dt, n, seed, trials, method, initial,
+                                record_interval, snapshot_interval, progress, options)
+    for name, value in (("seed", seed), ("trials", trials)):
+        if value is not None:
+            raise ValueError(f"`{name}` = {value!r} applies to a finite population: give the number of "
+                             "neurons `n` (the infinite population is deterministic)")
+    drive = as_drive(drive)
+    cls = resolve_method(population, method)
     rtol = v.positive("rtol", rtol)
     atol = v.positive("atol", atol)
     refine = error_control == "refine" or (error_control == "auto" and dt is None)
     if dt is None:
         dt = getattr(cls, "default_dt", DEFAULT_DT)
     grid = make_grid(t_end, dt, record_interval, snapshot_interval)
-    sig = inspect.signature(cls.__init__)
-    allowed = [p for p in sig.parameters if p not in ("self", "population", "dt")]
-    unknown = sorted(set(options) - set(allowed))
-    if unknown:
-        raise ValueError(f"unknown option(s) {unknown} for method {cls.method_name!r}; allowed: {allowed}")
+    _check_options(cls, options, ("self", "population", "dt"))
     watch = Stopwatch()
     solver, res = _run(population, drive, grid, cls, options, initial, progress)
     if error_control == "off" or res.status != STATUS_OK or not isinstance(initial, str):
@@ -274,47 +350,15 @@ def _run(population, drive, grid, cls, options, initial, progress, label=None):
     v.check_memory("t_end", grid.t_end, 8.0 * (3 * grid.n_steps + n_snap * (solver.axis.size + 1)),
                    f"recording {grid.n_steps} steps" + (f" and {n_snap} density snapshots" if n_snap else ""))
     guard = _AccuracyGuard(solver)
-    guard.check(np.array([mu0]), None if sigma0 is None else np.array([sigma0]))
+    guard.check(np.array([mu0]), None if sigma0 is None else np.array([sigma0]), depth=1)
     rate0 = solver.instantaneous_rate(mu0, sigma0)
     meanu0 = solver.mean_potential()
     refr0 = solver.refractory_fraction()
 
-    rate = np.empty(grid.n_steps)
-    mean_u = np.empty(grid.n_steps)
-    refr = np.empty(grid.n_steps)
-    snaps_t, snaps = [], []
-    if grid.snap_every:
-        snaps_t.append(0.0)
-        snaps.append(solver.density().copy())
     bar = Progress(grid.n_steps, label or f"{cls.method_name}", progress)
-    k = 0
-    status, message = STATUS_OK, "completed"
     try:
-        for end in split_at_jumps(block_ends(grid, steps_per_call(solver.axis.size)), mu_at, sigma_at):
-            tk = grid.step_times(k, end)
-            mu = mu_at.values(k, end)
-            sg = sigma_at.values(k, end) if sigma_at is not None else None
-            if not np.all(np.isfinite(mu)) or (sg is not None and not np.all(np.isfinite(sg))):
-                bad = tk[~np.isfinite(mu)] if not np.all(np.isfinite(mu)) else tk
-                status, message = STATUS_FAILED, f"the drive is not finite at t = {bad[0]:g} ms"
-                break
-            r, mu_out, rf = solver.advance(mu, sg)
-            n_done = r.size
-            rate[k:k + n_done] = r
-            mean_u[k:k + n_done] = mu_out
-            refr[k:k + n_done] = rf
-            k += n_done
-            if solver.status != STATUS_OK:
-                status, message = solver.status, solver.message
-                break
-            guard.check(mu, sg)
-            if grid.snap_every and k % grid.snap_every == 0:
-                snaps_t.append(k * grid.dt)
-                snaps.append(solver.density().copy())
-            bar.update(k)
-    except KeyboardInterrupt:
-        status, message = STATUS_INTERRUPTED, f"interrupted by the user at t = {k * grid.dt:g} ms"
-        logger.warning(message)
+        rate, mean_u, refr, k, status, message, snaps_t, snaps = _integrate(solver, mu_at, sigma_at, grid,
+                                                                            guard, bar)
     finally:
         bar.close()
     mass_error = abs(solver.mass() - 1.0)
@@ -338,4 +382,92 @@ def _run(population, drive, grid, cls, options, initial, progress, label=None):
         snapshots=np.asarray(snaps) if grid.snap_every else None,
         axis=solver.axis.copy() if grid.snap_every else None,
         axis_name=cls.axis_name, diagnostics=diagnostics,
+    )
+
+
+def _check_options(cls, options, fixed) -> None:
+    allowed = [p for p in inspect.signature(cls.__init__).parameters if p not in fixed]
+    unknown = sorted(set(options) - set(allowed))
+    if unknown:
+        raise ValueError(f"unknown option(s) {unknown} for method {cls.method_name!r}; allowed: {allowed}")
+
+
+def _simulate_finite(population, drive, t_end, dt, n, seed, trials, method, initial, record_interval,
+                     snapshot_interval, progress, options) -> Result:
+    """``simulate`` for a population of ``n`` neurons: ``trials`` realisations of the mesoscopic equations."""
+    n = v.positive_int("n", n)
+    n_trials = 1 if trials is None else v.positive_int("trials", trials)
+    drive = as_drive(drive)
+    cls = resolve_finite_method(population, method)
+    grid = make_grid(t_end, DEFAULT_DT if dt is None else dt, record_interval, snapshot_interval)
+    _check_options(cls, options, ("self", "population", "dt", "size"))
+    rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
+    watch = Stopwatch()
+    mu_at = BoundarySamples(drive, grid)
+    mu0 = mu_at.start()
+    if not np.isfinite(mu0):
+        raise ValueError("the drive is not finite at t = 0")
+    v.check_memory("trials" if trials is not None else "t_end", trials if trials is not None else t_end,
+                   8.0 * (3 * grid.n_steps + n_trials * (grid.n_steps // grid.every + 1)),
+                   f"recording {n_trials} trial(s) of {grid.n_steps} steps")
+    trial_rates = np.full((n_trials, grid.n_steps // grid.every + 1), np.nan)
+    bar = Progress(grid.n_steps * n_trials, f"{cls.method_name} ({n} neurons)", progress)
+    status, message = STATUS_OK, "completed"
+    first = None
+    clipped = 0
+    solver = cls(population, grid.dt, n, **options)
+    guard = _AccuracyGuard(solver)
+    try:
+        for trial in range(n_trials):
+            seed_kernel_rng(int(rng.integers(0, 2**31 - 1)))
+            try:
+                if trial == 0:
+                    solver.initialize(mu0, None, initial)  # includes the burn-in
+                else:
+                    solver.new_trial()
+            except KeyboardInterrupt:
+                if first is None:
+                    raise
+                status, message = STATUS_INTERRUPTED, f"interrupted by the user before trial {trial + 1}"
+                logger.warning(message)
+                break
+            guard.check(np.array([mu0]), None, depth=1)
+            start = (solver.instantaneous_rate(mu0, None), solver.mean_potential(), solver.refractory_fraction())
+            rate, mean_u, refr, k, status, message, snaps_t, snaps = _integrate(
+                solver, mu_at, None, grid, guard, bar, offset=trial * grid.n_steps)
+            t, r_out, mu_o, rf_o = downsample(grid, start[0], rate, start[1], mean_u, start[2], refr, k)
+            trial_rates[trial, : r_out.size] = r_out
+            clipped += solver.clipped
+            if first is None:
+                first = (t, r_out, mu_o, rf_o, k, snaps_t, snaps, solver.diagnostics(), solver.axis.copy())
+            if status != STATUS_OK:
+                if n_trials > 1:
+                    message = f"trial {trial + 1} of {n_trials}: {message}"
+                trial_rates = trial_rates[: max(trial, 1)]  # completed trials (and always the first)
+                break
+    finally:
+        bar.close()
+    t, r_out, mu_o, rf_o, k, snaps_t, snaps, solver_diag, axis = first
+    trial_rates = trial_rates[:, : r_out.size]
+    diagnostics = {
+        **watch.times(),
+        "version": __version__,
+        "method": cls.method_name,
+        "dt_ms": grid.dt,
+        **solver_diag,
+        "clipped_steps": clipped,
+        "trials": int(trial_rates.shape[0]),
+        "initial": initial if isinstance(initial, str) else "array",
+        "seed": seed if isinstance(seed, (int, np.integer)) or seed is None else "generator",
+        "accuracy_warnings": guard.messages,
+    }
+    return Result(
+        t=t, rate=r_out, mean_u=mu_o, refractory_fraction=rf_o, drive=drive(t),
+        method=cls.method_name, population=population, status=status, message=message,
+        dt=grid.dt, n_steps=k, n_neurons=n,
+        snapshot_t=np.asarray(snaps_t) if grid.snap_every else None,
+        snapshots=np.asarray(snaps) if grid.snap_every else None,
+        axis=axis if grid.snap_every else None,
+        axis_name=cls.axis_name, diagnostics=diagnostics,
+        trial_rates=trial_rates if trials is not None else None,
     )

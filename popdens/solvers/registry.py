@@ -1,7 +1,9 @@
 """The registry of density solvers: method names, classes and the default per noise model.
 
 ``METHODS`` maps method names to solver classes; ``DEFAULT_METHOD`` maps the
-noise model to the solver used when no method is given.
+noise model to the solver used when no method is given; ``FINITE_SIZE_METHOD``
+maps the noise model to the solver of a population of ``n`` neurons
+(``simulate(..., n=...)``).
 """
 
 from __future__ import annotations
@@ -10,9 +12,11 @@ from ..model.noise import EscapeNoise, WhiteNoise
 from ..model.synaptic import ColouredNoise
 from ._base import SolverBase
 from .fokker_planck import FokkerPlanckSolver
+from .mesoscopic import MesoscopicSolver
 from .refractory import RefractoryDensitySolver
 
-__all__ = ["METHODS", "DEFAULT_METHOD", "SolverBase", "FokkerPlanckSolver", "RefractoryDensitySolver", "resolve_method"]
+__all__ = ["METHODS", "DEFAULT_METHOD", "FINITE_SIZE_METHOD", "SolverBase", "FokkerPlanckSolver", "MesoscopicSolver",
+           "RefractoryDensitySolver", "resolve_method", "resolve_finite_method"]
 
 METHODS: dict[str, type[SolverBase]] = {
     "refractory-density": RefractoryDensitySolver,
@@ -50,3 +54,24 @@ def resolve_method(population, method) -> type[SolverBase]:
         )
     return METHODS[method]
 
+
+
+#: Solver of a finite population (``n`` neurons) per noise model.  White noise has none yet:
+#: its finite populations are simulated by the Monte Carlo twin.
+FINITE_SIZE_METHOD: dict[type, type[SolverBase]] = {
+    EscapeNoise: MesoscopicSolver,
+}
+
+
+def resolve_finite_method(population, method=None) -> type[SolverBase]:
+    """Solver class for a finite population of ``population`` (``method``: None or its name)."""
+    noise_type = type(population.noise)
+    if noise_type not in FINITE_SIZE_METHOD:
+        raise ValueError(f"`n`: finite-size integration is available for escape noise only; this population has "
+                         f"{noise_type.__name__} (simulate its {noise_type.__name__} neurons with "
+                         "popdens.montecarlo, or leave `n` unset for the infinite population)")
+    cls = FINITE_SIZE_METHOD[noise_type]
+    if method is not None and method != cls.method_name and method is not cls:
+        raise ValueError(f"`method` = {method!r} is not a finite-size solver; with `n` given use "
+                         f"{cls.method_name!r} or leave `method` unset")
+    return cls

@@ -107,3 +107,18 @@ def test_population_rate_spectrum_matches_monte_carlo_periodogram(rng):
         pred = np.mean((sk * np.sinc(fk * b * 1e-3) ** 2).reshape(-1, k.size).sum(axis=1))
         se = pred / math.sqrt(per[:, sel].size)
         assert abs(est - pred) < 4 * se, (lo, est, pred, se)
+
+
+def test_binned_rate_spectrum_integrates_to_the_bernoulli_count_variance():
+    """Bins of b = 1 ms, shorter than the 3 ms dead time, hold at most one spike per neuron, so
+    Var[A_b] = (r0/b - r0^2)/n exactly (Bernoulli count, independent neurons).  The variance of a
+    sequence sampled every b is the integral of its spectrum over [-1/2b, 1/2b] (Parseval); the
+    folded spectrum integrated by the trapezoidal rule at 10 Hz must give it within 1e-3."""
+    pop, n, b = dead_time_poisson(3.0), 40, 1e-3
+    f = np.linspace(0.0, 500.0, 51)
+    sb = population_rate_spectrum(pop, 0.0, f, n, bin_width=1.0)
+    r0 = 1000.0 / (3.0 + 1.0 / (50.0 * math.exp(-1.0) * 1e-3))  # Hz: 1 / (dead time + 1/hazard)
+    var = 2.0 * np.trapezoid(sb, f)
+    assert abs(var / ((r0 / b - r0 ** 2) / n) - 1.0) < 1e-3
+    with pytest.raises(ValueError, match="Nyquist"):
+        population_rate_spectrum(pop, 0.0, [600.0], n, bin_width=1.0)
