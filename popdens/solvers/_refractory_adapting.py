@@ -83,6 +83,30 @@ def adapt_start(kinds, decay, coup, rest, st, p, u0):  # pragma: no cover - comp
 
 
 @numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def single_component(kinds, decay, coup):  # pragma: no cover - compiled
+    """``(decay, is current, is threshold, coupling x (1 - decay))`` of the first component, for the
+    one-component fast paths of :func:`adapt_start_one` and :func:`adapt_end_one`."""
+    if kinds.shape[0] == 0:
+        return 1.0, 0.0, 0.0, 0.0
+    return decay[0], 1.0 - kinds[0], 1.0 * kinds[0], coup[0] * (1.0 - decay[0])
+
+
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def adapt_start_one(one, x, u0, rest):  # pragma: no cover - compiled
+    """:func:`adapt_start` for one component of state ``x``, its constants ``one`` from
+    :func:`single_component` kept in registers (same arithmetic, same result)."""
+    dec, cur, thr, cd = one
+    xd = x * dec
+    return cur * x, cur * xd + cd * (u0 - rest), thr * xd
+
+
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def adapt_end_one(one, x, u0, u1, rest):  # pragma: no cover - compiled
+    """The component's value after the step (:func:`adapt_end` for one component)."""
+    return x * one[0] + one[3] * (0.5 * (u0 + u1) - rest)
+
+
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def adapt_end(kinds, decay, coup, rest, st, p, u0, u1):  # pragma: no cover - compiled
     """Advance the components of column ``p`` over the step in which the potential went ``u0 -> u1``."""
     for c in range(kinds.shape[0]):
@@ -120,6 +144,7 @@ def advance_adapting(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutof
     n_comp = kinds.shape[0]
     e_dt = math.exp(-dt / tau_m)
     n = mu.shape[0] - 1
+    one = single_component(kinds, decay, coup)
     for k in range(n):
         mu0 = mu[k]
         mu1 = mu[k + 1]
@@ -131,22 +156,34 @@ def advance_adapting(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutof
         p_last = 0
         for c in range(n_comp):
             fw[c] = 0.0
+        fw0 = 0.0
         for j in range(n_bins):
             p = head + j
             if p >= n_bins:
                 p -= n_bins
             mj = m[p]
             u0 = u[p]
-            w0, w1, th1 = adapt_start(kinds, decay, coup, rest, st, p, u0)
+            if n_comp == 1:  # the common case: constants in registers, no loop over components
+                w0, w1, th1 = adapt_start_one(one, st[0, p], u0, rest)
+            else:
+                w0, w1, th1 = adapt_start(kinds, decay, coup, rest, st, p, u0)
             un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                                       hcode, hpar, hops, hargs, theta + th1, uses_slope,
                                       (j + 0.5) * dt, tau_ref, dt, e_dt, u0, h[p], mu0 - w0, mu1 - w1, stack, xbuf)
-            adapt_end(kinds, decay, coup, rest, st, p, u0, un)
             s = survival(big_h)
             mf = mj * (1.0 - s)
             fired += mf
-            for c in range(n_comp):
-                fw[c] += mf * st[c, p]
+            # adapt_end and the spike-weighted sum in one pass over the components
+            if n_comp == 1:
+                x = adapt_end_one(one, st[0, p], u0, un, rest)
+                st[0, p] = x
+                fw0 += mf * x
+            else:
+                u_mid = 0.5 * (u0 + un) - rest
+                for c in range(n_comp):
+                    x = st[c, p] * decay[c] + coup[c] * (1.0 - decay[c]) * u_mid
+                    st[c, p] = x
+                    fw[c] += mf * x
             ms = mj * s
             if j == n_bins - 1:
                 u_last = un
@@ -159,6 +196,8 @@ def advance_adapting(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutof
                 mean_u += ms * un
                 if (j + 1.5) * dt < tau_ref - AGE_TOL * dt:
                     refr += ms
+        if n_comp == 1:
+            fw[0] = fw0
         # the bin of all older neurons (always past refractoriness), column n_bins of st
         u0 = old[1]
         w0, w1, th1 = adapt_start(kinds, decay, coup, rest, st, n_bins, u0)

@@ -18,7 +18,8 @@ import numpy as np
 
 from ..model._kernels import NO_REFCOUNT
 from ..solvers._age_step import _bin_step, _newborn, _refire_survival
-from ..solvers._refractory_adapting import adapt_end, adapt_start, adapt_sums
+from ..solvers._refractory_adapting import (adapt_end, adapt_end_one, adapt_start, adapt_start_one, adapt_sums,
+                                             single_component)
 
 
 @numba.njit(cache=True, nogil=True)
@@ -109,6 +110,7 @@ def run_escape_adapting(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cu
     n_comp = kinds.shape[0]
     e_dt = math.exp(-dt / tau_m)
     cap = spk_t.shape[0]
+    one = single_component(kinds, decay, coup)
     for k in range(n_steps):
         if record and cap - n_spk < 2 * n:
             return k, n_spk, True  # as in run_escape
@@ -119,11 +121,17 @@ def run_escape_adapting(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cu
         refr = 0
         for i in range(n):
             u0 = u[i]
-            w0, w1, th1 = adapt_start(kinds, decay, coup, rest, st, i, u0)
+            if n_comp == 1:  # the common case: constants in registers, no loop over components
+                w0, w1, th1 = adapt_start_one(one, st[0, i], u0, rest)
+            else:
+                w0, w1, th1 = adapt_start(kinds, decay, coup, rest, st, i, u0)
             un, hn, big_h = _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                                       hcode, hpar, hops, hargs, theta + th1, uses_slope,
                                       age[i], tau_ref, dt, e_dt, u0, h[i], mu0 - w0, mu1 - w1, stack, xbuf)
-            adapt_end(kinds, decay, coup, rest, st, i, u0, un)
+            if n_comp == 1:
+                st[0, i] = adapt_end_one(one, st[0, i], u0, un, rest)
+            else:
+                adapt_end(kinds, decay, coup, rest, st, i, u0, un)
             lam[i] += big_h
             if lam[i] >= thr[i]:
                 count += 1

@@ -91,6 +91,9 @@ def test_twin_driven_by_sinusoids_agrees_with_the_transfer_function(make, eps, f
     # a 2 ms bin averages the sinusoid: fitted at the bin centres, the first harmonic shrinks by sinc(f w)
     w = 2.0e-3
     model = eps * chi * np.sinc(f * w)
+    print(f"\n{pop.noise.__class__.__name__} {f:g} Hz: twin amplitude {amp / eps:.3f} Hz/mV, theory "
+          f"{abs(model) / eps:.3f} (SE {se / eps:.3f}, {(amp - abs(model)) / se:+.1f} SE), static slope "
+          f"{float(popdens.gain_slope(pop, mu)):.3f}")
     assert abs(amp - abs(model)) < 4 * se, (amp, abs(model), se)
     dphi = (phase - np.angle(model) + np.pi) % (2 * np.pi) - np.pi
     assert abs(dphi) < 4 * se / amp, (phase, np.angle(model), se / amp)
