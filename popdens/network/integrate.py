@@ -13,6 +13,7 @@ from __future__ import annotations
 import logging
 import math
 
+import numba
 import numpy as np
 
 from .._version import __version__
@@ -42,6 +43,49 @@ PROGRESS_BLOCK = 500
 
 #: Mean field: most steps advanced per solver call (the delays set the actual block).
 MAX_BLOCK_STEPS = 1000
+
+
+@numba.njit(cache=True, nogil=True)
+def _block_inputs(j, nb, dt, hist, delay, tau, e, r0, s, a_prev, tgt, cmean, cvar, ext_mu, ext_var,
+                  mus, sgs, mu_c, var_c):  # pragma: no cover - compiled
+    """Inputs (mV) at the step boundaries ``j + 1 .. j + nb`` of a block, into ``mus`` and ``sgs``.
+
+    Per pathway ``q`` (row ``q`` of ``hist``: step-mean rates in 1/ms, ``j`` of them known) the
+    delayed rate and its exponential filter, exactly as :meth:`_DelayLine.delayed` and
+    :meth:`_DelayLine.advance_filter` (same operations in the same order, so the same numbers); the
+    filter states ``s`` and the last delayed rates ``a_prev`` are updated in place.  ``mu_c`` and
+    ``var_c`` are scratch space of one entry per cohort.
+    """
+    n_lines = hist.shape[0]
+    last = j - 1
+    for b in range(nb):
+        t1 = (j + b + 1) * dt
+        k = j + b + 1
+        for c in range(mu_c.shape[0]):
+            mu_c[c] = ext_mu[c, k]
+            var_c[c] = ext_var[c, k]
+        for q in range(n_lines):
+            x = (t1 - delay[q]) / dt - 0.5
+            if x >= last:
+                a1 = hist[q, last] if last >= 0 else r0[q]
+            else:
+                jj = int(math.floor(x))
+                w = x - jj
+                lo = hist[q, jj] if jj >= 0 else r0[q]
+                hi = hist[q, jj + 1] if jj + 1 >= 0 else r0[q]
+                a1 = (1.0 - w) * lo + w * hi
+            if tau[q] <= 0.0:
+                s[q] = a1
+            else:
+                slope = (a1 - a_prev[q]) / dt
+                s[q] = a1 - tau[q] * slope + (s[q] - a_prev[q] + tau[q] * slope) * e[q]
+            a_prev[q] = a1
+            mu_c[tgt[q]] += cmean[q] * s[q]
+            var_c[tgt[q]] += cvar[q] * s[q]
+        for c in range(mu_c.shape[0]):
+            mus[c, k] = mu_c[c]
+            v = var_c[c]
+            sgs[c, k] = math.sqrt(v) if not v < 0.0 else 0.0
 
 
 class _DelayLine:
@@ -220,7 +264,19 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     mus[:, 0], sgs[:, 0] = mu0, sg0
     rate_init = np.array([s.instantaneous_rate(float(mu0[k]), float(sg0[k]) if diffusive[k] else None)
                           for k, s in enumerate(solvers)])
-    a_prev = [ln.delayed(0.0, 0) for ln in lines]
+    # the delay lines' state as arrays for the compiled block inputs (each line's history is a row)
+    hist = np.full((len(lines), n + 2), np.nan)
+    for q, ln in enumerate(lines):
+        ln.hist = hist[q]
+    a_prev = np.array([ln.delayed(0.0, 0) for ln in lines], dtype=float)
+    s_now = np.array([ln.s for ln in lines], dtype=float)
+    delays = np.array([ln.d for ln in lines], dtype=float)
+    taus = np.array([ln.tau for ln in lines], dtype=float)
+    decays = np.array([ln.e for ln in lines], dtype=float)
+    r0s = np.array([ln.r0 for ln in lines], dtype=float)
+    tgt_a = np.array(tgt, dtype=np.int64)
+    cmean_a, cvar_a = np.array(cmean, dtype=float), np.array(cvar, dtype=float)
+    mu_c, var_c = np.empty(nk), np.empty(nk)
     # Block of steps whose delayed input is already known from completed steps: the drive at
     # t_{j+b+1} needs rates up to (t_{j+b+1} - d)/dt - 1/2 <= j - 1 midpoints, i.e. b <= d/dt - 3/2.
     # Advancing such a block in one solver call gives the same numbers as single steps, without
@@ -238,14 +294,9 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             later = [x for x in jump_steps if x > j]
             if later:
                 nb = min(nb, later[0] - j)  # a block ends at each external jump
-            for b in range(nb):
-                t1 = (j + b + 1) * dt
-                s_new = []
-                for q, ln in enumerate(lines):
-                    a1 = ln.delayed(t1, j)
-                    s_new.append(ln.advance_filter(a_prev[q], a1))
-                    a_prev[q] = a1
-                mus[:, j + b + 1], sgs[:, j + b + 1] = inputs(j + b + 1, s_new)
+            _block_inputs(j, nb, dt, hist, delays, taus, decays, r0s, s_now, a_prev, tgt_a, cmean_a, cvar_a,
+                          ext_mu, ext_var, mus, sgs, mu_c, var_c)
+            s_new = s_now
             mu_blk, sg_blk = mus[:, j:j + nb + 1].copy(), sgs[:, j:j + nb + 1].copy()
             if j + nb in ext_left:
                 mu_blk[:, -1], sg_blk[:, -1] = inputs(j + nb, s_new, left=True)
