@@ -98,3 +98,65 @@ def test_gallery_examples_have_a_title_and_run_quickly_by_construction():
         # small twins only: the whole gallery runs in seconds during the docs build
         for n in re.findall(r"\bn\s*=\s*([\d_]+)", script.read_text(encoding="utf-8")):
             assert int(n.replace("_", "")) <= 50_000, f"{script.name}: n = {n} is too large for the gallery"
+
+
+def build_checks() -> set[str]:
+    """The numpydoc checks the docs build applies (``numpydoc_validation_checks`` in conf.py)."""
+    for node in ast.parse((DOCS / "conf.py").read_text(encoding="utf-8")).body:
+        if isinstance(node, ast.Assign) and any(getattr(t, "id", "") == "numpydoc_validation_checks"
+                                                for t in node.targets):
+            return set(ast.literal_eval(node.value))
+    raise AssertionError("conf.py sets no numpydoc_validation_checks")
+
+
+def documented_objects() -> list[str]:
+    """Dotted names of what the API pages show: the documented names and their public members with a docstring."""
+    out = []
+    for target in sorted(documented_names()):
+        obj = popdens
+        for part in target.split(".")[1:]:
+            obj = getattr(obj, part)
+        if inspect.ismodule(obj) or target == "popdens.__version__":
+            continue
+        out.append(target)
+        if inspect.isclass(obj):
+            out += [f"{target}.{k}" for k, member in vars(obj).items()
+                    if not k.startswith("_") and (callable(member) or isinstance(member, property))
+                    and inspect.getdoc(getattr(obj, k, None))]
+    return out
+
+
+def numpydoc_failures(names, checks) -> list[str]:
+    validate = pytest.importorskip("numpydoc.validate").validate
+    return [f"{name}: {code} {msg}" for name in names for code, msg in validate(name)["errors"] if code in checks]
+
+
+def test_public_docstrings_pass_the_checks_of_the_docs_build():
+    """The same numpydoc checks as the ``sphinx -W`` build in CI, so a docstring that would break it
+    fails here first (skipped where numpydoc, from the ``docs`` extra, is not installed)."""
+    failures = numpydoc_failures(documented_objects(), build_checks())
+    assert failures == [], "fix these docstrings (numpydoc format):\n" + "\n".join(failures)
+
+
+def test_the_docstring_check_flags_a_bad_docstring(monkeypatch):
+    import sys
+    import types
+
+    def bad(x):
+        """Do a thing.
+
+        Returns
+        -------
+        int
+
+        Parameters
+        ----------
+        x : float
+        """
+
+    module = types.ModuleType("popdens_docs_probe")
+    module.bad = bad
+    bad.__module__ = module.__name__
+    monkeypatch.setitem(sys.modules, module.__name__, module)
+    found = numpydoc_failures([f"{module.__name__}.bad"], build_checks())
+    assert any(" GL07 " in f for f in found) and any(" PR07 " in f for f in found) and any(" RT03 " in f for f in found)
