@@ -6,6 +6,15 @@ midpoints and interpolated linearly in between; the delayed rate enters the
 exponential filter, which is integrated exactly for a piecewise-linear
 input.  A delayed rate that would be needed before the last completed step
 midpoint (delays shorter than 1.5 dt) is held at its last known value.
+
+Filtered input (``tau_syn > 0`` anywhere in a cohort's input, see
+:mod:`popdens.network.circuit`): the cohort's Fokker--Planck solver works on
+the white-noise problem with threshold and reset moved by the effective
+shift ``delta(t) = alpha/2 sum_i sigma_i^2 sqrt(tau_i/tau_m) / sigma`` from the
+filtered rates.  The grid is built at ``delta(0)``; later changes
+of ``delta`` enter as the mean input ``F'(theta) (delta - delta(0)) - tau_m
+d delta/dt`` (the change of variable ``u -> u - delta(t)``, exact for a
+linear drift, first order otherwise).
 """
 
 from __future__ import annotations
@@ -13,7 +22,6 @@ from __future__ import annotations
 import logging
 import math
 
-import numba
 import numpy as np
 
 from .._version import __version__
@@ -23,6 +31,9 @@ from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers.registry import resolve_method
 from ..solvers._recording import BoundarySamples, make_grid
 from ..solvers.fokker_planck import LOWER_STDS
+from ..model.effective import shifted_neuron
+from ..model.noise import Population, WhiteNoise
+from ..model.synaptic import ALPHA
 from .circuit import DEFAULT_DT, HZ_TO_PER_MS, STEP_TOL, Circuit, Pathway
 from .result import CircuitResult
 
@@ -43,49 +54,6 @@ PROGRESS_BLOCK = 500
 
 #: Mean field: most steps advanced per solver call (the delays set the actual block).
 MAX_BLOCK_STEPS = 1000
-
-
-@numba.njit(cache=True, nogil=True)
-def _block_inputs(j, nb, dt, hist, delay, tau, e, r0, s, a_prev, tgt, cmean, cvar, ext_mu, ext_var,
-                  mus, sgs, mu_c, var_c):  # pragma: no cover - compiled
-    """Inputs (mV) at the step boundaries ``j + 1 .. j + nb`` of a block, into ``mus`` and ``sgs``.
-
-    Per pathway ``q`` (row ``q`` of ``hist``: step-mean rates in 1/ms, ``j`` of them known) the
-    delayed rate and its exponential filter, exactly as :meth:`_DelayLine.delayed` and
-    :meth:`_DelayLine.advance_filter` (same operations in the same order, so the same numbers); the
-    filter states ``s`` and the last delayed rates ``a_prev`` are updated in place.  ``mu_c`` and
-    ``var_c`` are scratch space of one entry per cohort.
-    """
-    n_lines = hist.shape[0]
-    last = j - 1
-    for b in range(nb):
-        t1 = (j + b + 1) * dt
-        k = j + b + 1
-        for c in range(mu_c.shape[0]):
-            mu_c[c] = ext_mu[c, k]
-            var_c[c] = ext_var[c, k]
-        for q in range(n_lines):
-            x = (t1 - delay[q]) / dt - 0.5
-            if x >= last:
-                a1 = hist[q, last] if last >= 0 else r0[q]
-            else:
-                jj = int(math.floor(x))
-                w = x - jj
-                lo = hist[q, jj] if jj >= 0 else r0[q]
-                hi = hist[q, jj + 1] if jj + 1 >= 0 else r0[q]
-                a1 = (1.0 - w) * lo + w * hi
-            if tau[q] <= 0.0:
-                s[q] = a1
-            else:
-                slope = (a1 - a_prev[q]) / dt
-                s[q] = a1 - tau[q] * slope + (s[q] - a_prev[q] + tau[q] * slope) * e[q]
-            a_prev[q] = a1
-            mu_c[tgt[q]] += cmean[q] * s[q]
-            var_c[tgt[q]] += cvar[q] * s[q]
-        for c in range(mu_c.shape[0]):
-            mus[c, k] = mu_c[c]
-            v = var_c[c]
-            sgs[c, k] = math.sqrt(v) if not v < 0.0 else 0.0
 
 
 class _DelayLine:
@@ -205,6 +173,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     tq = grid.step_times(0, grid.n_steps)
     ext_mu = np.array([np.broadcast_to(a.external_mean(tq), tq.shape) for a in circuit.cohorts])
     ext_var = np.array([np.broadcast_to(a.external_variance(tq), tq.shape) for a in circuit.cohorts])
+    ext_fw = np.array([np.broadcast_to(a.external_filter_weight(tq), tq.shape) for a in circuit.cohorts])
     # external jumps on step boundaries: the input after the jump at its boundary, the input before
     # it kept apart (`ext_left`) for the end of the block that leads up to it (no response precedes it)
     ext_left: dict[int, tuple[np.ndarray, np.ndarray]] = {}
@@ -227,16 +196,35 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     if not (np.all(np.isfinite(ext_mu)) and np.all(np.isfinite(ext_var))):
         raise ValueError("the external drive or noise of a cohort is not finite on [0, t_end]")
     diffusive = [a.diffusive for a in circuit.cohorts]
+    # cohorts with filtered input and a hard threshold: moving effective boundary (module docstring)
+    filtered = [diffusive[k] and not a.population.neuron.has_cutoff
+                and (a.ext_tau_syn > 0 or (a.background is not None and a.background.tau_syn > 0)
+                     or any(p.tau_syn > 0 for p, t_ in zip(circuit.pathways, tgt) if t_ == k))
+                for k, a in enumerate(circuit.cohorts)]
+    slope_at_threshold = np.array([float(a.population.neuron.drift_slope(a.population.neuron.threshold))
+                                   for a in circuit.cohorts])
+    tau_ms = np.array([a.tau_m for a in circuit.cohorts])
+    root_tau = [math.sqrt(p.tau_syn) for p in circuit.pathways]
+    filtered = np.array(filtered, dtype=bool)
 
-    def inputs(j: int, s_values, left: bool = False) -> tuple[np.ndarray, np.ndarray]:
+    def inputs(j: int, s_values, left: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         mu, var = (a.copy() for a in ext_left[j]) if left else (ext_mu[:, j].copy(), ext_var[:, j].copy())
+        fw = ext_fw[:, j].copy()
         for q in range(len(lines)):
             mu[tgt[q]] += cmean[q] * s_values[q]
             var[tgt[q]] += cvar[q] * s_values[q]
-        return mu, np.sqrt(np.maximum(var, 0.0))
+            fw[tgt[q]] += cvar[q] * s_values[q] * root_tau[q]
+        sg = np.sqrt(np.maximum(var, 0.0))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            shift = np.where(filtered & (sg > 0), 0.5 * ALPHA * fw / (np.where(sg > 0, sg, 1.0) * np.sqrt(tau_ms)), 0.0)
+        return mu, sg, shift
 
     watch = Stopwatch()
-    mu0, sg0 = inputs(0, [ln.s for ln in lines])
+    mu0, sg0, shift0 = inputs(0, [ln.s for ln in lines])
+
+    def moving(mu, shift, shift_before):
+        # the drive seen by the solvers: the moving boundary as mean input (module docstring)
+        return mu + slope_at_threshold * (shift - shift0) - tau_ms * (shift - shift_before) / dt
     solvers = []
     for k, a in enumerate(circuit.cohorts):
         cls = resolve_method(a.population, None)
@@ -250,8 +238,11 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
                 base = min(float(nrn.reset), float(nrn.rest) + min(float(mu0[k]), 0.0))
                 opts["u_min"] = (base - LOWER_STDS * sg0[k] / math.sqrt(2.0)
                                  - EXTRA_LOWER_SPANS * (float(nrn.boundary) - float(nrn.reset)))
+        pop_k = a.population
+        if diffusive[k]:  # the solver's white-noise problem, boundaries at the initial shift
+            pop_k = Population(shifted_neuron(a.population.neuron, float(shift0[k])), WhiteNoise(float(sg0[k])))
         try:
-            s = cls(a.population, dt, **opts)
+            s = cls(pop_k, dt, **opts)
         except TypeError as exc:
             raise ValueError(f"cohort {a.name!r}: bad solver option in {sorted(opts)}: {exc}") from None
         s.initialize(float(mu0[k]), float(sg0[k]) if diffusive[k] else None, "stationary")
@@ -261,22 +252,12 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     rate = np.empty((nk, n))
     mus = np.empty((nk, n + 1))
     sgs = np.empty((nk, n + 1))
-    mus[:, 0], sgs[:, 0] = mu0, sg0
+    shifts = np.empty((nk, n + 1))
+    mus[:, 0], sgs[:, 0], shifts[:, 0] = mu0, sg0, shift0
+    mus_eff = mus.copy()  # the drive seen by the solvers: with the moving-boundary term
     rate_init = np.array([s.instantaneous_rate(float(mu0[k]), float(sg0[k]) if diffusive[k] else None)
                           for k, s in enumerate(solvers)])
-    # the delay lines' state as arrays for the compiled block inputs (each line's history is a row)
-    hist = np.full((len(lines), n + 2), np.nan)
-    for q, ln in enumerate(lines):
-        ln.hist = hist[q]
-    a_prev = np.array([ln.delayed(0.0, 0) for ln in lines], dtype=float)
-    s_now = np.array([ln.s for ln in lines], dtype=float)
-    delays = np.array([ln.d for ln in lines], dtype=float)
-    taus = np.array([ln.tau for ln in lines], dtype=float)
-    decays = np.array([ln.e for ln in lines], dtype=float)
-    r0s = np.array([ln.r0 for ln in lines], dtype=float)
-    tgt_a = np.array(tgt, dtype=np.int64)
-    cmean_a, cvar_a = np.array(cmean, dtype=float), np.array(cvar, dtype=float)
-    mu_c, var_c = np.empty(nk), np.empty(nk)
+    a_prev = [ln.delayed(0.0, 0) for ln in lines]
     # Block of steps whose delayed input is already known from completed steps: the drive at
     # t_{j+b+1} needs rates up to (t_{j+b+1} - d)/dt - 1/2 <= j - 1 midpoints, i.e. b <= d/dt - 3/2.
     # Advancing such a block in one solver call gives the same numbers as single steps, without
@@ -294,12 +275,20 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             later = [x for x in jump_steps if x > j]
             if later:
                 nb = min(nb, later[0] - j)  # a block ends at each external jump
-            _block_inputs(j, nb, dt, hist, delays, taus, decays, r0s, s_now, a_prev, tgt_a, cmean_a, cvar_a,
-                          ext_mu, ext_var, mus, sgs, mu_c, var_c)
-            s_new = s_now
-            mu_blk, sg_blk = mus[:, j:j + nb + 1].copy(), sgs[:, j:j + nb + 1].copy()
+            for b in range(nb):
+                t1 = (j + b + 1) * dt
+                s_new = []
+                for q, ln in enumerate(lines):
+                    a1 = ln.delayed(t1, j)
+                    s_new.append(ln.advance_filter(a_prev[q], a1))
+                    a_prev[q] = a1
+                i1 = j + b + 1
+                mus[:, i1], sgs[:, i1], shifts[:, i1] = inputs(i1, s_new)
+                mus_eff[:, i1] = moving(mus[:, i1], shifts[:, i1], shifts[:, i1 - 1])
+            mu_blk, sg_blk = mus_eff[:, j:j + nb + 1].copy(), sgs[:, j:j + nb + 1].copy()
             if j + nb in ext_left:
-                mu_blk[:, -1], sg_blk[:, -1] = inputs(j + nb, s_new, left=True)
+                mu_l, sg_blk[:, -1], sh_l = inputs(j + nb, s_new, left=True)
+                mu_blk[:, -1] = moving(mu_l, sh_l, shifts[:, j + nb - 1])
             for k, s in enumerate(solvers):
                 if diffusive[k]:
                     r, _, _ = s.advance(mu_blk[k], sg_blk[k])

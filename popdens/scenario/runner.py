@@ -121,7 +121,9 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
 #: Report captions of the analysis figures.
 CAPTIONS = {"gain": "Gain function: stationary rate against mean drive",
             "stationary": "Stationary interspike-interval densities",
-            "transfer": "Transfer function: magnitude and phase against frequency"}
+            "transfer": "Transfer function: magnitude and phase against frequency",
+            "approximations": "Coloured noise: Monte Carlo twin against the white-noise approximation and the "
+                              "effective boundary shift (rates, and each one's error against the twin)"}
 
 
 def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:
