@@ -9,7 +9,10 @@ Prints, from one run:
 * a control: the same speed-up for pure-Python CPU work, which shows whether a second core was
   actually free during the run (on a shared machine it often is not);
 * per-point overhead: wall time per point of a 400-point sweep whose analysis does no work
-  (the cost of scheduling, pickling and the durable per-point file), per backend.
+  (the cost of scheduling, pickling and the durable per-point file), per backend;
+* the default backend against serial, each in a fresh process as a user's command would run (imports
+  and compiled-kernel loading included), for 40 short points (a gain curve each, ~5 ms) and 40 long
+  ones (a transfer function each), wall and CPU time (the CPU of the worker processes included).
 
 The machine is shared: report the load average printed at the start and the end.
 Run:  popdens bench sweep
@@ -85,9 +88,60 @@ def outputs(res):
     return [(r["outputs"], r["curves"]) for r in res.records]
 
 
+#: Fresh-process comparison: points per sweep, and the analyses of short and long points.
+N_FRESH = 40
+
+
+def _fresh_point(params, seed):  # module level: picklable for the pool
+    import popdens
+    from popdens import hazard
+
+    pop = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 2.0),
+                             popdens.EscapeNoise(hazard.Exponential(20.0, params["width"])))
+    if params["kind"] == "short":
+        return {"rate": float(popdens.gain(pop, 25.0))}
+    chi = popdens.transfer(pop, 25.0, np.geomspace(1.0, 1000.0, 200))
+    return {"gain_1kHz": float(abs(chi[-1]))}
+
+
+def _fresh(kind: str, backend: str) -> None:
+    """One sweep in this (fresh) process; prints wall and CPU time (children included)."""
+    t0, c0 = time.perf_counter(), os.times()
+    res = sweep(_fresh_point, [{"kind": kind, "width": 1.5 + 0.05 * i} for i in range(N_FRESH)],
+                backend=None if backend == "default" else backend, workers=2, figures=False)
+    c1 = os.times()
+    cpu = (c1.user - c0.user) + (c1.system - c0.system) + (c1.children_user - c0.children_user) \
+        + (c1.children_system - c0.children_system)
+    print(f"{time.perf_counter() - t0:.3f} {cpu:.3f} {res.diagnostics['backend']}")
+
+
+def _fresh_comparison() -> None:
+    import subprocess
+    import sys
+
+    print(f"default backend vs serial, {N_FRESH} points, each sweep in a fresh process (imports and kernel "
+          "loading included; best of 3):")
+    for kind in ("short", "long"):
+        row = {}
+        for backend in ("serial", "default", "processes"):
+            best = None
+            for _ in range(3):
+                out = subprocess.run([sys.executable, "-c", f"from popdens.benchmarks.sweep import _fresh; "
+                                      f"_fresh({kind!r}, {backend!r})"], capture_output=True, text=True, check=True)
+                wall, cpu, ran = out.stdout.split()
+                if best is None or float(wall) < best[0]:
+                    best = (float(wall), float(cpu), ran)
+            row[backend] = best
+        ser = row["serial"][0]
+        print(f"  {kind:5s} points: serial {ser:.2f} s (CPU {row['serial'][1]:.2f} s); default {row['default'][0]:.2f} s "
+              f"(CPU {row['default'][1]:.2f} s, ran on: {row['default'][2]}), ratio default/serial "
+              f"{row['default'][0] / ser:.2f}; always-pool {row['processes'][0]:.2f} s (CPU {row['processes'][1]:.2f} s)")
+
+
 def main():
     print(f"load average at start: {os.getloadavg()[0]:.2f} {os.getloadavg()[1]:.2f} {os.getloadavg()[2]:.2f}"
           f" on {os.cpu_count()} cores")
+    _fresh_comparison()
     plan = plan_sweep(parse_scenario(tomllib.loads(SCENARIO), "bench.toml"))
     tmp = Path(tempfile.mkdtemp(prefix="bench-sweep-"))
     try:
@@ -126,7 +180,7 @@ def main():
 
         t0 = time.perf_counter()
         cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                           dashboard_address=None)
+                                           dashboard_address=":0")
         t_start = time.perf_counter() - t0
         try:
             addr = cluster.scheduler_address

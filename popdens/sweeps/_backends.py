@@ -16,6 +16,7 @@ resumed sweep computes them again.
 
 from __future__ import annotations
 
+import math
 import multiprocessing
 import os
 import signal
@@ -29,6 +30,15 @@ from concurrent.futures.process import BrokenProcessPool
 
 __all__: list[str] = []
 
+#: Default backend: the pool is used only when it would save at least this much wall time (s) over
+#: running the remaining points here (start-up of forked workers and pickling: measured 0.05-0.3 s on
+#: these machines, see ``popdens bench sweep``; doubled for safety).
+POOL_START_S = 0.5
+#: Work per chunk of points sent to a worker (s), and at least this many chunks per worker (load
+#: balance).  A chunk's results reach the disk together, so an interrupted sweep loses at most about
+#: this much finished work per worker.
+CHUNK_SECONDS = 0.25
+CHUNKS_PER_WORKER = 4
 #: Time allowed to connect to a Dask scheduler given by address.
 CONNECT_TIMEOUT = "10s"
 
@@ -96,16 +106,75 @@ def _pool_context():
     return multiprocessing.get_context("spawn")
 
 
-def run_processes(evaluate, func, tasks, retries: int, workers: int):
-    """Local pool of ``workers`` processes.
+def _evaluate_chunk(evaluate, func, chunk, retries):  # runs in a pool worker
+    return [evaluate(func, t[0], t[1], t[2], retries) for t in chunk]
 
-    At most ``workers + 1`` points are in flight.  When a worker process dies,
-    the pool is restarted and the points that were in flight run again one at
-    a time: a point that kills the pool while running alone has used one
-    attempt, and after ``retries + 1`` such attempts it is recorded as failed;
-    the innocent neighbours simply complete.
+
+def _chunk_size(n_left: int, workers: int, per_point_s: float | None) -> int:
+    """Points per submission: about CHUNK_SECONDS of work, and never fewer than CHUNKS_PER_WORKER
+    chunks per worker for the points left (load balance); one point while the cost is unknown."""
+    if per_point_s is None:
+        return 1
+    most = max(1, math.ceil(n_left / (CHUNKS_PER_WORKER * workers)))
+    return max(1, min(most, int(CHUNK_SECONDS / max(per_point_s, 1e-9))))
+
+
+def _pool_saves_time(per_point_s: float, n_left: int, workers: int) -> bool:
+    """Whether ``workers`` processes would finish ``n_left`` points of ``per_point_s`` each at least
+    POOL_START_S sooner than this process alone."""
+    return per_point_s * n_left * (1.0 - 1.0 / workers) >= POOL_START_S
+
+
+def run_processes(evaluate, func, tasks, retries: int, workers: int, auto: bool = False, on_choice=None):
+    """Local pool of ``workers`` processes, fed chunks of points.
+
+    With ``auto`` (the default backend) points first run here, one by one:
+    the first loads or compiles the kernels, which forked workers then
+    inherit, and the mean CPU time of the others (CPU rather than wall time,
+    so that the choice does not follow the load of a shared machine)
+    estimates the work left.  As soon as the pool would save POOL_START_S
+    (start-up, pickling) on the points left, they go to the pool; if it
+    never would, the whole sweep runs here, with the serial backend's
+    exposure: a point that kills its process ends the sweep (the points
+    written so far are kept for a resume).  ``on_choice(name, per_point_s)``
+    learns the decision (``"serial"`` or ``"processes"``).
+
+    Chunks hold about CHUNK_SECONDS of work, sized from the mean time of
+    the points finished so far (one point per chunk until one is known).
+    At most ``workers + 1`` chunks are in flight.  When a worker process
+    dies, the pool is restarted and the points of the chunks that were in
+    flight run again one at a time: a point that kills the pool while
+    running alone has used one attempt, and after ``retries + 1`` such
+    attempts it is recorded as failed; the innocent neighbours simply
+    complete.
     """
     pending = deque(tasks)
+    # cost of a point (s): the first one here also loads the kernels, so it is kept apart
+    first_s, spent, timed = None, 0.0, 0
+
+    def per_point():
+        return spent / timed if timed else first_s
+
+    if auto:
+        from ..model._jit import compile_seconds  # noqa: PLC0415 - the kernels' compile clock
+
+        while pending and (timed == 0 or not _pool_saves_time(spent / timed, len(pending), workers)):
+            t = pending.popleft()
+            cpu0, comp0 = time.thread_time(), compile_seconds()
+            rec = evaluate(func, t[0], t[1], t[2], retries)
+            cost = max(time.thread_time() - cpu0 - (compile_seconds() - comp0), 0.0)
+            if first_s is None:
+                first_s = cost
+            else:
+                spent += cost
+                timed += 1
+            yield rec
+        if not pending:
+            if on_choice is not None:
+                on_choice("serial", per_point())
+            return
+    if on_choice is not None:
+        on_choice("processes", per_point())
     suspects: deque = deque()
     lost: dict[int, int] = {}
     while pending or suspects:
@@ -117,37 +186,50 @@ def run_processes(evaluate, func, tasks, retries: int, workers: int):
         try:
             while (pending or suspects or futures) and not (broken and not futures):
                 alone = bool(suspects)
-                queue, window = (suspects, 1) if alone else (pending, workers + 1)
-                while queue and len(futures) < window and not broken:
-                    t = queue.popleft()
+                window = 1 if alone else workers + 1
+                while (suspects if alone else pending) and len(futures) < window and not broken:
+                    if alone:
+                        chunk = suspects.popleft()
+                    else:
+                        size = _chunk_size(len(pending), workers, per_point())
+                        chunk = [pending.popleft() for _ in range(min(size, len(pending)))]
                     try:
-                        futures[pool.submit(evaluate, func, t[0], t[1], t[2], retries)] = t
+                        futures[pool.submit(_evaluate_chunk, evaluate, func, chunk, retries)] = chunk
                     except BrokenProcessPool:  # a worker died; restart the pool
-                        queue.appendleft(t)
+                        if alone:
+                            suspects.appendleft(chunk)
+                        else:
+                            pending.extendleft(reversed(chunk))
                         broken = True
                     procs.update(getattr(pool, "_processes", None) or {})  # not public API; guarded
                 if not futures:
                     break
                 done, _ = wait(list(futures), return_when=FIRST_COMPLETED)
                 for fut in done:
-                    task = futures.pop(fut)
+                    chunk = futures.pop(fut)
                     try:
-                        rec = fut.result()
+                        recs = fut.result()
                     except BrokenProcessPool:
                         broken = True
                         if alone:  # it ran by itself: this point killed its worker
+                            task = chunk[0]
                             n = lost.get(task[0], 0) + 1
                             lost[task[0]] = n
                             if n > retries:
                                 yield lost_record(task, n, "WorkerLost: the worker process running this "
                                                            f"point died{_death_cause(procs)}")
                                 continue
-                        suspects.append(task)
+                        suspects.extend([t] for t in chunk)  # run each point of the chunk again, alone
                         continue
                     except Exception as exc:  # e.g. the function or its result could not be pickled
-                        yield lost_record(task, 1, "".join(traceback.format_exception_only(exc)).strip())
+                        why = "".join(traceback.format_exception_only(exc)).strip()
+                        for task in chunk:
+                            yield lost_record(task, 1, why)
                         continue
-                    yield rec
+                    for rec in recs:
+                        spent += rec["wall_time_s"]
+                        timed += 1
+                        yield rec
         finally:
             _stop_pool(pool)
 

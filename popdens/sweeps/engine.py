@@ -9,8 +9,9 @@ index only (``SeedSequence(seed, spawn_key=(index,))``, the same sequence as
 backend or on the order in which points finish.  ``outputs`` maps names to
 numbers, or to a :class:`Curve` (values along a coordinate such as frequency).
 
-Backends: ``"serial"`` (this process), ``"processes"`` (default: a local pool
-of one process per core, standard library), ``"dask"`` (an existing Dask
+Backends: ``"serial"`` (this process), ``"processes"`` (a local pool of one
+process per core, standard library; by default used only when it saves time,
+see :func:`sweep`), ``"dask"`` (an existing Dask
 scheduler given by address, or a local Dask cluster; optional extra
 ``popdens[dask]``).
 
@@ -432,7 +433,15 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
         Sweep seed; point ``i`` gets ``point_seed(seed, i)``.
     backend : {"serial", "processes", "dask"}, optional
         Default: ``"dask"`` when ``scheduler`` is given, ``"serial"`` when
-        ``workers == 1``, otherwise ``"processes"``.
+        ``workers == 1``, otherwise chosen at run time: points run in this
+        process first (the first loads the compiled kernels, which forked
+        workers inherit) and time the work; once a local process pool would
+        save more than its start-up cost (0.5 s) on the points left, they go
+        to the pool, otherwise the whole sweep runs here
+        (``diagnostics["backend"]`` says which ran,
+        ``diagnostics["estimated_point_s"]`` the mean time of a point).
+        The pool gets points in chunks of about 0.25 s of work (one at a
+        time while their cost is unknown).
     workers : int, optional
         Local worker processes (default: every core this process may use).
         With ``backend="dask"`` and no scheduler, the size of the local Dask
@@ -498,6 +507,7 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
     retries = int(retries)
     if workers is not None:
         workers = v.positive_int("workers", workers)
+    auto = backend is None and scheduler is None and workers != 1
     if backend is None:
         backend = "dask" if scheduler is not None else ("serial" if workers == 1 else "processes")
     if backend not in BACKENDS:
@@ -531,11 +541,13 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
     records: list[dict | None] = [on_disk.get(i) for i in range(len(pts))]
     tasks = [(i, pts[i], seed) for i in range(len(pts)) if records[i] is None]
 
+    chosen: dict = {}
     if backend == "serial":
         gen = backends.run_serial(evaluate_point, func, tasks, retries)
     elif backend == "processes":
         gen = backends.run_processes(evaluate_serialised, payload, tasks, retries,
-                                     min(n_workers, max(len(tasks), 1)))
+                                     min(n_workers, max(len(tasks), 1)), auto=auto,
+                                     on_choice=lambda name, t: chosen.update(ran_on=name, point_s=t))
     else:
         gen = backends.run_dask(evaluate_serialised, payload, tasks, retries, n_workers, scheduler,
                                 uuid.uuid4().hex[:12], connection,
@@ -564,7 +576,10 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
     finally:
         gen.close()
         bar.close()
+    if chosen.get("ran_on") == "serial":  # the default backend found the work too small for the pool
+        backend = "serial"
     diagnostics = {"backend": backend, "workers": 1 if backend == "serial" else n_workers,
+                   "estimated_point_s": chosen.get("point_s"),
                    "scheduler": scheduler, "computed_now": len(tasks), "wall_time_s": time.perf_counter() - wall0,
                    "version": __version__}
     res = SweepResult(points=pts, records=records, axes=axes, output=out, seed=seed, diagnostics=diagnostics)

@@ -197,7 +197,8 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                             if sd_full > 0.0:
                                 u1 += sd_full * np.random.standard_normal()
                         else:
-                            u1 = _move(ncode[p], npar, nops, nargs, tm, u0, h, ms, d1, sigma, stack, xbuf)
+                            z = np.random.standard_normal()
+                            u1 = _move(ncode[p], npar, nops, nargs, tm, u0, h, ms, d1, sigma, z, stack, xbuf)
                         fired = u1 >= bd
                         if not fired and bridge and s2 > 0.0:
                             x = 2.0 * (bd - u0) * (bd - u1) / (s2 * h)
@@ -220,7 +221,8 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                                 hf = -r if r < 0.0 else 0.0
                                 if hf > tol:
                                     u1 = _move(ncode[p], npar, nops, nargs, tm, rs, hf,
-                                               d_n - (d1 - d0) * hf / dt, d_n, sigma, stack, xbuf)
+                                               d_n - (d1 - d0) * hf / dt, d_n, sigma,
+                                               np.random.standard_normal(), stack, xbuf)
                                     if u1 >= bd:  # pragma: no cover - needs absurd noise
                                         u1 = rs
                         elif adapting:

@@ -18,9 +18,22 @@ def seeded_point(params, seed):
     delay = float(os.environ.get(SLOW_ENV, "0"))
     if delay:
         time.sleep(delay)
+    return _outputs(params, seed)
+
+
+def _outputs(params, seed):
     rng = np.random.default_rng(seed)
     return {"y": params["x"] ** 2 + params.get("z", 0.0), "draw": rng.normal(),
             "walk": Curve("step", np.arange(4.0), np.cumsum(rng.normal(size=4)))}
+
+
+def busy_point(params, seed):
+    """`seeded_point` after spending `SLOW_ENV` seconds of CPU time (not sleeping: the default
+    backend judges the work by CPU time)."""
+    t0 = time.thread_time()
+    while time.thread_time() - t0 < float(os.environ.get(SLOW_ENV, "0")):
+        pass
+    return _outputs(params, seed)
 
 
 def refuses_three(params, seed):
@@ -37,3 +50,10 @@ def dies_at_two(params, seed):
 
 def returns_text(params, seed):
     return {"y": "not a number"}
+
+
+def dies_at_thirty(params, seed):
+    """Like `dies_at_two`, late enough in a sweep that its point travels in a chunk with others."""
+    if params["x"] == 30:
+        os._exit(3)
+    return seeded_point(params, seed)

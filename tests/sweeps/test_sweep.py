@@ -150,6 +150,37 @@ def test_a_dead_worker_process_costs_only_its_point(tmp_path):
     assert "WorkerLost" in res.records[1]["error"] and res.records[1]["attempts"] == 2
 
 
+def test_a_dead_worker_costs_only_its_point_when_it_travels_in_a_chunk(tmp_path):
+    res = sweep(helpers.dies_at_thirty, {"x": list(range(1, 61))}, tmp_path / "c", backend="processes",
+                workers=2, retries=1, figures=False)
+    assert [i for i, r in enumerate(res.records) if r["status"] != "ok"] == [29]
+    assert "WorkerLost" in res.records[29]["error"] and res.records[29]["attempts"] == 2
+    assert res.values("y")[[0, 28, 30, 59]].tolist() == [1.0, 29.0 ** 2, 31.0 ** 2, 60.0 ** 2]
+
+
+def test_chunks_hold_about_a_quarter_second_of_work_and_leave_every_worker_several():
+    from popdens.sweeps import _backends
+
+    assert _backends._chunk_size(1000, 2, None) == 1  # cost unknown: one point at a time
+    assert _backends._chunk_size(1000, 2, 0.01) == 25  # 0.25 s / 0.01 s
+    assert _backends._chunk_size(40, 2, 0.001) == 5  # 4 chunks per worker at least
+    assert _backends._chunk_size(1000, 2, 3.0) == 1
+    assert not _backends._pool_saves_time(0.005, 39, 2) and _backends._pool_saves_time(0.1, 39, 2)
+
+
+def test_default_backend_runs_short_sweeps_here_and_long_ones_on_the_pool(tmp_path, monkeypatch):
+    pts = {"x": [float(i) for i in range(16)]}
+    short = sweep(helpers.busy_point, pts, seed=5, workers=2, figures=False)
+    assert short.diagnostics["backend"] == "serial" and short.diagnostics["estimated_point_s"] < 0.05
+    assert {r["worker"].rpartition(":")[2] for r in short.records} == {str(os.getpid())}
+    monkeypatch.setenv(helpers.SLOW_ENV, "0.1")  # 16 x 0.1 s of CPU: the pool saves ~0.7 s
+    long = sweep(helpers.busy_point, pts, seed=5, workers=2, figures=False)
+    assert long.diagnostics["backend"] == "processes" and long.diagnostics["estimated_point_s"] >= 0.1
+    assert len({r["worker"] for r in long.records}) >= 2
+    reference = sweep(helpers.busy_point, pts, seed=5, backend="serial", figures=False)
+    assert _outputs(short) == _outputs(reference) == _outputs(long)
+
+
 def test_bad_outputs_and_arguments_are_named():
     rec = evaluate_point(helpers.returns_text, 0, {"x": 1}, 0, 0)
     assert rec["status"] == "failed" and "output `y` must be a real number" in rec["error"]

@@ -100,6 +100,29 @@ def test_pif_mean_interval_includes_refractory_period():
     assert isi.min() >= tau_ref - 1e-9
 
 
+def test_free_membrane_moments_follow_the_ornstein_uhlenbeck_transient():
+    # Below a far threshold the LIF twin is an Ornstein-Uhlenbeck process: from u(0) = reset under a
+    # drive ramping linearly from mu0 to mu1 over T, the mean is the exact linear-ramp solution and the
+    # variance sigma^2 (1 - exp(-2 T / tau_m)) / 2 (Gillespie 1996, Phys. Rev. E 54:2084; closed form,
+    # computed here).  The step of whole free steps is the kernel's fast path; 4 standard errors.
+    from popdens.twins._diffusive import DiffusiveEnsemble
+
+    tau_m, sigma, reset, n, dt, n_steps = 10.0, 4.0, 0.0, 40_000, 0.1, 50
+    pop = popdens.Population(popdens.LIF(tau_m=tau_m, threshold=500.0, reset=reset, refractory=0.0),
+                             popdens.WhiteNoise(sigma))
+    ens = DiffusiveEnsemble(pop, n, dt, np.random.default_rng(3))
+    mu = np.linspace(10.0, 14.0, n_steps + 1)
+    ens.run(mu, np.full(n_steps + 1, sigma), 0.0, False, np.zeros(1), np.zeros(1, dtype=np.int64), 0)
+    t, slope = n_steps * dt, (mu[-1] - mu[0]) / (n_steps * dt)
+    e = np.exp(-t / tau_m)
+    # tau u' = -u + mu0 + slope t  =>  u(t) = mu0 + slope (t - tau) + (reset - mu0 + slope tau) e^{-t/tau}
+    mean = mu[0] + slope * (t - tau_m) + (reset - mu[0] + slope * tau_m) * e
+    var = 0.5 * sigma ** 2 * (1.0 - e * e)
+    assert abs(ens.u.mean() - mean) < 4.0 * np.sqrt(var / n)
+    assert abs(ens.u.var(ddof=1) - var) < 4.0 * var * np.sqrt(2.0 / (n - 1))  # SE of a normal variance
+    assert stats.kstest((ens.u - mean) / np.sqrt(var), "norm").pvalue > 1e-3
+
+
 def test_seed_reproducibility_and_independence():
     pop = lif_white(5.0, 2.0)
     d = drive.Step(t=20.0, before=15.0, after=22.0)
