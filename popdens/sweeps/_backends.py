@@ -41,6 +41,8 @@ CHUNK_SECONDS = 0.25
 CHUNKS_PER_WORKER = 4
 #: Time allowed to connect to a Dask scheduler given by address.
 CONNECT_TIMEOUT = "10s"
+#: Address schemes of Dask's transports (tcp is also the scheme-less form).
+KNOWN_SCHEMES = ("tcp", "tls", "inproc", "ucx", "ws", "wss")
 
 #: Environment variables that keep numerical libraries single-threaded inside a worker (one
 #: worker per core; common practice to avoid oversubscription).
@@ -302,6 +304,12 @@ def dask_connect(workers: int, scheduler: str | None):
         return distributed.Client(cluster), cluster
     if not isinstance(scheduler, str) or not scheduler.strip():
         raise ConnectionError(f"`scheduler` = {scheduler!r}: expected an address such as tcp://host:8786")
+    scheme = scheduler.split("://", 1)[0].lower() if "://" in scheduler else "tcp"
+    if scheme not in KNOWN_SCHEMES:
+        # refused here: distributed's own check of an unknown scheme runs in its event loop and has
+        # been seen to hang instead of raising
+        raise ConnectionError(f"cannot reach the Dask scheduler at {scheduler!r}: unknown address scheme "
+                              f"{scheme!r} (expected one of {', '.join(s + '://' for s in KNOWN_SCHEMES)})")
     try:
         client = distributed.Client(scheduler, timeout=CONNECT_TIMEOUT)
     except Exception as exc:  # OSError (no answer), ValueError (scheme), TypeError (tls without a context)
