@@ -7,28 +7,33 @@ noise model to the solver used when no method is given.
 from __future__ import annotations
 
 from ..model.noise import EscapeNoise, WhiteNoise
+from ..model.shot import ShotNoise
 from ..model.synaptic import ColouredNoise
 from ._base import SolverBase
 from .fokker_planck import FokkerPlanckSolver
+from .jump_density import JumpDensitySolver
 from .refractory import RefractoryDensitySolver
 
-__all__ = ["METHODS", "DEFAULT_METHOD", "SolverBase", "FokkerPlanckSolver", "RefractoryDensitySolver", "resolve_method"]
+__all__ = ["METHODS", "DEFAULT_METHOD", "SolverBase", "FokkerPlanckSolver", "JumpDensitySolver", "RefractoryDensitySolver", "resolve_method"]
 
 METHODS: dict[str, type[SolverBase]] = {
     "refractory-density": RefractoryDensitySolver,
     "fokker-planck": FokkerPlanckSolver,
+    "jump-density": JumpDensitySolver,
 }
 
 DEFAULT_METHOD: dict[type, str] = {
     EscapeNoise: "refractory-density",
     WhiteNoise: "fokker-planck",
     ColouredNoise: "fokker-planck",
+    ShotNoise: "jump-density",
 }
 
 #: Noise models each method solves (coloured noise through its white-noise equivalent).
 NOISE_OF_METHOD: dict[str, tuple[type, ...]] = {
     "refractory-density": (EscapeNoise,),
     "fokker-planck": (WhiteNoise, ColouredNoise),
+    "jump-density": (ShotNoise,),
 }
 
 
