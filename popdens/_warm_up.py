@@ -106,6 +106,8 @@ def _synaptic():
     _, white, *_ = _populations()
     coloured = popdens.Population(white.neuron, popdens.ColouredNoise(sigma=4.0, tau_syn=2.0))
     popdens.montecarlo(coloured, 16.0, t_end=1.0, n=10, dt=0.1, seed=1, progress=False)
+    shot = popdens.Population(white.neuron, popdens.ShotNoise(exc_rate=1000.0, exc_psp=0.5))
+    popdens.montecarlo(shot, 16.0, t_end=1.0, n=10, dt=0.1, seed=1, progress=False)
 
 
 def _network():

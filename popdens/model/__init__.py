@@ -5,9 +5,10 @@ from . import drive, hazard
 from .adaptation import Adaptation, MovingThreshold
 from .neurons import EIF, LIF, PIF, QIF, CustomNeuron, NeuronBase
 from .noise import EscapeNoise, Population, WhiteNoise
+from .shot import ShotNoise
 from .synaptic import ColouredNoise
 
 __all__ = [
     "Adaptation", "ColouredNoise", "CustomNeuron", "EIF", "EscapeNoise", "LIF", "MovingThreshold", "NeuronBase", "PIF",
-    "Population", "QIF", "WhiteNoise", "drive", "hazard",
+    "Population", "QIF", "ShotNoise", "WhiteNoise", "drive", "hazard",
 ]

@@ -52,6 +52,7 @@ EXPECTED_SECONDS = {
     "fokker_planck._advance_adapting": 3.0,
     "_renewal_adapting.adapted_renewal": 6.0,
     "_isi_markov._density": 2.0,
+    "_shot.run_shot": 2.5,
 }
 
 #: Environment variable that silences the compilation notices (the messages, not the timing).

@@ -16,6 +16,8 @@ Three noise models are supported:
 * :class:`~popdens.model.synaptic.ColouredNoise` -- the same noise filtered by
   an exponential synapse (time constant ``tau_syn``); see
   :mod:`popdens.model.synaptic`.
+* :class:`~popdens.model.shot.ShotNoise` -- Poisson input spike trains with
+  finite PSPs (jumps of ``u``); see :mod:`popdens.model.shot`.
 """
 
 from __future__ import annotations
@@ -27,6 +29,7 @@ from .. import _validation as v
 from .drive import Constant, Drive
 from .hazard import EscapeFunction
 from .neurons import NeuronBase
+from .shot import ShotNoise
 from .synaptic import ColouredNoise
 
 __all__ = ["EscapeNoise", "WhiteNoise", "Population"]
@@ -79,7 +82,7 @@ class WhiteNoise:
 
 
 #: Noise models a Population accepts.
-NOISE_MODELS = (EscapeNoise, WhiteNoise, ColouredNoise)
+NOISE_MODELS = (EscapeNoise, WhiteNoise, ColouredNoise, ShotNoise)
 
 
 @dataclass(frozen=True)
@@ -90,22 +93,24 @@ class Population:
     ----------
     neuron : NeuronBase
         LIF, EIF, QIF, PIF or CustomNeuron.
-    noise : EscapeNoise, WhiteNoise or ColouredNoise
-        How the neurons fire: escape noise (a hazard), white-noise input, or
-        white noise filtered by an exponential synapse.
+    noise : EscapeNoise, WhiteNoise, ColouredNoise or ShotNoise
+        How the neurons fire: escape noise (a hazard), white-noise input,
+        white noise filtered by an exponential synapse, or Poisson input
+        spikes with finite PSPs.
     """
 
     neuron: NeuronBase
-    noise: Union[EscapeNoise, WhiteNoise, ColouredNoise]
+    noise: Union[EscapeNoise, WhiteNoise, ColouredNoise, ShotNoise]
 
     def __post_init__(self):
         if not isinstance(self.neuron, NeuronBase):
             raise ValueError(f"`neuron` must be a popdens neuron model, got {self.neuron!r}")
         if not isinstance(self.noise, NOISE_MODELS):
-            raise ValueError(f"`noise` must be EscapeNoise, WhiteNoise or ColouredNoise, got {self.noise!r}")
-        if isinstance(self.noise, (WhiteNoise, ColouredNoise)) and self.neuron.moving_thresholds:
-            raise ValueError("`adaptation` holds a MovingThreshold, which needs escape noise; with white or "
-                             "coloured noise the threshold is the absorbing boundary: use popdens.Adaptation "
+            raise ValueError(f"`noise` must be EscapeNoise, WhiteNoise, ColouredNoise or ShotNoise, "
+                             f"got {self.noise!r}")
+        if isinstance(self.noise, (WhiteNoise, ColouredNoise, ShotNoise)) and self.neuron.moving_thresholds:
+            raise ValueError("`adaptation` holds a MovingThreshold, which needs escape noise; with white, "
+                             "coloured or shot noise the threshold is the absorbing boundary: use popdens.Adaptation "
                              "currents instead")
 
 

@@ -61,6 +61,7 @@ import numpy as np
 from .. import _validation as v
 from ..model.drive import Constant, Drive, as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..model.shot import ShotNoise
 from ..model.synaptic import ColouredNoise
 
 __all__ = ["Cohort", "Pathway", "PoissonBackground", "Circuit"]
@@ -171,6 +172,9 @@ class Cohort:
         object.__setattr__(self, "size", _count("size", self.size))
         object.__setattr__(self, "drive", as_drive(self.drive))
         noise = self.population.noise
+        if isinstance(noise, ShotNoise):
+            raise ValueError(f"cohort {self.name!r}: `population` has ShotNoise, which networks do not support "
+                             "yet; use WhiteNoise or ColouredNoise (the diffusion approximation)")
         if isinstance(noise, EscapeNoise):
             if self.sigma_ext is not None:
                 raise ValueError(f"cohort {self.name!r}: `sigma_ext` applies to white-noise populations; "

@@ -9,30 +9,35 @@ maps the noise model to the solver of a population of ``n`` neurons
 from __future__ import annotations
 
 from ..model.noise import EscapeNoise, WhiteNoise
+from ..model.shot import ShotNoise
 from ..model.synaptic import ColouredNoise
 from ._base import SolverBase
 from .fokker_planck import FokkerPlanckSolver
+from .jump_density import JumpDensitySolver
 from .mesoscopic import MesoscopicSolver
 from .refractory import RefractoryDensitySolver
 
-__all__ = ["METHODS", "DEFAULT_METHOD", "FINITE_SIZE_METHOD", "SolverBase", "FokkerPlanckSolver", "MesoscopicSolver",
-           "RefractoryDensitySolver", "resolve_method", "resolve_finite_method"]
+__all__ = ["METHODS", "DEFAULT_METHOD", "FINITE_SIZE_METHOD", "SolverBase", "FokkerPlanckSolver", "JumpDensitySolver",
+           "MesoscopicSolver", "RefractoryDensitySolver", "resolve_method", "resolve_finite_method"]
 
 METHODS: dict[str, type[SolverBase]] = {
     "refractory-density": RefractoryDensitySolver,
     "fokker-planck": FokkerPlanckSolver,
+    "jump-density": JumpDensitySolver,
 }
 
 DEFAULT_METHOD: dict[type, str] = {
     EscapeNoise: "refractory-density",
     WhiteNoise: "fokker-planck",
     ColouredNoise: "fokker-planck",
+    ShotNoise: "jump-density",
 }
 
 #: Noise models each method solves (coloured noise through its white-noise equivalent).
 NOISE_OF_METHOD: dict[str, tuple[type, ...]] = {
     "refractory-density": (EscapeNoise,),
     "fokker-planck": (WhiteNoise, ColouredNoise),
+    "jump-density": (ShotNoise,),
 }
 
 

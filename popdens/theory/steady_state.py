@@ -29,6 +29,10 @@ Methods
   moved up by ``sigma alpha/2 sqrt(tau_syn/tau_m)`` (Brunel & Sergi 1998;
   Fourcaud & Brunel 2002; only the reset for models with a spike cut-off):
   first order in ``sqrt(tau_syn/tau_m)``, see :mod:`popdens.model.effective`.
+* Shot noise (:class:`~popdens.ShotNoise`, :func:`gain` only): the exact rate
+  of the LIF with exponentially distributed PSPs (Richardson & Swarbrick
+  2010), else the stationary state of the jump-density operator
+  (:mod:`popdens.theory._stationary_shot`).
 
 The ISI CV of white-noise populations comes from the first two moments of
 the passage time from reset to the boundary; the ISI density from the
@@ -55,8 +59,10 @@ from ..model.drive import Constant, Drive
 from ..model.neurons import CODE_LIF, CODE_PIF
 from ..model.effective import white_equivalent
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..model.shot import ShotNoise
 from ..model.synaptic import ColouredNoise
 from ._adapted import escape_adapted, white_adapted
+from ._stationary_shot import shot_rates
 from ._isi_diffusive import passage_time_density
 from ._isi_markov import isi_chain
 from ._renewal import STATUS_OK as _RENEWAL_OK
@@ -92,6 +98,9 @@ def _check_population(population) -> None:
 def _constant_sigma(population, sigma) -> float | None:
     """The noise amplitude (mV) for the steady state, or None for escape noise."""
     noise = population.noise
+    if isinstance(noise, ShotNoise):
+        _shot(population, sigma)
+        return None
     if isinstance(noise, EscapeNoise):
         if sigma is not None:
             raise ValueError("`sigma` applies to white-noise populations only; this population has escape noise")
@@ -107,6 +116,23 @@ def _constant_sigma(population, sigma) -> float | None:
             f"{s!r}; pass `sigma=` (mV) or use a number / popdens.drive.Constant"
         )
     return float(s)
+
+
+def _shot(population, sigma) -> bool:
+    """True for shot noise (after the checks that apply to it)."""
+    if not isinstance(population.noise, ShotNoise):
+        return False
+    if sigma is not None:
+        raise ValueError("`sigma` does not apply to ShotNoise: its fluctuations follow from the input rates "
+                         "and PSP amplitudes")
+    if population.neuron.adapting:
+        raise ValueError("the steady state of shot noise does not support `adaptation` yet; remove it from the "
+                         "neuron model or use popdens.montecarlo")
+    return True
+
+
+def _white_rates(population, mus):
+    return gain(population, mus)
 
 
 def _as_white(population, sigma):
@@ -180,7 +206,10 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         ``"auto"``: Siegert formula for the white-noise LIF, the
         inverse-Gaussian closed form for the white-noise PIF, threshold
         integration for other white-noise models, renewal theory for escape
-        noise.
+        noise.  Shot noise (:class:`~popdens.ShotNoise`) takes ``"auto"``,
+        ``"exponential-psp"`` (exact, LIF with exponential PSPs),
+        ``"jump-density"`` or ``"diffusion"`` (the diffusion approximation),
+        see :mod:`popdens.theory._stationary_shot`.
 
     Returns
     -------
@@ -212,6 +241,8 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     True
     """
     _check_population(population)
+    if _shot(population, sigma):
+        return shot_rates(population, _drives(mu), method, _white_rates)
     if sigma is not None and np.ndim(sigma) > 0:
         levels = np.asarray(sigma, dtype=float).ravel()
         if levels.size == 0:
@@ -255,6 +286,11 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         As in :func:`gain`.
     """
     _check_population(population)
+    if _shot(population, sigma):
+        h = SLOPE_STEP_MV
+        mus = _drives(mu)
+        r = gain(population, np.stack([mus - 2 * h, mus - h, mus + h, mus + 2 * h]), method=method)
+        return (8.0 * (r[2] - r[1]) - (r[3] - r[0])) / (12.0 * h)
     population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
@@ -491,6 +527,9 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         noise), mean potential (mV).
     """
     _check_population(population)
+    if isinstance(population.noise, ShotNoise):
+        raise ValueError("`stationary` (ISI statistics, densities) is not available for ShotNoise yet; "
+                         "popdens.gain gives its stationary rate")
     original = population
     population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)

@@ -24,6 +24,7 @@ from ..solvers._recording import (WORK_PER_CALL, BoundarySamples, block_ends, do
                                   steps_per_call)
 from ..model.drive import as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..model.shot import ShotNoise
 from ..model.synaptic import ColouredNoise
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK, Result
@@ -161,6 +162,12 @@ def _make_ensemble(population, n, dt, rng, options):
         from ._coloured import ColouredEnsemble  # noqa: PLC0415 - compiled kernel loaded on first use
 
         return ColouredEnsemble(population, n, dt, rng)
+    if isinstance(population.noise, ShotNoise):
+        if options:
+            raise ValueError(f"unknown option(s) {sorted(options)} for shot-noise Monte Carlo")
+        from ._shot import ShotEnsemble  # noqa: PLC0415 - compiled kernel loaded on first use
+
+        return ShotEnsemble(population, n, dt, rng)
     raise ValueError(f"unsupported noise {population.noise!r}")  # pragma: no cover
 
 

@@ -1,0 +1,98 @@
+"""Shot-noise Monte Carlo twin: free-membrane moments (Campbell's theorem), a perfect integrator that
+counts its inputs, and the stationary-rate theories against the twin (the table in the contributor guide)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+import popdens
+from popdens.twins._shot import ShotEnsemble
+
+LIF = popdens.LIF(20.0, 20.0, 10.0, 2.0)
+
+
+def rate_and_se(mc, t_end):
+    """Mean rate (Hz) and its standard error from the spread of per-neuron spike counts
+    (independent neurons: SE = sample std / sqrt(N), central limit theorem)."""
+    counts = np.bincount(mc.spike_ids, minlength=mc.n_neurons) / (t_end * 1e-3)
+    return counts.mean(), counts.std(ddof=1) / np.sqrt(counts.size)
+
+
+def balanced_input(a, sigma, mean, law):
+    """Excitatory and inhibitory rates (Hz) giving the diffusion approximation's mean input ``mean`` and
+    amplitude ``sigma`` (mV) with PSPs of size ``a`` (mV), tau_m = 20 ms (Campbell's theorem)."""
+    m2 = 2.0 if law == "exponential" else 1.0
+    s, d = sigma ** 2 / (20.0 * m2 * a * a), mean / (20.0 * a)
+    return 500.0 * (s + d), 500.0 * (s - d)
+
+
+@pytest.mark.parametrize("law", ["fixed", "exponential"])
+def test_free_membrane_moments_follow_campbells_theorem(law, rng):
+    """No threshold in reach: mean u = E + tau (nu_e <a_e> - nu_i <a_i>), var u = tau/2 (nu_e <a_e^2> +
+    nu_i <a_i^2>) (Campbell's theorem for the exponential kernel e^{-t/tau}).  SE of the mean from the
+    sample std, of the variance from the spread of the squared deviations."""
+    noise = popdens.ShotNoise(1500.0, 0.6, 700.0, 0.9, law)
+    pop = popdens.Population(popdens.LIF(20.0, 1e3, 0.0, 0.0), noise)
+    n = 10000
+    ens = ShotEnsemble(pop, n, 0.1, rng)
+    popdens.twins._escape.seed_compiled_rng(5)
+    no = (np.zeros(1), np.zeros(1, dtype=np.int64))
+    m = int(15 * 20.0 / 0.1) + 1
+    ens.run(np.full(m, 2.0), None, 0.0, False, *no, 0)
+    m2 = 2.0 if law == "exponential" else 1.0
+    mean = 2.0 + 20.0 * (1.5 * 0.6 - 0.7 * 0.9)
+    var = 10.0 * m2 * (1.5 * 0.36 + 0.7 * 0.81)
+    dev2 = (ens.u - ens.u.mean()) ** 2
+    assert abs(ens.u.mean() - mean) < 4 * ens.u.std() / math.sqrt(n)
+    assert abs(dev2.mean() - var) < 4 * dev2.std() / math.sqrt(n)
+
+
+def test_perfect_integrator_counts_its_inputs():
+    """PIF without drive, fixed PSPs a, threshold 4 a above reset: intervals are t_ref plus the sum of 4
+    exponential input intervals, rate 1/(t_ref + 4/nu) exactly."""
+    a, nu, tref = 0.5, 0.8, 2.0
+    pop = popdens.Population(popdens.PIF(10.0, 4 * a, 0.0, tref), popdens.ShotNoise(nu * 1e3, a))
+    t_end = 1000.0
+    mc = popdens.montecarlo(pop, 0.0, t_end=t_end, n=500, seed=2, record_spikes=True, progress=False)
+    r, se = rate_and_se(mc, t_end)
+    assert mc.success
+    assert abs(r - 1e3 / (tref + 4 / nu)) < 4 * se
+
+
+@pytest.mark.parametrize("law,a,sigma", [("exponential", 0.5, 5.0), ("fixed", 1.0, 5.0)])
+def test_rate_against_the_twin(law, a, sigma):
+    """Exact rate (exponential PSPs, Richardson & Swarbrick 2010) or the jump-density operator (fixed PSPs)
+    within 4 SE of the twin (2000 neurons, 1 s); the diffusion approximation's error is printed (measured
+    +6 % and +4.6 %, table in the contributor guide)."""
+    re, ri = balanced_input(a, sigma, 16.0, law)
+    pop = popdens.Population(LIF, popdens.ShotNoise(re, a, ri, a, law))
+    t_end = 1000.0
+    mc = popdens.montecarlo(pop, 0.0, t_end=t_end, n=2000, seed=11, record_spikes=True, progress=False)
+    r, se = rate_and_se(mc, t_end)
+    theory = float(popdens.gain(pop, 0.0))
+    diffusion = float(popdens.gain(pop, 0.0, method="diffusion"))
+    print(f"{law} {a} mV: twin {r:.4g} +- {se:.2g} Hz, theory {theory:.4g}, diffusion {diffusion:.4g} "
+          f"({100 * (diffusion - r) / r:+.1f} %)")
+    assert abs(theory - r) < 4 * se
+
+
+# ------------------------------------------------------------------ slow: the table of the guide
+@pytest.mark.slow
+@pytest.mark.parametrize("law,a,sigma", [("fixed", 0.1, 5.0), ("fixed", 0.5, 5.0), ("fixed", 1.0, 5.0),
+                                         ("exponential", 0.5, 5.0), ("exponential", 1.0, 6.0)])
+def test_rate_table_against_the_twin(law, a, sigma):
+    """The guide's table: 4000 neurons, 4 s (0.1 mV: 2000 neurons, 2 s, as its 125 inputs per ms cost 25x
+    more); theory within 4 SE; diffusion approximation's error printed."""
+    re, ri = balanced_input(a, sigma, 16.0, law)
+    pop = popdens.Population(LIF, popdens.ShotNoise(re, a, ri, a, law))
+    t_end, n = (2000.0, 2000) if a < 0.2 else (4000.0, 4000)
+    mc = popdens.montecarlo(pop, 0.0, t_end=t_end, n=n, seed=12, record_spikes=True, progress=False)
+    r, se = rate_and_se(mc, t_end)
+    theory = float(popdens.gain(pop, 0.0))
+    diffusion = float(popdens.gain(pop, 0.0, method="diffusion"))
+    print(f"{law} {a} mV (nu_e {re:g}, nu_i {ri:g} Hz): twin {r:.4g} +- {se:.2g} Hz, theory {theory:.4g} "
+          f"({100 * (theory - r) / r:+.2f} %), diffusion {diffusion:.4g} ({100 * (diffusion - r) / r:+.1f} %)")
+    assert abs(theory - r) < 4 * se
