@@ -7,7 +7,7 @@ The package is layered, bottom to top (each layer imports only from those
 below it; ``tests/test_layering.py`` enforces it): the shared ground floor
 (``_version``, ``exceptions``, ``_validation``, ``_files``, ``progress``,
 ``plotting``, ``result``), then ``model``, ``theory``, ``solvers``,
-``twins``, ``network``, ``sweeps``, ``scenario`` and the command line.
+``twins``, ``fitting``, ``network``, ``sweeps``, ``scenario`` and the command line.
 This module only re-exports the public names.
 """
 
@@ -18,6 +18,8 @@ import sys as _sys
 from ._version import __version__
 from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, PopdensError, ScenarioError,
                          UnreachableTargetError)
+from .fitting import (FitResult, GainCurve, SpikeTrains, fit_gain, fit_isi, fit_psth, load_gain_curve,
+                      load_spike_trains, load_stimulus)
 from .model import drive, hazard
 from .model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
 from .model.noise import EscapeNoise, Population, WhiteNoise
@@ -51,7 +53,9 @@ __all__ = [
     "EIF",
     "EscapeNoise",
     "ExpressionError",
+    "FitResult",
     "FixedPoint",
+    "GainCurve",
     "LIF",
     "PIF",
     "Pathway",
@@ -61,6 +65,7 @@ __all__ = [
     "QIF",
     "Result",
     "ScenarioError",
+    "SpikeTrains",
     "Stability",
     "StabilityMap",
     "SteadyState",
@@ -71,13 +76,19 @@ __all__ = [
     "drive",
     "drive_and_noise_for",
     "drive_for_rate",
+    "fit_gain",
+    "fit_isi",
+    "fit_psth",
     "fixed_points",
     "gain",
     "gain_slope",
     "grid_points",
     "hazard",
     "linear_rate_response",
+    "load_gain_curve",
     "load_result",
+    "load_spike_trains",
+    "load_stimulus",
     "load_sweep",
     "montecarlo",
     "montecarlo_network",

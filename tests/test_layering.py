@@ -19,6 +19,7 @@ LAYERS = (
     ("popdens.theory",),
     ("popdens.solvers",),
     ("popdens.twins",),
+    ("popdens.fitting",),
     ("popdens.network",),
     ("popdens.sweeps",),
     ("popdens.scenario",),
