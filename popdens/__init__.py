@@ -21,6 +21,7 @@ from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, Pop
 from .fitting import (FitResult, GainCurve, SpikeTrains, fit_gain, fit_isi, fit_psth, load_gain_curve,
                       load_spike_trains, load_stimulus)
 from .model import drive, hazard
+from .model.adaptation import Adaptation, MovingThreshold
 from .model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
 from .model.noise import EscapeNoise, Population, WhiteNoise
 from .network.circuit import Circuit, Cohort, Pathway, PoissonBackground
@@ -44,6 +45,7 @@ _sys.modules[__name__ + ".hazard"] = hazard
 
 __all__ = [
     "AccuracyWarning",
+    "Adaptation",
     "Circuit",
     "CircuitResult",
     "Cohort",
@@ -57,6 +59,7 @@ __all__ = [
     "FixedPoint",
     "GainCurve",
     "LIF",
+    "MovingThreshold",
     "PIF",
     "Pathway",
     "PoissonBackground",

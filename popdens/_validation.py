@@ -65,6 +65,8 @@ def finite_array(name: str, value: Any) -> np.ndarray:
 def n_steps_for(t_end: float, dt: float, *, name_t: str = "t_end", name_dt: str = "dt") -> int:
     """Number of steps of size ``dt`` in ``[0, t_end]``; ``dt`` must divide ``t_end``."""
     n = t_end / dt
+    if not math.isfinite(n):
+        raise ValueError(f"`{name_t}` = {t_end!r} ms / `{name_dt}` = {dt!r} ms is not a finite number of steps")
     n_int = int(round(n))
     if n_int < 1 or abs(n - n_int) > 1e-9 * max(1.0, n):
         raise ValueError(

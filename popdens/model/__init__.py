@@ -2,10 +2,11 @@
 parser and the compiled building blocks they share (the bottom layer above the shared ground floor)."""
 
 from . import drive, hazard
+from .adaptation import Adaptation, MovingThreshold
 from .neurons import EIF, LIF, PIF, QIF, CustomNeuron, NeuronBase
 from .noise import EscapeNoise, Population, WhiteNoise
 
 __all__ = [
-    "CustomNeuron", "EIF", "EscapeNoise", "LIF", "NeuronBase", "PIF", "Population", "QIF", "WhiteNoise",
-    "drive", "hazard",
+    "Adaptation", "CustomNeuron", "EIF", "EscapeNoise", "LIF", "MovingThreshold", "NeuronBase", "PIF", "Population",
+    "QIF", "WhiteNoise", "drive", "hazard",
 ]

@@ -2,6 +2,11 @@
 
 Every drive is a small immutable object; calling it on an array of times
 (ms) returns the drive (mV) with the same shape.  Drives add with ``+``.
+A drive that jumps (``Step``, ``Pulse``) lists its jumps in
+:meth:`Drive.jump_times` (and its value just before each in
+:meth:`Drive.left_limit`); the time-domain front ends end a compiled block at
+each jump and take the value before the jump at the end of the last step
+before it, so no response precedes its cause.
 
 Examples
 --------
@@ -47,8 +52,30 @@ class Drive:
     def is_constant(self) -> bool:
         return False
 
+    def jump_times(self, t0: float, t1: float) -> np.ndarray:
+        """Times (ms) in ``[t0, t1]`` where the drive jumps, sorted; none for a continuous drive.
+
+        At a jump time ``t`` the drive takes its value after the jump
+        (right-continuous); :meth:`left_limit` gives the value just before it.
+        """
+        return np.empty(0)
+
+    def left_limit(self, t) -> np.ndarray | float:
+        """The drive (mV) just before times ``t`` (ms): differs from ``self(t)`` only at a jump."""
+        t = np.asarray(t, dtype=float)
+        out = np.asarray(self._left(np.atleast_1d(t)), dtype=float)
+        return out.reshape(t.shape) if t.ndim else float(out.reshape(-1)[0])
+
+    def _left(self, t: np.ndarray) -> np.ndarray:
+        return self._evaluate(t)
+
     def parameters(self) -> dict:
         return {k: getattr(self, k) for k in getattr(self, "__dataclass_fields__", {})}
+
+
+def _within(times, t0: float, t1: float) -> np.ndarray:
+    x = np.asarray(times, dtype=float)
+    return np.sort(x[(x >= t0) & (x <= t1)])
 
 
 @dataclass(frozen=True)
@@ -83,6 +110,12 @@ class Step(Drive):
     def _evaluate(self, t):
         return np.where(t >= self.t, self.after, self.before)
 
+    def jump_times(self, t0, t1):
+        return _within([self.t], t0, t1) if self.after != self.before else np.empty(0)
+
+    def _left(self, t):
+        return np.where(t > self.t, self.after, self.before)
+
 
 @dataclass(frozen=True)
 class Pulse(Drive):
@@ -100,6 +133,13 @@ class Pulse(Drive):
 
     def _evaluate(self, t):
         on = (t >= self.t) & (t < self.t + self.duration)
+        return self.base + np.where(on, self.amplitude, 0.0)
+
+    def jump_times(self, t0, t1):
+        return _within([self.t, self.t + self.duration], t0, t1) if self.amplitude != 0.0 else np.empty(0)
+
+    def _left(self, t):
+        on = (t > self.t) & (t <= self.t + self.duration)
         return self.base + np.where(on, self.amplitude, 0.0)
 
 
@@ -224,6 +264,16 @@ class Sum(Drive):
             for d in self.terms:
                 out = out + d._evaluate(t)
         return out
+
+    def _left(self, t):
+        out = np.zeros(t.shape)
+        with np.errstate(over="ignore", invalid="ignore"):
+            for d in self.terms:
+                out = out + d._left(t)
+        return out
+
+    def jump_times(self, t0, t1):
+        return np.unique(np.concatenate([np.empty(0), *(d.jump_times(t0, t1) for d in self.terms)]))
 
     @property
     def is_constant(self) -> bool:

@@ -10,6 +10,10 @@ input current times the membrane resistance).  After a spike the potential is
 held at ``reset`` for the absolute ``refractory`` period (ms), then integrates
 again.
 
+Every model accepts ``adaptation=[...]``: spike-triggered adaptation
+currents and moving thresholds (:mod:`popdens.model.adaptation`), which
+make the neuron non-renewal; the default (none) is a renewal neuron.
+
 ``threshold`` is where escape functions are centred (escape noise) and
 ``boundary`` where a spike is certain: the absorbing boundary of the
 Fokker--Planck equation (diffusive noise) and, for models with a spike
@@ -24,6 +28,7 @@ from typing import ClassVar, Mapping
 import numpy as np
 
 from .. import _validation as v
+from .adaptation import KIND_CURRENT, KIND_THRESHOLD, check_adaptation
 from .expressions import Expression, parse_expression
 
 __all__ = ["NeuronBase", "LIF", "EIF", "QIF", "PIF", "CustomNeuron"]
@@ -58,6 +63,37 @@ class NeuronBase:
     tau_m: float = field(init=False, default=1.0)
     reset: float = field(init=False, default=0.0)
     refractory: float = field(init=False, default=0.0)
+    #: Adaptation components (:class:`~popdens.Adaptation`, :class:`~popdens.MovingThreshold`); empty: renewal.
+    adaptation: tuple = field(init=False, default=())
+
+    def _set_adaptation(self, value) -> None:
+        object.__setattr__(self, "adaptation", check_adaptation(value))
+
+    @property
+    def adapting(self) -> bool:
+        """True when the neuron carries any adaptation component."""
+        return bool(self.adaptation)
+
+    @property
+    def adaptation_currents(self) -> tuple:
+        """The adaptation currents (:class:`~popdens.Adaptation`)."""
+        return tuple(a for a in self.adaptation if a.kind == KIND_CURRENT)
+
+    @property
+    def moving_thresholds(self) -> tuple:
+        """The moving thresholds (:class:`~popdens.MovingThreshold`)."""
+        return tuple(a for a in self.adaptation if a.kind == KIND_THRESHOLD)
+
+    def _repr(self, name: str) -> str:
+        items = [f"{k}={val!r}" for k, val in self.parameters().items() if k != "adaptation"]
+        if self.adaptation:
+            items.append(f"adaptation={list(self.adaptation)!r}")
+        return f"{name}(" + ", ".join(items) + ")"
+
+    def _with_adaptation(self, out: dict) -> dict:
+        if self.adaptation:
+            out["adaptation"] = [a.parameters() for a in self.adaptation]
+        return out
 
     @property
     def threshold(self) -> float:  # pragma: no cover - abstract
@@ -119,6 +155,10 @@ class LIF(NeuronBase):
         Absolute refractory period (ms), >= 0.
     rest : float, optional
         Resting potential (mV), default 0.
+    adaptation : sequence, optional
+        Spike-triggered adaptation: :class:`~popdens.Adaptation` currents and
+        (escape noise) :class:`~popdens.MovingThreshold` kernels; default none
+        (a renewal neuron).
 
     Examples
     --------
@@ -134,10 +174,11 @@ class LIF(NeuronBase):
     refractory: float
     rest_: float
 
-    def __init__(self, tau_m, threshold, reset, refractory, rest=0.0):
+    def __init__(self, tau_m, threshold, reset, refractory, rest=0.0, adaptation=None):
         _setattrs(self, tau_m=v.as_finite_float("tau_m", tau_m), threshold_=v.as_finite_float("threshold", threshold),
                   reset=v.as_finite_float("reset", reset), refractory=v.as_finite_float("refractory", refractory),
                   rest_=v.as_finite_float("rest", rest))
+        self._set_adaptation(adaptation)
         self._check_common()
 
     threshold = property(lambda self: self.threshold_)
@@ -155,10 +196,11 @@ class LIF(NeuronBase):
         return np.array([self.rest_])
 
     def parameters(self):
-        return dict(tau_m=self.tau_m, threshold=self.threshold_, reset=self.reset, refractory=self.refractory, rest=self.rest_)
+        return self._with_adaptation(dict(tau_m=self.tau_m, threshold=self.threshold_, reset=self.reset,
+                                          refractory=self.refractory, rest=self.rest_))
 
     def __repr__(self):
-        return "LIF(" + ", ".join(f"{k}={val!r}" for k, val in self.parameters().items()) + ")"
+        return self._repr("LIF")
 
 
 @dataclass(frozen=True, init=False)
@@ -185,6 +227,10 @@ class EIF(NeuronBase):
         Absolute refractory period (ms), >= 0.
     rest : float, optional
         Resting potential (mV), default 0.
+    adaptation : sequence, optional
+        Spike-triggered adaptation: :class:`~popdens.Adaptation` currents and
+        (escape noise) :class:`~popdens.MovingThreshold` kernels; default none
+        (a renewal neuron).
     """
 
     name: ClassVar[str] = "EIF"
@@ -198,7 +244,7 @@ class EIF(NeuronBase):
     refractory: float
     rest_: float
 
-    def __init__(self, tau_m, soft_threshold, slope_factor, cutoff, reset, refractory, rest=0.0):
+    def __init__(self, tau_m, soft_threshold, slope_factor, cutoff, reset, refractory, rest=0.0, adaptation=None):
         _setattrs(self, tau_m=v.as_finite_float("tau_m", tau_m),
                   soft_threshold=v.as_finite_float("soft_threshold", soft_threshold),
                   slope_factor=v.as_finite_float("slope_factor", slope_factor),
@@ -212,6 +258,7 @@ class EIF(NeuronBase):
                 f"{self.slope_factor!r}: exp((cutoff - soft_threshold)/slope_factor) overflows; "
                 "allowed: (cutoff - soft_threshold)/slope_factor <= 600"
             )
+        self._set_adaptation(adaptation)
         self._check_common()
 
     threshold = property(lambda self: self.soft_threshold)
@@ -233,11 +280,12 @@ class EIF(NeuronBase):
         return np.array([self.rest_, self.soft_threshold, self.slope_factor])
 
     def parameters(self):
-        return dict(tau_m=self.tau_m, soft_threshold=self.soft_threshold, slope_factor=self.slope_factor,
-                    cutoff=self.cutoff, reset=self.reset, refractory=self.refractory, rest=self.rest_)
+        return self._with_adaptation(dict(
+            tau_m=self.tau_m, soft_threshold=self.soft_threshold, slope_factor=self.slope_factor,
+            cutoff=self.cutoff, reset=self.reset, refractory=self.refractory, rest=self.rest_))
 
     def __repr__(self):
-        return "EIF(" + ", ".join(f"{k}={val!r}" for k, val in self.parameters().items()) + ")"
+        return self._repr("EIF")
 
 
 @dataclass(frozen=True, init=False)
@@ -264,6 +312,10 @@ class QIF(NeuronBase):
         Absolute refractory period (ms), >= 0.
     rest : float, optional
         Stable fixed point at zero drive (mV), default 0.
+    adaptation : sequence, optional
+        Spike-triggered adaptation: :class:`~popdens.Adaptation` currents and
+        (escape noise) :class:`~popdens.MovingThreshold` kernels; default none
+        (a renewal neuron).
     """
 
     name: ClassVar[str] = "QIF"
@@ -276,12 +328,13 @@ class QIF(NeuronBase):
     refractory: float
     rest_: float
 
-    def __init__(self, tau_m, critical, cutoff, reset, refractory, rest=0.0):
+    def __init__(self, tau_m, critical, cutoff, reset, refractory, rest=0.0, adaptation=None):
         _setattrs(self, tau_m=v.as_finite_float("tau_m", tau_m), critical=v.as_finite_float("critical", critical),
                   cutoff=v.as_finite_float("cutoff", cutoff), reset=v.as_finite_float("reset", reset),
                   refractory=v.as_finite_float("refractory", refractory), rest_=v.as_finite_float("rest", rest))
         v.less_than("rest", self.rest_, "critical", self.critical)
         v.less_than("critical", self.critical, "cutoff", self.cutoff)
+        self._set_adaptation(adaptation)
         self._check_common()
 
     threshold = property(lambda self: self.critical)
@@ -303,11 +356,11 @@ class QIF(NeuronBase):
         return np.array([self.rest_, self.critical])
 
     def parameters(self):
-        return dict(tau_m=self.tau_m, critical=self.critical, cutoff=self.cutoff, reset=self.reset,
-                    refractory=self.refractory, rest=self.rest_)
+        return self._with_adaptation(dict(tau_m=self.tau_m, critical=self.critical, cutoff=self.cutoff,
+                                          reset=self.reset, refractory=self.refractory, rest=self.rest_))
 
     def __repr__(self):
-        return "QIF(" + ", ".join(f"{k}={val!r}" for k, val in self.parameters().items()) + ")"
+        return self._repr("QIF")
 
 
 @dataclass(frozen=True, init=False)
@@ -324,6 +377,10 @@ class PIF(NeuronBase):
         Reset potential (mV), < threshold.
     refractory : float
         Absolute refractory period (ms), >= 0.
+    adaptation : sequence, optional
+        Spike-triggered adaptation: :class:`~popdens.Adaptation` currents and
+        (escape noise) :class:`~popdens.MovingThreshold` kernels; default none
+        (a renewal neuron).
     """
 
     name: ClassVar[str] = "PIF"
@@ -333,9 +390,10 @@ class PIF(NeuronBase):
     reset: float
     refractory: float
 
-    def __init__(self, tau_m, threshold, reset, refractory):
+    def __init__(self, tau_m, threshold, reset, refractory, adaptation=None):
         _setattrs(self, tau_m=v.as_finite_float("tau_m", tau_m), threshold_=v.as_finite_float("threshold", threshold),
                   reset=v.as_finite_float("reset", reset), refractory=v.as_finite_float("refractory", refractory))
+        self._set_adaptation(adaptation)
         self._check_common()
 
     threshold = property(lambda self: self.threshold_)
@@ -352,10 +410,11 @@ class PIF(NeuronBase):
         return np.zeros_like(np.asarray(u, dtype=float)) if np.ndim(u) else 0.0
 
     def parameters(self):
-        return dict(tau_m=self.tau_m, threshold=self.threshold_, reset=self.reset, refractory=self.refractory)
+        return self._with_adaptation(dict(tau_m=self.tau_m, threshold=self.threshold_, reset=self.reset,
+                                          refractory=self.refractory))
 
     def __repr__(self):
-        return "PIF(" + ", ".join(f"{k}={val!r}" for k, val in self.parameters().items()) + ")"
+        return self._repr("PIF")
 
 
 @dataclass(frozen=True, init=False)
@@ -385,6 +444,10 @@ class CustomNeuron(NeuronBase):
     rest : float, optional
         A typical resting potential (mV) used to place automatic grids;
         default ``reset``.
+    adaptation : sequence, optional
+        Spike-triggered adaptation: :class:`~popdens.Adaptation` currents and
+        (escape noise) :class:`~popdens.MovingThreshold` kernels; default none
+        (a renewal neuron).
     """
 
     name: ClassVar[str] = "custom"
@@ -400,7 +463,8 @@ class CustomNeuron(NeuronBase):
     _expr: Expression = field(repr=False, compare=False)
     _slope: Expression = field(repr=False, compare=False)
 
-    def __init__(self, drift, tau_m, threshold, reset, refractory, parameters=None, cutoff=None, rest=None):
+    def __init__(self, drift, tau_m, threshold, reset, refractory, parameters=None, cutoff=None, rest=None,
+                 adaptation=None):
         params = dict(parameters or {})
         expr = parse_expression(drift, ("u",), params)
         _setattrs(self, drift_text=drift, tau_m=v.as_finite_float("tau_m", tau_m),
@@ -411,6 +475,7 @@ class CustomNeuron(NeuronBase):
                   _expr=expr, _slope=expr.derivative("u"))
         if self.cutoff is not None:
             v.less_than("threshold", self.threshold_, "cutoff", self.cutoff)
+        self._set_adaptation(adaptation)
         self._check_common()
         probe = np.linspace(self.reset, self.boundary, 5)
         if not np.all(np.isfinite(self.drift(probe))):
@@ -444,7 +509,7 @@ class CustomNeuron(NeuronBase):
         if self.cutoff is not None:
             out["cutoff"] = self.cutoff
         out["rest"] = self.rest_
-        return out
+        return self._with_adaptation(out)
 
     def __repr__(self):
-        return "CustomNeuron(" + ", ".join(f"{k}={val!r}" for k, val in self.parameters().items()) + ")"
+        return self._repr("CustomNeuron")

@@ -93,5 +93,8 @@ class Population:
             raise ValueError(f"`neuron` must be a popdens neuron model, got {self.neuron!r}")
         if not isinstance(self.noise, (EscapeNoise, WhiteNoise)):
             raise ValueError(f"`noise` must be EscapeNoise or WhiteNoise, got {self.noise!r}")
+        if isinstance(self.noise, WhiteNoise) and self.neuron.moving_thresholds:
+            raise ValueError("`adaptation` holds a MovingThreshold, which needs escape noise; with white noise "
+                             "the threshold is the absorbing boundary: use popdens.Adaptation currents instead")
 
 

@@ -20,7 +20,7 @@ from .._version import __version__
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers.registry import resolve_method
-from ..solvers._recording import make_grid
+from ..solvers._recording import BoundarySamples, make_grid
 from ..solvers.fokker_planck import LOWER_STDS
 from .circuit import DEFAULT_DT, HZ_TO_PER_MS, STEP_TOL, Circuit, Pathway
 from .result import CircuitResult
@@ -160,13 +160,31 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     tq = grid.step_times(0, grid.n_steps)
     ext_mu = np.array([np.broadcast_to(a.external_mean(tq), tq.shape) for a in circuit.cohorts])
     ext_var = np.array([np.broadcast_to(a.external_variance(tq), tq.shape) for a in circuit.cohorts])
+    # external jumps on step boundaries: the input after the jump at its boundary, the input before
+    # it kept apart (`ext_left`) for the end of the block that leads up to it (no response precedes it)
+    ext_left: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    for k, a in enumerate(circuit.cohorts):
+        sampled = [(BoundarySamples(a.drive, grid), False)]
+        if a.diffusive:
+            sampled.append((BoundarySamples(a.sigma_ext, grid), True))
+        for smp, is_sigma in sampled:
+            for j in smp.jumps:
+                before, after = smp.sides(j)
+                if j not in ext_left:
+                    ext_left[j] = (ext_mu[:, j].copy(), ext_var[:, j].copy())
+                if is_sigma:
+                    ext_var[k, j] += after * after - smp.drive(grid.dt * j) ** 2
+                    ext_left[j][1][k] += before * before - smp.drive(grid.dt * j) ** 2
+                else:
+                    ext_mu[k, j] += after - smp.drive(grid.dt * j)
+                    ext_left[j][0][k] += before - smp.drive(grid.dt * j)
+    jump_steps = sorted(j for j in ext_left if 0 < j < grid.n_steps)
     if not (np.all(np.isfinite(ext_mu)) and np.all(np.isfinite(ext_var))):
         raise ValueError("the external drive or noise of a cohort is not finite on [0, t_end]")
     diffusive = [a.diffusive for a in circuit.cohorts]
 
-    def inputs(j: int, s_values) -> tuple[np.ndarray, np.ndarray]:
-        mu = ext_mu[:, j].copy()
-        var = ext_var[:, j].copy()
+    def inputs(j: int, s_values, left: bool = False) -> tuple[np.ndarray, np.ndarray]:
+        mu, var = (a.copy() for a in ext_left[j]) if left else (ext_mu[:, j].copy(), ext_var[:, j].copy())
         for q in range(len(lines)):
             mu[tgt[q]] += cmean[q] * s_values[q]
             var[tgt[q]] += cvar[q] * s_values[q]
@@ -216,6 +234,9 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         j = 0
         while j < n:
             nb = min(block, n - j)
+            later = [x for x in jump_steps if x > j]
+            if later:
+                nb = min(nb, later[0] - j)  # a block ends at each external jump
             for b in range(nb):
                 t1 = (j + b + 1) * dt
                 s_new = []
@@ -224,11 +245,14 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
                     s_new.append(ln.advance_filter(a_prev[q], a1))
                     a_prev[q] = a1
                 mus[:, j + b + 1], sgs[:, j + b + 1] = inputs(j + b + 1, s_new)
+            mu_blk, sg_blk = mus[:, j:j + nb + 1].copy(), sgs[:, j:j + nb + 1].copy()
+            if j + nb in ext_left:
+                mu_blk[:, -1], sg_blk[:, -1] = inputs(j + nb, s_new, left=True)
             for k, s in enumerate(solvers):
                 if diffusive[k]:
-                    r, _, _ = s.advance(mus[k, j:j + nb + 1], sgs[k, j:j + nb + 1])
+                    r, _, _ = s.advance(mu_blk[k], sg_blk[k])
                 else:
-                    r, _, _ = s.advance(mus[k, j:j + nb + 1])
+                    r, _, _ = s.advance(mu_blk[k])
                 if s.status != STATUS_OK:
                     status, message = STATUS_FAILED, f"cohort {circuit.names[k]!r}: {s.message}"
                     break

@@ -13,9 +13,10 @@ import numpy as np
 
 from .._version import __version__
 from .. import _validation as v
+from ..model.adaptation import refuse
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
-from ..solvers._recording import make_grid
+from ..solvers._recording import BoundarySamples, make_grid, split_at_jumps
 from .circuit import DEFAULT_DT, STEP_TOL, Circuit, Pathway
 from .result import CircuitResult
 
@@ -108,6 +109,8 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     n_burn = int(round(burn_in / dt))
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
     asm = circuit.cohorts
+    for a in asm:
+        refuse(a.population, f"the spiking network twin (cohort {a.name!r})")
     npop = circuit.n
     sizes = np.array([a.size for a in asm], dtype=np.int64)
     start = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
@@ -188,11 +191,15 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     thr = rng.exponential(1.0, size=n_total)
     hz = np.zeros(n_total)
 
-    def ext(times):
-        # the Poisson background is drawn as spikes, so only the drive and the white noise enter here
-        mu = np.array([np.broadcast_to(a.drive(times), times.shape) for a in asm], dtype=float)
-        var = np.array([np.broadcast_to(a.sigma_ext(times) ** 2 if a.diffusive else 0.0 * times, times.shape)
-                        for a in asm], dtype=float)
+    mu_at = [BoundarySamples(a.drive, grid) for a in asm]
+    sg_at = [BoundarySamples(a.sigma_ext, grid) if a.diffusive else None for a in asm]
+
+    def ext(k0, k1):
+        # the Poisson background is drawn as spikes, so only the drive and the white noise enter here;
+        # one-sided at jumps on the block's ends (blocks end at every jump: no response precedes it)
+        times = grid.step_times(k0, k1)
+        mu = np.array([s.values(k0, k1) for s in mu_at], dtype=float)
+        var = np.array([s.values(k0, k1) ** 2 if s is not None else 0.0 * times for s in sg_at], dtype=float)
         if not (np.all(np.isfinite(mu)) and np.all(np.isfinite(var)) and np.all(var >= 0)):
             raise FloatingPointError("the external drive or noise is not finite (or negative variance)")
         return np.ascontiguousarray(mu), np.ascontiguousarray(np.sqrt(var))
@@ -203,7 +210,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     net = (q_src, q_tgt, q_m, q_head, q_buf_off, q_x_off, q_drive, q_decay, q_ptr_off, q_idx_off,
            in_ptr, in_list, out_ptr, out_list, buf, xs, ptr_flat, idx_flat, u, ref, age, lam, thr, hz)
     no_spk = (np.zeros(1), np.zeros(1, dtype=np.int64))
-    mu_b, sg_b = ext(np.zeros(1))
+    mu_b, sg_b = ext(0, 0)
     n_burn_spikes = 0
     for b0 in range(0, n_burn, MC_BLOCK):
         b1 = min(n_burn, b0 + MC_BLOCK)
@@ -225,10 +232,9 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in range(MC_BLOCK, n + MC_BLOCK, MC_BLOCK):
-            end = min(end, n)
+        for end in split_at_jumps(list(range(MC_BLOCK, n, MC_BLOCK)) + [n], *mu_at, *sg_at):
             while k < end:
-                m_, s_ = ext(grid.step_times(k, end))
+                m_, s_ = ext(k, end)
                 done, n_spk, full = run_network(*fixed, m_, s_, dt, bool(bridge), *net, k * dt, bool(record_spikes),
                                                 spk_t, spk_i, n_spk, counts[k:end], mean_u[k:end], stack, xbuf)
                 k += done

@@ -3,7 +3,9 @@
 Top-level tables
 ----------------
 ``[scenario]``  title, output folder (relative to the scenario file), notes
-``[neuron]``    ``model`` = "LIF" | "EIF" | "QIF" | "PIF" | "custom" and that model's parameters
+``[neuron]``    ``model`` = "LIF" | "EIF" | "QIF" | "PIF" | "custom" and that model's parameters;
+                optional ``[[neuron.adaptation]]`` entries (``kind`` = "current" | "threshold",
+                ``tau`` ms, ``jump`` mV, ``coupling``), see :func:`parse_adaptation`
 ``[noise]``     ``kind`` = "escape" with a ``[noise.hazard]`` table, or "white" with ``sigma`` (mV)
 ``[input]``     ``shape`` = "constant" | "step" | "pulse" | "ramp" | "sine" | "trace" and its parameters
 ``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``
@@ -31,6 +33,7 @@ from .. import _validation as v
 from ..exceptions import ScenarioError
 from ..model import drive as drive_mod
 from ..model import hazard as hazard_mod
+from ..model.adaptation import Adaptation, MovingThreshold
 from ..model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..solvers._recording import make_grid
@@ -46,6 +49,10 @@ NEURON_MODELS = {
     "PIF": (PIF, {"tau_m", "threshold", "reset", "refractory"}, set()),
     "custom": (CustomNeuron, {"drift", "tau_m", "threshold", "reset", "refractory", "parameters", "cutoff", "rest"},
                {"parameters", "cutoff", "rest"}),
+}
+ADAPTATION_KINDS = {
+    "current": (Adaptation, {"tau", "jump", "coupling"}),
+    "threshold": (MovingThreshold, {"tau", "jump"}),
 }
 HAZARDS = {
     "exponential": (hazard_mod.Exponential, {"rate", "width"}),
@@ -103,12 +110,40 @@ class Scenario:
 
 
 
+def parse_adaptation(src, table: str, data) -> list:
+    """``[[neuron.adaptation]]`` entries → :class:`~popdens.Adaptation` / :class:`~popdens.MovingThreshold` objects.
+
+    Each entry: ``kind`` = "current" (default; keys ``tau`` ms, ``jump`` mV,
+    optional ``coupling``) or "threshold" (keys ``tau`` ms, ``jump`` mV).
+    """
+    if data is None:
+        return []
+    if not isinstance(data, list):
+        raise err(src, table, None, data, "an array of tables ([[neuron.adaptation]])")
+    out = []
+    for i, entry in enumerate(data):
+        where = f"{table}[{i}]"
+        if not isinstance(entry, dict):
+            raise err(src, where, None, entry, "a table with `tau` and `jump`")
+        kind = entry.get("kind", "current")
+        if kind not in ADAPTATION_KINDS:
+            raise err(src, where, "kind", kind, f"one of {sorted(ADAPTATION_KINDS)}")
+        cls, allowed = ADAPTATION_KINDS[kind]
+        check_keys(src, where, entry, allowed | {"kind"}, {"tau", "jump"})
+        out.append(build(src, where, cls, {k: number(src, where, k, val) for k, val in entry.items() if k != "kind"}))
+    return out
+
+
 def parse_population(src, neuron_data, noise_data, prefix: str = "") -> Population:
     """The neuron and noise tables (``[{prefix}neuron]``, ``[{prefix}noise]``) → a validated Population."""
     t_neuron, t_noise = f"{prefix}neuron", f"{prefix}noise"
     nd, _, (cls, allowed, optional) = select(src, t_neuron, neuron_data, "model", NEURON_MODELS)
-    check_keys(src, t_neuron, nd, allowed, allowed - optional)
-    neuron = build(src, t_neuron, cls, model_params(src, t_neuron, nd, text_key="drift"), "drift")
+    adaptation = parse_adaptation(src, f"{t_neuron}.adaptation", nd.pop("adaptation", None))
+    check_keys(src, t_neuron, nd, allowed | {"adaptation"}, allowed - optional)
+    params = model_params(src, t_neuron, nd, text_key="drift")
+    if adaptation:
+        params["adaptation"] = adaptation
+    neuron = build(src, t_neuron, cls, params, "drift")
 
     no = noise_data
     if not isinstance(no, dict):
@@ -127,7 +162,7 @@ def parse_population(src, neuron_data, noise_data, prefix: str = "") -> Populati
         noise = build(src, t_noise, WhiteNoise, {"sigma": number(src, t_noise, "sigma", no["sigma"])})
     else:
         raise err(src, t_noise, "kind", kind, "'escape' or 'white'")
-    return Population(neuron, noise)
+    return build(src, t_neuron, Population, {"neuron": neuron, "noise": noise})
 
 
 def parse_single_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario:

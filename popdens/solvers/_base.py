@@ -9,8 +9,11 @@ Rules for implementers
    initial drive ``mu0`` (mV) (and noise ``sigma0`` for diffusive noise).
 3. ``advance(mu, sigma)`` takes the drive at the step boundaries of a block
    of steps, ``mu`` of shape ``(n + 1,)`` (mV, from the current time), and
-   advances ``n`` steps.  It calls the private ``_advance_impl`` which
-   returns per-step arrays ``rate`` (Hz, mean over each step), ``mean_u``
+   advances ``n`` steps; the drive is linear within each step.  A jump at a
+   step boundary is passed by ending one call with the value before it and
+   starting the next with the value after it (the front ends split their
+   blocks at the jumps the drive lists, ``Drive.jump_times``).  It calls
+   the private ``_advance_impl`` which returns per-step arrays ``rate`` (Hz, mean over each step), ``mean_u``
    (mV, at the step end), ``refractory`` (fraction at the step end) and a
    ``(success, message)`` pair.  ``advance`` does the bookkeeping (time,
    counters, status).

@@ -10,6 +10,9 @@ from .. import _validation as v
 
 #: Steps advanced per compiled call between progress updates / interrupts.
 BLOCK_STEPS = 5000
+#: A jump of the drive closer than this to a step boundary (in units of dt) lies on it; the
+#: slack covers the round-off of k * dt (about 1e-16 k dt), with a wide margin.
+JUMP_TOL = 1e-6
 
 
 @dataclass(frozen=True)
@@ -63,6 +66,63 @@ def block_ends(grid: TimeGrid, block: int = BLOCK_STEPS):
     return sorted(ends)
 
 
+class BoundarySamples:
+    """A drive sampled at the step boundaries of ``grid``, one-sided at its jumps.
+
+    The solvers and twins interpolate the drive linearly within a step, so a
+    jump sampled at a step boundary would ramp the drive up over the step
+    before it: a response one step ahead of its cause.  Here a jump that
+    falls on a boundary ends a compiled block (:meth:`split`): the block
+    before it ends with the value just before the jump, the block after it
+    starts with the value after it.  A jump inside a step (not on a
+    boundary) is spread over that step.
+
+    Parameters
+    ----------
+    drive : Drive
+    grid : TimeGrid
+    """
+
+    def __init__(self, drive, grid: TimeGrid):
+        self.drive = drive
+        self.grid = grid
+        ts = np.asarray(drive.jump_times(0.0, grid.t_end + JUMP_TOL * grid.dt), dtype=float)
+        j = np.rint(ts / grid.dt)
+        on = np.abs(ts - j * grid.dt) <= JUMP_TOL * grid.dt
+        #: step-boundary index -> jump time (ms)
+        self.jumps = {int(a): float(b) for a, b in zip(j[on], ts[on]) if 0 <= a <= grid.n_steps}
+
+    def values(self, k0: int, k1: int, left_end: bool = True) -> np.ndarray:
+        """Drive at the boundaries k0..k1 (inclusive): after each jump, except at the end
+        ``k1 > k0`` (with ``left_end``), where a block before a jump ends with the value before it."""
+        out = np.array(self.drive(self.grid.step_times(k0, k1)), dtype=float)
+        for j, ts in self.jumps.items():
+            if k0 <= j <= k1:
+                out[j - k0] = self.drive(ts)
+        if left_end and k1 > k0 and k1 in self.jumps:
+            out[-1] = self.drive.left_limit(self.jumps[k1])
+        return out
+
+    def sides(self, j: int) -> tuple[float, float]:
+        """Values just before and just after the jump at boundary ``j``."""
+        ts = self.jumps[j]
+        return float(self.drive.left_limit(ts)), float(self.drive(ts))
+
+    def start(self) -> float:
+        """The drive at t = 0 (after a jump there)."""
+        return float(self.values(0, 0)[0])
+
+
+def split_at_jumps(ends, *samples) -> list[int]:
+    """Block ends with every jump boundary of ``samples`` (BoundarySamples or None) added."""
+    out = set(ends)
+    n = max(ends) if ends else 0
+    for s in samples:
+        if s is not None:
+            out.update(j for j in s.jumps if 0 < j < n)
+    return sorted(out)
+
+
 def downsample(grid: TimeGrid, rate0: float, rate, mean_u0, mean_u, refr0, refr, done: int):
     """Outputs at recording times from per-step arrays covering ``done`` steps.
 
@@ -80,4 +140,5 @@ def downsample(grid: TimeGrid, rate0: float, rate, mean_u0, mean_u, refr0, refr,
 
 
 
-__all__ = ["TimeGrid", "make_grid", "block_ends", "downsample", "BLOCK_STEPS"]
+__all__ = ["TimeGrid", "make_grid", "block_ends", "downsample", "BoundarySamples", "split_at_jumps",
+           "BLOCK_STEPS"]

@@ -60,6 +60,7 @@ import numpy as np
 
 from .. import _validation as v
 from ..model._kernels import MS_TO_S, NO_REFCOUNT
+from ..model.adaptation import refuse
 from .grids import Grid, refined_grid
 from ._base import SolverBase
 
@@ -286,6 +287,7 @@ class FokkerPlanckSolver(SolverBase):
         if scheme not in SCHEMES:
             raise ValueError(f"`scheme` must be one of {sorted(SCHEMES)}, got {scheme!r}")
         self.scheme = scheme
+        refuse(population, "the Fokker-Planck solver")
         self.n_cells_option = v.positive_int("n_cells", n_cells)
         self.refinement = float(refinement)
         nrn = population.neuron

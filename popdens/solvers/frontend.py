@@ -10,7 +10,7 @@ import warnings
 import numpy as np
 
 from .._version import __version__
-from ._recording import block_ends, downsample, make_grid
+from ._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps
 from ..model.drive import as_drive
 from ..model.noise import Population, WhiteNoise
 from ..progress import Progress
@@ -122,8 +122,10 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
 
     wall0 = time.perf_counter()
-    mu0 = float(drive(0.0))
-    sigma0 = float(sigma_drive(0.0)) if sigma_drive is not None else None
+    mu_at = BoundarySamples(drive, grid)
+    sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
+    mu0 = mu_at.start()
+    sigma0 = sigma_at.start() if sigma_at is not None else None
     if not np.isfinite(mu0) or (sigma0 is not None and not np.isfinite(sigma0)):
         raise ValueError("the drive is not finite at t = 0")
     solver.initialize(mu0, sigma0, initial)
@@ -144,10 +146,10 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in block_ends(grid):
+        for end in split_at_jumps(block_ends(grid), mu_at, sigma_at):
             tk = grid.step_times(k, end)
-            mu = drive(tk)
-            sg = sigma_drive(tk) if sigma_drive is not None else None
+            mu = mu_at.values(k, end)
+            sg = sigma_at.values(k, end) if sigma_at is not None else None
             if not np.all(np.isfinite(mu)) or (sg is not None and not np.all(np.isfinite(sg))):
                 bad = tk[~np.isfinite(mu)] if not np.all(np.isfinite(mu)) else tk
                 status, message = STATUS_FAILED, f"the drive is not finite at t = {bad[0]:g} ms"

@@ -46,9 +46,13 @@ import numba
 import numpy as np
 
 from .. import _validation as v
-from ..model._kernels import MS_TO_S, NO_REFCOUNT, advance_potential, drift_value, hazard_value, survival
+from ..exceptions import ConvergenceError
+from ..model._kernels import MS_TO_S, NO_REFCOUNT, drift_value, hazard_value, survival
+from ..model.adaptation import KIND_CURRENT, step_args
 from ..model.neurons import CODE_LIF, CODE_PIF
+from ._age_step import AGE_TOL, _bin_step, _newborn
 from ._base import SolverBase
+from ._refractory_adapting import CLOSURES, advance_adapting, stationary_profile
 
 __all__ = ["RefractoryDensitySolver"]
 
@@ -79,77 +83,6 @@ TARGET_HAZARD_DT = 0.4
 MAX_DT_OVER_TAU = 0.1
 #: Bins holding less probability than this are ignored by the hazard guard.
 GUARD_MASS = 1e-6
-#: Relative tolerance (in units of dt) for deciding whether the refractory
-#: period ends at a step boundary (guards against round-off in j*dt).
-AGE_TOL = 1e-9
-
-
-@numba.njit(cache=True, nogil=True, inline="always")
-def _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
-              hcode, hpar, hops, hargs, theta, uses_slope,
-              age0, tau_ref, dt, e_dt, u, h_cached, mu0, mu1, stack, xbuf):  # pragma: no cover
-    """Advance one bin over one step.
-
-    Returns ``(u_new, h_new, H)``: the potential (mV) and hazard (Hz) at the
-    step end and the integrated hazard ``H`` (dimensionless, ``inf`` at a
-    spike cut-off) over the free part of the step, so the survival is
-    ``exp(-H)``.
-    """
-    free = age0 + dt - tau_ref
-    tol = AGE_TOL * dt
-    if free <= tol:
-        return reset, 0.0, 0.0
-    if free >= dt - tol:
-        free = dt
-        if age0 - tau_ref < tol:
-            # refractoriness ended exactly at the start of the step
-            d0 = 0.0
-            if uses_slope:
-                d0 = (drift_value(ncode, npar, nops, nargs, u, stack, xbuf) + mu0) / tau_m
-            h_start = hazard_value(hcode, hpar, hops, hargs, u, theta, d0, stack, xbuf)
-        else:
-            h_start = h_cached
-        if ncode == CODE_LIF:
-            slope_mu = (mu1 - mu0) / dt
-            c = u - (npar[0] + mu0) + tau_m * slope_mu
-            u_new = (npar[0] + mu1) - tau_m * slope_mu + c * e_dt
-        else:
-            u_new = advance_potential(ncode, npar, nops, nargs, tau_m, u, dt, mu0, mu1, stack, xbuf)
-    else:
-        # the refractory period ends inside this step: start at reset
-        mus = mu1 - (mu1 - mu0) * free / dt
-        d0 = 0.0
-        if uses_slope:
-            d0 = (drift_value(ncode, npar, nops, nargs, reset, stack, xbuf) + mus) / tau_m
-        h_start = hazard_value(hcode, hpar, hops, hargs, reset, theta, d0, stack, xbuf)
-        u_new = advance_potential(ncode, npar, nops, nargs, tau_m, reset, free, mus, mu1, stack, xbuf)
-    d1 = 0.0
-    if uses_slope:
-        d1 = (drift_value(ncode, npar, nops, nargs, u_new, stack, xbuf) + mu1) / tau_m
-    h_new = hazard_value(hcode, hpar, hops, hargs, u_new, theta, d1, stack, xbuf)
-    if has_cutoff and u_new >= boundary:
-        return boundary, h_new, math.inf
-    return u_new, h_new, 0.5 * (h_start + h_new) * free * MS_TO_S
-
-
-@numba.njit(cache=True, nogil=True, inline="always")
-def _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta, uses_slope,
-             tau_ref, dt, mu1, stack, xbuf):  # pragma: no cover
-    """Potential (mV) and hazard (Hz) of neurons that fired during the step just ended.
-
-    They fired on average half a step ago, so they enter with age dt/2: held
-    at reset while refractory, then integrated freely for the rest of that
-    half step.  This midpoint convention removes the O(dt) delay that
-    placing every spike at the end of its step would add to each interval.
-    """
-    free = 0.5 * dt - tau_ref
-    if free <= 0.0:
-        return reset, 0.0
-    un = advance_potential(ncode, npar, nops, nargs, tau_m, reset, free, mu1, mu1, stack, xbuf)
-    d1 = 0.0
-    if uses_slope:
-        d1 = (drift_value(ncode, npar, nops, nargs, un, stack, xbuf) + mu1) / tau_m
-    return un, hazard_value(hcode, hpar, hops, hargs, un, theta, d1, stack, xbuf)
 
 
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
@@ -273,12 +206,18 @@ class RefractoryDensitySolver(SolverBase):
         ``refractory + 10 tau_m``.  Lower it for speed when the input is
         weak (cost is proportional to it); raise it when neurons of different ages keep different
         potentials for long (e.g. a PIF with weak drive).
+    adaptation_closure : {"spike-weighted", "quasi-renewal"}
+        Adapting neurons only: how the adaptation left by spikes before the
+        last one enters (see :mod:`popdens.solvers._refractory_adapting`):
+        the mean adaptation of the neurons that fire (default) or the
+        population mean (first-order quasi-renewal, Naud & Gerstner 2012).
     """
 
     method_name = "refractory-density"
     axis_name = "age (ms)"
 
-    def __init__(self, population, dt: float, max_age: float | None = None):
+    def __init__(self, population, dt: float, max_age: float | None = None,
+                 adaptation_closure: str = "spike-weighted"):
         super().__init__(population, dt)
         nrn = population.neuron
         hz = population.noise.hazard
@@ -304,6 +243,99 @@ class RefractoryDensitySolver(SolverBase):
         self.head = 0
         self.old = np.zeros(3)  # mass, potential, cached hazard of the last bin
         self._mu_now = 0.0
+        if adaptation_closure not in CLOSURES:
+            raise ValueError(f"`adaptation_closure` must be one of {sorted(CLOSURES)}, got {adaptation_closure!r}")
+        self.adaptation_closure = adaptation_closure
+        self._adapt = None
+        if nrn.adapting:
+            self._init_adaptation(nrn)
+
+    # ----------------------------------------------------------------- adaptation
+    def _init_adaptation(self, nrn) -> None:
+        """Quasi-renewal state (see :mod:`popdens.solvers._refractory_adapting`)."""
+        self._adapt = step_args(nrn, self.dt)
+        k = len(nrn.adaptation)
+        self.st = np.zeros((k, self.n_bins + 1))
+        self.mean_ad = np.zeros(k)
+        self._fw = np.zeros(k)
+        self.aux = np.zeros(1)
+
+    def _profile(self, newborn_state, mu0):
+        """Stationary age profile for a newborn adaptation state (bin 0 first); (fired, mean_u)."""
+        m, u, h = np.empty(self.n_bins), np.empty(self.n_bins), np.empty(self.n_bins)
+        st, old, fw = np.empty_like(self.st), np.empty(3), np.empty(self.st.shape[0])
+        fired, mean_u, _ = stationary_profile(*self._nargs, *self._adapt, np.asarray(newborn_state, dtype=float),
+                                              float(mu0), m, u, h, st, old, fw, self._stack, self._xbuf)
+        return (m, u, h, st, old, fw), float(fired), float(mean_u)
+
+    def _mean_residual(self, x, mu0):
+        """Stationarity of the earlier-spike part ``x`` of the newborn adaptation state (mV).
+
+        Returns the residual, the profile, the population means and the mean potential.
+        """
+        kinds, decay, coup, kick, rest = self._adapt
+        prof, fired, ubar = self._profile(kick + x, mu0)
+        u_end = ubar - fired * (prof[1][0] - self.population.neuron.reset)  # as in the step kernel
+        # population mean at a step end, less this step's kicks
+        excl = prof[3][:, :-1] @ prof[0] + prof[4][0] * prof[3][:, -1] - kick * fired
+        if CLOSURES[self.adaptation_closure] == CLOSURES["spike-weighted"]:
+            target = prof[5] / fired if fired > 0.0 else x
+            mean = excl + kick * fired
+        else:
+            mean = x + kick * fired
+            target = mean * decay + np.where(kinds == KIND_CURRENT,
+                                             coup * (1.0 - decay) * (0.5 * (ubar + u_end) - rest), 0.0)
+        return x - target, prof, mean, ubar
+
+    def _initialize_adapting(self, mu0, initial) -> None:
+        kinds, decay, coup, kick, rest = self._adapt
+        self.head = 0
+        self._mu_now = float(mu0)
+        if isinstance(initial, str) and initial == "synchronous":
+            (m, u, h, st, old, _), _, _ = self._profile(kick, mu0)
+            self.m[:] = 0.0
+            self.m[0] = 1.0
+            self.old[:] = (0.0, old[1], old[2])
+            self.mean_ad[:] = kick
+            self.aux[0] = u[0]
+        elif isinstance(initial, str) and initial not in ("stationary",):
+            raise ValueError(f"`initial` must be 'stationary', 'synchronous' or an array, got {initial!r}")
+        else:
+            x = self._stationary_means(mu0)
+            _, (m, u, h, st, old, _), mean, ubar = self._mean_residual(x, mu0)
+            self.mean_ad[:] = mean
+            self.aux[0] = ubar
+            if isinstance(initial, str):
+                self.m[:] = m
+                self.old[:] = old
+            else:
+                mass = self._check_initial_density(initial)
+                self.m[:] = mass[: self.n_bins]
+                self.old[:] = (mass[self.n_bins], old[1], old[2])
+                self.aux[0] = float(np.dot(mass[: self.n_bins], u) + mass[self.n_bins] * old[1])
+        self.u[:] = u
+        self.h[:] = h
+        self.st[:] = st
+
+    def _stationary_means(self, mu0) -> np.ndarray:
+        """Earlier-spike part of the newborn adaptation state in the stationary state (root of the mean equations)."""
+        from scipy.optimize import root
+
+        x0 = np.zeros(self._adapt[0].size)
+        sol = root(lambda x: self._mean_residual(x, mu0)[0], x0, method="hybr", options={"xtol": 1e-13})
+        res = self._mean_residual(sol.x, mu0)[0]
+        if not (sol.success or np.all(np.abs(res) <= 1e-9 * (1.0 + np.abs(sol.x)))):
+            raise ConvergenceError(f"no stationary adaptation state found at `mu` = {mu0!r} mV: {sol.message}")
+        return sol.x
+
+    def _check_initial_density(self, initial) -> np.ndarray:
+        dens = np.asarray(initial, dtype=float)
+        if dens.shape != (self.n_bins + 1,):
+            raise ValueError(f"`initial` age density must have shape ({self.n_bins + 1},) "
+                             f"matching `axis`, got {dens.shape}")
+        if not np.all(np.isfinite(dens)) or np.any(dens < 0) or dens.sum() <= 0:
+            raise ValueError("`initial` age density must be finite, non-negative and not all zero")
+        return dens / dens.sum()
 
     # ----------------------------------------------------------------- init
     def initialize(self, mu0: float, sigma0=None, initial="stationary") -> None:
@@ -312,8 +344,14 @@ class RefractoryDensitySolver(SolverBase):
         ``initial`` is ``"stationary"`` (the exact stationary state of the
         discrete scheme at constant drive ``mu0``), ``"synchronous"`` (all
         neurons have just fired) or an array of age densities (1/ms) on the
-        age bins ``axis`` (normalised here).
+        age bins ``axis`` (normalised here).  For adapting neurons the
+        stationary state solves the quasi-renewal mean equations; an array
+        keeps the stationary adaptation profile of each age and
+        ``"synchronous"`` starts without earlier spikes.
         """
+        if self._adapt is not None:
+            self._initialize_adapting(mu0, initial)
+            return
         us, hs, ss = _trajectory(*self._nargs, self.n_bins, float(mu0), self._stack, self._xbuf)
         self.head = 0
         self._mu_now = float(mu0)
@@ -339,13 +377,7 @@ class RefractoryDensitySolver(SolverBase):
         elif isinstance(initial, str):
             raise ValueError(f"`initial` must be 'stationary', 'synchronous' or an array, got {initial!r}")
         else:
-            dens = np.asarray(initial, dtype=float)
-            if dens.shape != (self.n_bins + 1,):
-                raise ValueError(f"`initial` age density must have shape ({self.n_bins + 1},) "
-                                 f"matching `axis`, got {dens.shape}")
-            if not np.all(np.isfinite(dens)) or np.any(dens < 0) or dens.sum() <= 0:
-                raise ValueError("`initial` age density must be finite, non-negative and not all zero")
-            mass = dens / dens.sum()
+            mass = self._check_initial_density(initial)
             self.m[:] = mass[: self.n_bins]
             self.old[:] = (mass[self.n_bins], us[self.n_bins], hs[self.n_bins])
 
@@ -373,8 +405,13 @@ class RefractoryDensitySolver(SolverBase):
         rate = np.empty(n)
         mean_u = np.empty(n)
         refr = np.empty(n)
-        head, done, ok = _advance(*self._nargs, self.m, self.u, self.h, self.head, self.old, mu,
-                                  rate, mean_u, refr, self._stack, self._xbuf)
+        if self._adapt is None:
+            head, done, ok = _advance(*self._nargs, self.m, self.u, self.h, self.head, self.old, mu,
+                                      rate, mean_u, refr, self._stack, self._xbuf)
+        else:
+            head, done, ok = advance_adapting(*self._nargs, *self._adapt, CLOSURES[self.adaptation_closure], self.m,
+                                              self.u, self.h, self.st, self.head, self.old, self.mean_ad, self._fw,
+                                              self.aux, mu, rate, mean_u, refr, self._stack, self._xbuf)
         self.head = int(head)
         self._mu_now = float(mu[done])
         msg = "" if ok else f"non-finite rate or potential at t = {self.t + done * self.dt:g} ms"
@@ -412,6 +449,13 @@ class RefractoryDensitySolver(SolverBase):
         tau_ref = self.population.neuron.refractory
         return float(m[:-1][ages[:-1] < tau_ref - AGE_TOL * self.dt].sum())
 
+    def adaptation_state(self) -> tuple[np.ndarray, np.ndarray]:
+        """Adaptation of each age bin on :attr:`axis` (shape ``(K, n_bins + 1)``, mV) and the population means (K,)."""
+        if self._adapt is None:
+            return np.zeros((0, self.n_bins + 1)), np.zeros(0)
+        idx = np.append((self.head + np.arange(self.n_bins)) % self.n_bins, self.n_bins)
+        return self.st[:, idx].copy(), self.mean_ad.copy()
+
     def instantaneous_rate(self, mu: float, sigma=None) -> float:
         nrn = self.population.neuron
         hz = self.population.noise.hazard
@@ -419,7 +463,11 @@ class RefractoryDensitySolver(SolverBase):
         ages = self.axis
         free = ages >= nrn.refractory - AGE_TOL * self.dt
         free[-1] = True
-        hval = hz.rate(u, nrn.threshold, nrn.velocity(u, mu)) * free
+        st, _ = self.adaptation_state()
+        kinds = self._adapt[0] if self._adapt is not None else np.zeros(0, dtype=int)
+        w = st[kinds == KIND_CURRENT].sum(axis=0)
+        theta = nrn.threshold + st[kinds != KIND_CURRENT].sum(axis=0)
+        hval = hz.rate(u, theta, nrn.velocity(u, mu - w)) * free
         if nrn.has_cutoff:
             hval = np.where(u >= nrn.boundary, np.inf, hval)
         with np.errstate(invalid="ignore"):
@@ -427,7 +475,10 @@ class RefractoryDensitySolver(SolverBase):
         return r
 
     def diagnostics(self) -> dict:
-        return {"n_bins": self.n_bins + 1, "max_age_ms": self.max_age}
+        out = {"n_bins": self.n_bins + 1, "max_age_ms": self.max_age}
+        if self._adapt is not None:
+            out["adaptation_closure"] = self.adaptation_closure
+        return out
 
     def accuracy_issues(self, mu, sigma=None) -> list[tuple[str, str]]:
         """``dt`` against the largest hazard of bins holding mass, and against ``tau_m``."""

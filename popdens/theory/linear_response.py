@@ -44,6 +44,7 @@ import numpy as np
 from .. import _validation as v
 from ._modulated_threshold import NODES_PER_SIGMA, Sweep
 from ._renewal_response import _renewal_sweep, free_trajectory
+from ..model.adaptation import refuse
 from ..model.drive import as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..progress import Progress
@@ -227,6 +228,7 @@ def stationary_rate(population, mu) -> float:
 def _check_population(population):
     if not isinstance(population, Population):
         raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
+    refuse(population, "the linear response (transfer, spectra)")
     if isinstance(population.noise, EscapeNoise) and population.noise.hazard.uses_slope:
         raise ValueError("the linear response does not support escape functions that depend on du/dt")
     return population

@@ -45,6 +45,7 @@ from scipy.optimize import brentq
 
 from .. import _validation as v
 from ..exceptions import ConvergenceError, UnreachableTargetError
+from ..model.adaptation import refuse
 from ..model.drive import Constant, Drive
 from ..model.neurons import CODE_LIF, CODE_PIF
 from ..model.noise import EscapeNoise, Population, WhiteNoise
@@ -77,6 +78,7 @@ METHODS = ("auto", "siegert", "inverse-gaussian", "threshold-integration", "rene
 def _check_population(population) -> None:
     if not isinstance(population, Population):
         raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
+    refuse(population, "the steady state (gain, stationary, drive_for_rate)")
 
 
 def _constant_sigma(population, sigma) -> float | None:

@@ -32,7 +32,9 @@ import numba
 import numpy as np
 
 from ..model._kernels import NO_REFCOUNT, advance_potential, drift_value
+from ..model.adaptation import step_args
 from ..model.neurons import CODE_LIF
+from ..solvers._refractory_adapting import adapt_end, adapt_start, adapt_sums
 
 __all__ = ["DiffusiveEnsemble"]
 
@@ -130,6 +132,96 @@ def run_diffusive(ncode, npar, nops, nargs, tau_m, reset, boundary, tau_ref, dt,
     return n_steps, n_spk, False
 
 
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def run_diffusive_adapting(ncode, npar, nops, nargs, tau_m, reset, boundary, tau_ref, dt, bridge,
+                           kinds, decay, coup, kick, rest, st,
+                           u, ref, mu, sig, t0, record, spk_t, spk_i, n_spk,
+                           out_count, out_mean_u, out_refr, stack, xbuf):  # pragma: no cover - compiled
+    """:func:`run_diffusive` for neurons with adaptation currents: neuron ``i`` carries ``st[:, i]`` (mV).
+
+    The drive of each neuron is ``mu - sum w``, linear within the step
+    (end value predicted from the start potential); the currents follow the
+    step of :mod:`popdens.solvers._refractory_adapting` and jump by ``kick``
+    at the neuron's spike.
+    """
+    n = u.shape[0]
+    n_steps = mu.shape[0] - 1
+    n_comp = kinds.shape[0]
+    cap = spk_t.shape[0]
+    tol = REF_TOL * dt
+    for k in range(n_steps):
+        if record and cap - n_spk < n:
+            return k, n_spk, True
+        mu0 = mu[k]
+        mu1 = mu[k + 1]
+        sigma = 0.5 * (sig[k] + sig[k + 1])
+        s2 = sigma * sigma / tau_m
+        count = 0
+        su = 0.0
+        refr = 0
+        for i in range(n):
+            u_start = u[i]
+            w0, w1, _ = adapt_start(kinds, decay, coup, rest, st, i, u_start)
+            h = dt
+            ms = mu0 - w0
+            u0 = u_start
+            if ref[i] > 0.0:
+                r = ref[i] - dt
+                if r > tol:
+                    ref[i] = r
+                    adapt_end(kinds, decay, coup, rest, st, i, reset, reset)
+                    su += reset
+                    refr += 1
+                    continue
+                ref[i] = 0.0
+                h = -r if r < 0.0 else 0.0
+                ms = (mu1 - w1) - ((mu1 - w1) - (mu0 - w0)) * h / dt
+                u0 = reset
+                if h <= tol:
+                    u[i] = reset
+                    adapt_end(kinds, decay, coup, rest, st, i, reset, reset)
+                    su += reset
+                    continue
+            u1 = _move(ncode, npar, nops, nargs, tau_m, u0, h, ms, mu1 - w1, sigma, stack, xbuf)
+            fired = u1 >= boundary
+            if not fired and bridge:
+                x = 2.0 * (boundary - u0) * (boundary - u1) / (s2 * h)
+                if x < BRIDGE_SKIP:
+                    fired = np.random.random() < math.exp(-x)
+            if fired:
+                adapt_end(kinds, decay, coup, rest, st, i, u_start, boundary)
+                for c in range(n_comp):
+                    st[c, i] += kick[c]
+                count += 1
+                if record:
+                    spk_t[n_spk] = t0 + (k + 0.5) * dt
+                    spk_i[n_spk] = i
+                    n_spk += 1
+                r = tau_ref - 0.5 * dt
+                if r > tol:
+                    ref[i] = r
+                    u1 = reset
+                    refr += 1
+                else:
+                    ref[i] = 0.0
+                    hf = -r if r < 0.0 else 0.0
+                    u1 = reset
+                    if hf > tol:
+                        wn, _ = adapt_sums(kinds, st, i)
+                        u1 = _move(ncode, npar, nops, nargs, tau_m, reset, hf, mu1 - wn - (mu1 - mu0) * hf / dt,
+                                   mu1 - wn, sigma, stack, xbuf)
+                        if u1 >= boundary:  # pragma: no cover - needs absurd noise
+                            u1 = reset
+            else:
+                adapt_end(kinds, decay, coup, rest, st, i, u_start, u1)
+            u[i] = u1
+            su += u1
+        out_count[k] = count
+        out_mean_u[k] = su / n
+        out_refr[k] = refr / n
+    return n_steps, n_spk, False
+
+
 class DiffusiveEnsemble:
     """State of N white-noise neurons (used by :func:`popdens.montecarlo`).
 
@@ -152,7 +244,6 @@ class DiffusiveEnsemble:
     def __init__(self, population, n, dt, rng, bridge=True):
         nrn = population.neuron
         self.population = population
-        self.sigma_drive = population.noise.sigma_drive
         self.dt = float(dt)
         self.bridge = bool(bridge)
         self.args = (nrn.code, np.ascontiguousarray(nrn.kernel_params, dtype=float), nrn.program[0],
@@ -163,20 +254,28 @@ class DiffusiveEnsemble:
         self.stack = np.empty(nrn.program[0].size + 2)
         self.xbuf = np.zeros(3)
         self.reset = float(nrn.reset)
+        self.adapt = step_args(nrn, self.dt) if nrn.adapting else None
+        self.st = np.zeros((len(nrn.adaptation), n))  # adaptation current of each neuron (mV)
         _ = rng  # the initial state is deterministic (all at reset)
 
-    def run(self, mu, t0, record, spk_t, spk_i, n_spk):
-        """Advance ``len(mu) - 1`` steps from time ``t0`` (ms) with drive ``mu`` (mV) at the step boundaries."""
+    def run(self, mu, sig, t0, record, spk_t, spk_i, n_spk):
+        """Advance ``len(mu) - 1`` steps from time ``t0`` (ms) with drive ``mu`` and noise amplitude
+        ``sig`` (mV) at the step boundaries."""
         mu = np.ascontiguousarray(mu, dtype=float)
         n = mu.size - 1
-        sig = np.ascontiguousarray(self.sigma_drive(t0 + self.dt * np.arange(n + 1)), dtype=float)
+        sig = np.ascontiguousarray(sig, dtype=float)
         if not np.all(np.isfinite(sig) & (sig > 0)):
             raise FloatingPointError("the noise amplitude must stay finite and > 0 mV")
         count = np.empty(n, dtype=np.int64)
         mean_u = np.empty(n)
         refr = np.empty(n)
-        done, n_spk, full = run_diffusive(*self.args, self.u, self.ref, mu, sig, float(t0), record, spk_t, spk_i,
-                                          n_spk, count, mean_u, refr, self.stack, self.xbuf)
+        if self.adapt is None:
+            done, n_spk, full = run_diffusive(*self.args, self.u, self.ref, mu, sig, float(t0), record, spk_t, spk_i,
+                                              n_spk, count, mean_u, refr, self.stack, self.xbuf)
+        else:
+            done, n_spk, full = run_diffusive_adapting(*self.args, *self.adapt, self.st, self.u, self.ref, mu, sig,
+                                                       float(t0), record, spk_t, spk_i, n_spk, count, mean_u, refr,
+                                                       self.stack, self.xbuf)
         return done, n_spk, full, count[:done], mean_u[:done], refr[:done]
 
     def instantaneous_rate(self, population, mu):
@@ -184,9 +283,11 @@ class DiffusiveEnsemble:
         return float("nan")
 
     def start_synchronous(self, population, mu0):
-        """All neurons fire at t = 0: reset and refractory for the full period."""
+        """All neurons fire at t = 0 (with no earlier spikes): reset and refractory for the full period."""
         self.u[:] = self.reset
         self.ref[:] = float(population.neuron.refractory)
+        if self.adapt is not None:
+            self.st[:] = self.adapt[3][:, None]
 
     def mean_potential(self):
         return float(self.u.mean())

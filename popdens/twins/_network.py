@@ -35,7 +35,7 @@ import numpy as np
 from ..model._kernels import NO_REFCOUNT
 from ._diffusive import BRIDGE_SKIP, REF_TOL, _move
 from ..model.neurons import CODE_LIF
-from ..solvers.refractory import _bin_step, _newborn
+from ..solvers._age_step import _bin_step, _newborn
 
 NOISE_WHITE, NOISE_ESCAPE = 0, 1
 

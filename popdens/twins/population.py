@@ -15,9 +15,10 @@ import numpy as np
 
 from .._version import __version__
 from .. import _validation as v
-from ._escape import run_escape, seed_compiled_rng
-from ..solvers.refractory import _newborn
-from ..solvers._recording import block_ends, downsample, make_grid
+from ._escape import run_escape, run_escape_adapting, seed_compiled_rng
+from ..model.adaptation import KIND_CURRENT, step_args
+from ..solvers._age_step import _newborn
+from ..solvers._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps
 from ..model.drive import as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..progress import Progress
@@ -33,8 +34,19 @@ DEFAULT_DT = 0.1
 #: in membrane time constants beyond the refractory period, plus a floor.
 BURN_IN_TAUS = 20.0
 BURN_IN_MIN_MS = 500.0
+#: ... and in time constants of the slowest adaptation component: the mean adaptation relaxes
+#: at least this fast, so its distance to the stationary state falls below exp(-8) ~ 3e-4.
+BURN_IN_ADAPTATION_TAUS = 8.0
 #: Initial capacity of the spike buffer, per neuron.
 SPIKES_PER_NEURON_GUESS = 16
+
+
+def default_burn_in(neuron) -> float:
+    """Default burn-in (ms): long enough for the membrane and every adaptation component to settle."""
+    out = max(BURN_IN_MIN_MS, neuron.refractory + BURN_IN_TAUS * neuron.tau_m)
+    if neuron.adaptation:
+        out = max(out, BURN_IN_ADAPTATION_TAUS * max(a.tau for a in neuron.adaptation))
+    return out
 
 
 def _escape_args(population, dt):
@@ -65,26 +77,47 @@ class _EscapeEnsemble:
         self.stack = np.empty(size)
         self.xbuf = np.zeros(3)
         self.refractory = nrn.refractory
+        self.adapt = step_args(nrn, dt) if nrn.adapting else None
+        self.st = np.zeros((len(nrn.adaptation), n))  # adaptation of each neuron (mV)
 
-    def run(self, mu, t0, record, spk_t, spk_i, n_spk):
+    def run(self, mu, sig, t0, record, spk_t, spk_i, n_spk):
         n = mu.size - 1
         count = np.empty(n, dtype=np.int64)
         mean_u = np.empty(n)
         refr = np.empty(n)
-        done, n_spk, full = run_escape(*self.args, self.u, self.age, self.lam, self.thr, self.h, mu, t0,
-                                       record, spk_t, spk_i, n_spk, count, mean_u, refr,
-                                       self.stack, self.xbuf)
+        if self.adapt is None:
+            done, n_spk, full = run_escape(*self.args, self.u, self.age, self.lam, self.thr, self.h, mu, t0,
+                                           record, spk_t, spk_i, n_spk, count, mean_u, refr,
+                                           self.stack, self.xbuf)
+        else:
+            done, n_spk, full = run_escape_adapting(*self.args, *self.adapt, self.st, self.u, self.age, self.lam,
+                                                    self.thr, self.h, mu, t0, record, spk_t, spk_i, n_spk, count,
+                                                    mean_u, refr, self.stack, self.xbuf)
         return done, n_spk, full, count[:done], mean_u[:done], refr[:done]
+
+    def _sums(self):
+        """Summed adaptation currents and threshold shifts (mV) of every neuron."""
+        if self.adapt is None:
+            return 0.0, 0.0
+        current = self.adapt[0] == KIND_CURRENT
+        return self.st[current].sum(axis=0), self.st[~current].sum(axis=0)
 
     def instantaneous_rate(self, population, mu):
         nrn, hz = population.neuron, population.noise.hazard
         free = self.age >= nrn.refractory
-        return float(np.mean(hz.rate(self.u, nrn.threshold, nrn.velocity(self.u, mu)) * free))
+        w, th = self._sums()
+        return float(np.mean(hz.rate(self.u, nrn.threshold + th, nrn.velocity(self.u, mu - w)) * free))
 
     def start_synchronous(self, population, mu0):
-        """All neurons fire at t = 0: reset, age 0, fresh integrated hazard."""
-        u0, h0 = _newborn(*self.args[:6], *self.args[8:14], self.args[14], self.dt, float(mu0),
-                          self.stack, self.xbuf)
+        """All neurons fire at t = 0 (with no earlier spikes): reset, age 0, fresh integrated hazard."""
+        w0 = th0 = 0.0
+        if self.adapt is not None:
+            self.st[:] = self.adapt[3][:, None]
+            w, th = self._sums()
+            w0, th0 = float(w[0]), float(th[0])
+        args = list(self.args)
+        args[12] += th0
+        u0, h0 = _newborn(*args[:6], *args[8:14], args[14], self.dt, float(mu0) - w0, self.stack, self.xbuf)
         self.u[:] = u0
         self.h[:] = h0
         self.age[:] = 0.5 * self.dt  # as the density solver: fired within the step before t = 0
@@ -134,7 +167,8 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
         ``"synchronous"``: all neurons fire at t = 0.
     burn_in : float, optional
         Burn-in (ms) for ``initial="stationary"``; default
-        ``max(500, refractory + 20 tau_m)``.
+        ``max(500, refractory + 20 tau_m)``, and at least 8 time constants of
+        the slowest adaptation component.
     record_interval : float, optional
         Bin width (ms) of the population rate; default ``dt``.
     record_spikes : bool
@@ -174,18 +208,23 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     wall0 = time.perf_counter()
     seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
     ens = _make_ensemble(population, n, grid.dt, rng, options)
-    mu0 = float(drive(0.0))
+    mu_at = BoundarySamples(drive, grid)
+    sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
+    sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
+    mu0 = mu_at.start()
     if not np.isfinite(mu0):
         raise ValueError("the drive is not finite at t = 0")
+    sigma0 = sigma_at.start() if sigma_at is not None else None
     no_spikes = (np.zeros(1), np.zeros(1, dtype=np.int64))
     if initial == "stationary":
         if burn_in is None:
-            burn_in = max(BURN_IN_MIN_MS, nrn.refractory + BURN_IN_TAUS * nrn.tau_m)
+            burn_in = default_burn_in(nrn)
         burn_in = v.non_negative("burn_in", burn_in)
         n_burn = int(round(burn_in / grid.dt))
         for k0 in range(0, n_burn, 5000):
             k1 = min(n_burn, k0 + 5000)
-            ens.run(np.full(k1 - k0 + 1, mu0), 0.0, False, *no_spikes, 0)
+            ens.run(np.full(k1 - k0 + 1, mu0), None if sigma0 is None else np.full(k1 - k0 + 1, sigma0),
+                    0.0, False, *no_spikes, 0)
     else:
         if burn_in is not None:
             v.warn_ignored("burn_in", "initial='synchronous' starts all neurons at a spike")
@@ -204,13 +243,15 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in block_ends(grid, 2000):
+        for end in split_at_jumps(block_ends(grid, 2000), mu_at, sigma_at):
             while k < end:
                 tk = grid.step_times(k, end)
-                mu = drive(tk)
+                mu = mu_at.values(k, end)
                 if not np.all(np.isfinite(mu)):
                     raise FloatingPointError(f"the drive is not finite at t = {tk[~np.isfinite(mu)][0]:g} ms")
-                done, n_spk, full, c, mu_out, rf = ens.run(mu, k * grid.dt, record_spikes, spk_t, spk_i, n_spk)
+                sg = sigma_at.values(k, end) if sigma_at is not None else None
+                done, n_spk, full, c, mu_out, rf = ens.run(mu, sg, k * grid.dt, record_spikes, spk_t, spk_i,
+                                                           n_spk)
                 counts[k:k + done] = c
                 mean_u[k:k + done] = mu_out
                 refr[k:k + done] = rf

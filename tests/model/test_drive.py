@@ -46,3 +46,20 @@ def test_invalid_drives():
         drive.Constant(float("nan"))
     with pytest.raises(ValueError, match="`frequency`"):
         drive.Sine(0.0, 1.0, -1.0)
+
+
+def test_jump_times_and_left_limits():
+    # from the definitions: Step and Pulse are right-continuous with jumps at t (and t + duration)
+    st = drive.Step(10.0, 1.0, 2.0)
+    np.testing.assert_array_equal(st.jump_times(0.0, 20.0), [10.0])
+    assert st.jump_times(10.5, 20.0).size == 0
+    assert st(10.0) == 2.0 and st.left_limit(10.0) == 1.0 and st.left_limit(10.5) == 2.0
+    pu = drive.Pulse(10.0, 5.0, 1.0, 4.0)
+    np.testing.assert_array_equal(pu.jump_times(0.0, 20.0), [10.0, 15.0])
+    np.testing.assert_allclose(pu.left_limit([10.0, 12.0, 15.0, 16.0]), [1.0, 5.0, 5.0, 1.0])
+    s = drive.Sine(0.0, 1.0, 10.0) + st + pu + drive.Step(10.0, 0.0, 0.0)  # a zero step does not jump
+    np.testing.assert_array_equal(s.jump_times(0.0, 20.0), [10.0, 15.0])
+    assert s.left_limit(15.0) == pytest.approx(float(np.sin(2 * np.pi * 0.15)) + 2.0 + 5.0)
+    for cont in (drive.Ramp(0.0, 5.0, 0.0, 1.0), drive.Trace([0.0, 1.0], [0.0, 1.0]), drive.Constant(2.0)):
+        assert cont.jump_times(-1.0, 10.0).size == 0
+        assert cont.left_limit(0.5) == cont(0.5)

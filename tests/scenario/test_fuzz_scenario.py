@@ -261,6 +261,7 @@ def test_non_utf8_and_unreadable_files_are_scenario_errors(tmp_path):
     (lambda d: d["run"].__setitem__("dt", 1e-300), "t_end"),  # tried to allocate 1e302 steps
     (lambda d: d["run"].__setitem__("record_interval", 0.0), "record_interval"),  # ValueError at run time
     (lambda d: d["run"].__setitem__("record_interval", 0.15), "record_interval"),
+    (lambda d: d["run"].__setitem__("record_interval", 1.797693134862316e307), "record_interval"),  # OverflowError
 ])
 def test_regressions_are_scenario_errors_naming_the_key(mutate, key):
     data = copy.deepcopy(VALID)
