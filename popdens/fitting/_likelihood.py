@@ -40,7 +40,7 @@ import numba
 import numpy as np
 
 from ..model._kernels import NO_REFCOUNT
-from ..solvers.refractory import _bin_step, _newborn
+from ..solvers._age_step import _bin_step, _newborn
 
 
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)

@@ -30,6 +30,7 @@ import numpy as np
 
 from .. import _validation as v
 from ..exceptions import PopdensError
+from ..model.adaptation import refuse
 from ..model.noise import EscapeNoise, WhiteNoise
 from ..theory._isi_diffusive import _cells, laplace_passage
 from .data import SpikeTrains
@@ -169,6 +170,7 @@ def fit_isi(population, data, free, *, mu, profile=False) -> FitResult:
     """
     isis = _as_isis(data)
     mu = v.as_finite_float("mu", mu)
+    refuse(population, "the ISI fit (adapting neurons are not renewal processes; fit their spike trains with fit_psth)")
     white = isinstance(population.noise, WhiteNoise)
     if not white and not isinstance(population.noise, EscapeNoise):  # pragma: no cover - Population checks
         raise ValueError("unsupported noise model")

@@ -103,7 +103,8 @@ class ParameterSet:
     def current_values(population, drive_values) -> dict:
         out = {}
         for k, val in population.neuron.parameters().items():
-            out[k] = float(val)
+            if k != "adaptation":
+                out[k] = float(val)
         if isinstance(population.noise, EscapeNoise):
             for k, val in population.noise.hazard.parameters().items():
                 out[k] = float(val)
@@ -138,7 +139,10 @@ class ParameterSet:
         """``(population, drive_values)`` at free values ``x``; ``ValueError`` if the model rejects them."""
         vals = self.values(x)
         nrn = self.population.neuron
-        nrn_new = type(nrn)(**{k: vals[k] for k in nrn.parameters()})
+        kw = {k: vals[k] for k in nrn.parameters() if k != "adaptation"}
+        if nrn.adaptation:
+            kw["adaptation"] = list(nrn.adaptation)
+        nrn_new = type(nrn)(**kw)
         noise = self.population.noise
         if isinstance(noise, EscapeNoise):
             hz = noise.hazard

@@ -18,6 +18,7 @@ import numpy as np
 
 from .. import _validation as v
 from ..model.drive import Drive, Trace, as_drive
+from ..model.adaptation import refuse
 from ..model.noise import EscapeNoise
 from ..twins.population import _escape_args
 from ._likelihood import escape_train_loglik
@@ -81,6 +82,7 @@ def psth_loglik(population, spikes: SpikeTrains, stimulus, *, dt=DEFAULT_DT, sca
     """
     if not isinstance(spikes, SpikeTrains):
         raise ValueError(f"`spikes` must be SpikeTrains, got {type(spikes).__name__}")
+    refuse(population, "the spike-train likelihood")
     data = _Binned(spikes, as_drive(stimulus), v.positive("dt", dt))
     return float(data.loglik(population, {"scale": v.as_finite_float("scale", scale),
                                           "offset": v.as_finite_float("offset", offset)}))
@@ -127,6 +129,7 @@ def fit_psth(population, spikes: SpikeTrains, stimulus, free, *, dt=DEFAULT_DT, 
     if not isinstance(population.noise, EscapeNoise):
         raise ValueError("`population`: the spike-train (PSTH) fit needs escape noise; for white noise fit ISIs "
                          "under constant drive (fit_isi)")
+    refuse(population, "the spike-train (PSTH) fit")
     stimulus = as_drive(stimulus)
     data = _Binned(spikes, stimulus, v.positive("dt", dt))
     params = ParameterSet.make(population, free, {"scale": v.as_finite_float("scale", scale),
