@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["save_figure", "plot_circuit_rates", "plot_comparison", "plot_density_map", "plot_fit", "plot_gain", "plot_isi",
+__all__ = ["save_figure", "plot_calibration", "plot_circuit_rates", "plot_comparison", "plot_density_map", "plot_fit", "plot_gain", "plot_isi",
            "plot_ks", "plot_rate",
            "plot_stability_map", "plot_steady_state", "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map",
            "plot_transfer"]
@@ -349,4 +349,25 @@ def plot_fit(fit):
         g = fit.goodness
         plot_ks(d["z_sorted"], d["band_95"], ax=axes[0, 1],
                 title=f"KS {g['ks_statistic']:.3g}, p = {g['p_value']:.3g} ({g['n_intervals']} intervals)")
+    return fig
+
+
+def plot_calibration(cal):
+    """Stationary rate and CV of a white-noise population and its calibrated escape-noise stand-in
+    against the drive (a :class:`~popdens.fitting.bridge.Calibration`); returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    rows = cal.table
+    mu = [r["mu"] for r in rows]
+    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(9.0, 3.5), constrained_layout=True)
+    ax1.plot(mu, [r["rate_white"] for r in rows], "o-", label="white noise")
+    ax1.plot(mu, [r["rate_escape"] for r in rows], "s--", label="calibrated escape noise")
+    ax1.set_xlabel("drive (mV)")
+    ax1.set_ylabel("rate (Hz)")
+    ax1.legend(frameon=False)
+    ax2.plot(mu, [r["cv_white"] for r in rows], "o-")
+    ax2.plot(mu, [r["cv_escape"] for r in rows], "s--")
+    ax2.set_xlabel("drive (mV)")
+    ax2.set_ylabel("ISI CV")
+    fig.suptitle(", ".join(f"{n} = {cal.fit.estimates[n]:.4g}" for n in cal.fit.names), fontsize="medium")
     return fig

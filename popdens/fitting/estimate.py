@@ -33,6 +33,8 @@ Z95 = 1.959963984540054
 GRADIENT_STEP = 1e-5
 #: Hessian step as a fraction of the first-pass standard error.
 HESSIAN_STEP_SE = 0.3
+#: Gradient step of the Newton iterations as a fraction of the standard error.
+GRADIENT_STEP_SE = 0.05
 #: An information matrix whose smallest eigenvalue (in standard-error-scaled units) falls below this
 #: relative to the largest is singular: the parameters are not separately identifiable.
 IDENTIFIABLE_RTOL = 1e-8
@@ -233,16 +235,26 @@ def _newton_polish(obj, z, hess_hint=None, max_iter=12):
         val = obj.at_x(params.from_z(zz))
         return val if math.isfinite(val) else -1e300
 
+    def stencil(zz, st):
+        # the Hessian from steps of ~SE/3; the gradient again from steps of SE/20, since a wide
+        # central difference carries a bias h^2 f'''/6 (third derivative) that would move the maximum
+        f0_, g_, hm_ = _stencil(f, zz, st)
+        if np.all(np.diag(hm_) < 0.0):
+            small = GRADIENT_STEP_SE * np.sqrt(np.diag(np.linalg.pinv(-hm_)))
+            if np.all(small < st):
+                g_ = _gradient(f, zz, small)
+        return f0_, g_, hm_
+
     hint_ok = hess_hint is not None and np.all(np.isfinite(hess_hint)) and np.all(np.diag(hess_hint) < 0.0)
     if hint_ok:
         hm = np.asarray(hess_hint, dtype=float)
         steps = HESSIAN_STEP_SE * np.sqrt(np.clip(np.diag(np.linalg.pinv(-hm)), 1e-300, None))
         f0 = f(z)
-        g = _gradient(f, z, steps)
+        g = _gradient(f, z, steps * (GRADIENT_STEP_SE / HESSIAN_STEP_SE))
         fresh = False
     else:
         steps = np.array([1e-3 if n in POSITIVE else 1e-3 * max(abs(zi), 1e-2) for n, zi in zip(names, z)])
-        f0, g, hm = _stencil(f, z, steps)
+        f0, g, hm = stencil(z, steps)
         fresh = True
     for _ in range(max_iter):
         _check_information(-hm, names, params.from_z(z))
@@ -263,7 +275,7 @@ def _newton_polish(obj, z, hess_hint=None, max_iter=12):
                 return x, f0, cov * np.outer(jac, jac)
             if not good_steps:
                 steps = HESSIAN_STEP_SE * se
-            f0, g, hm = _stencil(f, z, steps)
+            f0, g, hm = stencil(z, steps)
             fresh = True
             continue
         for _ in range(10):
@@ -276,11 +288,11 @@ def _newton_polish(obj, z, hess_hint=None, max_iter=12):
         z = z + step
         f0 = f_new
         if good_steps and np.all(np.abs(step) <= 5.0 * se):
-            g = _gradient(f, z, steps)
+            g = _gradient(f, z, GRADIENT_STEP_SE * se)
             fresh = False
         else:
             steps = HESSIAN_STEP_SE * se
-            f0, g, hm = _stencil(f, z, steps)
+            f0, g, hm = stencil(z, steps)
             fresh = True
     raise ConvergenceError(f"Newton steps on the log-likelihood did not settle within {max_iter} iterations")
 

@@ -34,6 +34,14 @@ UNITS = {
 POSITIVE = {"tau_m", "refractory", "slope_factor", "rate", "width", "slope", "max_rate", "sigma", "tau", "c1", "c2"}
 
 
+def _init_names(obj) -> list:
+    """The constructor's parameter names of an escape function (its ``parameters()`` keys that are arguments)."""
+    import inspect
+
+    args = inspect.signature(type(obj).__init__).parameters
+    return [k for k in obj.parameters() if k in args]
+
+
 @dataclass(frozen=True)
 class ParameterSet:
     """The free parameters of a fit and how to turn their values into a model.
@@ -106,8 +114,8 @@ class ParameterSet:
             if k != "adaptation":
                 out[k] = float(val)
         if isinstance(population.noise, EscapeNoise):
-            for k, val in population.noise.hazard.parameters().items():
-                out[k] = float(val)
+            for k in _init_names(population.noise.hazard):
+                out[k] = float(population.noise.hazard.parameters()[k])
         else:
             out["sigma"] = float(population.noise.sigma)
         out.update({k: float(val) for k, val in drive_values.items()})
@@ -146,7 +154,7 @@ class ParameterSet:
         noise = self.population.noise
         if isinstance(noise, EscapeNoise):
             hz = noise.hazard
-            noise_new = EscapeNoise(type(hz)(**{k: vals[k] for k in hz.parameters()}))
+            noise_new = EscapeNoise(type(hz)(**{k: vals[k] for k in _init_names(hz)}))
         else:
             noise_new = WhiteNoise(vals["sigma"])
         return Population(nrn_new, noise_new), {k: vals[k] for k in self.drive_values}

@@ -89,7 +89,7 @@ def psth_loglik(population, spikes: SpikeTrains, stimulus, *, dt=DEFAULT_DT, sca
 
 
 def fit_psth(population, spikes: SpikeTrains, stimulus, free, *, dt=DEFAULT_DT, scale=1.0, offset=0.0,
-             profile=False, seed=0, psth_bin=PSTH_BIN_MS) -> FitResult:
+             profile=False, seed=0, psth_bin=PSTH_BIN_MS, predict=True) -> FitResult:
     """Fit an escape-noise population to spike trains recorded under a known stimulus.
 
     Parameters
@@ -116,6 +116,9 @@ def fit_psth(population, spikes: SpikeTrains, stimulus, free, *, dt=DEFAULT_DT, 
         Seed of the uniform numbers of the discrete-time rescaling correction.
     psth_bin : float
         Bin (ms) of the observed PSTH in the figure.
+    predict : bool
+        Compute the predicted PSTH (refractory-density solver at the
+        estimates) for the figure; ``False`` skips it (e.g. in repeated fits).
 
     Returns
     -------
@@ -156,14 +159,16 @@ def fit_psth(population, spikes: SpikeTrains, stimulus, free, *, dt=DEFAULT_DT, 
     data.loglik(fit.population, fit.drive_values, record=True, uniforms=uniforms)
     goodness = ks_uniform(data.rescaled)
     # predicted PSTH from the refractory-density solver at the estimates
-    from ..solvers.frontend import simulate
-
-    mu = fit.drive_values["scale"] * data.stimulus + fit.drive_values["offset"]
-    pred = simulate(fit.population, Trace(data.t, mu), t_end=spikes.duration, dt=dt, progress=False)
     edges, observed = spikes.psth(psth_bin)
-    plot_data = {"pred_t": pred.t, "pred_rate": pred.rate, "edges": edges, "observed": observed,
+    plot_data = {"pred_t": np.zeros(0), "pred_rate": np.zeros(0), "edges": edges, "observed": observed,
                  "n_trials": spikes.n_trials, "bin": psth_bin, "z_sorted": goodness.pop("z_sorted"),
                  "band_95": goodness["band_95"]}
+    if predict:
+        from ..solvers.frontend import simulate
+
+        mu = fit.drive_values["scale"] * data.stimulus + fit.drive_values["offset"]
+        pred = simulate(fit.population, Trace(data.t, mu), t_end=spikes.duration, dt=dt, progress=False)
+        plot_data["pred_t"], plot_data["pred_rate"] = pred.t, pred.rate
     diag = dict(fit.diagnostics)
     diag["loglik"] = (f"discrete-time point-process log-likelihood at dt = {dt:g} ms, each trial conditioned on its "
                       "first spike")
