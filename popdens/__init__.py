@@ -18,8 +18,8 @@ import sys as _sys
 from ._version import __version__
 from .exceptions import (AccuracyWarning, ConvergenceError, ExpressionError, PopdensError, ScenarioError,
                          UnreachableTargetError)
-from .fitting import (FitResult, GainCurve, SpikeTrains, fit_gain, fit_isi, fit_psth, load_gain_curve,
-                      load_spike_trains, load_stimulus)
+from .fitting import (Calibration, FitResult, GainCurve, SpikeTrains, fit_gain, fit_isi, fit_psth, load_gain_curve,
+                      calibrate_escape, load_spike_trains, load_stimulus)
 from .model import drive, hazard
 from .model.adaptation import Adaptation, MovingThreshold
 from .model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
@@ -46,6 +46,7 @@ _sys.modules[__name__ + ".hazard"] = hazard
 __all__ = [
     "AccuracyWarning",
     "Adaptation",
+    "Calibration",
     "Circuit",
     "CircuitResult",
     "Cohort",
@@ -76,6 +77,7 @@ __all__ = [
     "UnreachableTargetError",
     "WhiteNoise",
     "__version__",
+    "calibrate_escape",
     "drive",
     "drive_and_noise_for",
     "drive_for_rate",

@@ -9,11 +9,12 @@ observed information, profile intervals, and the time-rescaling
 goodness-of-fit test.
 """
 
+from .bridge import Calibration, calibrate_escape
 from .data import GainCurve, SpikeTrains, load_gain_curve, load_spike_trains, load_stimulus
 from .estimate import FitResult
 from .gain_curve import fit_gain
 from .isi import fit_isi, isi_loglik
 from .psth import fit_psth, psth_loglik
 
-__all__ = ["FitResult", "GainCurve", "SpikeTrains", "fit_gain", "fit_isi", "fit_psth", "isi_loglik",
+__all__ = ["Calibration", "FitResult", "GainCurve", "SpikeTrains", "calibrate_escape", "fit_gain", "fit_isi", "fit_psth", "isi_loglik",
            "load_gain_curve", "load_spike_trains", "load_stimulus", "psth_loglik"]
