@@ -221,10 +221,7 @@ def _newton_polish(obj, z, hess_hint=None, max_iter=12):
     next step reuses the Hessian (or ``hess_hint``, e.g. from part of the
     data) with a fresh gradient (2p instead of 2p^2 evaluations).  Stops
     when a step computed from a fresh stencil is below 2 % of every
-    standard error.  A gradient left at the estimate (more than 0.1 per
-    standard error) means a kink: the maximum lies at a limit set by the data
-    (e.g. ``refractory`` at the shortest interval), where the information
-    gives no standard error.  Returns ``(x, loglik, covariance in the
+    standard error.  Returns ``(x, loglik, covariance in the
     model's units)``; at the maximum the change of coordinates is exact:
     ``cov_x = J cov_z J``, ``J = dx/dz``.
     """
@@ -264,12 +261,6 @@ def _newton_polish(obj, z, hess_hint=None, max_iter=12):
         step = cov @ g
         if np.all(np.abs(step) <= 0.02 * se):
             if fresh and good_steps:
-                kink = [n for n, gi, si in zip(names, g, se) if abs(gi) * si > 0.1]
-                if kink:
-                    raise ConvergenceError(
-                        f"the log-likelihood has a kink at the estimate of {kink}: the maximum lies at a limit "
-                        "set by the data (e.g. `refractory` at the shortest interval), which has no standard "
-                        "error; fix that parameter (e.g. just below the shortest interval) and fit the others")
                 x = params.from_z(z)
                 jac = np.array([xi if n in POSITIVE else 1.0 for n, xi in zip(names, x)])
                 return x, f0, cov * np.outer(jac, jac)

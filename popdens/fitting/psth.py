@@ -18,6 +18,7 @@ import numpy as np
 
 from .. import _validation as v
 from ..model.drive import Drive, Trace, as_drive
+from ..exceptions import ConvergenceError
 from ..model.adaptation import refuse
 from ..model.noise import EscapeNoise
 from ..twins.population import _escape_args
@@ -155,6 +156,14 @@ def fit_psth(population, spikes: SpikeTrains, stimulus, free, *, dt=DEFAULT_DT, 
         fraction = part.n_spikes / spikes.n_spikes
     fit = maximise(data.loglik, params, kind="psth", n_observations=n_intervals, profile=profile, warm=warm,
                    warm_fraction=fraction if warm is not None else 1.0)
+    if "refractory" in fit.names and spikes.isis().size:
+        shortest = float(spikes.isis().min())
+        if fit.estimates["refractory"] + 2.0 * dt >= shortest:
+            raise ConvergenceError(
+                f"the estimate of `refractory` ({fit.estimates['refractory']:.4g} ms) sits at the shortest interval "
+                f"({shortest:.4g} ms): the hazard after the refractory period is large, so the maximum lies at "
+                "this limit of the data, which has no standard error; fix `refractory` (e.g. just below the "
+                "shortest interval) and fit the others")
     uniforms = np.random.default_rng(seed).uniform(size=data.bins.size)
     data.loglik(fit.population, fit.drive_values, record=True, uniforms=uniforms)
     goodness = ks_uniform(data.rescaled)
