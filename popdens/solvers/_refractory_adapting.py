@@ -55,7 +55,7 @@ import numpy as np
 
 from ..model._kernels import MS_TO_S, NO_REFCOUNT, drift_value, hazard_value, survival
 from ..model.adaptation import KIND_CURRENT
-from ._age_step import AGE_TOL, _bin_step, _newborn
+from ._age_step import AGE_TOL, _bin_step, _newborn, _refire_survival
 
 __all__ = ["CLOSURES", "adapt_start", "adapt_end", "adapt_sums", "advance_adapting", "stationary_profile"]
 
@@ -212,7 +212,11 @@ def advance_adapting(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutof
             refr += fired
         mean_u += fired * unb
         aux[0] = mean_u
-        out_rate[k] = fired / (dt * MS_TO_S)
+        # newborns that fire again within their birth step (tau_ref < dt/2): counted in the rate;
+        # their extra adaptation kicks are not tracked (a first-order term in dt of kick * H)
+        s_nb = _refire_survival(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta + thn,
+                                uses_slope, tau_ref, dt, mu1 - wn, hnb, stack, xbuf)
+        out_rate[k] = fired / s_nb / (dt * MS_TO_S)
         out_mean_u[k] = mean_u
         out_refr[k] = refr
         if not (math.isfinite(fired) and math.isfinite(mean_u)):

@@ -50,7 +50,7 @@ from ..exceptions import ConvergenceError
 from ..model._kernels import MS_TO_S, NO_REFCOUNT, drift_value, hazard_value, survival
 from ..model.adaptation import KIND_CURRENT, step_args
 from ..model.neurons import CODE_LIF, CODE_PIF
-from ._age_step import AGE_TOL, _bin_step, _newborn
+from ._age_step import AGE_TOL, _bin_step, _newborn, _refire_survival
 from ._base import SolverBase
 from ._refractory_adapting import CLOSURES, advance_adapting, stationary_profile
 
@@ -153,7 +153,9 @@ def _advance(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
         if 0.5 * dt < tau_ref - AGE_TOL * dt:
             refr += fired
         mean_u += fired * unb
-        out_rate[k] = fired / (dt * MS_TO_S)
+        s_nb = _refire_survival(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta,
+                                uses_slope, tau_ref, dt, mu1, hnb, stack, xbuf)
+        out_rate[k] = fired / s_nb / (dt * MS_TO_S)
         out_mean_u[k] = mean_u
         out_refr[k] = refr
         if not (math.isfinite(fired) and math.isfinite(mean_u)):

@@ -17,7 +17,7 @@ import numba
 import numpy as np
 
 from ..model._kernels import NO_REFCOUNT
-from ..solvers._age_step import _bin_step, _newborn
+from ..solvers._age_step import _bin_step, _newborn, _refire_survival
 from ..solvers._refractory_adapting import adapt_end, adapt_start, adapt_sums
 
 
@@ -43,8 +43,10 @@ def run_escape(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
     e_dt = math.exp(-dt / tau_m)
     cap = spk_t.shape[0]
     for k in range(n_steps):
-        if record and cap - n_spk < n:
-            return k, n_spk, True  # a step may add up to n spikes: grow the buffer first
+        if record and cap - n_spk < 2 * n:
+            # a step adds up to n spikes, plus re-firings within birth steps (each with probability
+            # below h dt/2 << 1, so more than n of them in one step does not happen): grow first
+            return k, n_spk, True
         mu0 = mu[k]
         mu1 = mu[k + 1]
         count = 0
@@ -64,6 +66,15 @@ def run_escape(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                 # fired, on average, half a step ago (see refractory._newborn)
                 u[i], h[i] = _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs,
                                       theta, uses_slope, tau_ref, dt, mu1, stack, xbuf)
+                # and may fire again before the step ends (tau_ref < dt/2; _refire_survival)
+                s_nb = _refire_survival(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs,
+                                        theta, uses_slope, tau_ref, dt, mu1, h[i], stack, xbuf)
+                while s_nb < 1.0 and np.random.random() >= s_nb:
+                    count += 1
+                    if record and n_spk < cap:
+                        spk_t[n_spk] = t0 + (k + 0.5) * dt
+                        spk_i[n_spk] = i
+                        n_spk += 1
                 age[i] = 0.5 * dt
                 lam[i] = 0.0
                 thr[i] = np.random.exponential(1.0)
@@ -99,8 +110,8 @@ def run_escape_adapting(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cu
     e_dt = math.exp(-dt / tau_m)
     cap = spk_t.shape[0]
     for k in range(n_steps):
-        if record and cap - n_spk < n:
-            return k, n_spk, True
+        if record and cap - n_spk < 2 * n:
+            return k, n_spk, True  # as in run_escape
         mu0 = mu[k]
         mu1 = mu[k + 1]
         count = 0
@@ -125,6 +136,22 @@ def run_escape_adapting(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cu
                 wn, thn = adapt_sums(kinds, st, i)
                 u[i], h[i] = _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs,
                                       theta + thn, uses_slope, tau_ref, dt, mu1 - wn, stack, xbuf)
+                # firing again within the birth step (tau_ref < dt/2), each spike with its kick
+                s_nb = _refire_survival(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs,
+                                        theta + thn, uses_slope, tau_ref, dt, mu1 - wn, h[i], stack, xbuf)
+                while s_nb < 1.0 and np.random.random() >= s_nb:
+                    count += 1
+                    if record and n_spk < cap:
+                        spk_t[n_spk] = t0 + (k + 0.5) * dt
+                        spk_i[n_spk] = i
+                        n_spk += 1
+                    for c in range(n_comp):
+                        st[c, i] += kick[c]
+                    wn, thn = adapt_sums(kinds, st, i)
+                    u[i], h[i] = _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs,
+                                          theta + thn, uses_slope, tau_ref, dt, mu1 - wn, stack, xbuf)
+                    s_nb = _refire_survival(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs,
+                                            theta + thn, uses_slope, tau_ref, dt, mu1 - wn, h[i], stack, xbuf)
                 age[i] = 0.5 * dt
                 lam[i] = 0.0
                 thr[i] = np.random.exponential(1.0)

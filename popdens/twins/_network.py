@@ -35,7 +35,7 @@ import numpy as np
 from ..model._kernels import NO_REFCOUNT
 from ._diffusive import BRIDGE_SKIP, REF_TOL, _move
 from ..model.neurons import CODE_LIF
-from ..solvers._age_step import _bin_step, _newborn
+from ..solvers._age_step import _bin_step, _newborn, _refire_survival
 
 NOISE_WHITE, NOISE_ESCAPE = 0, 1
 
@@ -103,7 +103,7 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
     cap = spk_t.shape[0]
     tol = REF_TOL * dt
     for k in range(n_steps):
-        if record and cap - n_spk < n_total:
+        if record and cap - n_spk < 2 * n_total:
             return k, n_spk, True
         for p in range(n_pop):
             i0 = start[p]
@@ -151,6 +151,7 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                     d0 += nb * bg_drive[p]
                     d1 += nb * bg_drive[p]
                 fired = False
+                n_fire = 1
                 if noise[p] == NOISE_WHITE:
                     h = dt
                     ms = d0
@@ -207,6 +208,11 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                         fired = True
                         u[i], hz[i] = _newborn(ncode[p], npar, nops, nargs, tm, rs, hcode[p], hpar, hops, hargs,
                                                theta[p], uses_slope[p], tr, dt, d1, stack, xbuf)
+                        # firing again within the birth step (tau_ref < dt/2; see _refire_survival)
+                        s_nb = _refire_survival(ncode[p], npar, nops, nargs, tm, rs, hcode[p], hpar, hops, hargs,
+                                                theta[p], uses_slope[p], tr, dt, d1, hz[i], stack, xbuf)
+                        while s_nb < 1.0 and np.random.random() >= s_nb:
+                            n_fire += 1
                         age[i] = 0.5 * dt
                         lam[i] = 0.0
                         thr[i] = np.random.exponential(1.0)
@@ -216,11 +222,13 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                         age[i] += dt
                 su += u[i]
                 if fired:
-                    count += 1
+                    count += n_fire
                     if record:
-                        spk_t[n_spk] = t0 + (k + 0.5) * dt
-                        spk_i[n_spk] = i
-                        n_spk += 1
+                        for _ in range(n_fire):
+                            if n_spk < cap:  # room for 2 n_total per step (re-firings are rare)
+                                spk_t[n_spk] = t0 + (k + 0.5) * dt
+                                spk_i[n_spk] = i
+                                n_spk += 1
                     for jq in range(out_ptr[p], out_ptr[p + 1]):
                         q = out_list[jq]
                         tg = q_tgt[q]
@@ -233,7 +241,7 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                         j0 = q_idx_off[q] + ptr_flat[p0]
                         j1 = q_idx_off[q] + ptr_flat[p0 + 1]
                         for j in range(j0, j1):
-                            buf[base + idx_flat[j]] += 1.0
+                            buf[base + idx_flat[j]] += n_fire
             out_count[k, p] = count
             out_mean_u[k, p] = su / n_p
         for q in range(q_head.shape[0]):

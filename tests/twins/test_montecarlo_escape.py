@@ -115,3 +115,17 @@ def test_invalid_arguments():
         popdens.montecarlo(pop, 15.0, t_end=10.0, n=10, dt=0.3)
     with pytest.raises(ValueError, match="standard errors"):
         popdens.simulate(pop, 15.0, t_end=1.0).rate_standard_error()
+
+
+def test_refiring_within_the_birth_step_without_refractory_period():
+    """No refractory period and a hazard felt at reset (73.6 Hz): at dt = 0.5 ms a neuron reborn in a
+    step may fire again before it ends.  Counting those spikes keeps the twin unbiased against
+    renewal theory (scipy quadrature, references.renewal_rate); without them it was 1.8 % (14 SE) low.
+    SE from the spread of per-neuron spike counts (independent neurons, central limit theorem)."""
+    from references import renewal_rate
+
+    pop = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 0.0), popdens.EscapeNoise(hazard.Exponential(200.0, 20.0)))
+    mc = popdens.montecarlo(pop, 15.0, t_end=2000.0, n=2000, dt=0.5, seed=3, record_spikes=True, burn_in=200.0)
+    counts = np.bincount(mc.spike_ids, minlength=2000) / 2.0  # Hz per neuron
+    se = counts.std(ddof=1) / np.sqrt(counts.size)
+    assert abs(counts.mean() - renewal_rate(pop, 15.0)) < 4.0 * se
