@@ -237,12 +237,13 @@ def _newton_polish(obj, z, hess_hint=None, max_iter=12):
         # central difference carries a bias h^2 f'''/6 (third derivative) that would move the maximum
         f0_, g_, hm_ = _stencil(f, zz, st)
         if np.all(np.diag(hm_) < 0.0):
-            small = GRADIENT_STEP_SE * np.sqrt(np.diag(np.linalg.pinv(-hm_)))
-            if np.all(small < st):
+            small = GRADIENT_STEP_SE * np.sqrt(np.abs(np.diag(np.linalg.pinv(-hm_))))
+            if np.all((small > 0.0) & (small < st)):
                 g_ = _gradient(f, zz, small)
         return f0_, g_, hm_
 
-    hint_ok = hess_hint is not None and np.all(np.isfinite(hess_hint)) and np.all(np.diag(hess_hint) < 0.0)
+    hint_ok = (hess_hint is not None and np.all(np.isfinite(hess_hint))
+               and np.all(np.linalg.eigvalsh(0.5 * (hess_hint + hess_hint.T)) < 0.0))
     if hint_ok:
         hm = np.asarray(hess_hint, dtype=float)
         steps = HESSIAN_STEP_SE * np.sqrt(np.clip(np.diag(np.linalg.pinv(-hm)), 1e-300, None))

@@ -81,10 +81,10 @@ def test_rescaled_intervals_are_exponential_under_the_true_model_and_not_without
 
 
 def test_fit_recovers_hazard_and_drive_scale_of_the_twin():
-    # parameter recovery from Monte Carlo twin data (60 neurons x 4 s): estimates within 3 standard
+    # parameter recovery from Monte Carlo twin data (40 neurons x 3 s): estimates within 3 standard
     # errors of the truth (the SEs from the observed information); KS accepts the fitted model
     pop = _pop()
-    sp = _twin_trains(pop, 60, 4000.0, seed=7)
+    sp = _twin_trains(pop, 40, 3000.0, seed=7)
     start = _pop(rate=30.0, width=1.5)
     fit = popdens.fit_psth(start, sp, STIM, ["rate", "width", "scale"], scale=2.0, offset=20.0)
     truth = {"rate": 20.0, "width": 2.0, "scale": 3.0}
