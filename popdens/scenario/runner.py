@@ -115,7 +115,8 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
 #: Report captions of the analysis figures.
 CAPTIONS = {"gain": "Gain function: stationary rate against mean drive",
             "stationary": "Stationary interspike-interval densities",
-            "transfer": "Transfer function: magnitude and phase against frequency"}
+            "transfer": "Transfer function: magnitude and phase against frequency",
+            "fit": "Fit to recorded data: data against the fitted model, and the time-rescaling KS plot"}
 
 
 def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:
