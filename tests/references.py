@@ -58,3 +58,24 @@ shape = "exponential"
 rate = 20.0
 width = 2.0
 """
+
+
+def eif_rate(mu, sigma, tau=10.0, ut=10.0, dT=1.0, uc=20.0, ur=0.0, tref=2.0):
+    """Stationary rate (Hz) of the white-noise EIF: the stationary Fokker-Planck equation with unit
+    flux, dp/du = (2/sigma^2)[(F + mu) p - tau J], p(cutoff) = 0 (Brunel & Hakim 1999;
+    Fourcaud-Trocme et al. 2003), integrated from the cut-off down by scipy's stiff Radau solver."""
+    k = 2.0 / sigma ** 2
+
+    def drift(u):
+        return -u + dT * math.exp((u - ut) / dT) + mu
+
+    def rhs(u, y, j):
+        return [k * (drift(u) * y[0] - tau * j), y[0]]
+
+    def jac(u, y, j):
+        return [[k * drift(u), 0.0], [1.0, 0.0]]
+
+    tol = dict(method="Radau", jac=jac, rtol=1e-11, atol=1e-15)
+    above = solve_ivp(rhs, (uc, ur), [0.0, 0.0], args=(1.0,), **tol)
+    below = solve_ivp(rhs, (ur, min(ur, mu) - 12 * sigma), above.y[:, -1], args=(0.0,), **tol)
+    return 1000.0 / (tref - below.y[1, -1])  # the integral ran downwards

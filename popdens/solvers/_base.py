@@ -79,6 +79,10 @@ class SolverBase:
     def diagnostics(self) -> dict:
         return {}
 
+    def plan(self, mu: np.ndarray, sigma: np.ndarray | None) -> None:
+        """Samples of the drive ``mu`` (and noise ``sigma``, mV) over the coming run, before
+        :meth:`initialize`, for solvers that choose their resolution from them (default: ignored)."""
+
     def accuracy_issues(self, mu: np.ndarray, sigma: np.ndarray | None) -> list[tuple[str, str]]:
         """Settings too coarse for the current state and the drive ``mu`` (mV) just used.
 

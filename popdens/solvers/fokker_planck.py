@@ -88,6 +88,19 @@ TARGET_CELL_OVER_STD = 0.25
 MAX_DT_OVER_TAU = 0.1
 #: Accuracy guard: largest probability in the lowest cell, at the reflecting boundary.
 MAX_LOWEST_CELL_MASS = 1e-6
+#: Automatic grid: cells tried first, and the part of the rate tolerance (max(RATE_RTOL * rate,
+#: RATE_ATOL)) granted to the grid.  The grid's error is estimated from the stationary rates on n and 2n
+#: cells (second order: err(n) ~ 4/3 |r_n - r_2n|, Richardson) at the drives the run will see, and n is
+#: raised until it is below GRID_SHARE of the tolerance.  Measured at 400 cells (stationary rate vs
+#: threshold integration): LIF sigma = 0.5 mV 1.3e-3 to 2.8e-3, EIF slope factor 1 mV 8.7e-4, slope
+#: factor 0.5 mV and sigma 1 mV 1.6e-3; the automatic grid keeps them below 5e-4.
+AUTO_FIRST_CELLS = 400
+#: Relative and absolute (Hz) tolerance on the population rate that the defaults aim at.
+RATE_RTOL = 1e-3
+RATE_ATOL = 0.01
+GRID_SHARE = 0.5
+#: Most cells the automatic grid chooses (beyond, an AccuracyWarning names n_cells).
+MAX_AUTO_CELLS = 12_000
 #: Rescaling threshold of the stationary backward recursion (avoids overflow).
 RESCALE_ABOVE = 1e200
 
@@ -261,8 +274,11 @@ class FokkerPlanckSolver(SolverBase):
     scheme : {"tr-bdf2", "backward-euler"}
         Time stepping: second order (default) or first order.  Backward
         Euler keeps the density non-negative for every ``dt``.
-    n_cells : int
-        Approximate number of potential cells (default 400).
+    n_cells : int, optional
+        Approximate number of potential cells.  Default: chosen so that the
+        grid's error in the stationary rate, estimated at the drives the run
+        will see (:meth:`plan`, called by :func:`popdens.simulate`), stays
+        below half the rate tolerance ``max(1e-3 rate, 0.01 Hz)`` (at least 400).
     refinement : float
         Ratio of coarsest to finest cell width (default 10).
     u_min : float, optional
@@ -281,14 +297,15 @@ class FokkerPlanckSolver(SolverBase):
     axis_name = "membrane potential (mV)"
     default_dt = 0.1
 
-    def __init__(self, population, dt: float, scheme: str = "tr-bdf2", n_cells: int = 400,
+    def __init__(self, population, dt: float, scheme: str = "tr-bdf2", n_cells: int | None = None,
                  refinement: float = 10.0, u_min: float | None = None, grid: Grid | None = None):
         super().__init__(population, dt)
         if scheme not in SCHEMES:
             raise ValueError(f"`scheme` must be one of {sorted(SCHEMES)}, got {scheme!r}")
         self.scheme = scheme
         refuse(population, "the Fokker-Planck solver")
-        self.n_cells_option = v.positive_int("n_cells", n_cells)
+        self.n_cells_option = None if n_cells is None else v.positive_int("n_cells", n_cells)
+        self._planned: list[tuple[float, float]] = []  # (mu, sigma) the grid must resolve
         self.refinement = float(refinement)
         nrn = population.neuron
         if u_min is not None:
@@ -314,27 +331,94 @@ class FokkerPlanckSolver(SolverBase):
         self.p = None
 
     # ----------------------------------------------------------------- grid
+    def plan(self, mu, sigma) -> None:
+        """Declare the drives ``mu`` and noise amplitudes ``sigma`` (mV, arrays) a run will see.
+
+        The automatic grid (``n_cells`` not given) is then fine enough at their
+        extremes, and the automatic ``u_min`` is set below the lowest drive.
+        Call before :meth:`initialize`.
+        """
+        mu = np.asarray(mu, dtype=float).ravel()
+        sigma = np.asarray(sigma, dtype=float).ravel()
+        ok = np.isfinite(mu)
+        if np.any(ok):
+            s_ok = sigma[np.isfinite(sigma) & (sigma > 0)]
+            if s_ok.size:
+                self._planned = [(float(m), float(sg)) for m in (mu[ok].min(), mu[ok].max())
+                                 for sg in {float(s_ok.min()), float(s_ok.max())}]
+
+    def _lower(self, mu0: float, sigma0: float) -> float:
+        nrn = self.population.neuron
+        mus = [mu0] + [m for m, _ in self._planned]
+        sigmas = [sigma0] + [sg for _, sg in self._planned]
+        base = min(float(nrn.reset), float(nrn.rest) + min(min(mus), 0.0))
+        return base - LOWER_STDS * max(sigmas) / math.sqrt(2.0)
+
+    def _arrays(self, grid: Grid):
+        """Widths, centres, centre distances, face drifts (mV) and reset cell of ``grid``."""
+        nrn = self.population.neuron
+        c = np.array(grid.centres)
+        e = np.array(grid.edges)
+        # distances between neighbouring centres, and centre -> boundary for the last face
+        dist = np.append(np.diff(c), e[-1] - c[-1])
+        faces = np.append(e[1:-1], 0.5 * (c[-1] + e[-1]))
+        ff = np.ascontiguousarray(nrn.drift(faces), dtype=float)
+        if not np.all(np.isfinite(ff)):
+            raise ValueError("the neuron's drift is not finite on the grid")
+        return np.array(grid.widths), c, dist, ff, int(grid.reset_cell)
+
+    def _stationary_rate(self, arrays, mu: float, sigma: float) -> float:
+        """Stationary rate (Hz) of the discrete operator on a grid's ``arrays``."""
+        h, _, dist, ff, r = arrays
+        a, b, p = np.zeros(h.size), np.zeros(h.size), np.zeros(h.size)
+        _coefficients(ff, dist, float(mu), float(sigma), float(self.population.neuron.tau_m), a, b)
+        jv = _stationary(a, b, r, p)
+        total = float(np.dot(h, p)) + jv * float(self.population.neuron.refractory)
+        return jv / total / MS_TO_S
+
+    def _grid_error(self, coarse, fine, points) -> tuple[float, float]:
+        """Largest estimated grid error of the rate over ``points``, in units of the tolerance
+        budget GRID_SHARE * max(RATE_RTOL r, RATE_ATOL), and the worst (mu, sigma)'s error (Hz)."""
+        worst, worst_hz = 0.0, 0.0
+        for mu, sg in points:
+            r1 = self._stationary_rate(coarse, mu, sg)
+            r2 = self._stationary_rate(fine, mu, sg)
+            if not (math.isfinite(r1) and math.isfinite(r2)):
+                continue
+            err = abs(r1 - r2) * 4.0 / 3.0  # second order in the cell width (Richardson)
+            ratio = err / (GRID_SHARE * max(RATE_RTOL * abs(r2), RATE_ATOL))
+            if ratio > worst:
+                worst, worst_hz = ratio, err
+        return worst, worst_hz
+
+    def _auto_cells(self, lo: float, points) -> int:
+        """Cells for which the estimated grid error at ``points`` is within the budget."""
+        nrn = self.population.neuron
+        n = AUTO_FIRST_CELLS
+        for _ in range(4):
+            coarse = self._arrays(refined_grid(lo, nrn.boundary, nrn.reset, n, self.refinement))
+            fine = self._arrays(refined_grid(lo, nrn.boundary, nrn.reset, 2 * n, self.refinement))
+            worst, _ = self._grid_error(coarse, fine, points)
+            if worst <= 1.0 or n >= MAX_AUTO_CELLS:
+                break
+            # error ~ n^-2: aim 20 % below the budget, in steps of 50 cells
+            n = min(MAX_AUTO_CELLS, int(math.ceil(n * math.sqrt(worst / 0.8) / 50.0)) * 50)
+        return n
+
     def _build(self, mu0: float, sigma0: float) -> None:
         nrn = self.population.neuron
         if self.grid is None:
             lo = self.u_min_option
             if lo is None:
-                base = min(float(nrn.reset), float(nrn.rest) + min(float(mu0), 0.0))
-                lo = base - LOWER_STDS * sigma0 / math.sqrt(2.0)
-            self.grid = refined_grid(lo, nrn.boundary, nrn.reset, self.n_cells_option, self.refinement)
+                lo = self._lower(mu0, sigma0)
+            n = self.n_cells_option
+            if n is None:
+                n = self._auto_cells(lo, [(mu0, sigma0)] + self._planned)
+            self.grid = refined_grid(lo, nrn.boundary, nrn.reset, n, self.refinement)
         gr = self.grid
-        c = np.array(gr.centres)
-        e = np.array(gr.edges)
-        n = c.size
-        self._h = np.array(gr.widths)
-        self._c = c
-        # distances between neighbouring centres, and centre -> boundary for the last face
-        self._dist = np.append(np.diff(c), e[-1] - c[-1])
-        faces = np.append(e[1:-1], 0.5 * (c[-1] + e[-1]))
-        self._ff = np.ascontiguousarray(nrn.drift(faces), dtype=float)
-        if not np.all(np.isfinite(self._ff)):
-            raise ValueError("the neuron's drift is not finite on the grid")
-        self._r = int(gr.reset_cell)
+        self._h, self._c, self._dist, self._ff, self._r = self._arrays(gr)
+        self._fine = None  # the 2x grid of the grid-error guard, built when first needed
+        n = self._c.size
         self._scratch = [np.zeros(n) for _ in range(8)]
         self.p = np.zeros(n)
 
@@ -464,11 +548,19 @@ class FokkerPlanckSolver(SolverBase):
         tau_m = float(self.population.neuron.tau_m)
         s_min = float(np.min(sigma)) if sigma is not None and np.size(sigma) else math.nan
         ratio = float(self._h.max()) / (s_min / math.sqrt(2.0))
-        if ratio > MAX_CELL_OVER_STD:
-            n_new = int(math.ceil(self.p.size * ratio / TARGET_CELL_OVER_STD / 50.0)) * 50
+        # the grid's estimated rate error at the current drive and, as a floor, the cell size against sigma
+        worst, err_hz = self._grid_error_now(mu, sigma)
+        n_err = int(math.ceil(self.p.size * math.sqrt(worst / 0.8) / 50.0)) * 50  # to 0.8 of the budget
+        n_std = int(math.ceil(self.p.size * ratio / TARGET_CELL_OVER_STD / 50.0)) * 50
+        if worst > 1.0 / GRID_SHARE:
+            issues.append(("n_cells", f"the potential grid ({self.p.size} cells) is too coarse at drive "
+                                      f"{float(mu[-1]):.4g} mV: its estimated rate error {err_hz:.3g} Hz exceeds "
+                                      f"max({RATE_RTOL:g} x rate, {RATE_ATOL:g} Hz); "
+                                      f"use n_cells = {max(n_err, n_std if ratio > MAX_CELL_OVER_STD else 0)} or more"))
+        elif ratio > MAX_CELL_OVER_STD:
             issues.append(("n_cells", f"potential cells up to {self._h.max():.3g} mV wide are too coarse for "
                                       f"sigma = {s_min:.3g} mV ({ratio:.2f} free-membrane standard deviations, "
-                                      f"limit {MAX_CELL_OVER_STD:g}); use n_cells = {n_new} or more"))
+                                      f"limit {MAX_CELL_OVER_STD:g}); use n_cells = {max(n_std, n_err)} or more"))
         if self.dt > MAX_DT_OVER_TAU * tau_m:
             k = math.ceil(self.dt / (MAX_DT_OVER_TAU * tau_m))
             issues.append(("dt", f"`dt` = {self.dt:g} ms is more than {MAX_DT_OVER_TAU:g} `tau_m` "
@@ -479,6 +571,23 @@ class FokkerPlanckSolver(SolverBase):
                                     f"holds {low:.3g} of the population (limit {MAX_LOWEST_CELL_MASS:g}); "
                                     f"use u_min = {self.grid.lower - 4.0 * s_min / math.sqrt(2.0):.4g} mV or lower"))
         return issues
+
+    def _grid_error_now(self, mu, sigma) -> tuple[float, float]:
+        """Grid error estimate (as in :meth:`_grid_error`) at the last drive and noise of a block."""
+        if sigma is None or not np.size(sigma) or not np.size(mu):
+            return 0.0, 0.0
+        if self._fine is None:
+            g = self.grid
+            e = g.edges
+            # halve every cell; the reset cell's centre stays a centre (split into three: 1/4, 1/2, 1/4)
+            mids = 0.5 * (e[1:] + e[:-1])
+            q = 0.25 * (e[g.reset_cell + 1] - e[g.reset_cell])
+            cuts = np.concatenate([mids[:g.reset_cell], [mids[g.reset_cell] - q, mids[g.reset_cell] + q],
+                                   mids[g.reset_cell + 1:]])
+            fine = Grid(np.sort(np.concatenate([e, cuts])), 2 * g.reset_cell + 1)
+            self._fine = self._arrays(fine)
+        coarse = (self._h, self._c, self._dist, self._ff, self._r)
+        return self._grid_error(coarse, self._fine, [(float(mu[-1]), float(sigma[-1]))])
 
     def diagnostics(self) -> dict:
         if self.p is None:

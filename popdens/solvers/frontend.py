@@ -24,6 +24,8 @@ logger = logging.getLogger(__name__)
 
 #: Default internal time step (ms) when the solver does not define one.
 DEFAULT_DT = 0.1
+#: Drive samples over the run handed to the solver's ``plan`` (resolution chosen for their range).
+PLAN_SAMPLES = 20_001
 #: Tolerance on total probability before a run is flagged as failed.
 MASS_TOLERANCE = 1e-9
 
@@ -128,6 +130,13 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     sigma0 = sigma_at.start() if sigma_at is not None else None
     if not np.isfinite(mu0) or (sigma0 is not None and not np.isfinite(sigma0)):
         raise ValueError("the drive is not finite at t = 0")
+    # the drive over the run (sampled), so that solvers can choose a resolution that suits all of it
+    ks = np.unique(np.linspace(0, grid.n_steps, min(grid.n_steps + 1, PLAN_SAMPLES)).astype(np.int64))
+    jt = np.asarray(list(mu_at.jumps.values()) + list(sigma_at.jumps.values() if sigma_at else []), dtype=float)
+    ts = np.concatenate([ks * grid.dt, jt])
+    with np.errstate(all="ignore"):  # non-finite values are reported by the run itself
+        solver.plan(np.concatenate([drive(ts), drive.left_limit(jt)]),
+                    None if sigma_drive is None else np.concatenate([sigma_drive(ts), sigma_drive.left_limit(jt)]))
     solver.initialize(mu0, sigma0, initial)
     guard = _AccuracyGuard(solver)
     guard.check(np.array([mu0]), None if sigma0 is None else np.array([sigma0]))

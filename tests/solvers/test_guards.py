@@ -75,13 +75,16 @@ def test_dt_against_tau_m_guard_for_heun_models_only():
 def test_cell_size_guard_warns_at_low_noise_and_its_suggestion_is_accurate():
     pop, mu = white_pop(0.05), 22.0
     reference = siegert_rate(pop, mu)
-    _, msgs = run_recording(pop, mu, 1.0, 0.1)
-    assert len(msgs) == 1 and "sigma = 0.05 mV" in msgs[0]
+    _, msgs = run_recording(pop, mu, 1.0, 0.1, n_cells=400)
+    assert len(msgs) == 1 and "n_cells" in msgs[0]
     n = int(suggested(msgs[0], "n_cells"))
     res, msgs = run_recording(pop, mu, 1.0, 0.1, n_cells=n)
     assert msgs == []
-    # Siegert formula (Siegert 1951; Brunel & Hakim 1999); measured <= 4.3e-3 at this cell size
-    assert res.rate[0] == pytest.approx(reference, rel=5e-3)
+    # Siegert formula (Siegert 1951; Brunel & Hakim 1999): within the solver's tolerance
+    assert res.rate[0] == pytest.approx(reference, rel=1e-3, abs=0.01)
+    # the default grid is chosen fine enough without being told
+    res, msgs = run_recording(pop, mu, 1.0, 0.1)
+    assert msgs == [] and res.rate[0] == pytest.approx(reference, rel=1e-3, abs=0.01)
 
 
 def test_lower_boundary_guard_names_u_min():
