@@ -33,7 +33,7 @@ def test_fit_scenario_writes_the_parameter_table_and_figure(tmp_path):
     table = np.array([[float(x) for x in ln.split(",")] for ln in lines[1:]])
     assert table.shape[0] == 3 and np.all(table[:, 1] > 0)
     assert (tmp_path / "out" / "fit.png").is_file()
-    assert "fit.png" in (tmp_path / "out" / "report.html").read_text()
+    assert "Fit to recorded data" in (tmp_path / "out" / "report.html").read_text()  # the embedded figure
 
 
 @pytest.mark.parametrize("edit, needle", [
