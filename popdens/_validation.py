@@ -79,3 +79,43 @@ def n_steps_for(t_end: float, dt: float, *, name_t: str = "t_end", name_dt: str 
 def warn_ignored(option: str, reason: str) -> None:
     """Warn that an option has no effect for the chosen method."""
     warnings.warn(f"option `{option}` is ignored: {reason}", UserWarning, stacklevel=3)
+
+
+#: Largest share of the available memory one run may plan to allocate.
+MEMORY_SHARE = 0.8
+
+
+def available_memory() -> float | None:
+    """Bytes of memory available to a new allocation (Linux ``MemAvailable``; else free pages), or None."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as fh:
+            for line in fh:
+                if line.startswith("MemAvailable:"):
+                    return float(line.split()[1]) * 1024.0
+    except (OSError, ValueError, IndexError):
+        pass
+    try:
+        import os
+
+        return float(os.sysconf("SC_AVPHYS_PAGES")) * float(os.sysconf("SC_PAGE_SIZE"))
+    except (AttributeError, ValueError, OSError):
+        return None
+
+
+def _gb(nbytes: float) -> str:
+    return f"{nbytes / 1e9:.3g} GB"
+
+
+def check_memory(name: str, value: Any, nbytes: float, what: str) -> None:
+    """Raise ``ValueError`` naming ``name`` if allocating ``nbytes`` for ``what`` would not fit in memory.
+
+    Checked before anything is allocated, so a too-large request is a clear error instead of a
+    ``MemoryError`` or a machine that starts swapping.
+    """
+    avail = available_memory()
+    if avail is None:
+        avail = float(2**46)  # unknown: refuse only the absurd (64 TiB)
+    if nbytes > MEMORY_SHARE * avail:
+        raise ValueError(f"`{name}` = {value!r}: {what} needs about {_gb(nbytes)} of memory, but only "
+                         f"{_gb(avail)} is available (at most {MEMORY_SHARE:.0%} of it is used); "
+                         "reduce it")

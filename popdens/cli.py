@@ -19,6 +19,9 @@ __all__ = ["main"]
 
 #: Exit code after Ctrl-C (128 + SIGINT, the shell convention).
 EXIT_INTERRUPTED = 130
+#: Exit code after SIGTERM (128 + SIGTERM).
+EXIT_TERMINATED = 143
+_TERMINATED = [False]
 
 
 def _parser() -> argparse.ArgumentParser:
@@ -33,6 +36,9 @@ def _parser() -> argparse.ArgumentParser:
     c = sub.add_parser("check", help="validate a scenario file without running it")
     c.add_argument("scenario")
     _add_sweep_parser(sub)
+    cp = sub.add_parser("compile", help="compile every inner loop now (once per installation; otherwise the "
+                                        "first use of each waits for it)")
+    cp.add_argument("--jobs", type=int, default=None, help="processes to use (default: every core)")
     sub.add_parser("catalogue", help="list neuron models, escape functions and input shapes with their parameters")
     b = sub.add_parser("bench", help="run benchmarks (speed against the Monte Carlo twin, printed ratios)")
     b.add_argument("names", nargs="*", metavar="NAME", help="benchmarks to run (default: list them)")
@@ -286,6 +292,7 @@ def _network_command(args, sc) -> int:
 
     summary = run_scenario(sc, args.out, overwrite=args.overwrite, progress=False if args.quiet else None)
     print(f"wrote {summary['output']}: {', '.join(summary['files'])}")
+    _print_compile_time(summary["timing"])
     for i, fp in enumerate(summary.get("fixed_points", [])):
         rates = ", ".join(f"{k} {v:.4g} Hz" for k, v in fp["rates_hz"].items())
         verdict = ""
@@ -307,6 +314,17 @@ def _network_command(args, sc) -> int:
         print(f"  mean rates over the second half, mean field / spiking twin: {both}")
     print("  (model predictions from a research tool; not a basis for clinical or safety decisions)")
     return 0
+
+
+#: Compilation shorter than this (s) is not worth a line in the run's report.
+SHOW_COMPILE_ABOVE = 0.5
+
+
+def _print_compile_time(timing: dict) -> None:
+    """One line when this run compiled kernels (first use on this installation); run times exclude it."""
+    if timing.get("compile_s", 0.0) > SHOW_COMPILE_ABOVE:
+        print(f"  compiled the inner loops in {timing['compile_s']:.3g} s (once per installation; "
+              "not included in the times below)")
 
 
 def _key_values(items, flag):
@@ -358,19 +376,76 @@ def _step_command(args) -> int:
     return 0 if res.success else 1
 
 
+def _compile_command(args) -> int:
+    """``popdens compile``: every kernel compiled (or found in the cache), with the time each group took."""
+    import json
+    import os
+    import time
+
+    from ._warm_up import compile_all
+
+    jobs = args.jobs if args.jobs is not None else (os.cpu_count() or 1)
+    if jobs < 1:
+        raise ScenarioError(f"--jobs must be >= 1, got {jobs}")
+
+    class _Lines:
+        def write(self, text):
+            for line in text.splitlines():
+                if line.strip():
+                    (name, seconds), = json.loads(line).items()
+                    print(f"  {name:14s} {'compiled in %.1f s' % seconds if seconds > 0.05 else 'already compiled'}",
+                          flush=True)
+
+        def flush(self):
+            pass
+
+    print(f"popdens: compiling the inner loops on {jobs} process(es); each is compiled once per installation")
+    t0 = time.perf_counter()
+    compile_all(jobs, stream=_Lines())
+    print(f"done in {time.perf_counter() - t0:.1f} s")
+    return 0
+
+
 def _show_warning(message, category, filename, lineno, file=None, line=None):
     print(f"popdens: warning: {message}", file=sys.stderr)
 
 
+class _Terminated(KeyboardInterrupt):
+    """SIGTERM, handled exactly like Ctrl-C (same clean-up), exit code 143."""
+
+
+def _on_sigterm(signum, frame):
+    _TERMINATED[0] = True
+    raise _Terminated("terminated (SIGTERM)")
+
+
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit code."""
+    import signal
+    import threading
+
     args = _parser().parse_args(argv)
     logging.basicConfig(level=logging.WARNING, format="popdens: %(message)s")
-    with warnings.catch_warnings():
-        # accuracy warnings are shown once each, as one plain line, never raised
-        warnings.simplefilter("always", AccuracyWarning)
-        warnings.showwarning = _show_warning
-        return _main(args)
+    # SIGTERM (kill, a batch scheduler's time limit) takes the Ctrl-C path: temporary output removed,
+    # a folder being replaced kept, finished sweep points saved
+    previous = None
+    _TERMINATED[0] = False
+    if threading.current_thread() is threading.main_thread():
+        previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    try:
+        with warnings.catch_warnings():
+            # accuracy warnings are shown once each, as one plain line, never raised
+            warnings.simplefilter("always", AccuracyWarning)
+            warnings.showwarning = _show_warning
+            code = _main(args)
+    except _Terminated:
+        code = EXIT_INTERRUPTED
+    finally:
+        if previous is not None:
+            signal.signal(signal.SIGTERM, previous)
+    if _TERMINATED[0] and code == EXIT_INTERRUPTED:
+        return EXIT_TERMINATED
+    return code
 
 
 def _main(args) -> int:
@@ -401,6 +476,8 @@ def _main(args) -> int:
                                 ("[network]", NETWORK_KEYS)):
                 print(f"  {table:13s} {', '.join(sorted(keys))}")
             return 0
+        if args.command == "compile":
+            return _compile_command(args)
         if args.command == "bench":
             from . import benchmarks
 
@@ -443,6 +520,7 @@ def _main(args) -> int:
         summary = run_scenario(sc, args.out, overwrite=args.overwrite, progress=False if args.quiet else None)
         print(f"wrote {summary['output']}: {', '.join(summary['files'])}")
         timing = summary["timing"]
+        _print_compile_time(timing)
         if "prediction" in summary:
             p = summary["prediction"]
             if p["status"] != 0:
@@ -466,8 +544,8 @@ def _main(args) -> int:
             if m["status"] != 0:
                 print(f"popdens: error: the Monte Carlo run failed: {m['message']}", file=sys.stderr)
                 return 1
-            print(f"  Monte Carlo N={m['n_neurons']}: {100 * m['fraction_within_4_se']:.1f}% of bins within "
-                  f"4 standard errors ({timing['montecarlo_s']:.3g} s)")
+            print(f"  Monte Carlo N={m['n_neurons']} ({timing['montecarlo_s']:.3g} s): "
+                  f"{m['agreement']['verdict']}")
         print("  (model predictions from a research tool; not a basis for clinical or safety decisions)")
         return 0
     except (ScenarioError, FileExistsError) as exc:
@@ -477,7 +555,8 @@ def _main(args) -> int:
         print(f"popdens: error: {exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
-        print("popdens: interrupted by the user; no partial output was kept", file=sys.stderr)
+        why = "terminated (SIGTERM)" if _TERMINATED[0] else "interrupted by the user"
+        print(f"popdens: {why}; no partial output was kept", file=sys.stderr)
         return EXIT_INTERRUPTED
     except Exception as exc:  # internal failure: report briefly, keep the traceback for developers
         logging.getLogger(__name__).exception("internal error: %s", exc)

@@ -5,8 +5,8 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["save_figure", "plot_calibration", "plot_circuit_rates", "plot_comparison", "plot_density_map", "plot_fit", "plot_gain", "plot_isi",
-           "plot_ks", "plot_rate",
+__all__ = ["save_figure", "plot_agreement", "plot_calibration", "plot_circuit_rates", "plot_comparison",
+           "plot_density_map", "plot_fit", "plot_gain", "plot_isi", "plot_ks", "plot_rate",
            "plot_stability_map", "plot_steady_state", "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map",
            "plot_transfer"]
 
@@ -67,6 +67,39 @@ def plot_comparison(prediction, montecarlo, n_se: float = 2.0):
     axd.set_ylabel("drive (mV)")
     axd.set_xlabel("time (ms)")
     ax.set_xlim(float(np.min(t)), float(np.max(t)))
+    return fig
+
+
+def plot_agreement(agreement):
+    """Monte Carlo twin against the prediction (2-SE band from the predicted rate) and the standardised
+    residuals per bin, with the verdict as the title.  Returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    fig, (ax, axz) = plt.subplots(2, 1, figsize=(7.0, 4.8), sharex=True, constrained_layout=True,
+                                  gridspec_kw={"height_ratios": [3, 2]})
+    a = agreement
+    ax.fill_between(a.t, a.prediction - 2 * a.se, a.prediction + 2 * a.se, color="C0", alpha=0.2, step="pre",
+                    lw=0, label="prediction ±2 SE")
+    ax.step(a.t, a.twin, color="0.3", lw=0.8, where="pre", label=f"Monte Carlo twin (N={a.n_neurons})")
+    ax.step(a.t, a.prediction, color="C0", lw=1.4, where="pre", label="prediction")
+    ax.set_ylabel("population rate (Hz)")
+    ax.legend(frameon=False, loc="best", fontsize="small")
+    axz.step(a.t, a.z, color="0.3", lw=0.8, where="pre")
+    for level, style in ((2.0, ":"), (4.0, "--")):
+        axz.axhline(level, color="C3", ls=style, lw=0.8)
+        axz.axhline(-level, color="C3", ls=style, lw=0.8)
+    axz.axhline(0.0, color="0.5", lw=0.6)
+    axz.set_ylabel("residual (SE)")
+    axz.set_xlabel("time (ms)")
+    head = "agrees" if a.agrees else "DISAGREES"
+    detail = f"chi-square p = {a.p_value:.3g}" if a.dof else "too few spikes for chi-square"
+    if a.modulation is not None:
+        m = a.modulation
+        detail += (f"; modulation {m.amplitude_hz:.3g} Hz [{m.amplitude_ci_hz[0]:.3g}, {m.amplitude_ci_hz[1]:.3g}]"
+                   f" vs {m.predicted_amplitude_hz:.3g} Hz predicted, p = {m.p_value:.3g}")
+    ax.set_title(f"twin {head} with the prediction at level {a.alpha:g}\n{detail}", fontsize="small")
+    if a.t.size:
+        ax.set_xlim(float(a.t[0]), float(a.t[-1]))
     return fig
 
 

@@ -15,6 +15,10 @@ __all__ = ["Progress"]
 REDRAW_INTERVAL = 0.25
 #: Computations shorter than this (s) never show a bar in automatic mode.
 QUIET_BELOW = 1.0
+#: A run estimated to take longer than this (s) says so once on stderr, terminal or not.
+ANNOUNCE_ABOVE = 60.0
+#: Seconds of work after the first update (which may include compilation) behind the estimate.
+ESTIMATE_AFTER = 1.0
 
 
 class Progress:
@@ -37,6 +41,9 @@ class Progress:
         self.total = max(int(total), 1)
         self.label = label
         self.stream = stream if stream is not None else sys.stderr
+        # the run-time estimate: from the pace between the first update and ESTIMATE_AFTER s later
+        self._estimate = enabled is not False
+        self._first = None
         if enabled is None:
             enabled = bool(getattr(self.stream, "isatty", lambda: False)())
             self._auto = True
@@ -48,6 +55,8 @@ class Progress:
         self._shown = False
 
     def update(self, done: int) -> None:
+        if self._estimate:
+            self._check_estimate(done)
         if not self.enabled:
             return
         now = time.perf_counter()
@@ -65,7 +74,32 @@ class Progress:
         self.stream.flush()
         self._shown = True
 
+    def _check_estimate(self, done: int) -> None:
+        """Say once how long a long run will take (outside a terminal too, where no bar is drawn)."""
+        now = time.perf_counter()
+        if self._first is None:
+            self._first = (now, done)
+            return
+        t1, d1 = self._first
+        if now - t1 < ESTIMATE_AFTER or done <= d1:
+            return
+        self._estimate = False
+        left = (now - t1) / (done - d1) * (self.total - done)
+        if left > ANNOUNCE_ABOVE:
+            self.stream.write(f"{chr(10) if self._shown else ''}popdens: {self.label or 'this run'} will take about "
+                              f"{_duration(left)} more (measured pace: {done - d1} of {self.total} units in "
+                              f"{now - t1:.1f} s); Ctrl-C stops it\n")
+            self.stream.flush()
+
     def close(self) -> None:
         if self._shown:
             self.stream.write("\n")
             self.stream.flush()
+
+
+def _duration(seconds: float) -> str:
+    if seconds < 120:
+        return f"{seconds:.0f} s"
+    if seconds < 7200:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"

@@ -19,7 +19,7 @@ STATUS_FAILED = -1
 STATUS_INTERRUPTED = -2
 #: Diagnostics that differ between identical runs; kept out of output files so that the
 #: same scenario and seed give bit-identical files (wall times go to ``timing.json``).
-VOLATILE_DIAGNOSTICS = ("wall_time_s",)
+VOLATILE_DIAGNOSTICS = ("wall_time_s", "compile_time_s")
 
 
 @dataclass(frozen=True, eq=False)

@@ -40,9 +40,10 @@ def test_run_writes_outputs_and_refuses_to_overwrite(tmp_path, capsys):
     p = write(tmp_path, BASE.replace("[run]", "[run]\nmontecarlo_neurons = 2000\nseed = 1"))
     assert main(["run", str(p), "--quiet"]) == 0
     out = tmp_path / "out"
-    for f in ("prediction.csv", "montecarlo.csv", "rate.png", "rate.svg", "summary.json", "report.html"):
+    for f in ("prediction.csv", "montecarlo.csv", "rate.png", "rate.svg", "agreement.png", "summary.json",
+              "report.html"):
         assert (out / f).stat().st_size > 0, f
-    # the report parses as HTML and embeds its figure as a PNG
+    # the report parses as HTML and embeds its figures (rate, agreement) as PNGs
     from html.parser import HTMLParser
 
     class Images(HTMLParser):
@@ -54,10 +55,11 @@ def test_run_writes_outputs_and_refuses_to_overwrite(tmp_path, capsys):
 
     parser = Images()
     parser.feed((out / "report.html").read_text())
-    assert len(parser.srcs) == 1 and parser.srcs[0].startswith("data:image/png;base64,")
+    assert len(parser.srcs) == 2 and all(s.startswith("data:image/png;base64,") for s in parser.srcs)
     import base64
 
-    assert base64.b64decode(parser.srcs[0].split(",", 1)[1])[:8] == b"\x89PNG\r\n\x1a\n"
+    assert all(base64.b64decode(s.split(",", 1)[1])[:8] == b"\x89PNG\r\n\x1a\n" for s in parser.srcs)
+    assert "agrees with the prediction at level 0.01" in (out / "report.html").read_text()
     assert "not a basis for\nclinical or safety decisions" in (out / "report.html").read_text()
     summary = json.loads((out / "summary.json").read_text())
     assert summary["prediction"]["status"] == 0 and summary["montecarlo"]["n_neurons"] == 2000

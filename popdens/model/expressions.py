@@ -8,7 +8,7 @@ expression, which is lambdified to vectorised numpy and differentiated
 symbolically.  ``eval``, ``exec`` and ``sympify`` are never applied to the text.
 
 The same checked tree is also compiled into a small postfix program
-(:attr:`Expression.program`) that :func:`evaluate_program` runs inside
+(:attr:`Expression.program`) that :func:`popdens.model._kernels.evaluate_program` runs inside
 compiled loops, so custom models need no run-time code generation.
 """
 
@@ -16,16 +16,17 @@ from __future__ import annotations
 
 import ast
 import decimal
+import functools
 import math
 from dataclasses import dataclass, field
-from typing import Callable, Mapping, Sequence
+from typing import TYPE_CHECKING, Callable, Mapping, Sequence
 
-import numba
 import numpy as np
-import sympy
-from sympy.printing.numpy import NumPyPrinter
 
 from ..exceptions import ExpressionError
+
+if TYPE_CHECKING:  # sympy costs about 1 s to import: loaded on the first parse, never at import
+    import sympy
 
 __all__ = ["Expression", "parse_expression", "FUNCTIONS"]
 
@@ -47,24 +48,25 @@ OP_EXP, OP_LOG, OP_SQRT, OP_TANH, OP_ERF, OP_ABS = 8, 9, 10, 11, 12, 13
 OP_MIN, OP_MAX, OP_LT, OP_LE, OP_GT, OP_GE = 14, 15, 16, 17, 18, 19
 OP_SIN, OP_COS, OP_ERFC, OP_COSH, OP_SINH, OP_ATAN = 20, 21, 22, 23, 24, 25
 
-_UNARY = {
-    "exp": (sympy.exp, OP_EXP),
-    "log": (sympy.log, OP_LOG),
-    "sqrt": (sympy.sqrt, OP_SQRT),
-    "tanh": (sympy.tanh, OP_TANH),
-    "erf": (sympy.erf, OP_ERF),
-    "erfc": (sympy.erfc, OP_ERFC),
-    "abs": (sympy.Abs, OP_ABS),
-    "sin": (sympy.sin, OP_SIN),
-    "cos": (sympy.cos, OP_COS),
-    "cosh": (sympy.cosh, OP_COSH),
-    "sinh": (sympy.sinh, OP_SINH),
-    "atan": (sympy.atan, OP_ATAN),
+#: Accepted one-argument functions: name in expressions -> (sympy class name, op code).
+_UNARY_NAMES = {
+    "exp": ("exp", OP_EXP),
+    "log": ("log", OP_LOG),
+    "sqrt": ("sqrt", OP_SQRT),
+    "tanh": ("tanh", OP_TANH),
+    "erf": ("erf", OP_ERF),
+    "erfc": ("erfc", OP_ERFC),
+    "abs": ("Abs", OP_ABS),
+    "sin": ("sin", OP_SIN),
+    "cos": ("cos", OP_COS),
+    "cosh": ("cosh", OP_COSH),
+    "sinh": ("sinh", OP_SINH),
+    "atan": ("atan", OP_ATAN),
 }
-_BINARY = {"min": (sympy.Min, OP_MIN), "max": (sympy.Max, OP_MAX)}
+_BINARY_NAMES = {"min": ("Min", OP_MIN), "max": ("Max", OP_MAX)}
 
 #: Function names accepted in expressions.
-FUNCTIONS: tuple[str, ...] = tuple(sorted([*_UNARY, *_BINARY]))
+FUNCTIONS: tuple[str, ...] = tuple(sorted([*_UNARY_NAMES, *_BINARY_NAMES]))
 
 _CONSTANTS = {"pi": math.pi, "e": math.e}
 
@@ -75,12 +77,24 @@ _BINOPS = {
     ast.Div: (lambda a, b: a / b, OP_DIV),
     ast.Pow: (lambda a, b: a**b, OP_POW),
 }
-_CMPOPS = {
-    ast.Lt: (sympy.StrictLessThan, OP_LT),
-    ast.LtE: (sympy.LessThan, OP_LE),
-    ast.Gt: (sympy.StrictGreaterThan, OP_GT),
-    ast.GtE: (sympy.GreaterThan, OP_GE),
+_CMP_NAMES = {
+    ast.Lt: ("StrictLessThan", OP_LT),
+    ast.LtE: ("LessThan", OP_LE),
+    ast.Gt: ("StrictGreaterThan", OP_GT),
+    ast.GtE: ("GreaterThan", OP_GE),
 }
+
+
+@functools.cache
+def _sympy_tables():
+    """The sympy module and its classes behind each accepted name (imported on first use)."""
+    import sympy
+
+    unary = {k: (getattr(sympy, cls), code) for k, (cls, code) in _UNARY_NAMES.items()}
+    binary = {k: (getattr(sympy, cls), code) for k, (cls, code) in _BINARY_NAMES.items()}
+    cmpops = {k: (getattr(sympy, cls), code) for k, (cls, code) in _CMP_NAMES.items()}
+    relops = {getattr(sympy, cls): code for cls, code in _CMP_NAMES.values()}
+    return sympy, unary, binary, cmpops, relops
 
 
 def _in_range(x) -> bool:
@@ -132,7 +146,7 @@ class Expression:
     sympy_expr : sympy.Expr
         The expression with parameters substituted.
     program : tuple of ndarray
-        ``(ops, args)`` postfix program for :func:`evaluate_program`.
+        ``(ops, args)`` postfix program for :func:`popdens.model._kernels.evaluate_program`.
     """
 
     text: str
@@ -155,6 +169,7 @@ class Expression:
         """Symbolic derivative with respect to one of the variables."""
         if variable not in self.variables:
             raise ValueError(f"`variable` must be one of {self.variables}, got {variable!r}")
+        sympy = _sympy_tables()[0]
         sym = sympy.Symbol(variable, real=True)
         d = sympy.diff(self.sympy_expr, sym)
         return _from_sympy(f"d({self.text})/d{variable}", self.variables, self.parameters, d)
@@ -163,6 +178,7 @@ class Expression:
 def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth: int = 0):
     if depth > MAX_DEPTH:
         raise _fail(text, None, f"nesting deeper than {MAX_DEPTH}")
+    sympy, _UNARY, _BINARY, _CMPOPS, _ = _sympy_tables()
     rec = lambda n: _to_sympy(text, n, names, depth + 1)  # noqa: E731
     if isinstance(tree, ast.Expression):
         return rec(tree.body)
@@ -245,12 +261,9 @@ def _to_sympy(text: str, tree: ast.AST, names: Mapping[str, sympy.Basic], depth:
     raise _fail(text, tree, f"{type(tree).__name__} is not allowed")
 
 
-_REL_OPS = {sympy.StrictLessThan: OP_LT, sympy.LessThan: OP_LE,
-            sympy.StrictGreaterThan: OP_GT, sympy.GreaterThan: OP_GE}
-
-
 def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
     """Postfix program for a sympy expression tree."""
+    sympy, _REL_OPS = _sympy_tables()[0], _sympy_tables()[4]
     ops: list[int] = []
     args: list[float] = []
 
@@ -387,20 +400,27 @@ def _compile_sympy(expr: sympy.Basic, var_index: Mapping[sympy.Symbol, int]):
     return np.asarray(ops, dtype=np.int64), np.asarray(args, dtype=np.float64)
 
 
-class _ExactFloatPrinter(NumPyPrinter):
-    """Prints floats with all 17 digits (the default prints 15, so ``u < 1.7987011555778594``
-    became ``u < 1.79870115557786`` and disagreed with the compiled program at the boundary)."""
+@functools.cache
+def _exact_float_printer():
+    """A numpy printer that prints floats with all 17 digits (the default prints 15, so
+    ``u < 1.7987011555778594`` became ``u < 1.79870115557786`` and disagreed with the compiled
+    program at the boundary)."""
+    from sympy.printing.numpy import NumPyPrinter
 
-    def _print_Float(self, expr):
-        return repr(float(expr))
+    class _ExactFloatPrinter(NumPyPrinter):
+        def _print_Float(self, expr):
+            return repr(float(expr))
+
+    return _ExactFloatPrinter
 
 
 def _lambdify(expr: sympy.Basic, symbols: Sequence[sympy.Symbol]) -> Callable:
+    sympy = _sympy_tables()[0]
     expr = expr.replace(sympy.DiracDelta, lambda *a: sympy.Integer(0))
     return sympy.lambdify(
         list(symbols),
         expr,
-        printer=_ExactFloatPrinter({"fully_qualified_modules": False, "inline": True,
+        printer=_exact_float_printer()({"fully_qualified_modules": False, "inline": True,
                                     "allow_unknown_functions": True, "user_functions": {}}),
         modules=[{"erf": _np_erf, "erfc": _np_erfc, "Heaviside": lambda x, h=0.5: np.heaviside(x, h)}, "numpy"],
     )
@@ -419,6 +439,7 @@ def _np_erfc(x):
 
 
 def _from_sympy(text, variables, parameters, expr) -> Expression:
+    sympy = _sympy_tables()[0]
     symbols = [sympy.Symbol(v, real=True) for v in variables]
     index = {s: i for i, s in enumerate(symbols)}
     program = _compile_sympy(expr, index)
@@ -472,6 +493,7 @@ def parse_expression(
     if "__" in text:
         raise ExpressionError(f"expression {text!r} rejected: dunder names are not allowed")
     parameters = dict(parameters or {})
+    sympy = _sympy_tables()[0]
     names: dict[str, sympy.Basic] = {}
     for v in variables:
         names[v] = sympy.Symbol(v, real=True)
@@ -507,79 +529,3 @@ def parse_expression(
         raise ExpressionError(f"expression {text!r} rejected: {exc}") from None
     except (TypeError, ValueError, ArithmeticError, RecursionError) as exc:
         raise ExpressionError(f"expression {text!r} rejected: {exc or type(exc).__name__}") from None
-
-
-# ---------------------------------------------------------------- compiled
-@numba.njit(cache=True, nogil=True)
-def evaluate_program(ops, args, x, stack):  # pragma: no cover - compiled
-    """Run a postfix program on the variable values ``x`` (1-D float array).
-
-    ``stack`` is scratch space of length >= ``len(ops) + 1`` (allocated once by
-    the caller so that inner loops do not allocate).
-    """
-    sp = 0
-    for i in range(ops.shape[0]):
-        op = ops[i]
-        if op == OP_CONST:
-            stack[sp] = args[i]
-            sp += 1
-        elif op == OP_VAR:
-            stack[sp] = x[int(args[i])]
-            sp += 1
-        elif op <= OP_POW or op == OP_MIN or op == OP_MAX or (op >= OP_LT and op <= OP_GE):
-            b = stack[sp - 1]
-            a = stack[sp - 2]
-            sp -= 1
-            if op == OP_ADD:
-                r = a + b
-            elif op == OP_SUB:
-                r = a - b
-            elif op == OP_MUL:
-                r = a * b
-            elif op == OP_DIV:
-                r = a / b
-            elif op == OP_POW:
-                r = a**b
-            elif op == OP_MIN:
-                r = min(a, b)
-            elif op == OP_MAX:
-                r = max(a, b)
-            elif op == OP_LT:
-                r = 1.0 if a < b else 0.0
-            elif op == OP_LE:
-                r = 1.0 if a <= b else 0.0
-            elif op == OP_GT:
-                r = 1.0 if a > b else 0.0
-            else:
-                r = 1.0 if a >= b else 0.0
-            stack[sp - 1] = r
-        else:
-            a = stack[sp - 1]
-            if op == OP_NEG:
-                r = -a
-            elif op == OP_EXP:
-                r = math.exp(a)
-            elif op == OP_LOG:
-                r = math.log(a) if a > 0 else (-math.inf if a == 0 else math.nan)
-            elif op == OP_SQRT:
-                r = math.sqrt(a) if a >= 0 else math.nan
-            elif op == OP_TANH:
-                r = math.tanh(a)
-            elif op == OP_ERF:
-                r = math.erf(a)
-            elif op == OP_ERFC:
-                r = math.erfc(a)
-            elif op == OP_ABS:
-                r = abs(a)
-            elif op == OP_SIN:
-                r = math.sin(a)
-            elif op == OP_COS:
-                r = math.cos(a)
-            elif op == OP_COSH:
-                r = math.cosh(a)
-            elif op == OP_SINH:
-                r = math.sinh(a)
-            else:
-                r = math.atan(a)
-            stack[sp - 1] = r
-    return stack[0]

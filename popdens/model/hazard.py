@@ -19,7 +19,6 @@ from dataclasses import dataclass, field
 from typing import ClassVar, Mapping
 
 import numpy as np
-from scipy.special import erfc
 
 from .. import _validation as v
 from .expressions import Expression, parse_expression
@@ -157,6 +156,8 @@ class ErfEscape(EscapeFunction):
         object.__setattr__(self, "width", v.positive("width", width))
 
     def rate(self, u, threshold, dudt=0.0):
+        from scipy.special import erfc  # noqa: PLC0415 - scipy.special costs ~0.6 s: loaded on first use
+
         z = (threshold - np.asarray(u, dtype=float)) / (math.sqrt(2.0) * self.width)
         return _out(0.5 * self.max_rate * erfc(z))
 

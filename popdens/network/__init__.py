@@ -1,16 +1,30 @@
 """Networks of coupled populations: the circuit specification, mean-field time integration, the
-spiking twin's front end, fixed points, linear stability and stability maps."""
+spiking twin's front end, fixed points, linear stability and stability maps.
 
-from .circuit import Circuit, Cohort, Pathway, PoissonBackground
-from .integrate import simulate_network
-from .linear_stability import Stability, characteristic_matrix, count_roots, stability
-from .maps import StabilityMap, stability_map
-from .result import CircuitResult
-from .states import FixedPoint, fixed_points, solver_gain
-from .twin import montecarlo_network
+Names are imported on first use (PEP 562), so that reading a network scenario file
+(:mod:`.circuit` only) does not load the compiled solvers, scipy or numba.
+"""
+
+from __future__ import annotations
+
+from .._lazy import lazy_names
+
+_LAZY = {
+    "Circuit": "circuit", "Cohort": "circuit", "Pathway": "circuit", "PoissonBackground": "circuit",
+    "simulate_network": "integrate",
+    "Stability": "linear_stability", "characteristic_matrix": "linear_stability", "count_roots": "linear_stability",
+    "stability": "linear_stability",
+    "StabilityMap": "maps", "stability_map": "maps",
+    "CircuitResult": "result",
+    "FixedPoint": "states", "fixed_points": "states", "solver_gain": "states",
+    "montecarlo_network": "twin",
+}
 
 __all__ = [
     "Circuit", "CircuitResult", "Cohort", "FixedPoint", "Pathway", "PoissonBackground", "Stability",
     "StabilityMap", "characteristic_matrix", "count_roots", "fixed_points", "montecarlo_network",
     "simulate_network", "solver_gain", "stability", "stability_map",
 ]
+
+
+__getattr__, __dir__ = lazy_names(__name__, _LAZY, globals())

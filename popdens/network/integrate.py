@@ -12,11 +12,11 @@ from __future__ import annotations
 
 import logging
 import math
-import time
 
 import numpy as np
 
 from .._version import __version__
+from ..model._jit import Stopwatch
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers.registry import resolve_method
@@ -190,7 +190,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             var[tgt[q]] += cvar[q] * s_values[q]
         return mu, np.sqrt(np.maximum(var, 0.0))
 
-    wall0 = time.perf_counter()
+    watch = Stopwatch()
     mu0, sg0 = inputs(0, [ln.s for ln in lines])
     solvers = []
     for k, a in enumerate(circuit.cohorts):
@@ -279,7 +279,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     return CircuitResult(
         names=circuit.names, t=idx * dt, rate=r_out, mu=mus[:, idx], sigma=sg_out, method="mean-field",
         status=status, message=message, dt=dt,
-        diagnostics={"wall_time_s": time.perf_counter() - wall0, "version": __version__, "steps": done,
+        diagnostics={**watch.times(), "version": __version__, "steps": done,
                      "mass_error": max(mass),
                      "solvers": {nm: s.method_name for nm, s in zip(circuit.names, solvers)},
                      **{f"{nm}:{k}": val for nm, s in zip(circuit.names, solvers)

@@ -5,18 +5,19 @@ The step itself is in :mod:`popdens.twins._network`.
 
 from __future__ import annotations
 
+import itertools
 import logging
 import math
-import time
 
 import numpy as np
 
 from .._version import __version__
+from ..model._jit import Stopwatch
 from .. import _validation as v
 from ..model.adaptation import refuse
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
-from ..solvers._recording import BoundarySamples, make_grid, split_at_jumps
+from ..solvers._recording import BoundarySamples, make_grid, split_at_jumps, steps_per_call
 from .circuit import DEFAULT_DT, STEP_TOL, Circuit, Pathway
 from .result import CircuitResult
 
@@ -115,7 +116,11 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     sizes = np.array([a.size for a in asm], dtype=np.int64)
     start = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
     n_total = int(start[-1])
-    wall0 = time.perf_counter()
+    n_syn_planned = sum(p.in_degree * int(asm[circuit.names.index(p.target)].size) for p in circuit.pathways)
+    # two int64 lists per synapse (incoming, outgoing) and about ten numbers per neuron
+    v.check_memory("size", n_total, 16.0 * n_syn_planned + 80.0 * n_total,
+                   f"a network of {n_total} neurons with {n_syn_planned} synapses")
+    watch = Stopwatch()
 
     # -- per-cohort parameters
     nrns = [a.population.neuron for a in asm]
@@ -212,8 +217,11 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     no_spk = (np.zeros(1), np.zeros(1, dtype=np.int64))
     mu_b, sg_b = ext(0, 0)
     n_burn_spikes = 0
-    for b0 in range(0, n_burn, MC_BLOCK):
-        b1 = min(n_burn, b0 + MC_BLOCK)
+    # neuron updates plus synaptic events (~1 per 2000 synapses and step at ~20 Hz, dt = 0.1 ms; an
+    # event costs about a quarter of an update): steps per compiled call for a bounded Ctrl-C latency
+    per_call = steps_per_call(n_total + n_synapses // 2000, MC_BLOCK)
+    for b0 in range(0, n_burn, per_call):
+        b1 = min(n_burn, b0 + per_call)
         m_ = np.ascontiguousarray(np.repeat(mu_b, b1 - b0 + 1, axis=1))
         s_ = np.ascontiguousarray(np.repeat(sg_b, b1 - b0 + 1, axis=1))
         cnt = np.zeros((b1 - b0, npop), dtype=np.int64)
@@ -232,7 +240,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in split_at_jumps(list(range(MC_BLOCK, n, MC_BLOCK)) + [n], *mu_at, *sg_at):
+        for end in split_at_jumps(itertools.chain(range(per_call, n, per_call), [n]), *mu_at, *sg_at):
             while k < end:
                 m_, s_ = ext(k, end)
                 done, n_spk, full = run_network(*fixed, m_, s_, dt, bool(bridge), *net, k * dt, bool(record_spikes),
@@ -266,7 +274,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
         status=status, message=message, dt=dt, sizes=tuple(int(x) for x in sizes),
         spike_times=spk_t[:n_spk].copy() if record_spikes else None,
         spike_ids=spk_i[:n_spk].copy() if record_spikes else None,
-        diagnostics={"wall_time_s": time.perf_counter() - wall0, "version": __version__, "steps": k,
+        diagnostics={**watch.times(), "version": __version__, "steps": k,
                      "burn_in_ms": n_burn * dt, "burn_in_spikes": n_burn_spikes, "n_neurons": n_total,
                      "n_synapses": n_synapses, "n_spikes": n_spikes, "synaptic_events": events},
     )

@@ -72,20 +72,48 @@ def html_report(scenario, summary: dict, folder: Path, figures: list) -> str:
         frac = summary["montecarlo"]["fraction_within_4_se"]
         diag_rows += [("Monte Carlo: bins within 4 SE", "n/a" if frac is None else f"{100 * frac:.1f}%")]
         diag_rows += [(f"Monte Carlo: {k}", v) for k, v in summary["montecarlo"]["diagnostics"].items()]
+    verdict = ""
+    agreement = summary.get("montecarlo", {}).get("agreement")
+    if agreement:
+        cls = "agrees" if agreement["agrees"] else "disagrees"
+        verdict = f'<p class="{cls}"><b>Check:</b> {html.escape(agreement["verdict"])}.</p>'
+        m = agreement.get("modulation")
+        rows = [("significance level", agreement["alpha"]),
+                ("chi-square over bins (pooled to >= 5 expected spikes)",
+                 f"{agreement['chi2']:.2f} on {agreement['dof']} bins, p = {agreement['p_value']:.3g}"
+                 if agreement["dof"] else "n/a")]
+        if agreement.get("mean_p_value") is not None:
+            rows.append(("mean rate, twin / prediction - 1",
+                         f"{100 * agreement['rate_excess']:+.2f} %, p = {agreement['mean_p_value']:.3g}"))
+        if m:
+            rows += [("modulation frequency (Hz)", m["frequency_hz"]),
+                     ("modulation amplitude (Hz): twin [CI] / predicted",
+                      f"{m['amplitude_hz']:.4g} [{m['amplitude_ci_hz'][0]:.4g}, {m['amplitude_ci_hz'][1]:.4g}] / "
+                      f"{m['predicted_amplitude_hz']:.4g}"),
+                     ("modulation phase (degrees): twin [CI] / predicted",
+                      f"{m['phase_deg']:.1f} [{m['phase_ci_deg'][0]:.1f}, {m['phase_ci_deg'][1]:.1f}] / "
+                      f"{m['predicted_phase_deg']:.1f}"),
+                     ("modulation p-value", f"{m['p_value']:.3g}")]
+        model_check = [("Monte Carlo check", rows)]
+    else:
+        model_check = []
     title = html.escape(scenario.title)
     return f"""<!DOCTYPE html>
 <html lang="en"><head><meta charset="utf-8"><title>{title}</title>
 <style>body{{font-family:sans-serif;max-width:60em;margin:2em auto;color:#222}}
 table{{border-collapse:collapse;margin:0.5em 0 1.5em}}th,td{{border:1px solid #ccc;padding:0.2em 0.6em;text-align:left}}
-.caution{{background:#fff4e0;border-left:4px solid #e0a000;padding:0.6em}}</style></head>
+.caution{{background:#fff4e0;border-left:4px solid #e0a000;padding:0.6em}}
+.agrees{{background:#e8f6e8;border-left:4px solid #2a8a2a;padding:0.6em}}
+.disagrees{{background:#fbe6e6;border-left:4px solid #b02020;padding:0.6em}}</style></head>
 <body><h1>{title}</h1>
 <p>Scenario <code>{html.escape(str(scenario.source.name))}</code> (hash {scenario.digest}), popdens {__version__}.</p>
 <p class="caution">These are predictions of a model of neurons, from a research tool. They are not a basis for
 clinical or safety decisions.</p>
+{verdict}
 {chr(10).join(sections)}
 <p>Units: time ms, rate Hz, potentials and drive mV, frequency Hz. Tables:
 {", ".join(f"<code>{html.escape(t)}</code>" for t in tables)} (their header lines state the units of each column).</p>
-{chr(10).join(f"<h2>{html.escape(h)}</h2>{table(rows)}" for h, rows in model_tables)}
+{chr(10).join(f"<h2>{html.escape(h)}</h2>{table(rows)}" for h, rows in model_check + model_tables)}
 <h2>Numerical settings and analyses</h2>{table(run_rows)}
 {"<h2>Diagnostics</h2>" + table(diag_rows) if diag_rows else ""}
 </body></html>

@@ -6,16 +6,17 @@ import json
 import math
 import shutil
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
 
-from .._files import jsonable
+from .._files import jsonable, remove_stale_temporaries, stale_temporaries, temp_prefix
 from .._version import __version__
+from ..model._jit import Stopwatch
 from ..exceptions import ScenarioError
 from ..result import STATUS_INTERRUPTED
 from ..solvers.frontend import simulate
+from ..twins.agreement import agreement
 from ..twins.population import montecarlo
 from .report import html_report
 from .single import Scenario
@@ -69,14 +70,17 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
             raise ScenarioError(f"{scenario.source}: [scenario] key `output` = {str(scenario.output)!r} leads "
                                 f"to {inside}, outside the scenario's folder (through a symbolic link); "
                                 f"give the folder with --out instead")
+    if dest.parent.is_dir():
+        _clean_leftovers(dest)
     if dest.exists() or dest.is_symlink():
         if not overwrite:
-            raise FileExistsError(f"output folder {dest} exists; choose another or pass overwrite")
+            raise FileExistsError(f"output folder {dest} exists; choose another, or replace it with --overwrite "
+                                  "(overwrite=True in Python)")
         if dest.is_symlink() or not _is_output_folder(dest):
             raise FileExistsError(f"{dest} exists and is not a popdens output folder (no summary.json of a "
                                   f"run); refusing to replace it")
     dest.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{dest.name}.", dir=dest.parent))
+    tmp = Path(tempfile.mkdtemp(prefix=temp_prefix(dest.name), dir=dest.parent))
     try:
         header = {"scenario": str(scenario.source.name), "scenario_sha256_16": scenario.digest,
                   "popdens_version": __version__}
@@ -88,17 +92,19 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
             "caution": "model predictions for a research tool; not for clinical or safety decisions",
         }
         timing = {}
+        whole = Stopwatch()
         figures = []  # (file name, caption) pairs for the report
         if hasattr(scenario, "circuit"):  # a network scenario
             figures += _network(scenario, tmp, header, summary, timing, progress)
         elif scenario.runs_in_time:
             figures += _time_domain(scenario, tmp, header, summary, timing, progress)
         for name, analysis in getattr(scenario, "analyses", ()):
-            t0 = time.perf_counter()
+            watch = Stopwatch()
             summary[name] = analysis.write(scenario.population, tmp, header)
-            timing[f"{name}_s"] = time.perf_counter() - t0
+            timing[f"{name}_s"] = watch.times()["wall_time_s"]
             png = next(f for f in summary[name]["figures"] if f.endswith(".png"))
             figures.append((png, CAPTIONS[name]))
+        timing["compile_s"] = whole.times()["compile_time_s"]
         summary["files"] = sorted([p.name for p in tmp.iterdir()] + ["report.html", "summary.json", TIMING_FILE])
         (tmp / "summary.json").write_text(json.dumps(jsonable(summary), indent=2, sort_keys=True) + "\n")
         (tmp / "report.html").write_text(html_report(scenario, summary, tmp, figures), encoding="utf-8")
@@ -144,15 +150,21 @@ def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, tim
                         progress=progress)
         _stop_if_interrupted(mc)
         mc.to_csv(tmp / "montecarlo.csv", header_extra=header)
-        n_cmp = min(mc.rate.size, pred.rate.size)
-        se = mc.rate_standard_error()[1:n_cmp]
-        z = np.abs(mc.rate[1:n_cmp] - pred.rate[1:n_cmp]) / np.maximum(se, 1e-12)
         timing["montecarlo_s"] = mc.diagnostics.get("wall_time_s")
+        check = agreement(pred, mc, drive=scenario.drive)
         summary["montecarlo"] = {"n_neurons": mc.n_neurons, "seed": scenario.seed,
                                  "status": mc.status, "message": mc.message,
-                                 "fraction_within_4_se": float(np.mean(z <= 4.0)) if z.size else None,
+                                 "fraction_within_4_se": _finite_or_none(check.fraction_within_4_se),
+                                 "agreement": check.to_dict(),
                                  "diagnostics": mc.settings()}
-    return _figures(pred, mc, tmp)
+    figures = _figures(pred, mc, tmp)
+    if mc is not None:
+        from ..plotting import save_figure
+
+        save_figure(check.plot(), tmp, "agreement")
+        figures.append(("agreement.png", "Does the Monte Carlo twin agree? Standardised residuals per bin "
+                                         "and the verdict"))
+    return figures
 
 
 def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:
@@ -173,10 +185,10 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
     summary["cohorts"] = {a.name: {"size": a.size, "model": type(a.population.neuron).__name__,
                                       "noise": type(a.population.noise).__name__} for a in c.cohorts}
     if scenario.fixed_points:
-        t0 = time.perf_counter()
+        watch = Stopwatch()
         states = fixed_points(c, scenario.rate_range)
         verdicts = [stability(c, st) for st in states] if scenario.stability else [None] * len(states)
-        timing["fixed_points_s"] = time.perf_counter() - t0
+        timing["fixed_points_s"] = watch.times()["wall_time_s"]
         cols = {"state": list(range(len(states)))}
         for k, nm in enumerate(names):
             cols[f"rate_Hz_{nm}"] = [st.rates[k] for st in states]
@@ -199,10 +211,10 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
         from ..network.maps import stability_map
 
         inh, drv = scenario.stability_grid
-        t0 = time.perf_counter()
+        watch = Stopwatch()
         smap = stability_map(scenario.circuit_at, inh, drv, x_label="inhibition factor (x inhibitory weights)",
                              y_label="external drive (mV)", rate_range=scenario.rate_range, progress=progress)
-        timing["stability_map_s"] = time.perf_counter() - t0
+        timing["stability_map_s"] = watch.times()["wall_time_s"]
         if not smap.complete:  # only Ctrl-C leaves a map incomplete: not an output
             raise KeyboardInterrupt("interrupted while computing the stability map")
         xx, yy = np.meshgrid(smap.x, smap.y)
@@ -270,12 +282,26 @@ def _is_output_folder(path: Path) -> bool:
     return isinstance(data, dict) and "scenario_sha256_16" in data and "version" in data
 
 
+def _clean_leftovers(dest: Path) -> None:
+    """Remove the hidden folders a killed run (SIGKILL, power loss) left beside ``dest``.
+
+    A run writes into ``.NAME.pPID.xxxxxxxx`` and, when replacing an output, parks the old one in
+    ``.NAME.old.pPID.xxxxxxxx`` for a moment; only folders whose process has ended are touched.
+    A parked previous output whose replacement never arrived is put back in place."""
+    for old in stale_temporaries(dest, "old"):
+        if not dest.exists() and not dest.is_symlink() and _is_output_folder(old):
+            old.rename(dest)
+        else:
+            shutil.rmtree(old, ignore_errors=True)
+    remove_stale_temporaries(dest)
+
+
 def _move_into_place(tmp: Path, dest: Path) -> None:
     """Rename the complete folder ``tmp`` to ``dest``; an old ``dest`` is removed only afterwards."""
     if not dest.exists():
         tmp.rename(dest)
         return
-    old = Path(tempfile.mkdtemp(prefix=f".{dest.name}.old.", dir=dest.parent))
+    old = Path(tempfile.mkdtemp(prefix=temp_prefix(dest.name, "old"), dir=dest.parent))
     old.rmdir()
     dest.rename(old)
     try:

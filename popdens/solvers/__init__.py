@@ -1,14 +1,25 @@
 """Time-domain density solvers: the solver contract, the refractory-density (escape noise) and
 Fokker--Planck (white noise) solvers, their grids, the method registry, and the :func:`simulate`
-front end that owns time grids, recording and progress."""
+front end that owns time grids, recording and progress.
 
-from .registry import DEFAULT_METHOD, METHODS, resolve_method
-from ._base import SolverBase
-from .fokker_planck import FokkerPlanckSolver
-from .refractory import RefractoryDensitySolver
-from .frontend import simulate
+Names are imported on first use (PEP 562): the solvers load numba, which a module needing only
+:mod:`._recording` (the scenario schema) should not pay for."""
+
+from __future__ import annotations
+
+from .._lazy import lazy_names
+
+_LAZY = {
+    "DEFAULT_METHOD": "registry", "METHODS": "registry", "resolve_method": "registry",
+    "SolverBase": "_base",
+    "FokkerPlanckSolver": "fokker_planck",
+    "RefractoryDensitySolver": "refractory",
+    "simulate": "frontend",
+}
 
 __all__ = [
     "DEFAULT_METHOD", "FokkerPlanckSolver", "METHODS", "RefractoryDensitySolver", "SolverBase",
     "resolve_method", "simulate",
 ]
+
+__getattr__, __dir__ = lazy_names(__name__, _LAZY, globals())

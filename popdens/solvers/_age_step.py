@@ -8,7 +8,7 @@ import math
 
 import numba
 
-from ..model._kernels import MS_TO_S, advance_potential, drift_value, hazard_value
+from ..model._kernels import MS_TO_S, NO_REFCOUNT, advance_potential, drift_value, hazard_value
 from ..model.neurons import CODE_LIF
 
 __all__ = ["AGE_TOL", "_bin_step", "_newborn", "_refire_survival"]
@@ -18,7 +18,7 @@ __all__ = ["AGE_TOL", "_bin_step", "_newborn", "_refire_survival"]
 AGE_TOL = 1e-9
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
               hcode, hpar, hops, hargs, theta, uses_slope,
               age0, tau_ref, dt, e_dt, u, h_cached, mu0, mu1, stack, xbuf):  # pragma: no cover
@@ -66,7 +66,7 @@ def _bin_step(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
     return u_new, h_new, 0.5 * (h_start + h_new) * free * MS_TO_S
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta, uses_slope,
              tau_ref, dt, mu1, stack, xbuf):  # pragma: no cover
     """Potential (mV) and hazard (Hz) of neurons that fired during the step just ended.
@@ -86,7 +86,7 @@ def _newborn(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, t
     return un, hazard_value(hcode, hpar, hops, hargs, un, theta, d1, stack, xbuf)
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _refire_survival(ncode, npar, nops, nargs, tau_m, reset, hcode, hpar, hops, hargs, theta, uses_slope,
                      tau_ref, dt, mu1, h_newborn, stack, xbuf):  # pragma: no cover
     """Probability that a neuron born in the step just ended does not fire again before its end.

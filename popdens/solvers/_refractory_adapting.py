@@ -63,7 +63,7 @@ __all__ = ["CLOSURES", "adapt_start", "adapt_end", "adapt_sums", "advance_adapti
 CLOSURES = {"spike-weighted": 0, "quasi-renewal": 1}
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def adapt_start(kinds, decay, coup, rest, st, p, u0):  # pragma: no cover - compiled
     """``(W0, W1, Theta1)``: summed currents at the step start and predicted end (mV), thresholds at the end (mV)."""
     w0 = 0.0
@@ -79,7 +79,7 @@ def adapt_start(kinds, decay, coup, rest, st, p, u0):  # pragma: no cover - comp
     return w0, w1, th1
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def adapt_end(kinds, decay, coup, rest, st, p, u0, u1):  # pragma: no cover - compiled
     """Advance the components of column ``p`` over the step in which the potential went ``u0 -> u1``."""
     for c in range(kinds.shape[0]):
@@ -89,7 +89,7 @@ def adapt_end(kinds, decay, coup, rest, st, p, u0, u1):  # pragma: no cover - co
         st[c, p] = x
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def adapt_sums(kinds, st, p):  # pragma: no cover - compiled
     """``(W, Theta)``: summed currents and thresholds (mV) of column ``p``."""
     w = 0.0

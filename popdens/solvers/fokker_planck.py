@@ -105,7 +105,7 @@ MAX_AUTO_CELLS = 12_000
 RESCALE_ABOVE = 1e200
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _bern(x):  # pragma: no cover - compiled
     """Bernoulli function B(x) = x / (exp(x) - 1) for x >= 0."""
     if x < 1e-5:

@@ -4,13 +4,14 @@ from __future__ import annotations
 
 import inspect
 import logging
-import time
 import warnings
 
 import numpy as np
 
 from .._version import __version__
-from ._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps
+from .. import _validation as v
+from ..model._jit import Stopwatch
+from ._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps, steps_per_call
 from ..model.drive import as_drive
 from ..model.noise import Population, WhiteNoise
 from ..progress import Progress
@@ -123,7 +124,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     solver = cls(population, grid.dt, **options)
     sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
 
-    wall0 = time.perf_counter()
+    watch = Stopwatch()
     mu_at = BoundarySamples(drive, grid)
     sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
     mu0 = mu_at.start()
@@ -138,6 +139,9 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
         solver.plan(np.concatenate([drive(ts), drive.left_limit(jt)]),
                     None if sigma_drive is None else np.concatenate([sigma_drive(ts), sigma_drive.left_limit(jt)]))
     solver.initialize(mu0, sigma0, initial)
+    n_snap = grid.n_steps // grid.snap_every + 1 if grid.snap_every else 0
+    v.check_memory("t_end", t_end, 8.0 * (3 * grid.n_steps + n_snap * (solver.axis.size + 1)),
+                   f"recording {grid.n_steps} steps" + (f" and {n_snap} density snapshots" if n_snap else ""))
     guard = _AccuracyGuard(solver)
     guard.check(np.array([mu0]), None if sigma0 is None else np.array([sigma0]))
     rate0 = solver.instantaneous_rate(mu0, sigma0)
@@ -155,7 +159,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in split_at_jumps(block_ends(grid), mu_at, sigma_at):
+        for end in split_at_jumps(block_ends(grid, steps_per_call(solver.axis.size)), mu_at, sigma_at):
             tk = grid.step_times(k, end)
             mu = mu_at.values(k, end)
             sg = sigma_at.values(k, end) if sigma_at is not None else None
@@ -187,7 +191,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
         status, message = STATUS_FAILED, f"probability mass drifted by {mass_error:.3g}"
     t, r_out, mu_o, rf_o = downsample(grid, rate0, rate, meanu0, mean_u, refr0, refr, k)
     diagnostics = {
-        "wall_time_s": time.perf_counter() - wall0,
+        **watch.times(),
         "version": __version__,
         "mass_error": mass_error,
         "method": cls.method_name,

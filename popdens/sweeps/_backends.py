@@ -161,7 +161,7 @@ def run_dask(evaluate, func, tasks, retries: int, workers: int, scheduler: str |
     cluster = None
     if scheduler is None:
         cluster = distributed.LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
-                                           host="127.0.0.1", dashboard_address=None)
+                                           host="127.0.0.1", dashboard_address=":0")
         client = distributed.Client(cluster)
     else:
         try:

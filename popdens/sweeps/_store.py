@@ -23,6 +23,8 @@ import os
 import tempfile
 from pathlib import Path
 
+from .._files import remove_stale_temporaries, temp_prefix
+
 __all__: list[str] = []
 
 MANIFEST = "sweep.json"
@@ -38,7 +40,8 @@ LAYOUT_VERSION = 1
 def durable_write(path: Path, text: str) -> None:
     """Write ``text`` to ``path`` atomically and durably (temp file, fsync, rename, fsync folder)."""
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".part")
+    remove_stale_temporaries(path)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=temp_prefix(path.name), suffix=".part")
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(text.encode("utf-8"))

@@ -77,7 +77,7 @@ _E6 = _B6 - 187.0 / 2100.0
 _E7 = -1.0 / 40.0
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _trajectory(code, p, ops, args, tau_m, reset, tau_ref, mu, a, y0, stack, xbuf):  # pragma: no cover
     """(u, du/da) at age ``a`` in age mode (closed form for LIF/PIF, else the state ``y0``)."""
     if code == CODE_LIF:
@@ -89,7 +89,7 @@ def _trajectory(code, p, ops, args, tau_m, reset, tau_ref, mu, a, y0, stack, xbu
     return y0, (drift_value(code, p, ops, args, y0, stack, xbuf) + mu) / tau_m
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _rhs(mode, code, p, ops, args, tau_m, reset, tau_ref, mu, hcode, hp, hops, hargs, theta,
          x, y, out, stack, xbuf):  # pragma: no cover - compiled
     if mode == 0:

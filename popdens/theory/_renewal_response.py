@@ -36,7 +36,7 @@ from ..model._kernels import NO_REFCOUNT
 SERIES_BELOW = 1e-6
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _tail(s, sc, hc, huc, gslope, tau_m, u_c, j_c):  # pragma: no cover - compiled
     """Closed-form contributions (Q, P_hat without phase) of ages beyond the grid."""
     g = gslope - s

@@ -76,6 +76,7 @@ class _Sweep:
     mean_u: float
     t1: float  # ms, mean passage time reset -> boundary
     t2: float  # ms^2
+    rate_error: float = float("nan")  # Hz, estimated error of the extrapolated rate
 
 
 def diffusive_sweep(population, mu: float, sigma: float, cells_per_scale=CELLS_PER_SCALE,
@@ -92,8 +93,15 @@ def diffusive_sweep(population, mu: float, sigma: float, cells_per_scale=CELLS_P
     def ex(name):
         return (w * getattr(fine, name) - getattr(coarse, name)) / (w - 1.0)
 
-    return _Sweep(u=fine.u, density=fine.density, flux=fine.flux, rate=ex("rate"), mean_u=ex("mean_u"),
-                  t1=ex("t1"), t2=ex("t2"))
+    # error estimate: the same extrapolation one level coarser differs from this one by (a bound of)
+    # its own error, which exceeds that of the finer extrapolation returned
+    quarter_cells = max(1, coarse_cells // 2)
+    quarter = _diffusive_sweep_at(population, mu, sigma, quarter_cells)
+    wq = (coarse_cells / quarter_cells) ** 2
+    rate_coarse = (wq * coarse.rate - quarter.rate) / (wq - 1.0)
+    rate = ex("rate")
+    return _Sweep(u=fine.u, density=fine.density, flux=fine.flux, rate=rate, mean_u=ex("mean_u"),
+                  t1=ex("t1"), t2=ex("t2"), rate_error=abs(rate - rate_coarse))
 
 
 def _diffusive_sweep_at(population, mu: float, sigma: float, cells_per_scale) -> _Sweep:

@@ -52,7 +52,7 @@ RESCALE_ABOVE = 1e200
 MAX_CELLS_BELOW = 50_000_000
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _phi(z):  # pragma: no cover - compiled
     """(1 - e^{-z})/z, stable for all z (1 at z = 0)."""
     if abs(z) < 1e-8:
@@ -60,7 +60,7 @@ def _phi(z):  # pragma: no cover - compiled
     return -math.expm1(-z) / z
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _psi(z):  # pragma: no cover - compiled
     """(z - 1 + e^{-z})/z^2 = (1 - phi(z))/z, stable for all z (1/2 at z = 0)."""
     if abs(z) < 1e-4:

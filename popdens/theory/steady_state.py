@@ -51,7 +51,7 @@ from ..model.neurons import CODE_LIF, CODE_PIF
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ._isi_diffusive import passage_time_density
 from ._renewal import STATUS_OK as _RENEWAL_OK
-from ._renewal import reaches_cutoff, renewal_moments
+from ._renewal import RENEWAL_TOL, reaches_cutoff, renewal_moments
 from ._scales import scratch
 from ._siegert import siegert_rate, siegert_slopes
 from ._stationary_escape import CUTOFF_PROBES, renewal_args, renewal_rates_hz
@@ -354,7 +354,9 @@ def _escape_stationary(population, mu: float, isi_t) -> SteadyState:
         isi_t=isi_t, isi_density=haz * surv, survivor=surv, method="renewal",
         isi_atom=(float(a_end), float(s_end)) if atom else None,
         age=isi_t, age_density=rate_ms * surv,
-        diagnostics={"renewal_steps": int(n_rec), "mode": "potential" if mode else "age"},
+        # global error bound of the adaptive integration: the local tolerances summed over its steps
+        diagnostics={"renewal_steps": int(n_rec), "mode": "potential" if mode else "age",
+                     "rate_error_hz": rate_ms * 1000.0 * RENEWAL_TOL * max(int(n_rec), 1)},
     )
 
 
@@ -389,6 +391,7 @@ def _diffusive_stationary(population, mu: float, sigma: float, isi_t, method: st
         isi_t=isi_t, isi_density=dens, survivor=surv, method=method,
         u=sw.u, density=sw.density, flux=sw.flux,
         diagnostics={"cells": int(sw.u.size - 1), "threshold_integration_rate_hz": sw.rate,
+                     "rate_error_hz": 0.0 if method in ("siegert", "inverse-gaussian") else sw.rate_error,
                      "mean_passage_ms": sw.t1, "isi_spectrum_residual": residual},
     )
 

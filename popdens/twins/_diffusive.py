@@ -45,7 +45,7 @@ REF_TOL = 1e-9
 BRIDGE_SKIP = 40.0
 
 
-@numba.njit(cache=True, nogil=True, inline="always")
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _move(ncode, npar, nops, nargs, tau_m, u, h, mu0, mu1, sigma, stack, xbuf):  # pragma: no cover
     """One stochastic update of length ``h`` ms from ``u`` (mV)."""
     if ncode == CODE_LIF:

@@ -8,17 +8,19 @@ neurons with the same model, noise and drive and returns the same
 
 from __future__ import annotations
 
+import copy
 import logging
-import time
 
 import numpy as np
 
 from .._version import __version__
+from ..model._jit import Stopwatch
 from .. import _validation as v
 from ._escape import run_escape, run_escape_adapting, seed_compiled_rng
 from ..model.adaptation import KIND_CURRENT, step_args
 from ..solvers._age_step import _newborn
-from ..solvers._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps
+from ..solvers._recording import (WORK_PER_CALL, BoundarySamples, block_ends, downsample, make_grid, split_at_jumps,
+                                  steps_per_call)
 from ..model.drive import as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..progress import Progress
@@ -37,6 +39,8 @@ BURN_IN_MIN_MS = 500.0
 #: ... and in time constants of the slowest adaptation component: the mean adaptation relaxes
 #: at least this fast, so its distance to the stationary state falls below exp(-8) ~ 3e-4.
 BURN_IN_ADAPTATION_TAUS = 8.0
+#: Most steps per compiled call (fewer for large ensembles: ``steps_per_call``).
+MC_BLOCK_STEPS = 2000
 #: Initial capacity of the spike buffer, per neuron.
 SPIKES_PER_NEURON_GUESS = 16
 
@@ -142,6 +146,47 @@ def _make_ensemble(population, n, dt, rng, options):
     raise ValueError(f"unsupported noise {population.noise!r}")  # pragma: no cover
 
 
+def _part(ens, n: int, i0: int, i1: int):
+    """The neurons ``i0:i1`` of an ensemble as an ensemble of their own (views of the per-neuron
+    arrays; 2-D per-neuron arrays such as the adaptation state are copied, see :func:`_commit`)."""
+    part = copy.copy(ens)
+    for name, value in vars(ens).items():
+        if isinstance(value, np.ndarray) and value.ndim >= 1 and value.shape[-1] == n:
+            piece = value[..., i0:i1]
+            setattr(part, name, piece if value.ndim == 1 else np.ascontiguousarray(piece))
+    return part
+
+
+def _commit(ens, part, n: int, i0: int, i1: int) -> None:
+    for name, value in vars(ens).items():
+        if isinstance(value, np.ndarray) and value.ndim >= 2 and value.shape[-1] == n:
+            value[..., i0:i1] = getattr(part, name)
+
+
+def _run(ens, n, mu, sg, t0, record, spk_t, spk_i, n_spk):
+    """``ens.run`` for one step, in compiled calls of at most WORK_PER_CALL neurons each, so that
+    Ctrl-C (handled between calls) acts within a second however large the ensemble.  Each part
+    draws its random numbers in turn: the results depend on ``n`` and the seed only."""
+    if n <= WORK_PER_CALL:
+        return ens.run(mu, sg, t0, record, spk_t, spk_i, n_spk)
+    if mu.size != 2:
+        raise AssertionError("an ensemble this large advances one step per call")  # pragma: no cover
+    if record and spk_t.shape[0] - n_spk < n:
+        return 0, n_spk, True, np.zeros(0), np.zeros(0), np.zeros(0)
+    count = mean_u = refr = 0.0
+    for i0 in range(0, n, WORK_PER_CALL):
+        i1 = min(n, i0 + WORK_PER_CALL)
+        part = _part(ens, n, i0, i1)
+        before = n_spk
+        _, n_spk, _, c, m, r = part.run(mu, sg, t0, record, spk_t, spk_i, n_spk)
+        spk_i[before:n_spk] += i0  # ids within the part -> ids in the ensemble (time order kept)
+        _commit(ens, part, n, i0, i1)
+        count += float(c[0])
+        mean_u += float(m[0]) * (i1 - i0)
+        refr += float(r[0]) * (i1 - i0)
+    return 1, n_spk, False, np.array([count]), np.array([mean_u / n]), np.array([refr / n])
+
+
 def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stationary",
                burn_in=None, record_interval=None, record_spikes=False, progress=None,
                **options) -> Result:
@@ -205,7 +250,9 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     if initial not in ("stationary", "synchronous"):
         raise ValueError(f"`initial` must be 'stationary' or 'synchronous', got {initial!r}")
     nrn = population.neuron
-    wall0 = time.perf_counter()
+    per_neuron = 8.0 * (6 + len(nrn.adaptation)) + (16.0 * SPIKES_PER_NEURON_GUESS if record_spikes else 0.0)
+    v.check_memory("n", n, n * per_neuron + 24.0 * grid.n_steps, f"the state of {n} neurons")
+    watch = Stopwatch()
     seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
     ens = _make_ensemble(population, n, grid.dt, rng, options)
     mu_at = BoundarySamples(drive, grid)
@@ -216,18 +263,31 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
         raise ValueError("the drive is not finite at t = 0")
     sigma0 = sigma_at.start() if sigma_at is not None else None
     no_spikes = (np.zeros(1), np.zeros(1, dtype=np.int64))
+    n_burn = 0
     if initial == "stationary":
         if burn_in is None:
             burn_in = default_burn_in(nrn)
         burn_in = v.non_negative("burn_in", burn_in)
         n_burn = int(round(burn_in / grid.dt))
-        for k0 in range(0, n_burn, 5000):
-            k1 = min(n_burn, k0 + 5000)
-            ens.run(np.full(k1 - k0 + 1, mu0), None if sigma0 is None else np.full(k1 - k0 + 1, sigma0),
-                    0.0, False, *no_spikes, 0)
-    else:
-        if burn_in is not None:
-            v.warn_ignored("burn_in", "initial='synchronous' starts all neurons at a spike")
+    elif burn_in is not None:
+        v.warn_ignored("burn_in", "initial='synchronous' starts all neurons at a spike")
+    per_call = steps_per_call(n, MC_BLOCK_STEPS)
+    bar = Progress(n_burn + grid.n_steps, "montecarlo", progress)
+    try:
+        for k0 in range(0, n_burn, per_call):
+            k1 = min(n_burn, k0 + per_call)
+            _run(ens, n, np.full(k1 - k0 + 1, mu0), None if sigma0 is None else np.full(k1 - k0 + 1, sigma0),
+                 0.0, False, *no_spikes, 0)
+            bar.update(k1)
+    except KeyboardInterrupt:
+        bar.close()
+        message = f"interrupted by the user during the burn-in ({k0 * grid.dt:g} of {burn_in:g} ms)"
+        logger.warning(message)
+        return Result(t=np.zeros(1), rate=np.full(1, np.nan), mean_u=np.full(1, np.nan),
+                      refractory_fraction=np.full(1, np.nan), drive=drive(np.zeros(1)), method="montecarlo",
+                      population=population, status=STATUS_INTERRUPTED, message=message, dt=grid.dt, n_steps=0,
+                      n_neurons=n, diagnostics={**watch.times(), "version": __version__})
+    if initial == "synchronous":
         ens.start_synchronous(population, mu0)
     rate0 = ens.instantaneous_rate(population, mu0)
     meanu0, refr0 = ens.mean_potential(), ens.refractory_fraction()
@@ -239,19 +299,18 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     spk_t = np.empty(cap)
     spk_i = np.empty(cap, dtype=np.int64)
     n_spk = 0
-    bar = Progress(grid.n_steps, "montecarlo", progress)
     k = 0
     status, message = STATUS_OK, "completed"
     try:
-        for end in split_at_jumps(block_ends(grid, 2000), mu_at, sigma_at):
+        for end in split_at_jumps(block_ends(grid, per_call), mu_at, sigma_at):
             while k < end:
                 tk = grid.step_times(k, end)
                 mu = mu_at.values(k, end)
                 if not np.all(np.isfinite(mu)):
                     raise FloatingPointError(f"the drive is not finite at t = {tk[~np.isfinite(mu)][0]:g} ms")
                 sg = sigma_at.values(k, end) if sigma_at is not None else None
-                done, n_spk, full, c, mu_out, rf = ens.run(mu, sg, k * grid.dt, record_spikes, spk_t, spk_i,
-                                                           n_spk)
+                done, n_spk, full, c, mu_out, rf = _run(ens, n, mu, sg, k * grid.dt, record_spikes, spk_t, spk_i,
+                                                        n_spk)
                 counts[k:k + done] = c
                 mean_u[k:k + done] = mu_out
                 refr[k:k + done] = rf
@@ -260,7 +319,7 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
                     spk_t = np.concatenate([spk_t[:n_spk], np.empty(max(cap, n_spk + n))])
                     spk_i = np.concatenate([spk_i[:n_spk], np.empty(max(cap, n_spk + n), dtype=np.int64)])
                     cap = spk_t.size
-            bar.update(k)
+            bar.update(n_burn + k)
     except FloatingPointError as exc:
         status, message = STATUS_FAILED, str(exc)
     except KeyboardInterrupt:
@@ -276,7 +335,7 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
         dt=grid.dt, n_steps=k, n_neurons=n,
         spike_times=spk_t[:n_spk].copy() if record_spikes else None,
         spike_ids=spk_i[:n_spk].copy() if record_spikes else None,
-        diagnostics={"wall_time_s": time.perf_counter() - wall0, "version": __version__,
+        diagnostics={**watch.times(), "version": __version__,
                      "burn_in_ms": burn_in if initial == "stationary" else 0.0,
                      "n_spikes": int(counts[:k].sum()), "dt_ms": grid.dt, "initial": initial,
                      "seed": seed if isinstance(seed, (int, np.integer)) or seed is None else "generator"},

@@ -6,7 +6,8 @@ import numpy as np
 import pytest
 
 from popdens.exceptions import ExpressionError
-from popdens.model.expressions import evaluate_program, parse_expression
+from popdens.model._kernels import evaluate_program
+from popdens.model.expressions import parse_expression
 
 
 @pytest.mark.parametrize(

@@ -19,7 +19,8 @@ from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 
 from popdens.exceptions import ExpressionError
-from popdens.model.expressions import evaluate_program, parse_expression
+from popdens.model._kernels import evaluate_program
+from popdens.model.expressions import parse_expression
 
 N = settings.default.max_examples
 FUZZ = dict(deadline=10_000, suppress_health_check=[HealthCheck.too_slow])

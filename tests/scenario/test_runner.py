@@ -59,7 +59,8 @@ def test_same_scenario_and_seed_give_bit_identical_files(tmp_path):
     assert main(["run", str(p), "--quiet", "--out", str(tmp_path / "a")]) == 0
     assert main(["run", str(p), "--quiet", "--out", str(tmp_path / "b")]) == 0
     a, b = files(tmp_path / "a"), files(tmp_path / "b")
-    assert set(a) == {"prediction.csv", "montecarlo.csv", "rate.png", "rate.svg", "summary.json", "report.html",
+    assert set(a) == {"prediction.csv", "montecarlo.csv", "rate.png", "rate.svg", "agreement.png", "agreement.svg",
+                      "summary.json", "report.html",
                       "timing.json"}
     # timing.json holds the wall times, the only thing that may differ between runs
     for name in sorted(set(a) - {"timing.json"}):

@@ -76,7 +76,7 @@ def renewal_rate_hz(tau, thr, reset, t_ref, rate0, width, mu):
 @pytest.fixture(scope="module")
 def dask_cluster():
     cluster = distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1",
-                                       dashboard_address=None)
+                                       dashboard_address=":0")
     yield cluster
     cluster.close()
 
