@@ -107,12 +107,22 @@ def _network():
     popdens.montecarlo_network(net, t_end=2.0, dt=0.1, seed=1, progress=False)
 
 
+def _fitting():
+    import popdens
+    from popdens.fitting import isi_loglik, psth_loglik
+
+    esc, white, *_ = _populations()
+    psth_loglik(esc, popdens.SpikeTrains([[1.0, 30.0, 70.0]], duration=100.0), 16.0, dt=0.1)
+    isi_loglik(white, [20.0 + k for k in range(10)], mu=18.0)
+
+
 #: Warm-up problems by name, each reaching a group of kernels (tiny sizes: their run time is negligible).
 TASKS: dict[str, Callable[[], None]] = {
     "adapting": _adapting,
     "escape solver": _escape_solver,
     "escape theory": _escape_theory,
     "escape twin": _escape_twin,
+    "fitting": _fitting,
     "network": _network,
     "white solver": _white_solver,
     "white theory": _white_theory,
