@@ -469,12 +469,15 @@ def _main(args) -> int:
             print("  [stationary]  mu (mV)")
             print("  [transfer]    mu (mV), frequencies (Hz), modulate = mean | noise | sigma")
             print("  [sweep]       analysis = summary | gain | transfer, mode = grid | list, dotted keys to vary")
-            from .scenario.network import COHORT_KEYS, NETWORK_KEYS, PATHWAY_KEYS
+            from .scenario.network import BIFURCATION_KEYS, COHORT_KEYS, MAP_KEYS, NETWORK_KEYS, PATHWAY_KEYS
 
             print("network scenarios (mV, ms, Hz):")
             for table, keys in (("[[cohort]]", COHORT_KEYS), ("[[pathway]]", PATHWAY_KEYS),
-                                ("[network]", NETWORK_KEYS)):
+                                ("[network]", NETWORK_KEYS), ("[network.stability_map]", MAP_KEYS),
+                                ("[network.bifurcation]", BIFURCATION_KEYS)):
                 print(f"  {table:13s} {', '.join(sorted(keys))}")
+            print("  parameter paths: drive, inhibition, cohort.NAME.FIELD, pathway.SOURCE->TARGET.FIELD "
+                  "(NAME may be *; see popdens.network.parameters)")
             return 0
         if args.command == "compile":
             return _compile_command(args)

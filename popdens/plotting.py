@@ -5,8 +5,9 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["save_figure", "plot_agreement", "plot_calibration", "plot_circuit_rates", "plot_comparison",
-           "plot_density_map", "plot_fit", "plot_gain", "plot_isi", "plot_ks", "plot_rate",
+__all__ = ["save_figure", "plot_agreement", "plot_bifurcation_diagram", "plot_boundary_curves", "plot_calibration",
+           "plot_circuit_rates", "plot_comparison", "plot_density_map", "plot_fit", "plot_gain", "plot_isi", "plot_ks",
+           "plot_rate",
            "plot_stability_map", "plot_steady_state", "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map",
            "plot_transfer"]
 
@@ -300,9 +301,10 @@ def plot_circuit_rates(result, ax=None, **kwargs):
     return ax
 
 
-def plot_stability_map(smap, ax=None):
+def plot_stability_map(smap, ax=None, curves=None):
     """Growth rate of the leading root over a stability map, the boundary (growth rate 0) in black and
-    the oscillation frequency written at each unstable point.  Returns ``(fig, ax)``."""
+    the oscillation frequency written at each unstable point; ``curves`` (a ``BoundaryCurves`` in the
+    same plane) drawn on top.  Returns ``(fig, ax)``."""
     import matplotlib.pyplot as plt
 
     if ax is None:
@@ -321,6 +323,114 @@ def plot_stability_map(smap, ax=None):
     ax.set_xlabel(smap.x_label)
     ax.set_ylabel(smap.y_label)
     ax.set_title("linear stability (black: boundary)")
+    if curves is not None:
+        plot_boundary_curves(curves, ax, labels=False)
+        ax.set_title("linear stability (black: grid boundary; green/purple: continued curves)")
+    return fig, ax
+
+
+#: Line colours of the continuation figures: folds, onsets.
+_KIND_COLOURS = {"fold": "tab:green", "onset": "tab:purple"}
+
+
+def _log_rates(values) -> bool:
+    """Rates spanning more than two decades are drawn on a log axis."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v) & (v > 0)]
+    return v.size > 1 and v.max() / v.min() > 100.0
+
+
+def plot_bifurcation_diagram(diagram, ax=None):
+    """Rates of each cohort against the continuation parameter: stable branches solid, unstable
+    dashed, folds (circles) and oscillation onsets (squares, with their frequency) marked.
+
+    One panel per cohort (stacked, sharing the parameter axis) unless ``ax`` is given, in which
+    case every cohort goes on it.  Returns ``(fig, axes)`` (``axes``: a list).
+    """
+    import matplotlib.pyplot as plt
+
+    names = list(diagram.names)
+    if ax is None:
+        fig, axes = plt.subplots(len(names), 1, figsize=(6.0, 2.4 + 1.6 * len(names)), sharex=True,
+                                 constrained_layout=True, squeeze=False)
+        axes = list(axes[:, 0])
+        panels = [(a, [k]) for k, a in enumerate(axes)]
+    else:
+        fig, axes = ax.figure, [ax]
+        panels = [(ax, list(range(len(names))))]
+    for axk, cohorts in panels:
+        for k in cohorts:
+            colour = f"C{k}" if len(cohorts) > 1 else "k"
+            for b in diagram.branches:
+                x, r = b.parameter, b.rates[:, k]
+                if not diagram.analysed:
+                    axk.plot(x, r, "-", color="0.4", lw=1.2)
+                    continue
+                # solid where stable, dashed where not; segments split where the label changes
+                st = b.stable
+                start = 0
+                for i in range(1, len(x) + 1):
+                    if i == len(x) or st[i] != st[start]:
+                        sl = slice(start, min(i + 1, len(x)))
+                        axk.plot(x[sl], r[sl], "-" if st[start] else "--", color=colour, lw=1.6 if st[start] else 1.0)
+                        start = i
+            for i, sp in enumerate(diagram.points):
+                mk = "o" if sp.kind == "fold" else "s"
+                axk.plot(sp.parameter, sp.rates[k], mk, color=_KIND_COLOURS[sp.kind], ms=6, mec="k", mew=0.6,
+                         zorder=5)
+                text = (f"fold at {sp.parameter:.4g}" if sp.kind == "fold"
+                        else f"onset {sp.frequency:.0f} Hz at {sp.parameter:.4g}")
+                # alternate above / below so that neighbouring labels do not overprint
+                axk.annotate(text, (sp.parameter, sp.rates[k]), xytext=(5, 5 if i % 2 == 0 else -11),
+                             textcoords="offset points", fontsize=7)
+        rates = np.concatenate([b.rates[:, cohorts].ravel() for b in diagram.branches] or [[1.0]])
+        if _log_rates(rates):
+            axk.set_yscale("log")
+            top = float(np.nanmax(rates))
+            # below 1e-4 of the highest rate a branch is as good as silent: do not spend the axis on it
+            axk.set_ylim(max(float(np.nanmin(rates[rates > 0])), 1e-4 * top) / 2, top * 2)
+        axk.set_ylabel("rate (Hz)" if len(cohorts) > 1 else f"rate of {names[cohorts[0]]} (Hz)")
+        if len(cohorts) > 1:
+            from matplotlib.lines import Line2D
+
+            handles = [Line2D([], [], color=f"C{k}", label=names[k]) for k in cohorts]
+            axk.legend(handles=handles, frameon=False, fontsize=8)
+    axes[-1].set_xlabel(diagram.label)
+    what = "solid stable, dashed unstable" if diagram.analysed else "stability not analysed"
+    axes[0].set_title(f"fixed points ({what}); o fold, \u25a1 oscillation onset", fontsize=9)
+    return fig, axes
+
+
+def plot_boundary_curves(curves, ax=None, labels=True):
+    """Fold (green) and oscillation-onset (purple) curves in the parameter plane: stability
+    boundaries thick and solid, other crossings thin and dashed, onset frequencies written at a few
+    points.  Returns ``(fig, ax)``."""
+    import matplotlib.pyplot as plt
+
+    if ax is None:
+        fig, ax = plt.subplots(figsize=(5.5, 4.2), constrained_layout=True)
+    else:
+        fig = ax.figure
+    for c in curves.curves:
+        colour = _KIND_COLOURS[c.kind]
+        b = c.boundary
+        start = 0
+        for i in range(1, len(c) + 1):
+            if i == len(c) or b[i] != b[start]:
+                sl = slice(start, min(i + 1, len(c)))
+                ax.plot(c.x[sl], c.y[sl], "-" if b[start] else "--", color=colour, lw=2.2 if b[start] else 0.9)
+                start = i
+        if c.kind == "onset" and len(c):
+            for i in np.unique(np.linspace(0, len(c) - 1, 3).astype(int)):
+                ax.annotate(f"{c.frequency[i]:.0f} Hz", (c.x[i], c.y[i]), xytext=(3, 3), textcoords="offset points",
+                            fontsize=7, color=colour)
+    ax.set_xlim(*curves.x_span)
+    ax.set_ylim(*curves.y_span)
+    if labels:
+        ax.set_xlabel(curves.x_label)
+        ax.set_ylabel(curves.y_label)
+        ax.set_title("green: folds, purple: oscillation onsets\n(thick: stability lost, thin dashed: other crossings)",
+                     fontsize=9)
     return fig, ax
 
 

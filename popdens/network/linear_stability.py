@@ -37,7 +37,7 @@ from ..exceptions import ConvergenceError
 from .circuit import HZ_TO_PER_MS, Circuit
 from .states import FixedPoint
 
-__all__ = ["Stability", "characteristic_matrix", "count_roots", "stability"]
+__all__ = ["Stability", "characteristic_matrix", "count_roots", "count_unstable", "roots_near", "stability"]
 
 #: Secant iteration for characteristic roots: iterations, step / residual tolerance, and the
 #: residual |det| (relative to 1 + its value at the start) accepted for a root.
@@ -52,6 +52,18 @@ STALL = 4
 DERIV_STEP = 1e-6
 #: Two roots closer than this (1/ms) are the same.
 SAME_ROOT = 1e-6
+#: A leading root with |growth rate| at most this (1/s) is marginal: the point lies on a stability
+#: boundary (continuation locates boundaries to ~1e-7 1/s; the secant iteration resolves ~1e-7 1/ms).
+MARGINAL_GROWTH = 1e-3
+#: Roots closer than this (1/ms) to the imaginary axis move the left edge of the counting contour
+#: to their right (the phase of det cannot be resolved on a contour through a root).
+MARGIN_NEAR = 2e-3
+#: Attempts with the counting contour's left edge moved further right.
+MARGIN_TRIES = 4
+#: When no root is found, the starting grid's lowest growth rate is multiplied by this, up to
+#: WIDEN_TRIES times (strongly damped states have their leading root at -1e3 .. -1e4 1/s).
+WIDEN_FACTOR = 5.0
+WIDEN_TRIES = 3
 
 
 def _default_transfer() -> Callable:
@@ -136,6 +148,9 @@ class Stability:
         argument principle (winding number of ``det(I - M)`` round that box).
     complete : bool
         True when the secant search found as many unstable roots as counted.
+    marginal : bool
+        True when the leading root lies on the imaginary axis (``|growth_rate| <=``
+        MARGINAL_GROWTH): the fixed point sits on a stability boundary; ``stable`` is False.
     """
 
     state: FixedPoint
@@ -145,9 +160,10 @@ class Stability:
     stable: bool
     n_unstable: int = -1
     complete: bool = True
+    marginal: bool = False
 
     def __repr__(self):
-        word = "stable" if self.stable else "unstable"
+        word = "marginal" if self.marginal else ("stable" if self.stable else "unstable")
         return (f"<Stability {word}: leading root {self.growth_rate:.4g} 1/s, {self.frequency:.4g} Hz; "
                 f"{self.roots.size} roots, {self.n_unstable} unstable by the argument principle>")
 
@@ -180,63 +196,22 @@ def _det_fn(circuit, state, transfer):
     return det
 
 
-def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None = None,
-              max_frequency: float = 500.0, min_growth: float = -200.0, max_growth: float = 200.0,
-              n_frequency: int = 24, n_growth: int = 4) -> Stability:
-    """Leading roots of the characteristic equation at a fixed point.
+def _secant_roots(det: Callable, z: np.ndarray, lim: float):
+    """Damped complex secant iteration on ``det`` from the starts ``z`` (1/ms), all starts advanced together.
 
-    Parameters
-    ----------
-    circuit : Circuit
-    state : FixedPoint
-        From :func:`fixed_points`.
-    transfer : callable, optional
-        See :func:`characteristic_matrix`.
-    max_frequency : float
-        Highest oscillation frequency searched (Hz).
-    min_growth, max_growth : float
-        Range of growth rates (1/s) of the starting grid.
-    n_frequency, n_growth : int
-        Starting grid size.
-
-    Returns
-    -------
-    Stability
-
-    Raises
-    ------
-    ConvergenceError
-        When no root is found from any start (enlarge the search region).
-
-    Notes
-    -----
-    Starts on a grid in ``[min_growth, max_growth] x [0, 2 pi max_frequency]``
-    (1/s x rad/s);
-    each start runs a damped secant iteration on ``det(I - M(lam))`` with
-    all starts advanced together (one transfer-function call per
-    iteration and point).  The leading root is the one with the largest real
-    part among the roots found; that no unstable root was missed in
-    ``0 < Re <= max_growth``, ``|f| <= max_frequency`` is checked by the
-    argument principle (``n_unstable``, ``complete``), and ``stable`` needs
-    both.  Escape-noise transfer functions exist only above the decay rate of
-    the ISI density: iterates that leave that region are pulled back.
+    Returns the end points, their residuals and the residuals at the starts (NaN end points: the
+    iteration left the region where the transfer functions exist).  ``lim`` caps every step (1/ms).
     """
-    det = _det_fn(circuit, state, transfer)
-    g = np.linspace(min_growth, max_growth, v.positive_int("n_growth", n_growth)) * 1e-3
-    w = 2 * math.pi * np.linspace(0.0, max_frequency, v.positive_int("n_frequency", n_frequency)) * 1e-3
-    w[0] = 1e-6  # off the real axis (real roots are approached from just above)
-    z = (g[:, None] + 1j * w[None, :]).ravel()
-    # secant iteration (one evaluation of det per iteration and start; order 1.6), all starts together
+    z = np.array(z, dtype=complex)
+    # secant iteration (one evaluation of det per iteration and start; order 1.6)
     zp = z + DERIV_STEP * np.maximum(1e-3, np.abs(z))
-    f = det(z)
-    fp = det(zp)
+    both = det(np.concatenate([z, zp]))  # one call: the transfer functions are set up once for all
+    f, fp = both[:z.size].copy(), both[z.size:].copy()
     f_start = np.abs(f)
     active = np.isfinite(f) & np.isfinite(fp)
     best = np.where(np.isfinite(f), np.abs(f), np.inf)
     stall = np.zeros(z.size, dtype=np.int64)
     z[~active] = np.nan
-    # damping: never move further than a tenth of the search box per iteration
-    lim = 0.1 * max(abs(max_growth - min_growth) * 1e-3, 2 * math.pi * max_frequency * 1e-3)
     for _ in range(ROOT_MAX_ITER):
         idx = np.flatnonzero(active)
         if idx.size == 0:
@@ -260,7 +235,7 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
         z[idx], f[idx] = z_new, f_new
         bad = ~np.isfinite(f_new)  # left the region where the transfer functions are defined
         # stalled: the residual has not fallen for STALL iterations (quadrature noise of the transfer
-        # functions sets a floor); stop those starts, the acceptance test below decides
+        # functions sets a floor); stop those starts, the acceptance test decides
         better = np.abs(f_new) < best[idx]
         best[idx] = np.where(better, np.abs(f_new), best[idx])
         stall[idx] = np.where(better, 0, stall[idx] + 1)
@@ -268,8 +243,16 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
                 | (stall[idx] > STALL) | (f_new == 0.0)) & ~bad
         active[idx[conv | bad]] = False
         z[idx[bad]] = np.nan
-    # accept end points that are roots (the transfer functions carry quadrature noise, so the
-    # iteration may stall just short of ROOT_TOL; a residual below ROOT_ACCEPT suffices)
+    return z, f, f_start
+
+
+def _accepted_roots(z, f, f_start, im_limit: float) -> np.ndarray:
+    """Distinct accepted roots with ``Im >= 0``, leading (largest real part) first.
+
+    The transfer functions carry quadrature noise, so the iteration may stall just short of
+    ROOT_TOL; a residual below ROOT_ACCEPT (relative to 1 + its value at the start) suffices.
+    Roots with ``Im`` above ``im_limit`` (1/ms) lie outside what was searched and are dropped.
+    """
     roots = []
     for zi, fi, f0 in zip(z, f, f_start):
         if not (np.isfinite(zi) and abs(fi) < ROOT_ACCEPT * (1.0 + f0)):
@@ -277,24 +260,156 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
         zi = complex(zi.real, abs(zi.imag)) if abs(zi.imag) > 1e-9 else complex(zi.real, 0.0)
         # genuine roots at any growth rate are kept (a strongly damped system has its leading root left
         # of the box); frequencies far above the box are outside what was searched
-        if zi.imag > 2 * math.pi * max_frequency * 1e-3 * 1.5:
+        if zi.imag > im_limit:
             continue
         if any(abs(zi - r) < SAME_ROOT * max(1.0, abs(zi)) for r in roots):
             continue
         roots.append(zi)
-    if not roots:
+    return np.array(sorted(roots, key=lambda r: -r.real), dtype=complex)
+
+
+def roots_near(circuit: Circuit, state: FixedPoint, guesses, *, transfer: Callable | None = None,
+               max_frequency: float = 500.0, step_limit: float | None = None) -> np.ndarray:
+    """Roots of the characteristic equation found from given first guesses (warm start).
+
+    Parameters
+    ----------
+    circuit, state, transfer : see :func:`stability`
+    guesses : array_like of complex
+        Starting points (1/ms), e.g. the roots of a nearby fixed point.
+    max_frequency : float
+        Roots above 1.5 times this frequency (Hz) are dropped.
+    step_limit : float, optional
+        Largest secant step (1/ms); default a tenth of ``2 pi max_frequency``.
+
+    Returns
+    -------
+    ndarray of complex
+        Distinct roots (``Im >= 0``), leading first; possibly fewer than the guesses.  Unlike
+        :func:`stability` nothing certifies that no root was missed.
+    """
+    det = _det_fn(circuit, state, transfer)
+    w_max = 2 * math.pi * max_frequency * 1e-3
+    g = np.asarray(guesses, dtype=complex).ravel()
+    g = np.where(np.abs(g.imag) < 1e-6, g.real + 1e-6j, g)  # real roots are approached from just above
+    lim = 0.1 * w_max if step_limit is None else float(step_limit)
+    return _accepted_roots(*_secant_roots(det, g, lim), 1.5 * w_max)
+
+
+def _count_unstable(det: Callable, roots: np.ndarray, max_growth: float, w_max: float) -> tuple[int, float]:
+    """Argument-principle count of the unstable roots, robust to roots on or near the imaginary axis.
+
+    The counting box is ``re_lo < Re <= max_growth``, ``|Im| <= w_max`` (1/ms) with ``re_lo = 0``
+    unless a root found by the secant search lies within MARGIN_NEAR of the axis: then the left
+    edge moves to the right of it (a contour through a root cannot be counted on), and the roots
+    found with ``0 < Re <= re_lo`` are added to the count.  If the count still fails, the edge is
+    moved further (MARGIN_TRIES times).  Returns ``(count, re_lo)``; ``(-1, nan)`` if every try failed.
+    """
+    near = [abs(r.real) for r in roots if abs(r.real) < MARGIN_NEAR and r.imag <= w_max]
+    re_lo = 0.0 if not near else max(near) + MARGIN_NEAR
+    for _ in range(MARGIN_TRIES):
+        try:
+            n = count_roots(det, re_lo, max_growth, w_max)
+        except ConvergenceError:
+            re_lo = re_lo + MARGIN_NEAR if re_lo > 0 else MARGIN_NEAR
+            continue
+        extra = sum(1 if r.imag == 0.0 else 2 for r in roots
+                    if 0.0 < r.real <= re_lo and r.imag <= w_max)
+        return n + extra, re_lo
+    return -1, math.nan
+
+
+def count_unstable(circuit: Circuit, state: FixedPoint, roots=(), *, transfer: Callable | None = None,
+                   max_frequency: float = 500.0, max_growth: float = 200.0) -> int:
+    """Number of unstable roots (conjugates counted) in ``0 < Re <= max_growth`` (1/s),
+    ``|f| <= max_frequency`` (Hz), by the argument principle alone (no root search).
+
+    ``roots`` (1/ms), known roots near the imaginary axis, move the counting contour off them
+    (see :func:`stability`).  Returns -1 if the count failed.
+    """
+    det = _det_fn(circuit, state, transfer)
+    w_max = 2 * math.pi * max_frequency * 1e-3
+    return _count_unstable(det, np.asarray(roots, dtype=complex), max_growth * 1e-3, w_max)[0]
+
+
+def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None = None,
+              max_frequency: float = 500.0, min_growth: float = -200.0, max_growth: float = 200.0,
+              n_frequency: int = 24, n_growth: int = 4) -> Stability:
+    """Leading roots of the characteristic equation at a fixed point.
+
+    Parameters
+    ----------
+    circuit : Circuit
+    state : FixedPoint
+        From :func:`fixed_points`.
+    transfer : callable, optional
+        See :func:`characteristic_matrix`.
+    max_frequency : float
+        Highest oscillation frequency searched (Hz).
+    min_growth, max_growth : float
+        Range of growth rates (1/s) of the starting grid.
+    n_frequency, n_growth : int
+        Starting grid size.
+
+    Returns
+    -------
+    Stability
+        With ``marginal`` True (and ``stable`` False) when the leading root lies on the
+        imaginary axis within MARGINAL_GROWTH: exactly at a stability boundary.
+
+    Raises
+    ------
+    ConvergenceError
+        When no root is found from any start, also after moving the starting grid's left edge
+        WIDEN_TRIES times further left (enlarge the search region).
+
+    Notes
+    -----
+    Starts on a grid in ``[min_growth, max_growth] x [0, 2 pi max_frequency]``
+    (1/s x rad/s);
+    each start runs a damped secant iteration on ``det(I - M(lam))`` with
+    all starts advanced together (one transfer-function call per
+    iteration and point).  The leading root is the one with the largest real
+    part among the roots found; that no unstable root was missed in
+    ``0 < Re <= max_growth``, ``|f| <= max_frequency`` is checked by the
+    argument principle (``n_unstable``, ``complete``), and ``stable`` needs
+    both.  A root on (or within MARGIN_NEAR of) the imaginary axis would lie on
+    the counting contour: the contour then passes just to its right and the
+    roots found between the axis and the contour are counted directly.
+    Escape-noise transfer functions exist only above the decay rate of
+    the ISI density: iterates that leave that region are pulled back.
+    """
+    det = _det_fn(circuit, state, transfer)
+    g = np.linspace(min_growth, max_growth, v.positive_int("n_growth", n_growth)) * 1e-3
+    w = 2 * math.pi * np.linspace(0.0, max_frequency, v.positive_int("n_frequency", n_frequency)) * 1e-3
+    w[0] = 1e-6  # off the real axis (real roots are approached from just above)
+    z = (g[:, None] + 1j * w[None, :]).ravel()
+    # damping: never move further than a tenth of the search box per iteration
+    lim = 0.1 * max(abs(max_growth - min_growth) * 1e-3, 2 * math.pi * max_frequency * 1e-3)
+    w_max = 2 * math.pi * max_frequency * 1e-3
+    roots = _accepted_roots(*_secant_roots(det, z, lim), 1.5 * w_max)
+    lo = min_growth
+    for _ in range(WIDEN_TRIES if not roots.size else 0):
+        # a strongly damped state: its roots lie left of the box; start further left
+        lo = lo * WIDEN_FACTOR if lo < 0 else lo - 1000.0
+        g = np.linspace(lo, max_growth, v.positive_int("n_growth", n_growth)) * 1e-3
+        z = (g[:, None] + 1j * w[None, :]).ravel()
+        roots = _accepted_roots(*_secant_roots(det, z, 0.1 * max(abs(max_growth - lo) * 1e-3, w_max)),
+                                1.5 * w_max)
+        if roots.size:
+            break
+    if not roots.size:
         raise ConvergenceError("no root of the characteristic equation was found in the search region; "
                                "widen `min_growth`/`max_frequency`")
-    roots = np.array(sorted(roots, key=lambda r: -r.real))
     lead = roots[0]
-    n_count = count_roots(det, 0.0, max_growth * 1e-3, 2 * math.pi * max_frequency * 1e-3)
-    w_max = 2 * math.pi * max_frequency * 1e-3
+    n_count, re_lo = _count_unstable(det, roots, max_growth * 1e-3, w_max)
     inside = [r for r in roots if 0.0 < r.real <= max_growth * 1e-3 and r.imag <= w_max]
     n_found = sum(1 if r.imag == 0.0 else 2 for r in inside)
-    stable = bool(lead.real < 0.0) and n_count == 0
+    marginal = bool(abs(lead.real) * 1e3 <= MARGINAL_GROWTH)
+    stable = bool(lead.real < 0.0) and n_count == 0 and not marginal
     return Stability(state=state, roots=roots, growth_rate=float(lead.real * 1e3),
                      frequency=float(lead.imag * 1e3 / (2 * math.pi)), stable=stable,
-                     n_unstable=int(n_count), complete=bool(n_found == n_count))
+                     n_unstable=int(n_count), complete=bool(n_found == n_count), marginal=marginal)
 
 
 def count_roots(det: Callable, re_lo: float, re_hi: float, im_max: float, n0: int = 400,
@@ -304,7 +419,9 @@ def count_roots(det: Callable, re_lo: float, re_hi: float, im_max: float, n0: in
     Argument principle: the winding number of ``det`` along the box boundary
     (counter-clockwise), valid when ``det`` has no poles inside (true for
     stable uncoupled populations; the synaptic poles lie at ``-1/tau_syn``).
-    The boundary is refined until no phase step exceeds pi/4.
+    The boundary starts with ``n0`` points and is refined where a phase step
+    exceeds pi/4 (midpoints inserted there only, so a root close to one edge
+    costs points on that stretch alone) until none does.
 
     Raises
     ------
@@ -315,21 +432,23 @@ def count_roots(det: Callable, re_lo: float, re_hi: float, im_max: float, n0: in
                complex(re_lo, im_max), complex(re_lo, -im_max)]
     lengths = [abs(b - a) for a, b in zip(corners[:-1], corners[1:])]
     total = sum(lengths)
-    n = n0
+    pts = []
+    for (a, b), ln in zip(zip(corners[:-1], corners[1:]), lengths):
+        m = max(8, int(math.ceil(n0 * ln / total)))
+        pts.append(a + (b - a) * np.arange(m) / m)
+    z = np.concatenate(pts + [np.array([corners[0]])])
+    val = det(z)
+    new = val
     while True:
-        pts = []
-        for (a, b), ln in zip(zip(corners[:-1], corners[1:]), lengths):
-            m = max(8, int(math.ceil(n * ln / total)))
-            pts.append(a + (b - a) * np.arange(m) / m)
-        z = np.concatenate(pts + [np.array([corners[0]])])
-        val = det(z)
-        if np.any(~np.isfinite(val)) or np.any(np.abs(val) == 0.0):
+        if np.any(~np.isfinite(new)) or np.any(np.abs(new) == 0.0):
             raise ConvergenceError("det(I - M) is not finite or vanishes on the counting contour")
         dphi = np.angle(val[1:] / val[:-1])
-        if np.max(np.abs(dphi)) < math.pi / 4:
+        bad = np.flatnonzero(np.abs(dphi) >= math.pi / 4)
+        if bad.size == 0:
             return int(round(np.sum(dphi) / (2 * math.pi)))
-        if z.size > max_points:
+        if z.size + bad.size > max_points or np.min(np.abs(z[bad + 1] - z[bad])) < 1e-13 * (1.0 + total):
             raise ConvergenceError("the phase of det(I - M) could not be resolved on the counting contour")
-        n *= 4
-
-
+        mid = 0.5 * (z[bad] + z[bad + 1])
+        new = det(mid)
+        z = np.insert(z, bad + 1, mid)
+        val = np.insert(val, bad + 1, new)

@@ -44,15 +44,16 @@ class StabilityMap:
     rates: np.ndarray
     complete: bool = True
 
-    def plot(self, ax=None):
+    def plot(self, ax=None, curves=None):
         """Growth rate of the leading root, the stability boundary (growth rate 0) drawn in black and
-        the oscillation frequency written at each unstable point.
+        the oscillation frequency written at each unstable point; ``curves`` (from
+        :func:`boundary_curves` over the same two parameters) drawn on top.
 
         Returns ``(fig, ax)``.
         """
         from ..plotting import plot_stability_map
 
-        return plot_stability_map(self, ax)
+        return plot_stability_map(self, ax, curves)
 
 
 def stability_map(build: Callable, x, y, *, x_label: str = "x", y_label: str = "y",

@@ -33,6 +33,16 @@ populations instead of a single population::
     [network.stability_map]          # optional: stability over two parameters
     inhibition = { start = 2.0, stop = 8.0, count = 5 }   # factor on every inhibitory (negative) weight
     drive = { start = 15.0, stop = 30.0, count = 4 }      # external drive of every cohort (mV)
+    curves = true                    # also the fold and onset curves by continuation, drawn on the map
+
+    [network.bifurcation]            # optional: branches of fixed points over one parameter
+    parameter = "cohort.E.drive"     # a path: cohort.NAME.FIELD, pathway.SOURCE->TARGET.FIELD,
+                                     # "drive" or "inhibition" (see popdens.network.parameters)
+    start = 10.0                     # span of the parameter, in its unit
+    stop = 30.0
+    max_step = 0.02                  # largest continuation step (scaled arclength; default 0.02)
+    seeds = 5                        # parameter values where branches are seeded (default 5)
+    max_frequency = 500.0            # Hz, highest oscillation frequency searched (default 500)
 
 The objects are those of :mod:`popdens.network`, so a file and the
 equivalent script give the same numbers.
@@ -56,8 +66,11 @@ COHORT_KEYS = {"name", "size", "drive", "sigma_ext", "neuron", "noise", "backgro
 PATHWAY_KEYS = {"source", "target", "weight", "in_degree", "delay", "tau_syn"}
 BACKGROUND_KEYS = {"rate", "weight", "count"}
 NETWORK_KEYS = {"t_end", "dt", "record_interval", "montecarlo", "seed", "fixed_points", "stability",
-                "rate_range", "stability_map"}
-MAP_KEYS = {"inhibition", "drive"}
+                "rate_range", "stability_map", "bifurcation"}
+MAP_KEYS = {"inhibition", "drive", "curves"}
+BIFURCATION_KEYS = {"parameter", "start", "stop", "max_step", "seeds", "max_frequency"}
+#: Most seeds of a bifurcation diagram (each is a fixed-point search).
+MAX_SEEDS = 100
 #: Largest accepted spiking-twin size per cohort and in-degree (guards against typos).
 MAX_SIZE = 1_000_000
 #: Most points of a stability map (each costs a fixed-point search and a root search, ~1 s).
@@ -86,6 +99,10 @@ class NetworkScenario:
     raw: dict
     #: ``(inhibition factors, drives in mV)`` of the stability map, or None
     stability_grid: tuple | None = None
+    #: draw the continued boundary curves on the stability map
+    map_curves: bool = False
+    #: settings of the bifurcation diagram (parameter, span, max_step, seeds, max_frequency), or None
+    bifurcation: dict | None = None
 
     def circuit_at(self, inhibition: float, drive: float) -> Circuit:
         """The circuit with every inhibitory weight scaled by ``inhibition`` and every external drive
@@ -190,11 +207,13 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
     if t_end == 0 and not want_fp:
         raise ScenarioError(f"{src}: [network] nothing to compute: give `t_end` > 0 or `fixed_points` = true")
     grid = None
+    map_curves = False
     if "stability_map" in net:
         from .analyses import parse_values
 
         sm = net["stability_map"]
-        check_keys(src, "network.stability_map", sm, MAP_KEYS, MAP_KEYS)
+        check_keys(src, "network.stability_map", sm, MAP_KEYS, MAP_KEYS - {"curves"})
+        map_curves = _flag(src, "network.stability_map", "curves", sm.get("curves", False))
         if not any(p.weight < 0 for p in pathways):
             raise ScenarioError(f"{src}: [network.stability_map] key `inhibition`: the network has no "
                                 "inhibitory (negative-weight) pathway to scale")
@@ -203,8 +222,44 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
         if grid[0].size * grid[1].size > MAX_MAP_POINTS:
             raise err(src, "network.stability_map", "inhibition", sm["inhibition"],
                        f"at most {MAX_MAP_POINTS} map points in all")
+        if map_curves and not want_st:
+            raise err(src, "network.stability_map", "curves", True, "false when [network] `stability` is false")
+        if map_curves and min(grid[0].size, grid[1].size) < 2:
+            raise err(src, "network.stability_map", "curves", True,
+                      "false, or at least two values of `inhibition` and of `drive` (the curves span them)")
+    bifurcation = _parse_bifurcation(src, net["bifurcation"], circuit) if "bifurcation" in net else None
     digest = hashlib.sha256(repr(sorted(flatten(data))).encode()).hexdigest()[:16]
     return NetworkScenario(source=Path(src), title=title, output=out_path, circuit=circuit, t_end=t_end, dt=dt,
                            record_interval=rec, montecarlo=montecarlo, seed=seed, fixed_points=want_fp,
                            stability=want_st, rate_range=(float(rr[0]), float(rr[1])), digest=digest, raw=data,
-                           stability_grid=grid)
+                           stability_grid=grid, map_curves=map_curves, bifurcation=bifurcation)
+
+
+def _parse_bifurcation(src, b, circuit) -> dict:
+    """The ``[network.bifurcation]`` table: a parameter path that fits the circuit and its span."""
+    from ..network.parameters import CircuitParameter
+
+    table = "network.bifurcation"
+    if not isinstance(b, dict):
+        raise err(src, table, None, b, "a table")
+    check_keys(src, table, b, BIFURCATION_KEYS, {"parameter", "start", "stop"})
+    path = b["parameter"]
+    if not isinstance(path, str):
+        raise err(src, table, "parameter", path, "a parameter path such as 'cohort.E.drive'")
+    lo, hi = number(src, table, "start", b["start"]), number(src, table, "stop", b["stop"])
+    if not lo < hi:
+        raise err(src, table, "stop", hi, f"a value above `start` ({lo!r})")
+    try:
+        par = CircuitParameter(path)
+        par.apply(circuit, lo)
+        par.apply(circuit, hi)
+    except (ValueError, TypeError) as exc:
+        raise ScenarioError(f"{src}: [{table}] key `parameter`: {exc}") from None
+    max_step = number(src, table, "max_step", b.get("max_step", 0.02))
+    if not 0 < max_step <= 1:
+        raise err(src, table, "max_step", max_step, "a number in (0, 1] (scaled arclength)")
+    f_max = number(src, table, "max_frequency", b.get("max_frequency", 500.0))
+    if not 0 < f_max <= 1e5:
+        raise err(src, table, "max_frequency", f_max, "a frequency in (0, 1e5] Hz")
+    return {"parameter": path, "span": (lo, hi), "max_step": max_step,
+            "seeds": _integer(src, table, "seeds", b.get("seeds", 5), 1, MAX_SEEDS), "max_frequency": f_max}

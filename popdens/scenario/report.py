@@ -54,6 +54,16 @@ def html_report(scenario, summary: dict, folder: Path, figures: list) -> str:
         run_rows = [(k, v) for k, v in summary["settings"].items()]
         for i, fp in enumerate(summary.get("fixed_points", [])):
             run_rows.append((f"fixed point {i}", ", ".join(f"{k}: {v}" for k, v in fp.items())))
+        if "bifurcation" in summary:
+            bif = summary["bifurcation"]
+            run_rows.append(("bifurcation diagram", f"{bif['parameter']} from {bif['span'][0]:g} to {bif['span'][1]:g}: "
+                                                    f"{bif['branches']} branch(es)"))
+            for p in bif["points"]:
+                what = "fold" if p["kind"] == "fold" else f"oscillation onset at {p['frequency_hz']:.4g} Hz"
+                run_rows.append((f"{what} (branch {p['branch']})",
+                                 f"{bif['parameter']} = {p['parameter']:.8g}; rates "
+                                 + ", ".join(f"{k} {v:.4g} Hz" for k, v in p["rates_hz"].items())
+                                 + ("; stability lost or gained" if p["loses_stability"] else "")))
         if "montecarlo" in summary:
             m = summary["montecarlo"]
             run_rows.append(("spiking twin: mean rates, second half (Hz)", m["mean_rates_second_half_hz"]))

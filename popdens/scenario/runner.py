@@ -172,7 +172,6 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
     from .analyses import write_table
     from ..network.integrate import simulate_network
     from ..network.twin import montecarlo_network
-    from ..network.linear_stability import stability
     from ..network.states import fixed_points
     from ..plotting import save_figure
 
@@ -187,7 +186,7 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
     if scenario.fixed_points:
         watch = Stopwatch()
         states = fixed_points(c, scenario.rate_range)
-        verdicts = [stability(c, st) for st in states] if scenario.stability else [None] * len(states)
+        verdicts = [_verdict(c, st) for st in states] if scenario.stability else [None] * len(states)
         timing["fixed_points_s"] = watch.times()["wall_time_s"]
         cols = {"state": list(range(len(states)))}
         for k, nm in enumerate(names):
@@ -195,9 +194,10 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
             cols[f"mu_mV_{nm}"] = [st.mu[k] for st in states]
             cols[f"sigma_mV_{nm}"] = [st.sigma[k] if st.sigma is not None else float("nan") for st in states]
         if scenario.stability:
-            cols["stable"] = [float(v.stable) for v in verdicts]
-            cols["growth_rate_per_s"] = [v.growth_rate for v in verdicts]
-            cols["frequency_Hz"] = [v.frequency for v in verdicts]
+            nan = float("nan")
+            cols["stable"] = [float(v.stable) if v else nan for v in verdicts]
+            cols["growth_rate_per_s"] = [v.growth_rate if v else nan for v in verdicts]
+            cols["frequency_Hz"] = [v.frequency if v else nan for v in verdicts]
         if states:
             write_table(tmp / "fixed_points.csv", cols,
                         {**header, "units": "rate Hz, mu mV, sigma mV, growth rate 1/s, frequency Hz; "
@@ -224,12 +224,37 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
                      **{f"rate_Hz_{nm}": smap.rates[..., k].ravel() for k, nm in enumerate(names)}},
                     {**header, "units": "drive mV, growth rate 1/s (> 0: unstable), frequency Hz, rate Hz; "
                                         "the least stable fixed point at each point"})
-        fig, _ = smap.plot()
+        curves = None
+        if scenario.map_curves:
+            from ..network.boundaries import boundary_curves
+
+            watch = Stopwatch()
+            curves = boundary_curves(c, "inhibition", "drive", (float(inh.min()), float(inh.max())),
+                                     (float(drv.min()), float(drv.max())), rate_range=scenario.rate_range,
+                                     progress=progress)
+            timing["boundary_curves_s"] = watch.times()["wall_time_s"]
+            if not curves.complete:
+                raise KeyboardInterrupt("interrupted while following the boundary curves")
+            raw = curves.columns()
+            cols = {"curve": raw.pop("curve"), "kind": [KIND_CODES[k] for k in raw.pop("kind")],
+                    "inhibition_factor": raw.pop("x"), "drive_mV": raw.pop("y"), **raw}
+            write_table(tmp / "boundary_curves.csv", cols,
+                        {**header, "units": "drive mV, frequency Hz (0 on folds), rate Hz; kind 1 fold, 2 onset; "
+                                            "boundary 1: the state loses stability across the curve"})
+        fig, _ = smap.plot(curves=curves)
         save_figure(fig, tmp, "stability_map")
-        figures.append(("stability_map.png", "Linear stability over inhibition and external drive"))
+        figures.append(("stability_map.png", "Linear stability over inhibition and external drive"
+                        + (" with the fold and onset curves found by continuation" if curves else "")))
         summary["stability_map"] = {"points": int(smap.growth_rate.size),
                                     "unstable_points": int(np.sum(smap.growth_rate > 0)),
                                     "complete": bool(smap.complete)}
+        if curves is not None:
+            summary["stability_map"]["curves"] = [
+                {"kind": cv.kind, "points": len(cv), "boundary_points": int(np.sum(cv.boundary)),
+                 "frequency_range_hz": [float(cv.frequency.min()), float(cv.frequency.max())]}
+                for cv in curves.curves]
+    if scenario.bifurcation is not None:
+        figures += _bifurcation(scenario, tmp, header, summary, timing, progress)
     if scenario.t_end > 0:
         mf = simulate_network(c, scenario.t_end, scenario.dt, record_interval=scenario.record_interval,
                               progress=progress)
@@ -260,6 +285,52 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
         figures.append(("network_rate.png", "Rates of the cohorts over time"
                         + (" (mean field and spiking twin)" if scenario.montecarlo else "")))
     return figures
+
+
+#: Codes of the special points and curves in the CSV tables.
+KIND_CODES = {"": 0, "fold": 1, "onset": 2}
+
+
+def _bifurcation(scenario, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:
+    """The ``[network.bifurcation]`` table: branches, folds and onsets over one parameter."""
+    from .analyses import write_table
+    from ..network.continuation import bifurcation_diagram
+    from ..plotting import save_figure
+
+    b = scenario.bifurcation
+    watch = Stopwatch()
+    diag = bifurcation_diagram(scenario.circuit, b["parameter"], b["span"], rate_range=scenario.rate_range,
+                               stability=scenario.stability, seeds=b["seeds"], max_step=b["max_step"],
+                               max_frequency=b["max_frequency"], progress=progress)
+    timing["bifurcation_s"] = watch.times()["wall_time_s"]
+    if not diag.complete:
+        raise KeyboardInterrupt("interrupted while following the branches")
+    cols = diag.columns()
+    cols["special"] = [KIND_CODES[k] for k in cols["special"]]
+    write_table(tmp / "bifurcation.csv", cols,
+                {**header, "parameter": f"{diag.parameter} ({diag.label})",
+                 "units": "rate Hz, growth rate 1/s (leading root), frequency Hz; stable 1/0; special 1 fold, "
+                          "2 onset (inserted points located precisely); n_unstable -1: not counted"})
+    fig, _ = diag.plot()
+    save_figure(fig, tmp, "bifurcation")
+    summary["bifurcation"] = {
+        "parameter": diag.parameter, "span": list(diag.span), "branches": len(diag.branches),
+        "points": [{"kind": p.kind, "parameter": float(p.parameter), "branch": p.branch,
+                    "rates_hz": dict(zip(diag.names, map(float, p.rates))),
+                    "frequency_hz": float(p.frequency), "loses_stability": bool(p.loses_stability)}
+                   for p in diag.points]}
+    return [("bifurcation.png", f"Fixed points against {diag.label}: folds and oscillation onsets")]
+
+
+def _verdict(circuit, state):
+    """Stability of a fixed point, or None when the root search found nothing (written as NaN)."""
+    from ..exceptions import ConvergenceError
+    from ..network.linear_stability import stability
+
+    try:
+        return stability(circuit, state)
+    except ConvergenceError:
+        return None
 
 
 def _finite_or_none(x):

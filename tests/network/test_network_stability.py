@@ -146,6 +146,28 @@ def test_leading_root_matches_lambert_w(gain_, tau, delay):
     assert np.max(np.abs(1.0 - m)) < 1e-7
 
 
+def test_a_root_on_the_imaginary_axis_is_reported_as_marginal():
+    # exactly at the stability boundary of the delayed loop with a low-pass population: the closed form
+    # w d + atan(w tau) = pi, |c| = sqrt(1 + (w tau)^2) (phase and modulus of 1 = -|c| e^{-iwd}/(1 + iw tau))
+    # puts the leading root on the imaginary axis; stability() used to raise ConvergenceError there
+    from scipy.optimize import brentq
+
+    tau, d = 5.0, 2.0
+    w = brentq(lambda w: w * d + math.atan(w * tau) - math.pi, 1e-9, math.pi / d)
+    g_crit = math.sqrt(1 + (w * tau) ** 2) / (20 * 0.5 * 100 * 1e-3)
+    c = inhibitory_loop(delay=d)
+    for rel, marginal, stable in ((0.0, True, False), (1e-12, True, False), (1e-6, True, False),
+                                  (-1e-2, False, True), (1e-2, False, False)):
+        st = stability(c, fake_state(c), transfer=lowpass(g_crit * (1 + rel), tau))
+        assert (st.marginal, st.stable) == (marginal, stable)
+        assert st.frequency == pytest.approx(w * 1e3 / (2 * math.pi), rel=1e-2 if rel else 1e-9)
+        if marginal:
+            assert abs(st.growth_rate) < 1e-3 and "marginal" in repr(st)
+    # a map through the boundary reports it instead of failing
+    m = stability_map(lambda x, y: c, [0.0], [0.0], gain=lambda p, mu: 10.0, transfer=lowpass(g_crit, tau))
+    assert abs(m.growth_rate[0, 0]) < 1e-3
+
+
 def test_exponential_synapse_and_variance_terms_in_the_matrix():
     # M = [chi_mu tau J + chi_var tau J^2] C K(lam) e^{-lam d} / 1000, K = 1/(1 + lam tau_s) (Laplace transform)
     pop = popdens.Population(LIF_E, popdens.WhiteNoise(4.0))

@@ -138,3 +138,125 @@ def test_ctrl_c_during_the_network_run_leaves_no_output_and_exits_130(tmp_path, 
     from popdens.result import STATUS_INTERRUPTED
 
     assert res.status == STATUS_INTERRUPTED and "interrupted" in res.message
+
+
+# --------------------------------------------------------------------------- continuation tables
+BIF = NET + """
+[network.bifurcation]
+parameter = "cohort.E.drive"
+start = 10.0
+stop = 30.0
+"""
+
+
+@pytest.mark.parametrize("old, new, fragment", [
+    ('parameter = "cohort.E.drive"', 'parameter = "cohort.X.drive"', "[network.bifurcation] key `parameter`: "),
+    ('parameter = "cohort.E.drive"', 'parameter = "pathway.E->E.in_degree"', "is a count"),
+    ('parameter = "cohort.E.drive"', "parameter = 3", "`parameter`"),
+    ("stop = 30.0", "stop = 5.0", "`stop`"),
+    ("stop = 30.0", "stop = 30.0\nseeds = 0", "`seeds`"),
+    ("stop = 30.0", "stop = 30.0\nmax_step = 2.0", "`max_step`"),
+    ("stop = 30.0", "stop = 30.0\nturns = 2", "unknown key `turns`"),
+    ("start = 10.0\n", "", "`start`"),
+])
+def test_bifurcation_table_errors_name_the_key(tmp_path, old, new, fragment):
+    with pytest.raises(ScenarioError) as exc:
+        load_scenario(write(tmp_path, BIF.replace(old, new)))
+    assert fragment in str(exc.value)
+
+
+def test_map_curves_need_two_values_per_axis(tmp_path):
+    text = NET.replace("stability = false", "stability = true").replace(
+        "[network]", '[[pathway]]\nsource = "E"\ntarget = "E"\nweight = -0.2\nin_degree = 20\ndelay = 1.0\n[network]')
+    text += "[network.stability_map]\ninhibition = [1.0]\ndrive = [20.0, 22.0]\ncurves = true\n"
+    with pytest.raises(ScenarioError, match="`curves`"):
+        load_scenario(write(tmp_path, text))
+    with pytest.raises(ScenarioError, match="`curves`"):
+        load_scenario(write(tmp_path, text.replace("curves = true", "curves = 1")))
+
+
+def cheap_models(monkeypatch):
+    """Route the scenario's default gain and transfer function through a linear rate model (gain
+    2 Hz/mV above 10 mV, low-pass with 5 ms) so that a run with maps, curves and branches takes
+    seconds; the numbers are then checked against the closed form of that model."""
+    import math
+
+    import popdens.network.boundaries as bnd
+    import popdens.network.continuation as cont
+    import popdens.network.linear_stability as ls
+    import popdens.network.states as states
+
+    def gain(pop, mu):
+        return 2.0 * (mu - 10.0)
+
+    def transfer(pop, mu, f, modulate):
+        f = np.asarray(f, dtype=complex)
+        if modulate == "noise":
+            return np.zeros(f.shape, dtype=complex)
+        return 2.0 / (1.0 + 2j * math.pi * f * 5e-3)
+
+    for mod in (states, cont, bnd):
+        monkeypatch.setattr(mod, "_default_gain", lambda: gain)
+    monkeypatch.setattr(ls, "_default_transfer", lambda: transfer)
+
+
+LOOP = """
+[scenario]
+output = "out"
+[[cohort]]
+name = "I"
+size = 400
+drive = 15.0
+neuron = { model = "LIF", tau_m = 20.0, threshold = 20.0, reset = 10.0, refractory = 2.0 }
+noise = { kind = "white", sigma = 4.0 }
+[[pathway]]
+source = "I"
+target = "I"
+weight = -0.1
+in_degree = 100
+delay = 2.0
+[network]
+t_end = 0.0
+fixed_points = true
+stability = true
+rate_range = [0.0, 500.0]
+[network.stability_map]
+inhibition = [2.0, 10.0, 20.0]
+drive = [12.0, 20.0]
+curves = true
+[network.bifurcation]
+parameter = "pathway.I->I.weight"
+start = -2.0
+stop = -0.05
+"""
+
+
+def test_bifurcation_and_map_curves_are_written_and_reported(tmp_path, monkeypatch):
+    import math
+
+    from scipy.optimize import brentq
+
+    cheap_models(monkeypatch)
+    p = write(tmp_path, LOOP)
+    assert main(["run", str(p), "--quiet"]) == 0
+    out = tmp_path / "out"
+    summary = json.loads((out / "summary.json").read_text())
+    for name in ("bifurcation.csv", "bifurcation.png", "boundary_curves.csv", "stability_map.png"):
+        assert name in summary["files"]
+    # the onset of the delayed loop 1 + lam tau = c e^{-lam d} (tau 5 ms, d 2 ms, c = 2 x 20 x J x 100 / 1000):
+    # w d + atan(w tau) = pi and |c| = sqrt(1 + (w tau)^2) (closed form)
+    w = brentq(lambda w: w * 2.0 + math.atan(w * 5.0) - math.pi, 1e-9, math.pi / 2.0)
+    j_onset = -math.sqrt(1 + (w * 5.0) ** 2) / (2.0 * 20.0 * 100 * 1e-3)
+    (pt,) = summary["bifurcation"]["points"]
+    assert pt["kind"] == "onset" and pt["parameter"] == pytest.approx(j_onset, rel=1e-9)
+    assert pt["frequency_hz"] == pytest.approx(w * 1e3 / (2 * math.pi), rel=1e-9) and pt["loses_stability"]
+    # the curves table: onset points in (inhibition factor, drive) at the factor -j_onset / 0.1 (the
+    # onset does not depend on the drive in a linear model)
+    lines = [ln for ln in (out / "boundary_curves.csv").read_text().splitlines() if not ln.startswith("#")]
+    names = lines[0].split(",")
+    rows = np.array([[float(x) for x in ln.split(",")] for ln in lines[1:]])
+    assert names[:4] == ["curve", "kind", "inhibition_factor", "drive_mV"]
+    assert np.all(rows[:, 1] == 2) and rows[:, 2] == pytest.approx(-j_onset / 0.1, rel=1e-9)
+    report = (out / "report.html").read_text()
+    assert "oscillation onset at" in report and "Fixed points against pathway.I-&gt;I.weight" in report
+    assert summary["stability_map"]["curves"][0]["kind"] == "onset"
