@@ -41,6 +41,8 @@ class SolverBase:
     method_name = "base"
     #: Label of the density axis.
     axis_name = ""
+    #: Order of convergence in dt (the error control of ``simulate`` uses it).
+    order = 2
 
     def __init__(self, population, dt: float):
         self.population = population
@@ -77,6 +79,11 @@ class SolverBase:
         raise NotImplementedError
 
     def diagnostics(self) -> dict:
+        return {}
+
+    def resolution_options(self) -> dict:
+        """Options that reproduce this solver's resolution other than ``dt`` (a companion run at
+        another step then differs in ``dt`` only)."""
         return {}
 
     def plan(self, mu: np.ndarray, sigma: np.ndarray | None) -> None:

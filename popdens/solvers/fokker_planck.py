@@ -331,6 +331,13 @@ class FokkerPlanckSolver(SolverBase):
         self.p = None
 
     # ----------------------------------------------------------------- grid
+    @property
+    def order(self) -> int:
+        return 1 if self.scheme == "backward-euler" else 2
+
+    def resolution_options(self) -> dict:
+        return {"grid": self.grid} if self.grid is not None else {}
+
     def plan(self, mu, sigma) -> None:
         """Declare the drives ``mu`` and noise amplitudes ``sigma`` (mV, arrays) a run will see.
 

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import inspect
 import logging
+import math
 import warnings
 
 import numpy as np
@@ -11,7 +12,7 @@ import numpy as np
 from .._version import __version__
 from .. import _validation as v
 from ..model._jit import Stopwatch
-from ._recording import BoundarySamples, block_ends, downsample, make_grid, split_at_jumps, steps_per_call
+from ._recording import BoundarySamples, TimeGrid, block_ends, downsample, make_grid, split_at_jumps, steps_per_call
 from ..model.drive import as_drive
 from ..model.noise import Population, WhiteNoise
 from ..progress import Progress
@@ -23,6 +24,13 @@ __all__ = ["simulate"]
 
 logger = logging.getLogger(__name__)
 
+#: Error control modes of :func:`simulate`.
+ERROR_CONTROL = ("auto", "refine", "warn", "off")
+#: Default tolerance of the time-step error control: relative, and absolute (Hz), per recorded rate.
+RATE_RTOL = 1e-3
+RATE_ATOL = 0.1
+#: Most halvings of dt by the error control.
+MAX_HALVINGS = 3
 #: Default internal time step (ms) when the solver does not define one.
 DEFAULT_DT = 0.1
 #: Drive samples over the run handed to the solver's ``plan`` (resolution chosen for their range).
@@ -44,11 +52,12 @@ class _AccuracyGuard:
             if setting not in self.seen:
                 self.seen.add(setting)
                 self.messages.append(msg)
-                warnings.warn(msg, AccuracyWarning, stacklevel=3)
+                warnings.warn(msg, AccuracyWarning, stacklevel=4)
 
 
 def simulate(population, drive, t_end, dt=None, *, method=None, initial="stationary",
-             record_interval=None, snapshot_interval=None, progress=None, **options) -> Result:
+             record_interval=None, snapshot_interval=None, progress=None, error_control="auto",
+             rtol=RATE_RTOL, atol=RATE_ATOL, **options) -> Result:
     """Solve the population-density equation of ``population`` under ``drive``.
 
     Parameters
@@ -77,6 +86,22 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     progress : bool, optional
         Show a progress line on stderr (default: only on a terminal, for
         long runs).
+    error_control : {"auto", "refine", "warn", "off"}, optional
+        A-posteriori control of the time-step error.  A companion run at
+        twice (or, when that grid cannot hold the drive's jumps or the record
+        interval, half) the step estimates the error of the rate in every
+        record bin (Richardson: difference / (2^order - 1)).  ``"refine"``
+        halves ``dt`` (at most three times) until the estimate is within
+        ``max(rtol * rate, atol)`` and returns the first run that meets it;
+        ``"warn"`` issues an :class:`~popdens.exceptions.AccuracyWarning`
+        (setting ``dt``) instead; ``"auto"`` (default) refines when ``dt`` was
+        not given and warns when it was.  The estimate is kept in
+        ``diagnostics["error_control"]``.  Costs the companion run (a quarter
+        of the run for the refractory density, half for Fokker--Planck) plus
+        any refinement.
+    rtol, atol : float, optional
+        Tolerance of the error control: relative (default 1e-3) and absolute
+        (Hz, default 0.1) on each recorded rate.
     **options
         Solver options (e.g. ``max_age`` for the refractory-density solver).
 
@@ -113,6 +138,11 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
         raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
     drive = as_drive(drive)
     cls = resolve_method(population, method)
+    if error_control not in ERROR_CONTROL:
+        raise ValueError(f"`error_control` must be one of {list(ERROR_CONTROL)}, got {error_control!r}")
+    rtol = v.positive("rtol", rtol)
+    atol = v.positive("atol", atol)
+    refine = error_control == "refine" or (error_control == "auto" and dt is None)
     if dt is None:
         dt = getattr(cls, "default_dt", DEFAULT_DT)
     grid = make_grid(t_end, dt, record_interval, snapshot_interval)
@@ -121,9 +151,109 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     unknown = sorted(set(options) - set(allowed))
     if unknown:
         raise ValueError(f"unknown option(s) {unknown} for method {cls.method_name!r}; allowed: {allowed}")
+    watch = Stopwatch()
+    solver, res = _run(population, drive, grid, cls, options, initial, progress)
+    if error_control == "off" or res.status != STATUS_OK or not isinstance(initial, str):
+        return res
+    try:
+        res = _control_error(population, drive, grid, cls, options, initial, solver, res, refine, rtol, atol,
+                             progress)
+    except KeyboardInterrupt:
+        res.status, res.message = STATUS_INTERRUPTED, "interrupted by the user during the time-step error check"
+        logger.warning(res.message)
+    res.diagnostics.update(watch.times())  # every run, the error control's included
+    return res
+
+
+def _companion_grid(grid):
+    """The grid of a run at twice the step, recording every bin (``every`` even) or every two bins
+    (odd), or None when the steps do not pair up."""
+    if grid.n_steps % 2:
+        return None
+    every = grid.every // 2 if grid.every % 2 == 0 else grid.every
+    return TimeGrid(grid.t_end, 2.0 * grid.dt, grid.n_steps // 2, every, 0)
+
+
+def _halved(grid):
+    return TimeGrid(grid.t_end, 0.5 * grid.dt, 2 * grid.n_steps, 2 * grid.every, 2 * grid.snap_every)
+
+
+def _estimate(fine, coarse, pairs: bool, order: int, rtol: float, atol: float):
+    """Error (Hz) of the rates of ``fine`` per bin of ``coarse`` (Richardson: difference / (2^order - 1),
+    ``fine``'s bins averaged in pairs when ``pairs``) and the worst ratio to max(rtol rate, atol)."""
+    a = np.asarray(fine.rate[1:], dtype=float)
+    if pairs:
+        a = a[: a.size // 2 * 2].reshape(-1, 2).mean(axis=1)
+    b = np.asarray(coarse.rate[1:], dtype=float)
+    n = min(a.size, b.size)
+    err = np.abs(a[:n] - b[:n]) / (2.0 ** order - 1.0)
+    ratio = float(np.max(err / np.maximum(rtol * np.abs(a[:n]), atol))) if n else 0.0
+    return (float(np.max(err)) if n else 0.0), ratio
+
+
+def _control_error(population, drive, grid, cls, options, initial, solver, res, refine, rtol, atol, progress):
+    """Time-step error of ``res`` from a companion run; refinement of dt (see :func:`simulate`)."""
+    order = solver.order
+    pinned = {**options, **solver.resolution_options()}  # the same potential grid / age span
+
+    def run(g, label):
+        with warnings.catch_warnings():  # a companion's own accuracy warnings are not the user's
+            warnings.simplefilter("ignore", AccuracyWarning)
+            return _run(population, drive, g, cls, pinned, initial, progress, label)[1]
+
+    jumps = dict(BoundarySamples(drive, grid).jumps)
+    if isinstance(population.noise, WhiteNoise):
+        jumps.update(BoundarySamples(population.noise.sigma_drive, grid).jumps)
+    coarse_grid = _companion_grid(grid)
+    tried = [grid.dt]
+    if coarse_grid is not None and all(j % 2 == 0 for j in jumps):
+        coarse = run(coarse_grid, "error check")
+        if coarse.status != STATUS_OK:
+            res.diagnostics["error_control"] = {"note": "the companion run failed; no estimate"}
+            return res
+        est, ratio = _estimate(res, coarse, grid.every % 2 == 1, order, rtol, atol)
+        best, last, last_grid = (res, est, ratio), res, grid
+        tried.append(coarse_grid.dt)
+    else:  # jumps on odd steps: the companion is the finer run
+        fine_grid = _halved(grid)
+        fine = run(fine_grid, "error check")
+        if fine.status != STATUS_OK:
+            res.diagnostics["error_control"] = {"note": "the companion run failed; no estimate"}
+            return res
+        est, ratio = _estimate(fine, res, False, order, rtol, atol)
+        tried.append(fine_grid.dt)
+        scale = 2.0 ** order  # the given run's error is 2^order times the finer one's
+        best = (res, est * scale, ratio * scale)
+        if refine and best[2] > 1.0:
+            best = (fine, est, ratio)
+        last, last_grid = fine, fine_grid
+    halvings = 0
+    while refine and best[2] > 1.0 and halvings < MAX_HALVINGS:
+        halvings += 1
+        g = _halved(last_grid)
+        new = run(g, f"refining dt to {g.dt:g} ms")
+        tried.append(g.dt)
+        if new.status != STATUS_OK:
+            break
+        est, ratio = _estimate(new, last, False, order, rtol, atol)
+        best, last, last_grid = (new, est, ratio), new, g
+    out, est, ratio = best
+    info = {"estimate_hz": est, "ratio_to_tolerance": ratio, "rtol": rtol, "atol_hz": atol, "order": order,
+            "dt_ms": float(out.dt), "dt_requested_ms": grid.dt, "steps_run_ms": tried}
+    out.diagnostics["error_control"] = info
+    if ratio > 1.0:
+        k = 2 ** int(math.ceil(math.log2(ratio) / order))
+        msg = (f"`dt` = {out.dt:g} ms: the estimated time-step error of the rate, {est:.3g} Hz, exceeds "
+               f"max({rtol:g} x rate, {atol:g} Hz) {ratio:.3g} times; use dt = {out.dt / k:.4g} ms or smaller")
+        out.diagnostics["accuracy_warnings"] = list(out.diagnostics.get("accuracy_warnings", [])) + [msg]
+        warnings.warn(msg, AccuracyWarning, stacklevel=3)
+    return out
+
+
+def _run(population, drive, grid, cls, options, initial, progress, label=None):
+    """One run of solver ``cls`` on ``grid``; returns the solver and the Result."""
     solver = cls(population, grid.dt, **options)
     sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
-
     watch = Stopwatch()
     mu_at = BoundarySamples(drive, grid)
     sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
@@ -140,7 +270,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
                     None if sigma_drive is None else np.concatenate([sigma_drive(ts), sigma_drive.left_limit(jt)]))
     solver.initialize(mu0, sigma0, initial)
     n_snap = grid.n_steps // grid.snap_every + 1 if grid.snap_every else 0
-    v.check_memory("t_end", t_end, 8.0 * (3 * grid.n_steps + n_snap * (solver.axis.size + 1)),
+    v.check_memory("t_end", grid.t_end, 8.0 * (3 * grid.n_steps + n_snap * (solver.axis.size + 1)),
                    f"recording {grid.n_steps} steps" + (f" and {n_snap} density snapshots" if n_snap else ""))
     guard = _AccuracyGuard(solver)
     guard.check(np.array([mu0]), None if sigma0 is None else np.array([sigma0]))
@@ -155,7 +285,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
     if grid.snap_every:
         snaps_t.append(0.0)
         snaps.append(solver.density().copy())
-    bar = Progress(grid.n_steps, f"{cls.method_name}", progress)
+    bar = Progress(grid.n_steps, label or f"{cls.method_name}", progress)
     k = 0
     status, message = STATUS_OK, "completed"
     try:
@@ -199,7 +329,7 @@ def simulate(population, drive, t_end, dt=None, *, method=None, initial="station
         **solver.diagnostics(),
         "accuracy_warnings": guard.messages,
     }
-    return Result(
+    return solver, Result(
         t=t, rate=r_out, mean_u=mu_o, refractory_fraction=rf_o, drive=drive(t),
         method=cls.method_name, population=population, status=status, message=message,
         dt=grid.dt, n_steps=k,

@@ -253,6 +253,9 @@ class RefractoryDensitySolver(SolverBase):
             self._init_adaptation(nrn)
 
     # ----------------------------------------------------------------- adaptation
+    def resolution_options(self) -> dict:
+        return {"max_age": self.max_age}
+
     def _init_adaptation(self, nrn) -> None:
         """Quasi-renewal state (see :mod:`popdens.solvers._refractory_adapting`)."""
         self._adapt = step_args(nrn, self.dt)
