@@ -92,6 +92,12 @@ def _adapting():
     popdens.simulate(popdens.Population(cell, esc.noise), 16.0, t_end=1.0, dt=0.1, progress=False)
     for pop in (popdens.Population(cell, esc.noise), popdens.Population(current, white.noise)):
         popdens.montecarlo(pop, 16.0, t_end=1.0, n=10, dt=0.1, seed=1, progress=False)
+    adapting_white = popdens.Population(current, white.noise)
+    popdens.simulate(adapting_white, 16.0, t_end=1.0, dt=0.1, progress=False)
+    adapting_escape = popdens.Population(current, esc.noise)
+    popdens.gain(adapting_escape, [20.0])
+    popdens.stationary(adapting_escape, 20.0)
+    popdens.transfer(adapting_escape, 20.0, [10.0])
 
 
 def _network():

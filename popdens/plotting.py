@@ -104,7 +104,7 @@ def plot_agreement(agreement):
     return fig
 
 
-def plot_gain(mu, rates, labels=None, ax=None, title=None):
+def plot_gain(mu, rates, labels=None, ax=None, title=None, dashed=None):
     """A family of gain curves: stationary rate (Hz) against mean drive (mV).
 
     Parameters
@@ -115,6 +115,9 @@ def plot_gain(mu, rates, labels=None, ax=None, title=None):
         Stationary rates (Hz), one row per curve.
     labels : sequence of str, optional
         One legend entry per curve.
+    dashed : sequence of bool, optional
+        Curves drawn dashed and thinner (e.g. the same neuron without adaptation, for comparison);
+        a dashed curve takes the colour of the solid one before it.
 
     Returns
     -------
@@ -123,8 +126,14 @@ def plot_gain(mu, rates, labels=None, ax=None, title=None):
     ax = _axes(ax)
     mu = np.asarray(mu, dtype=float)
     rates = np.atleast_2d(np.asarray(rates, dtype=float))
+    dashed = [False] * len(rates) if dashed is None else list(dashed)
+    colour = None
     for i, row in enumerate(rates):
-        ax.plot(mu, row, lw=1.6, label=None if labels is None else labels[i])
+        label = None if labels is None else labels[i]
+        if dashed[i]:
+            ax.plot(mu, row, lw=1.1, ls="--", color=colour, label=label)
+        else:
+            colour = ax.plot(mu, row, lw=1.6, label=label)[0].get_color()
     ax.set_xlabel("mean drive mu (mV)")
     ax.set_ylabel("stationary rate (Hz)")
     if labels is not None:

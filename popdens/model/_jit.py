@@ -46,6 +46,9 @@ EXPECTED_SECONDS = {
     "_threshold.stationary_sweep": 1.4,
     "_threshold.rates_for_drives": 1.1,
     "_network.run_network": 5.5,
+    "fokker_planck._advance_adapting": 3.0,
+    "_renewal_adapting.adapted_renewal": 6.0,
+    "_isi_markov._density": 2.0,
 }
 
 #: Environment variable that silences the compilation notices (the messages, not the timing).

@@ -22,6 +22,7 @@ cut-off (EIF, QIF), the point where the potential has diverged.
 
 from __future__ import annotations
 
+import copy
 from dataclasses import dataclass, field
 from typing import ClassVar, Mapping
 
@@ -83,6 +84,12 @@ class NeuronBase:
     def moving_thresholds(self) -> tuple:
         """The moving thresholds (:class:`~popdens.MovingThreshold`)."""
         return tuple(a for a in self.adaptation if a.kind == KIND_THRESHOLD)
+
+    def without_adaptation(self):
+        """The same neuron model without adaptation (a renewal neuron)."""
+        out = copy.copy(self)
+        object.__setattr__(out, "adaptation", ())
+        return out
 
     def _repr(self, name: str) -> str:
         items = [f"{k}={val!r}" for k, val in self.parameters().items() if k != "adaptation"]

@@ -14,7 +14,8 @@ import numpy as np
 from .._version import __version__
 from ..model._jit import Stopwatch
 from .. import _validation as v
-from ..model.adaptation import refuse
+from ..model.adaptation import step_args
+from ..twins.population import BURN_IN_ADAPTATION_TAUS
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers._recording import BoundarySamples, make_grid, split_at_jumps, steps_per_call
@@ -79,8 +80,9 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
         The same seed gives bit-identical results (connectivity included).
     burn_in : float, optional
         Time (ms) simulated before t = 0 at the external input of t = 0 and
-        discarded; default 200 ms.  Neurons start at potentials drawn
-        uniformly between reset and threshold.
+        discarded; default 200 ms, and at least 8 time constants of the
+        slowest adaptation component.  Neurons start at potentials drawn
+        uniformly between reset and threshold, without adaptation.
     record_interval : float, optional
         Bin width (ms) of the rates; default ``dt``.
     record_spikes : bool
@@ -106,12 +108,13 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     dt = DEFAULT_DT if dt is None else dt
     grid = make_grid(t_end, dt, record_interval, None)
     dt = grid.dt
-    burn_in = DEFAULT_BURN_IN_MS if burn_in is None else v.non_negative("burn_in", burn_in)
+    if burn_in is None:
+        slowest = max([ad.tau for a in circuit.cohorts for ad in a.population.neuron.adaptation] + [0.0])
+        burn_in = max(DEFAULT_BURN_IN_MS, BURN_IN_ADAPTATION_TAUS * slowest)
+    burn_in = v.non_negative("burn_in", burn_in)
     n_burn = int(round(burn_in / dt))
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
     asm = circuit.cohorts
-    for a in asm:
-        refuse(a.population, f"the spiking network twin (cohort {a.name!r})")
     npop = circuit.n
     sizes = np.array([a.size for a in asm], dtype=np.int64)
     start = np.concatenate([[0], np.cumsum(sizes)]).astype(np.int64)
@@ -146,6 +149,14 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     xbuf = np.zeros(3)
     bg_lam = np.array([a.background.count * a.background.rate * dt * 1e-3 if a.background else 0.0 for a in asm])
     bg_drive = np.array([a.tau_m * a.background.weight / dt if a.background else 0.0 for a in asm])
+    # adaptation: per-cohort components, flattened; every neuron carries its own state
+    ad = [step_args(n_, dt) for n_ in nrns]
+    ad_kinds, ad_ptr = _flat([x[0] for x in ad], np.int64)
+    ad_decay, _ = _flat([x[1] for x in ad], float)
+    ad_coup, _ = _flat([x[2] for x in ad], float)
+    ad_kick, _ = _flat([x[3] for x in ad], float)
+    ad_rest = np.array([x[4] for x in ad])
+    st = np.zeros((max([len(n_.adaptation) for n_ in nrns] + [1]), n_total))
 
     # -- pathways: delays, drives, ring buffers, connectivity
     pws = circuit.pathways
@@ -211,7 +222,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
 
     fixed = (start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref, hcode, theta, uses_slope,
              npar_flat, npar_ptr, nops_flat, nargs_flat, nprog_ptr, hpar_flat, hpar_ptr, hops_flat, hargs_flat,
-             hprog_ptr, bg_lam, bg_drive)
+             hprog_ptr, bg_lam, bg_drive, ad_ptr, ad_kinds, ad_decay, ad_coup, ad_kick, ad_rest, st)
     net = (q_src, q_tgt, q_m, q_head, q_buf_off, q_x_off, q_drive, q_decay, q_ptr_off, q_idx_off,
            in_ptr, in_list, out_ptr, out_list, buf, xs, ptr_flat, idx_flat, u, ref, age, lam, thr, hz)
     no_spk = (np.zeros(1), np.zeros(1, dtype=np.int64))

@@ -150,16 +150,31 @@ class GainCurve:
     def write(self, population, folder: Path, header: dict) -> dict:
         from ..plotting import plot_gain
 
+        from ..model.noise import Population
+
         rates = self.compute(population)
+        adapting = population.neuron.adapting
+        # an adapting neuron's curve is drawn beside the same neuron's without adaptation (dashed)
+        plain = self.compute(Population(population.neuron.without_adaptation(), population.noise)) \
+            if adapting else None
         cols = {"mu_mV": self.mu}
-        labels = []
-        for s, row in zip(self.sigmas, rates):
+        labels, curves, dashed = [], [], []
+        for i, (s, row) in enumerate(zip(self.sigmas, rates)):
             name = "rate_Hz" if s is None else f"rate_Hz_sigma_{s:g}mV"
             cols[name] = row
-            labels.append("rate" if s is None else f"sigma = {s:g} mV")
+            base = "rate" if s is None else f"sigma = {s:g} mV"
+            labels.append(base + (", adapted" if adapting else ""))
+            curves.append(row)
+            dashed.append(False)
+            if adapting:
+                cols[name.replace("rate_Hz", "rate_Hz_without_adaptation")] = plain[i]
+                labels.append(base + ", without adaptation")
+                curves.append(plain[i])
+                dashed.append(True)
         write_table(folder / "gain.csv", cols,
                     {**header, "population": describe_population(population), "units": "mu mV, rate Hz"})
-        ax = plot_gain(self.mu, rates, labels=labels if len(labels) > 1 else None, title="gain function")
+        ax = plot_gain(self.mu, np.array(curves), labels=labels if len(labels) > 1 else None, title="gain function",
+                       dashed=dashed)
         figs = _save(ax.figure, folder, "gain")
         return {"table": "gain.csv", "figures": figs, "points": int(self.mu.size),
                 "max_rate_hz": float(np.nanmax(rates)), "min_rate_hz": float(np.nanmin(rates))}

@@ -33,6 +33,25 @@ second-order, L-stable TR-BDF2 (Bank et al. 1985; Hosea & Shampine 1996),
 one tridiagonal solve per (sub)step.  The drive and noise amplitude are
 interpolated linearly between step boundaries.
 
+Mean adaptation
+---------------
+For neurons with adaptation currents (:class:`~popdens.Adaptation`) the
+density sees the drive ``mu - sum_k <w_k>``, where the population means obey
+
+.. math:: \\tau_k \\frac{d\\langle w_k\\rangle}{dt} = a_k(\\langle u\\rangle - u_{\\rm rest})
+          - \\langle w_k\\rangle + b_k \\tau_k\\, r(t)
+
+(the mean-adaptation approximation of Augustin et al. 2017, PLoS Comput.
+Biol. 13:e1005545, for the adaptive integrate-and-fire model of Brette &
+Gerstner 2005): the spread of ``w`` across neurons, and its correlation with
+the potential, are neglected.  It holds for slow adaptation with small jumps
+(the spread of ``w`` is ``b sqrt(tau_k r / 2)``); its error is measured
+against the Monte Carlo twin in the contributor guide.  Per step the means
+decay exactly, relax towards ``a_k(<u> - rest)`` with the mean potential
+averaged over the step and gain ``b_k exp(-dt/(2 tau_k))`` per unit of mass
+fired; the drive at the step end uses the means predicted with the previous
+step's firing.
+
 Refractoriness
 --------------
 The mass leaving in a step (spikes spread uniformly over the step) is
@@ -60,7 +79,7 @@ import numpy as np
 
 from .. import _validation as v
 from ..model._kernels import MS_TO_S, NO_REFCOUNT
-from ..model.adaptation import refuse
+from ..model.adaptation import step_args
 from .grids import Grid, refined_grid
 from ._base import SolverBase
 
@@ -167,74 +186,139 @@ def _solve(h, inv_delta, alpha, beta, rhs, r, phi, out, cp, z):  # pragma: no co
             out[i] += s * z[i]
 
 
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, mu0, mu1, sg0, sg1,
+          a0, b0, a1, b1, rhs, pg, cp, z):  # pragma: no cover - compiled
+    """One step of the density ``p`` with drive ``mu0 -> mu1`` (mV) and noise ``sg0 -> sg1`` (mV).
+
+    ``a0, b0`` hold the face coefficients at the step start and are replaced by those at its end;
+    ``q`` is the known reinjection rate (1/ms).  Returns the mass that left through the boundary.
+    """
+    n = h.shape[0]
+    g = GAMMA
+    if scheme == SCHEME_BE:
+        _coefficients(ff, dist, mu1, sg1, tau_m, a1, b1)
+        inv = 1.0 / dt
+        for i in range(n):
+            rhs[i] = h[i] * p[i] * inv
+        rhs[r] += q
+        _solve(h, inv, a1, b1, rhs, r, phi, p, cp, z)
+        outflow = dt * a1[n - 1] * p[n - 1]
+    else:
+        wa = 1.0 / (g * (2.0 - g))
+        wb = (1.0 - g) * (1.0 - g) / (g * (2.0 - g))
+        wc = (1.0 - g) / (2.0 - g)
+        mug = mu0 + g * (mu1 - mu0)
+        sgg = sg0 + g * (sg1 - sg0)
+        _coefficients(ff, dist, mug, sgg, tau_m, a1, b1)
+        d1 = 0.5 * g * dt
+        inv = 1.0 / d1
+        j_n = a0[n - 1] * p[n - 1]
+        # explicit half of the trapezoid: H p / d1 - K_n p + sources at t_n
+        for i in range(n):
+            kp = a0[i] * p[i]
+            if i < n - 1:
+                kp -= b0[i] * p[i + 1]
+            if i > 0:
+                kp -= a0[i - 1] * p[i - 1] - b0[i - 1] * p[i]
+            rhs[i] = h[i] * p[i] * inv - kp
+        rhs[r] += 2.0 * q + phi * j_n
+        _solve(h, inv, a1, b1, rhs, r, phi, pg, cp, z)
+        j_g = a1[n - 1] * pg[n - 1]
+        _coefficients(ff, dist, mu1, sg1, tau_m, a1, b1)
+        inv = 1.0 / (wc * dt)
+        for i in range(n):
+            rhs[i] = h[i] * (wa * pg[i] - wb * p[i]) * inv
+        rhs[r] += q
+        _solve(h, inv, a1, b1, rhs, r, phi, p, cp, z)
+        outflow = dt * ((j_n + j_g) * (0.5 / (2.0 - g)) + wc * a1[n - 1] * p[n - 1])
+    for i in range(n):
+        a0[i] = a1[i]
+        b0[i] = b1[i]
+    return outflow
+
+
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def _reinject(buf, head, n_delay, frac, outflow):  # pragma: no cover - compiled
+    """Schedule the reinjection of a step's outflow; returns the new head and the refractory mass."""
+    nb = buf.shape[0]
+    if n_delay == 0:
+        buf[(head + 1) % nb] += frac * outflow
+    else:
+        buf[(head + n_delay) % nb] += (1.0 - frac) * outflow
+        buf[(head + n_delay + 1) % nb] += frac * outflow
+    head = (head + 1) % nb
+    refr = 0.0
+    for j in range(nb):
+        refr += buf[j]
+    return head, refr
+
+
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
 def _advance(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay, frac,
              p, buf, head, mu, sigma, out_rate, out_mean_u, out_refr,
              a0, b0, a1, b1, rhs, pg, cp, z):  # pragma: no cover - compiled
     """Advance ``len(mu) - 1`` steps in place; returns (head, steps_done, ok)."""
     n = h.shape[0]
-    nb = buf.shape[0]
     n_steps = mu.shape[0] - 1
     phi = (1.0 - frac) if n_delay == 0 else 0.0
-    g = GAMMA
-    wa = 1.0 / (g * (2.0 - g))
-    wb = (1.0 - g) * (1.0 - g) / (g * (2.0 - g))
-    wc = (1.0 - g) / (2.0 - g)
     _coefficients(ff, dist, mu[0], sigma[0], tau_m, a0, b0)
     for k in range(n_steps):
         q = buf[head] / dt  # known reinjection rate during this step (1/ms)
         buf[head] = 0.0
-        if scheme == SCHEME_BE:
-            _coefficients(ff, dist, mu[k + 1], sigma[k + 1], tau_m, a1, b1)
-            inv = 1.0 / dt
-            for i in range(n):
-                rhs[i] = h[i] * p[i] * inv
-            rhs[r] += q
-            _solve(h, inv, a1, b1, rhs, r, phi, p, cp, z)
-            outflow = dt * a1[n - 1] * p[n - 1]
-        else:
-            mug = mu[k] + g * (mu[k + 1] - mu[k])
-            sgg = sigma[k] + g * (sigma[k + 1] - sigma[k])
-            _coefficients(ff, dist, mug, sgg, tau_m, a1, b1)
-            d1 = 0.5 * g * dt
-            inv = 1.0 / d1
-            j_n = a0[n - 1] * p[n - 1]
-            # explicit half of the trapezoid: H p / d1 - K_n p + sources at t_n
-            for i in range(n):
-                kp = a0[i] * p[i]
-                if i < n - 1:
-                    kp -= b0[i] * p[i + 1]
-                if i > 0:
-                    kp -= a0[i - 1] * p[i - 1] - b0[i - 1] * p[i]
-                rhs[i] = h[i] * p[i] * inv - kp
-            rhs[r] += 2.0 * q + phi * j_n
-            _solve(h, inv, a1, b1, rhs, r, phi, pg, cp, z)
-            j_g = a1[n - 1] * pg[n - 1]
-            _coefficients(ff, dist, mu[k + 1], sigma[k + 1], tau_m, a1, b1)
-            inv = 1.0 / (wc * dt)
-            for i in range(n):
-                rhs[i] = h[i] * (wa * pg[i] - wb * p[i]) * inv
-            rhs[r] += q
-            _solve(h, inv, a1, b1, rhs, r, phi, p, cp, z)
-            outflow = dt * ((j_n + j_g) * (0.5 / (2.0 - g)) + wc * a1[n - 1] * p[n - 1])
-        for i in range(n):
-            a0[i] = a1[i]
-            b0[i] = b1[i]
-        # schedule the reinjection of this step's outflow
-        if n_delay == 0:
-            buf[(head + 1) % nb] += frac * outflow
-        else:
-            buf[(head + n_delay) % nb] += (1.0 - frac) * outflow
-            buf[(head + n_delay + 1) % nb] += frac * outflow
-        head = (head + 1) % nb
-        refr = 0.0
-        for j in range(nb):
-            refr += buf[j]
+        outflow = _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, mu[k], mu[k + 1], sigma[k], sigma[k + 1],
+                        a0, b0, a1, b1, rhs, pg, cp, z)
+        head, refr = _reinject(buf, head, n_delay, frac, outflow)
         su = 0.0
         for i in range(n):
             su += h[i] * p[i] * centres[i]
         out_rate[k] = outflow / (dt * MS_TO_S)
         out_mean_u[k] = su + refr * reset
+        out_refr[k] = refr
+        if not (math.isfinite(outflow) and math.isfinite(su)):
+            return head, k + 1, False
+    return head, n_steps, True
+
+
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def _advance_adapting(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay, frac,
+                      decay, coup, kick, rest, w, aux,
+                      p, buf, head, mu, sigma, out_rate, out_mean_u, out_refr,
+                      a0, b0, a1, b1, rhs, pg, cp, z):  # pragma: no cover - compiled
+    """:func:`_advance` with mean adaptation currents ``w`` (mV, shape ``(K,)``), see the module docstring.
+
+    ``aux`` holds the summed adaptation subtracted from the drive at the last step end (mV), the mean
+    potential (mV) and the mass fired in the previous step.  The drive at a call's first boundary is
+    ``mu[0] - aux[0]``, so a jump on that boundary (its right limit in ``mu[0]``) acts from it on, and
+    splitting a span into calls changes nothing.
+    """
+    n = h.shape[0]
+    n_steps = mu.shape[0] - 1
+    n_comp = w.shape[0]
+    phi = (1.0 - frac) if n_delay == 0 else 0.0
+    _coefficients(ff, dist, mu[0] - aux[0], sigma[0], tau_m, a0, b0)
+    for k in range(n_steps):
+        q = buf[head] / dt
+        buf[head] = 0.0
+        # predicted mean adaptation at the step end (the previous step's firing persists)
+        w_end = 0.0
+        for c in range(n_comp):
+            w_end += w[c] * decay[c] + coup[c] * (1.0 - decay[c]) * (aux[1] - rest) + kick[c] * aux[2]
+        mu_end = mu[k + 1] - w_end
+        outflow = _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, mu[k] - aux[0], mu_end, sigma[k], sigma[k + 1],
+                        a0, b0, a1, b1, rhs, pg, cp, z)
+        head, refr = _reinject(buf, head, n_delay, frac, outflow)
+        su = 0.0
+        for i in range(n):
+            su += h[i] * p[i] * centres[i]
+        mean_u = su + refr * reset
+        for c in range(n_comp):
+            w[c] = w[c] * decay[c] + coup[c] * (1.0 - decay[c]) * (0.5 * (aux[1] + mean_u) - rest) + kick[c] * outflow
+        aux[0] = w_end
+        aux[1] = mean_u
+        aux[2] = outflow
+        out_rate[k] = outflow / (dt * MS_TO_S)
+        out_mean_u[k] = mean_u
         out_refr[k] = refr
         if not (math.isfinite(outflow) and math.isfinite(su)):
             return head, k + 1, False
@@ -303,7 +387,6 @@ class FokkerPlanckSolver(SolverBase):
         if scheme not in SCHEMES:
             raise ValueError(f"`scheme` must be one of {sorted(SCHEMES)}, got {scheme!r}")
         self.scheme = scheme
-        refuse(population, "the Fokker-Planck solver")
         self.n_cells_option = None if n_cells is None else v.positive_int("n_cells", n_cells)
         self._planned: list[tuple[float, float]] = []  # (mu, sigma) the grid must resolve
         self.refinement = float(refinement)
@@ -319,6 +402,7 @@ class FokkerPlanckSolver(SolverBase):
                 raise ValueError(f"`grid` must end at the neuron's boundary {nrn.boundary!r} mV, "
                                  f"got {grid.upper!r}")
         self.grid = grid
+        self._auto_grid = grid is None and u_min is None
         tau_ref = float(nrn.refractory)
         steps = tau_ref / self.dt
         n_delay = int(math.floor(steps + DELAY_TOL))
@@ -329,6 +413,11 @@ class FokkerPlanckSolver(SolverBase):
         self.buf = np.zeros(n_delay + 2)
         self.head = 0
         self.p = None
+        # mean adaptation (see the module docstring): currents w (mV) and (drive at the step start,
+        # mean potential, mass fired in the last step)
+        self._adapt = step_args(nrn, self.dt)[1:] if nrn.adapting else None
+        self.w = np.zeros(len(nrn.adaptation))
+        self.aux = np.zeros(3)
 
     # ----------------------------------------------------------------- grid
     @property
@@ -462,14 +551,18 @@ class FokkerPlanckSolver(SolverBase):
         self.buf[:] = 0.0
         self.head = 0
         self.p[:] = 0.0
+        w_sum = 0.0
+        if self._adapt is not None:
+            w_sum = self._stationary_adaptation(float(mu0), float(sigma0)) if initial != "synchronous" \
+                else float(np.sum(self._adapt[2]))
+            if self._auto_grid and float(mu0) - w_sum < min(float(mu0), 0.0):
+                # the adapted drive lies below the one the automatic grid was placed for
+                self.grid = None
+                self._build(float(mu0) - w_sum, float(sigma0))
+                if initial != "synchronous":
+                    w_sum = self._stationary_adaptation(float(mu0), float(sigma0))
         if isinstance(initial, str) and initial == "stationary":
-            a, b = self._scratch[0], self._scratch[1]
-            _coefficients(self._ff, self._dist, float(mu0), float(sigma0), float(self.population.neuron.tau_m), a, b)
-            jv = _stationary(a, b, self._r, self.p)
-            tau_ref = self.population.neuron.refractory
-            total = float(np.dot(self._h, self.p)) + jv * tau_ref
-            self.p /= total
-            flux = jv / total  # 1/ms
+            flux = self._stationary_density(float(mu0) - w_sum, float(sigma0))
             for i in range(self.n_delay + 1):
                 self._schedule_fired(flux * self.dt, i + 1)
         elif isinstance(initial, str) and initial == "synchronous":
@@ -484,6 +577,51 @@ class FokkerPlanckSolver(SolverBase):
             if not np.all(np.isfinite(dens)) or np.any(dens < 0) or np.dot(dens, self._h) <= 0:
                 raise ValueError("`initial` density must be finite, non-negative and not all zero")
             self.p[:] = dens / np.dot(dens, self._h)
+        if self._adapt is not None:
+            decay, coup, kick, rest = self._adapt
+            if initial == "synchronous":
+                self.w[:] = kick
+            self.aux[:] = (float(self.w.sum()), self.mean_potential(),
+                           self._stationary_flux * self.dt if initial == "stationary" else 0.0)
+
+    def _stationary_density(self, mu: float, sigma: float) -> float:
+        """Set ``p`` to the stationary density of the discrete operator at drive ``mu`` (mV); returns the flux (1/ms)."""
+        a, b = self._scratch[0], self._scratch[1]
+        _coefficients(self._ff, self._dist, mu, sigma, float(self.population.neuron.tau_m), a, b)
+        jv = _stationary(a, b, self._r, self.p)
+        total = float(np.dot(self._h, self.p)) + jv * self.population.neuron.refractory
+        self.p /= total
+        self._stationary_flux = jv / total
+        return self._stationary_flux
+
+    def _stationary_adaptation(self, mu0: float, sigma0: float) -> float:
+        """Summed mean adaptation (mV) of the discrete scheme's stationary state; sets ``w``.
+
+        Each component solves ``w_k (1 - e_k) = a_k (1 - e_k)(<u> - rest) + kick_k * flux * dt``, the
+        fixed point of the step kernel, with ``<u>`` and the flux of the stationary density at the
+        drive ``mu0 - sum w``; the sum is found by Brent's method (it lowers the rate monotonically).
+        """
+        from scipy.optimize import brentq
+
+        decay, coup, kick, rest = self._adapt
+        reset = float(self.population.neuron.reset)
+
+        def comps(total):
+            flux = self._stationary_density(mu0 - total, sigma0)
+            ubar = float(np.dot(self._h * self._c, self.p)) + flux * self.population.neuron.refractory * reset
+            return coup * (ubar - rest) + kick * flux * self.dt / (1.0 - decay)
+
+        def excess(total):
+            return float(np.sum(comps(total))) - total
+
+        hi = max(1.0, float(np.sum(comps(0.0))))
+        while excess(hi) > 0.0:
+            hi *= 2.0
+            if hi > 1e6:
+                raise ValueError(f"no stationary mean adaptation at `mu` = {mu0!r} mV")
+        total = brentq(excess, 0.0, hi, xtol=1e-13, rtol=1e-13) if excess(0.0) > 0.0 else 0.0
+        self.w[:] = comps(total)
+        return float(np.sum(self.w))
 
     def _schedule_synchronous(self) -> None:
         tau_ref = self.population.neuron.refractory
@@ -514,8 +652,13 @@ class FokkerPlanckSolver(SolverBase):
         mean_u = np.empty(n)
         refr = np.empty(n)
         s = self._scratch
-        head, done, ok = _advance(*self._args(), self.p, self.buf, self.head, mu, sigma, rate, mean_u, refr,
-                                  s[0], s[1], s[2], s[3], s[4], s[5], s[6], s[7])
+        if self._adapt is None:
+            head, done, ok = _advance(*self._args(), self.p, self.buf, self.head, mu, sigma, rate, mean_u, refr,
+                                      s[0], s[1], s[2], s[3], s[4], s[5], s[6], s[7])
+        else:
+            head, done, ok = _advance_adapting(*self._args(), *self._adapt, self.w, self.aux, self.p, self.buf,
+                                               self.head, mu, sigma, rate, mean_u, refr,
+                                               s[0], s[1], s[2], s[3], s[4], s[5], s[6], s[7])
         self.head = int(head)
         msg = "" if ok else f"non-finite density at t = {self.t + done * self.dt:g} ms"
         return rate[:done], mean_u[:done], refr[:done], (bool(ok), msg)
@@ -544,7 +687,8 @@ class FokkerPlanckSolver(SolverBase):
     def instantaneous_rate(self, mu: float, sigma: float) -> float:
         """Outgoing flux at the boundary (Hz) for drive ``mu`` (mV) and noise ``sigma`` (mV)."""
         a, b = np.zeros(self.p.size), np.zeros(self.p.size)
-        _coefficients(self._ff, self._dist, float(mu), float(sigma), float(self.population.neuron.tau_m), a, b)
+        mu = float(mu) - float(self.w.sum())
+        _coefficients(self._ff, self._dist, mu, float(sigma), float(self.population.neuron.tau_m), a, b)
         return float(a[-1] * self.p[-1] / MS_TO_S)
 
     def accuracy_issues(self, mu, sigma) -> list[tuple[str, str]]:
@@ -555,7 +699,9 @@ class FokkerPlanckSolver(SolverBase):
         tau_m = float(self.population.neuron.tau_m)
         s_min = float(np.min(sigma)) if sigma is not None and np.size(sigma) else math.nan
         ratio = float(self._h.max()) / (s_min / math.sqrt(2.0))
-        # the grid's estimated rate error at the current drive and, as a floor, the cell size against sigma
+        # the grid's estimated rate error at the current drive (as the density sees it: less the mean
+        # adaptation) and, as a floor, the cell size against sigma
+        mu = np.asarray(mu, dtype=float) - float(self.w.sum())
         worst, err_hz = self._grid_error_now(mu, sigma)
         n_err = int(math.ceil(self.p.size * math.sqrt(worst / 0.8) / 50.0)) * 50  # to 0.8 of the budget
         n_std = int(math.ceil(self.p.size * ratio / TARGET_CELL_OVER_STD / 50.0)) * 50
@@ -599,6 +745,9 @@ class FokkerPlanckSolver(SolverBase):
     def diagnostics(self) -> dict:
         if self.p is None:
             return {}
-        return {"n_cells": int(self.p.size), "u_min_mV": self.grid.lower, "scheme": self.scheme,
-                "min_cell_mV": float(self._h.min()), "max_cell_mV": float(self._h.max()),
-                "mass_lowest_cell": float(self._h[0] * self.p[0])}
+        out = {"n_cells": int(self.p.size), "u_min_mV": self.grid.lower, "scheme": self.scheme,
+               "min_cell_mV": float(self._h.min()), "max_cell_mV": float(self._h.max()),
+               "mass_lowest_cell": float(self._h[0] * self.p[0])}
+        if self._adapt is not None:
+            out["mean_adaptation_mV"] = [float(x) for x in self.w]
+        return out

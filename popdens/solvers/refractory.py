@@ -256,6 +256,13 @@ class RefractoryDensitySolver(SolverBase):
     def resolution_options(self) -> dict:
         return {"max_age": self.max_age}
 
+    @property
+    def order(self) -> int:
+        """Order in dt: 2, or 1 with a subthreshold coupling of an adaptation current (its potential
+        average ignores the reset within a spike's step; measured, DEVELOPERS.md)."""
+        nrn = self.population.neuron
+        return 1 if any(a.coupling_value != 0.0 for a in nrn.adaptation) else 2
+
     def _init_adaptation(self, nrn) -> None:
         """Quasi-renewal state (see :mod:`popdens.solvers._refractory_adapting`)."""
         self._adapt = step_args(nrn, self.dt)

@@ -97,6 +97,22 @@ def _renewal_sweep(s_arr, tref, da, tau_m, hu, h0, surv, gslope, e_slope, with_t
         out[i, 1] = p
 
 
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def _laplace_uniform(s_arr, a0, da, fs, out):  # pragma: no cover - compiled
+    """out[i, m] = sum_k fs[m, k] exp(-s_i (a0 + k da)) (weights already in ``fs``); phases by recursion."""
+    n = fs.shape[1]
+    for i in range(s_arr.shape[0]):
+        s = s_arr[i]
+        z = cmath.exp(-s * da)
+        for m in range(fs.shape[0]):
+            phase = cmath.exp(-s * a0)
+            acc = 0.0 + 0.0j
+            for k in range(n):
+                acc += fs[m, k] * phase
+                phase *= z
+            out[i, m] = acc
+
+
 def free_trajectory(neuron, mu: float, ages: np.ndarray) -> np.ndarray:
     """Potential (mV) after reset at constant drive ``mu``, held at reset while refractory."""
     t_free = np.maximum(ages - neuron.refractory, 0.0)
@@ -116,3 +132,40 @@ def free_trajectory(neuron, mu: float, ages: np.ndarray) -> np.ndarray:
             raise ValueError(f"the free membrane trajectory at `mu` = {mu!r} mV could not be integrated")
         u[t_free > 0] = sol.y[0]
     return u
+
+
+def adapted_trajectory(neuron, mu: float, ages: np.ndarray, z0) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Trajectory after a spike that left the adaptation ``z0`` (mV), at constant drive ``mu`` (mV).
+
+    Components without subthreshold coupling decay as ``z0 exp(-age/tau)`` (also while refractory);
+    the potential, held at reset while refractory, is integrated with scipy's LSODA (rtol 1e-11)
+    under the summed currents.  Returns the potential (mV), the summed threshold shift (mV) and the
+    components (mV, shape ``(K, n)``) at ``ages`` (ms).
+    """
+    from scipy.integrate import solve_ivp
+
+    comps = neuron.adaptation
+    if any(a.coupling_value != 0.0 for a in comps):
+        raise ValueError("the escape-noise linear response supports adaptation without subthreshold "
+                         "`coupling` only")
+    taus = np.array([a.tau for a in comps])
+    current = np.array([a.kind == 0 for a in comps])
+    z0 = np.asarray(z0, dtype=float)
+    z = z0[:, None] * np.exp(-ages[None, :] / taus[:, None])
+    shift = z[~current].sum(axis=0)
+    t_free = ages - neuron.refractory
+    u = np.full(ages.shape, float(neuron.reset))
+    free = t_free > 0
+    if np.any(free):
+        zc, tc = z0[current], taus[current]
+
+        def rhs(t, y):
+            w = float(np.sum(zc * np.exp(-(t + neuron.refractory) / tc)))
+            return [(float(neuron.drift(y[0])) + mu - w) / neuron.tau_m]
+
+        sol = solve_ivp(rhs, (0.0, float(t_free[free][-1])), [float(neuron.reset)], t_eval=t_free[free],
+                        rtol=1e-11, atol=1e-11, method="LSODA")
+        if sol.status != 0 or sol.y.shape[1] != int(free.sum()):
+            raise ValueError(f"the adapted membrane trajectory at `mu` = {mu!r} mV could not be integrated")
+        u[free] = sol.y[0]
+    return u, shift, z

@@ -42,10 +42,11 @@ import math
 import numpy as np
 
 from .. import _validation as v
+from ._adapted import escape_adapted
 from ._modulated_threshold import NODES_PER_SIGMA, Sweep
 from ._scales import length_scale
-from ._renewal_response import _renewal_sweep, free_trajectory
-from ..model.adaptation import refuse
+from ._renewal_response import _laplace_uniform, _renewal_sweep, adapted_trajectory, free_trajectory
+from ..model.neurons import CODE_LIF
 from ..model.drive import as_drive
 from ..model.hazard import CODE_LINEAR
 from ..model.noise import EscapeNoise, Population, WhiteNoise
@@ -80,6 +81,13 @@ KINK_EPS_MV = 1e-9
 FREQ_BLOCK = 256
 #: Methods accepted by :func:`transfer`.
 METHODS = ("renewal", "threshold-integration", "closed-form")
+#: Age step (ms) and ages per tau_m, at most, of the grid of adapting neurons (second order: the
+#: renewal grid's 6e-6 at 1 kHz becomes ~4e-5), and the survivor level where it ends.
+ADAPTED_AGE_STEP_MS = 0.05
+ADAPTED_AGES_PER_TAU = 100
+ADAPTED_SURVIVOR_FLOOR = 1e-10
+#: Step (mV, relative to 1 + |z|) of the central differences in the post-spike adaptation.
+STATE_STEP_MV = 1e-3
 #: Modulated inputs accepted by :func:`transfer` and their units.
 MODULATIONS = {"mean": "Hz/mV", "noise": "Hz/mV^2", "sigma": "Hz/mV"}
 
@@ -123,8 +131,14 @@ def _aligned_step(da: float, tref: float, kink: float | None) -> float:
 class _AgeGrid:
     """Stationary renewal quantities of an escape-noise population on a uniform age grid of step ``da``."""
 
-    def __init__(self, population, mu: float, prefer_tail: bool = False, da: float | None = None):
+    def __init__(self, population, mu: float, prefer_tail: bool = False, da: float | None = None, z0=None):
+        """``z0``: adaptation (mV, one per component) with which neurons leave a spike, for adapting neurons."""
         nrn, hz = population.neuron, population.noise.hazard
+        self.floor = SURVIVOR_FLOOR
+        if z0 is not None:  # adaptation stretches the trajectory's convergence over tau_adapt: a coarser grid
+            self.floor = ADAPTED_SURVIVOR_FLOOR
+            if da is None:
+                da = min(ADAPTED_AGE_STEP_MS, nrn.tau_m / ADAPTED_AGES_PER_TAU)
         if da is None:
             da = _aligned_step(min(AGE_STEP_MS, nrn.tau_m / AGES_PER_TAU), nrn.refractory, _kink_age(population, mu))
         a_max = nrn.refractory + 20.0 * nrn.tau_m
@@ -133,21 +147,29 @@ class _AgeGrid:
             # ages start at the end of the refractory period: before it the hazard and the
             # membrane response vanish and S0 = 1, so the integrals there are exact
             ages = tref + np.arange(0.0, a_max - tref + 0.5 * da, da)
-            u0 = free_trajectory(nrn, mu, ages)
+            if z0 is None:
+                u0, shift = free_trajectory(nrn, mu, ages), np.zeros(ages.shape)
+            else:
+                u0, shift, _ = adapted_trajectory(nrn, mu, ages, z0)
             if nrn.has_cutoff and np.any(u0 >= nrn.boundary):
                 raise ValueError(
                     f"at `mu` = {mu!r} mV the free trajectory reaches the cut-off; the linear response of "
                     "deterministic crossings is not supported by the escape-noise transfer function")
-            h0 = np.asarray(hz.rate(u0, nrn.threshold), dtype=float) * 1e-3  # 1/ms
+            h0 = np.asarray(hz.rate(u0, nrn.threshold + shift), dtype=float) * 1e-3  # 1/ms
             cum = np.concatenate([[0.0], np.cumsum(0.5 * (h0[1:] + h0[:-1]) * da)])
             surv = np.exp(-cum)
-            below = np.nonzero(surv < SURVIVOR_FLOOR)[0]
+            below = np.nonzero(surv < self.floor)[0]
             end = int(below[0]) if below.size else None
             tail = False
             slope_inf = float(nrn.drift_slope(float(u0[-1]))) / nrn.tau_m
             if prefer_tail and slope_inf < 0 and a_max <= MAX_AGE_MS:
                 end = None  # decaying modes: carry the grid on to the closed-form tail
-            off = np.abs(u0 - u0[-1]) >= CONVERGED_MV
+            off = np.abs(u0 - u0[-1]) + np.abs(shift - shift[-1])
+            if z0 is not None:
+                # adaptation converges over its own (long) time constant: what is left of it matters only
+                # in proportion to the neurons still there to feel it
+                off = off * surv
+            off = off >= CONVERGED_MV
             n_tau = int(math.ceil(nrn.tau_m / da))
             if slope_inf < 0 and ages.size > n_tau and not np.any(off[-n_tau:]) and h0[-1] > 0:
                 conv = max(int(np.nonzero(off)[0][-1]) + 1 if np.any(off) else 0, 2)
@@ -165,8 +187,9 @@ class _AgeGrid:
         # the slope as the mean of its one-sided values, so that a jump of it on a node (Linear escape at
         # threshold) enters the trapezoidal rule with its midpoint value
         eps = KINK_EPS_MV * np.maximum(1.0, np.abs(self.u0))
-        self.hu = 0.5 * (np.asarray(hz.slope(self.u0 + eps, nrn.threshold), dtype=float)
-                         + np.asarray(hz.slope(self.u0 - eps, nrn.threshold), dtype=float)) * 1e-3  # 1/(ms mV)
+        thr = nrn.threshold + shift[:n]
+        self.hu = 0.5 * (np.asarray(hz.slope(self.u0 + eps, thr), dtype=float)
+                         + np.asarray(hz.slope(self.u0 - eps, thr), dtype=float)) * 1e-3  # 1/(ms mV)
         self.gslope = np.asarray(nrn.drift_slope(0.5 * (self.u0[1:] + self.u0[:-1])), dtype=float) / nrn.tau_m
         self.e_slope = np.exp(self.gslope * da)
         w = np.full(n, da)
@@ -182,20 +205,42 @@ class _AgeGrid:
         self.survivor_integral = tref + float(np.sum(w * self.surv)) + (sc / hc if tail else 0.0)
         self.tref = tref
 
-    def sweep(self, s, tau_m):
+    def sweep(self, s, tau_m, weight=None):
+        """``(Q, P_hat)`` at the Laplace variables ``s`` (1/ms); with ``weight`` (an array on the ages)
+        both integrands are multiplied by it (the tails by its last value)."""
         s = np.ascontiguousarray(np.asarray(s, dtype=complex).ravel())
         if s.size and self.tail:
             hc = self.h0[-1]
             if np.any(s.real <= -hc) or np.any(s.real <= self.tail_slope - hc):
                 raise ValueError("complex `freqs` decay faster than the stationary ISI density: "
                                  f"need growth rate Re(lambda) > {-1000.0 * hc:.6g} 1/s")
-        elif s.size and np.any(SURVIVOR_FLOOR * np.exp(-s.real * self.ages[-1]) > 1e-10):
+        elif s.size and np.any(self.floor * np.exp(-s.real * self.ages[-1]) > 1e-10 * (self.floor / SURVIVOR_FLOOR)):
             raise ValueError("complex `freqs` decay faster than the stationary ISI density: need growth rate "
                              f"Re(lambda) > {1000.0 * math.log(SURVIVOR_FLOOR / 1e-10) / self.ages[-1]:.6g} 1/s")
         out = np.empty((s.size, 2), dtype=complex)
-        _renewal_sweep(s, self.tref, self.da, float(tau_m), self.hu, self.h0, self.surv, self.gslope,
+        surv = self.surv if weight is None else np.ascontiguousarray(self.surv * weight)
+        _renewal_sweep(s, self.tref, self.da, float(tau_m), self.hu, self.h0, surv, self.gslope,
                        self.e_slope, self.tail, self.tail_slope, out)
         return out[:, 0], out[:, 1]
+
+    def laplace(self, f, f_tail, s):
+        """``int f(a) exp(-s a) da`` on the ages (trapezoid) plus ``f_tail exp(-h_c (a - a_c))`` beyond them."""
+        fs = np.ascontiguousarray(np.atleast_2d(self.weights * f))
+        out = np.empty((s.size, fs.shape[0]), dtype=complex)
+        _laplace_uniform(np.ascontiguousarray(s, dtype=complex), self.ages[0], self.da, fs, out)
+        if self.tail:
+            hc = self.h0[-1]
+            out += np.atleast_1d(f_tail)[None, :] * (np.exp(-s * self.ages[-1]) / (hc + s))[:, None]
+        return out[:, 0] if np.ndim(f) == 1 else out
+
+    def density(self, population, mu, z0):
+        """ISI density ``h S`` (1/ms) on the ages for the adaptation ``z0`` (mV) left by a spike, and the
+        adaptation components along the way (shape ``(K, n)``)."""
+        nrn, hz = population.neuron, population.noise.hazard
+        u, shift, z = adapted_trajectory(nrn, mu, self.ages, z0)
+        h = np.asarray(hz.rate(u, nrn.threshold + shift), dtype=float) * 1e-3
+        surv = np.exp(-np.concatenate([[0.0], np.cumsum(0.5 * (h[1:] + h[:-1]) * self.da)]))
+        return h * surv, z
 
 
 def _escape_transfer(population, mu, s, progress, rtol):
@@ -239,6 +284,141 @@ def _escape_transfer_on(population, mu, s, progress, da):
     if np.any(zero):
         out[zero] = _escape_static_slope(population, mu, da)
     return out
+
+
+class _AdaptedResponse:
+    """Everything the adapted escape-noise transfer function needs at one drive, for any ``s``.
+
+    Escape noise with adaptation: the linearised renewal equation of the spike-weighted closure.
+    A neuron leaves a spike with the adaptation ``z = jump + x`` (:mod:`popdens.theory._adapted`), where
+    ``x(t)`` is the mean adaptation of the neurons firing at ``t``: ``A x = int P(t|t') w(t|t') A(t') dt'``.
+    Linearising both equations around the stationary state (input ``eps exp(s t)``, no subthreshold coupling,
+    so the adaptation along a trajectory depends on ``z`` only):
+
+    .. math:: \\delta A (1 - \\hat P) = A_0 Q\\,\\delta\\mu + A_0 Q_z \\delta x,\\qquad
+              A_0 (I - R_z)\\,\\delta x = (\\hat P_w - x_0)\\,\\delta A + A_0 Q_w \\delta\\mu,
+
+    with ``Q``, ``P_hat`` of the renewal equation along the adapted trajectory (Gerstner 2000), ``Q_w``,
+    ``P_hat_w`` the same weighted with the adaptation reaching the spike, and ``Q_z``, ``R_z`` the Laplace
+    transforms of the derivatives of ``P`` and ``P w`` with respect to ``z`` (central differences).  Hence
+    ``chi = A_0 [Q + Q_z M Q_w] / [1 - P_hat - Q_z M (P_hat_w - x_0)]``, ``M = (I - R_z)^-1``.  The
+    zero-frequency values are subtracted where they vanish exactly, as in the renewal case.
+    """
+
+    def __init__(self, population, mu: float, prefer_tail: bool):
+        nrn = population.neuron
+        self.population, self.mu = population, mu
+        z0 = np.asarray(escape_adapted(population, mu).post_spike, dtype=float)
+        self.k = z0.size
+        self.grid = grid = _AgeGrid(population, mu, prefer_tail=prefer_tail, z0=z0)
+        self.tau_m = nrn.tau_m
+        self.a0 = 1.0 / grid.mean_isi
+        _, _, self.zpath = adapted_trajectory(nrn, mu, grid.ages, z0)
+        zero = np.zeros(1, dtype=complex)
+        self.q0 = grid.sweep(zero, self.tau_m)[0][0]
+        self.p0 = grid.sweep(zero, self.tau_m)[1][0]
+        self.pw0 = np.array([grid.sweep(zero, self.tau_m, self.zpath[d])[1][0] for d in range(self.k)])
+        # derivatives of P and P w with respect to the post-spike state (central differences)
+        self.dp, self.dpw = [], []
+        for c in range(self.k):
+            eps = STATE_STEP_MV * (1.0 + abs(z0[c]))
+            (pp, zp), (pm, zm) = (grid.density(population, mu, z0 + sign * eps * np.eye(self.k)[c])
+                                  for sign in (1.0, -1.0))
+            self.dp.append((pp - pm) / (2 * eps))
+            self.dpw.append([(pp * zp[d] - pm * zm[d]) / (2 * eps) for d in range(self.k)])
+        self.dq0 = np.array([grid.laplace(f, f[-1], zero)[0] for f in self.dp])
+
+    def __call__(self, s):
+        grid, k = self.grid, self.k
+        q, p_hat = grid.sweep(s, self.tau_m)
+        qw = [grid.sweep(s, self.tau_m, self.zpath[d]) for d in range(k)]
+        funcs = np.array(self.dp + [self.dpw[c][d] for d in range(k) for c in range(k)])
+        tr = grid.laplace(funcs, funcs[:, -1], s)  # (n_s, k + k*k)
+        dq = tr[:, :k].T
+        dr = tr[:, k:].T.reshape(k, k, s.size)
+        out = np.empty(s.shape, dtype=complex)
+        for i in range(s.size):
+            m = np.linalg.inv(np.eye(k) - dr[:, :, i])
+            qz = dq[:, i] - self.dq0
+            q_w = np.array([qw[d][0][i] for d in range(k)])
+            p_w = np.array([qw[d][1][i] for d in range(k)]) - self.pw0
+            with np.errstate(divide="ignore", invalid="ignore"):
+                out[i] = self.a0 * ((q[i] - self.q0) + qz @ m @ q_w) / ((self.p0 - p_hat[i]) - qz @ m @ p_w) * 1000.0
+        at_zero = s == 0
+        if np.any(at_zero):
+            eps = 1e-4 * max(1.0, abs(self.mu))
+            out[at_zero] = (escape_adapted(self.population, self.mu + eps).rate
+                            - escape_adapted(self.population, self.mu - eps).rate) / (2.0 * eps)
+        return out
+
+
+#: Adapted escape-noise response contexts kept for repeated calls (stability analyses evaluate the
+#: same drive at many complex frequencies).
+_ADAPTED_CACHE: dict = {}
+ADAPTED_CACHE_SIZE = 8
+
+
+def _escape_transfer_adapting(population, mu, s, progress):
+    """Escape noise with adaptation (see :class:`_AdaptedResponse`)."""
+    key = (repr(population), float(mu), bool(np.any(s.real < 0)))
+    ctx = _ADAPTED_CACHE.get(key)
+    if ctx is None:
+        ctx = _AdaptedResponse(population, mu, key[2])
+        if len(_ADAPTED_CACHE) >= ADAPTED_CACHE_SIZE:
+            _ADAPTED_CACHE.pop(next(iter(_ADAPTED_CACHE)))
+        _ADAPTED_CACHE[key] = ctx
+    out = np.empty(s.shape, dtype=complex)
+    bar = Progress(s.size, "transfer", enabled=progress)
+    for i0 in range(0, s.size, FREQ_BLOCK):
+        out[i0:i0 + FREQ_BLOCK] = ctx(s[i0:i0 + FREQ_BLOCK])
+        bar.update(min(i0 + FREQ_BLOCK, s.size))
+    bar.close()
+    return out
+
+
+def _white_transfer_adapting(population, mu, s, modulate, method, progress):
+    """White noise with mean adaptation (see :func:`transfer`, Notes).
+
+    The means obey ``E = d(in) - A d<u> - B dr`` (the drive the renewal neuron sees), ``dr = chi0 E + chi0_x dx``
+    and, for the LIF, ``(1 + s tau_m) d<u> = (1 - r0 tau_ref) E + K dr``, ``K = (reset - rest - mu_eff)
+    (1 - exp(-s tau_ref))/s - tau_m (threshold - reset)`` (the mean-potential balance with the reset flux),
+    where ``A = sum a_k/(1 + s tau_k)``, ``B = sum b_k tau_k/(1 + s tau_k)``.  So ``chi = chi0 / (alpha + beta chi0)``
+    for the mean and ``alpha chi0_x / (alpha + beta chi0)`` for the noise, ``alpha = 1 + A (1 - r0 tau_ref)/(1 + s
+    tau_m)``, ``beta = A K/(1 + s tau_m) + B`` (rates per ms).
+    """
+    from .steady_state import _adapted_state, _renewal_population, _resolve_method
+
+    nrn = population.neuron
+    sigma = _sigma_of(population)
+    renewal = _renewal_population(population)
+    st = _adapted_state(population, mu, sigma, _resolve_method(renewal, "auto"))
+    mu_eff = st.effective_drive
+    freqs = s / (2j * math.pi * 1e-3)
+    chi0 = transfer(renewal, mu_eff, freqs, "mean", method=method, progress=progress) * 1e-3  # 1/(ms mV)
+    chi_x = chi0 if modulate == "mean" else \
+        transfer(renewal, mu_eff, freqs, modulate, method=method, progress=progress) * 1e-3
+    taus = np.array([a.tau for a in nrn.adaptation])
+    jumps = np.array([a.jump for a in nrn.adaptation])
+    coup = np.array([a.coupling for a in nrn.adaptation])
+    big_a = np.zeros(s.shape, dtype=complex)
+    big_b = np.zeros(s.shape, dtype=complex)
+    for a_k, b_k, t_k in zip(coup, jumps, taus):
+        big_a += a_k / (1.0 + s * t_k)
+        big_b += b_k * t_k / (1.0 + s * t_k)
+    alpha, beta = np.ones(s.shape, dtype=complex), big_b
+    if np.any(coup != 0.0):
+        if nrn.code != CODE_LIF:
+            raise ValueError("the white-noise linear response with a subthreshold `coupling` is available for "
+                             "the LIF only (its mean potential obeys a closed equation)")
+        with np.errstate(divide="ignore", invalid="ignore"):
+            held = np.where(s == 0, nrn.refractory, -np.expm1(-s * nrn.refractory) / s)
+        k_flux = (nrn.reset - nrn.rest - mu_eff) * held - nrn.tau_m * (nrn.threshold - nrn.reset)
+        v_m = 1.0 / (1.0 + s * nrn.tau_m)
+        alpha = 1.0 + big_a * v_m * (1.0 - st.rate * 1e-3 * nrn.refractory)
+        beta = big_a * v_m * k_flux + big_b
+    if modulate == "mean":
+        return chi0 / (alpha + beta * chi0) * 1e3
+    return alpha * chi_x / (alpha + beta * chi0) * 1e3
 
 
 def _escape_rate(population, mu, da=None):
@@ -309,6 +489,10 @@ def stationary_rate(population, mu) -> float:
     """
     population = _check_population(population)
     mu = v.as_finite_float("mu", mu)
+    if population.neuron.adapting:
+        from .steady_state import gain
+
+        return float(gain(population, mu))
     if isinstance(population.noise, EscapeNoise):
         return _escape_rate(population, mu)
     sigma = _sigma_of(population)
@@ -321,7 +505,6 @@ def stationary_rate(population, mu) -> float:
 def _check_population(population):
     if not isinstance(population, Population):
         raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
-    refuse(population, "the linear response (transfer, spectra)")
     if isinstance(population.noise, EscapeNoise) and population.noise.hazard.uses_slope:
         raise ValueError("the linear response does not support escape functions that depend on du/dt")
     return population
@@ -418,7 +601,12 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
     rtol = v.positive("rtol", rtol)
     s = (2j * math.pi * 1e-3) * f.ravel()  # Laplace variable, 1/ms
     err = np.zeros(s.shape)
-    if escape:
+    if population.neuron.adapting:
+        # no error estimate for adapting neurons (fixed age grid and threshold-integration step): NaN
+        err = np.full(s.shape, np.nan)
+        out = (_escape_transfer_adapting(population, mu, s, progress) if escape
+               else _white_transfer_adapting(population, mu, s, modulate, method, progress))
+    elif escape:
         out, err = _escape_transfer(population, mu, s, progress, rtol)
     elif method == "closed-form":
         if population.neuron.code != 0:

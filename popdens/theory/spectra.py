@@ -32,6 +32,7 @@ import numpy as np
 
 from .. import _validation as v
 from ._modulated_threshold import NODES_PER_SIGMA, Sweep
+from ..model.adaptation import refuse
 from .linear_response import FREQ_BLOCK, _AgeGrid, _check_population, _sigma_of
 from ..model.noise import EscapeNoise
 
@@ -58,6 +59,7 @@ class _Renewal:
 
     def __init__(self, population, mu):
         self.population = _check_population(population)
+        refuse(population, "the renewal spectra (ISI transform, spike-train and population-rate spectra)")
         self.mu = v.as_finite_float("mu", mu)
         if isinstance(population.noise, EscapeNoise):
             self.grid = _AgeGrid(population, self.mu)

@@ -45,11 +45,12 @@ from scipy.optimize import brentq
 
 from .. import _validation as v
 from ..exceptions import ConvergenceError, UnreachableTargetError
-from ..model.adaptation import refuse
 from ..model.drive import Constant, Drive
 from ..model.neurons import CODE_LIF, CODE_PIF
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ._adapted import escape_adapted, white_adapted
 from ._isi_diffusive import passage_time_density
+from ._isi_markov import isi_chain
 from ._renewal import STATUS_OK as _RENEWAL_OK
 from ._renewal import RENEWAL_TOL, reaches_cutoff, renewal_moments
 from ._scales import scratch
@@ -78,7 +79,6 @@ METHODS = ("auto", "siegert", "inverse-gaussian", "threshold-integration", "rene
 def _check_population(population) -> None:
     if not isinstance(population, Population):
         raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
-    refuse(population, "the steady state (gain, stationary, drive_for_rate)")
 
 
 def _constant_sigma(population, sigma) -> float | None:
@@ -131,6 +131,20 @@ def _resolve_method(population, method) -> str:
 
 
 
+def _renewal_population(population) -> Population:
+    """The population with its neuron's adaptation removed."""
+    return Population(population.neuron.without_adaptation(), population.noise)
+
+
+def _adapted_state(population, mu: float, sg, method: str):
+    """Stationary state of an adapting population (see :mod:`popdens.theory._adapted`)."""
+    if sg is None:
+        return escape_adapted(population, mu)
+    renewal = _renewal_population(population)
+    return white_adapted(population, mu, lambda d: float(gain(renewal, d, sigma=sg, method=method)),
+                         lambda d: diffusive_sweep(renewal, d, sg).mean_u)
+
+
 # ---------------------------------------------------------------- public API
 def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     """Stationary firing rate (Hz) for each constant drive in ``mu``.
@@ -155,6 +169,15 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     ndarray
         Rates in Hz, the shape of ``mu``.
 
+    Notes
+    -----
+    Adapting neurons (``adaptation=[...]``): escape noise gives the
+    stationary rate of the spike-weighted closure (the refractory-density
+    solver's default), white noise the mean-adaptation rate ``r = Phi(mu -
+    sum_k w_k)`` with ``w_k = a_k(<u> - rest) + jump_k tau_k r`` (see
+    :mod:`popdens.theory._adapted`); ``method`` then names how the renewal
+    part is computed.
+
     Raises
     ------
     ValueError
@@ -174,6 +197,10 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
     m = _resolve_method(population, method)
+    if population.neuron.adapting:
+        flat = mus.ravel()
+        out = np.array([_adapted_state(population, float(x), sg, m).rate for x in flat])
+        return out.reshape(mus.shape)
     if m == "siegert":
         nrn = population.neuron
         return siegert_rate(mus, sg, nrn.tau_m, nrn.threshold, nrn.reset, nrn.refractory, nrn.rest) * 1000.0
@@ -188,8 +215,8 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
 def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     """Derivative of the gain function, d(rate)/d(mu) (Hz/mV), at each drive in ``mu``.
 
-    Exact for the white-noise LIF (derivative of the Siegert formula);
-    otherwise a fourth-order central difference with step
+    Exact for the white-noise LIF without adaptation (derivative of the Siegert
+    formula); otherwise a fourth-order central difference with step
     ``SLOPE_STEP_MV`` (mV) of the accurate rates.
 
     Parameters
@@ -207,9 +234,9 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     mus = _drives(mu)
     m = _resolve_method(population, method)
     nrn = population.neuron
-    if m == "inverse-gaussian":
+    if m == "inverse-gaussian" and not nrn.adapting:
         return pif_rate_slope(nrn, mus)[1]
-    if m == "siegert":
+    if m == "siegert" and not nrn.adapting:
         _, d_mu, _ = siegert_slopes(mus, sg, nrn.tau_m, nrn.threshold, nrn.reset, nrn.refractory, nrn.rest)
         return d_mu * 1000.0
     h = SLOPE_STEP_MV
@@ -255,6 +282,11 @@ class SteadyState:
     age, age_density : ndarray or None
         Escape noise: age since the last spike (ms) and the stationary age
         density (1/ms; integrates to 1 over all ages, ``rate * survivor``).
+    serial_correlation : ndarray or None
+        Adapting escape-noise neurons with one adaptation component (no
+        coupling): correlation coefficients of ISIs 1, 2, ... apart, from the
+        Markov chain of the post-spike adaptation (exact up to its grids);
+        None otherwise (renewal neurons: zero).
     method : str
         How the rate was computed.
     """
@@ -277,6 +309,7 @@ class SteadyState:
     flux: np.ndarray | None = None
     age: np.ndarray | None = None
     age_density: np.ndarray | None = None
+    serial_correlation: np.ndarray | None = None
     diagnostics: dict = field(default_factory=dict)
 
     def __repr__(self) -> str:
@@ -424,9 +457,101 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
     sg = _constant_sigma(population, sigma)
     mu = v.as_finite_float("mu", mu)
     m = _resolve_method(population, method)
+    if population.neuron.adapting:
+        return _adapted_stationary(population, mu, sg, isi_t, m)
     if sg is None:
         return _escape_stationary(population, mu, isi_t)
     return _diffusive_stationary(population, mu, sg, isi_t, m)
+
+
+def _adapted_isi(population, mu: float, z0: np.ndarray, isi_t: np.ndarray):
+    """Survivor and ISI density (1/ms) on ``isi_t`` of the trajectory leaving a spike with adaptation ``z0``.
+
+    The same ODE as :mod:`popdens.theory._adapted`'s compiled integrator, evaluated with scipy's
+    LSODA (rtol 1e-10) for dense output.
+    """
+    from scipy.integrate import solve_ivp
+
+    nrn, hz = population.neuron, population.noise.hazard
+    comps = nrn.adaptation
+    current = np.array([a.kind == 0 for a in comps])
+    taus = np.array([a.tau for a in comps])
+    coup = np.array([a.coupling_value for a in comps])
+    target = np.where(current, coup * (nrn.reset - nrn.rest), 0.0)
+    z_ref = target + (z0 - target) * np.exp(-nrn.refractory / taus)
+
+    def state(y):
+        u, z = y[0], y[1:-1]
+        du = (float(nrn.drift(u)) + mu - float(np.sum(z[current]))) / nrn.tau_m
+        return u, z, du, float(hz.rate(u, nrn.threshold + float(np.sum(z[~current])), du)) * 1e-3
+
+    def rhs(_, y):
+        u, z, du, h = state(y)
+        return [du, *(np.where(current, coup * (u - nrn.rest), 0.0) - z) / taus, h]
+
+    def cutoff(_, y):
+        return y[0] - nrn.boundary
+    cutoff.terminal = True
+
+    t_end = float(np.max(isi_t)) - nrn.refractory
+    surv = np.ones(isi_t.shape)
+    dens = np.zeros(isi_t.shape)
+    if t_end > 0.0:
+        sol = solve_ivp(rhs, (0.0, t_end), [nrn.reset, *z_ref, 0.0], method="LSODA", rtol=1e-10, atol=1e-12,
+                        dense_output=True, events=cutoff if nrn.has_cutoff else None)
+        free = isi_t >= nrn.refractory
+        a = isi_t[free] - nrn.refractory
+        inside = a <= sol.t[-1]
+        ys = sol.sol(np.minimum(a, sol.t[-1]))
+        h = np.array([state(ys[:, i])[3] for i in range(a.size)])
+        s_free = np.where(inside, np.exp(-ys[-1]), 0.0)
+        surv[free] = s_free
+        dens[free] = np.where(inside, h * s_free, 0.0)
+    return surv, dens
+
+
+def _adapted_stationary(population, mu: float, sg, isi_t, method: str) -> SteadyState:
+    import dataclasses
+
+    st = _adapted_state(population, mu, sg, method)
+    if sg is not None:
+        out = _diffusive_stationary(_renewal_population(population), st.effective_drive, sg, isi_t, method)
+        return dataclasses.replace(
+            out, population=population, mu=mu, method=f"mean-adaptation ({method})",
+            diagnostics={**out.diagnostics, "mean_adaptation_mV": [float(x) for x in st.post_spike],
+                         "effective_drive_mV": st.effective_drive,
+                         "cv": "of the renewal neuron at the adapted drive (mean-adaptation approximation)"})
+    nrn = population.neuron
+    if st.rate == 0.0:
+        raise ValueError(f"at `mu` = {mu!r} mV the neurons stop firing: the rate is 0 and there is no "
+                         "stationary ISI distribution")
+    if isi_t is None:
+        # Poisson-like tails: the survivor falls below ~1e-6 within 15 mean intervals
+        isi_t = _default_isi_grid(15.0 * st.m0)
+    else:
+        isi_t = v.finite_array("isi_t", isi_t)
+        if np.any(isi_t < 0.0):
+            raise ValueError("`isi_t` must be >= 0 (ms)")
+    surv, dens = _adapted_isi(population, mu, st.post_spike, isi_t)
+    var = 2.0 * st.m1 - st.m0 * st.m0
+    rate_ms = 1.0 / st.m0
+    cv = math.sqrt(max(var, 0.0)) / st.m0
+    diagnostics = {"post_spike_adaptation_mV": [float(x) for x in st.post_spike],
+                   "cv": "of the closure's renewal process: neglects the spread of the adaptation carried "
+                         "into a spike and the serial correlations it causes"}
+    chain = None
+    if len(nrn.adaptation) == 1 and nrn.adaptation[0].coupling_value == 0.0:
+        chain = isi_chain(population, mu, z_start=float(st.post_spike[0]))
+        cv = chain.cv
+        diagnostics.update({"cv": "exact: from the Markov chain of the post-spike adaptation",
+                            "closure_renewal_cv": math.sqrt(max(var, 0.0)) / st.m0,
+                            "markov_rate_hz": chain.rate})
+    return SteadyState(
+        population=population, mu=mu, sigma=None, rate=st.rate, cv=cv,
+        mean_isi=st.m0, mean_u=st.mean_u, refractory_fraction=float(rate_ms * nrn.refractory),
+        isi_t=isi_t, isi_density=dens, survivor=surv, method="renewal (spike-weighted adaptation)",
+        age=isi_t, age_density=rate_ms * surv,
+        serial_correlation=None if chain is None else chain.serial_correlation, diagnostics=diagnostics)
 
 
 def _rate_ceiling_hz(population) -> float:
@@ -548,6 +673,9 @@ def drive_and_noise_for(population, rate, cv, *, sigma_range=None, n_scan=24) ->
 
     def cv_at(s):
         m = drive_for_rate(population, rate, sigma=s)
+        if nrn.adapting:  # mean adaptation: the renewal neuron at the adapted drive
+            st = _adapted_state(population, m, s, _resolve_method(population, "auto"))
+            return cv_diffusive(_renewal_population(population), st.effective_drive, s), m
         return cv_diffusive(population, m, s), m
 
     sigmas = np.geomspace(lo, hi, max(n_scan, 2))

@@ -36,6 +36,7 @@ from ..model._kernels import NO_REFCOUNT
 from ._diffusive import BRIDGE_SKIP, REF_TOL, _move
 from ..model.neurons import CODE_LIF
 from ..solvers._age_step import _bin_step, _newborn, _refire_survival
+from ..solvers._refractory_adapting import adapt_end, adapt_start, adapt_sums
 
 NOISE_WHITE, NOISE_ESCAPE = 0, 1
 
@@ -88,13 +89,16 @@ def csr_by_source(sources, c, n_source):  # pragma: no cover - compiled
 def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref,
                 hcode, theta, uses_slope, npar_flat, npar_ptr, nops_flat, nargs_flat, nprog_ptr,
                 hpar_flat, hpar_ptr, hops_flat, hargs_flat, hprog_ptr,
-                bg_lam, bg_drive, ext_mu, ext_sig, dt, bridge,
+                bg_lam, bg_drive, ad_ptr, ad_kinds, ad_decay, ad_coup, ad_kick, ad_rest, st,
+                ext_mu, ext_sig, dt, bridge,
                 q_src, q_tgt, q_m, q_head, q_buf_off, q_x_off, q_drive, q_decay, q_ptr_off, q_idx_off,
                 in_ptr, in_list, out_ptr, out_list, buf, xs, ptr_flat, idx_flat,
                 u, ref, age, lam, thr, hz, t0, record, spk_t, spk_i, n_spk,
                 out_count, out_mean_u, stack, xbuf):  # pragma: no cover - compiled
     """Advance the whole network ``ext_mu.shape[1] - 1`` steps in place.
 
+    Adapting cohorts: the components of cohort ``p`` are ``ad_*[ad_ptr[p]:ad_ptr[p+1]]`` and neuron ``i``
+    carries them in ``st[:, i]`` (mV), stepped as in the single-population twins.
     Returns ``(steps_done, n_spikes_recorded, buffer_full)``.
     """
     n_pop = start.shape[0] - 1
@@ -125,6 +129,12 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
             sd_full = sigma * math.sqrt(-0.5 * math.expm1(-2.0 * dt / tm))
             is_lif = ncode[p] == CODE_LIF
             rest = npar[0]
+            kinds = ad_kinds[ad_ptr[p]:ad_ptr[p + 1]]
+            decay = ad_decay[ad_ptr[p]:ad_ptr[p + 1]]
+            coup = ad_coup[ad_ptr[p]:ad_ptr[p + 1]]
+            kick = ad_kick[ad_ptr[p]:ad_ptr[p + 1]]
+            adapting = kinds.shape[0] > 0
+            arest = ad_rest[p]
             count = 0
             su = 0.0
             for i in range(i0, i1):
@@ -152,6 +162,14 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                     d1 += nb * bg_drive[p]
                 fired = False
                 n_fire = 1
+                u_start = u[i]
+                w0 = 0.0
+                w1 = 0.0
+                th1 = 0.0
+                if adapting:
+                    w0, w1, th1 = adapt_start(kinds, decay, coup, arest, st, i, u_start)
+                    d0 -= w0
+                    d1 -= w1
                 if noise[p] == NOISE_WHITE:
                     h = dt
                     ms = d0
@@ -188,6 +206,13 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                         if fired:
                             r = tr - 0.5 * dt
                             u1 = rs
+                            d_n = d1
+                            if adapting:
+                                adapt_end(kinds, decay, coup, arest, st, i, u_start, bd)
+                                for c in range(kinds.shape[0]):
+                                    st[c, i] += kick[c]
+                                wn, _ = adapt_sums(kinds, st, i)
+                                d_n = d1 + w1 - wn
                             if r > tol:
                                 ref[i] = r
                             else:
@@ -195,28 +220,52 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                                 hf = -r if r < 0.0 else 0.0
                                 if hf > tol:
                                     u1 = _move(ncode[p], npar, nops, nargs, tm, rs, hf,
-                                               d1 - (d1 - d0) * hf / dt, d1, sigma, stack, xbuf)
+                                               d_n - (d1 - d0) * hf / dt, d_n, sigma, stack, xbuf)
                                     if u1 >= bd:  # pragma: no cover - needs absurd noise
                                         u1 = rs
+                        elif adapting:
+                            adapt_end(kinds, decay, coup, arest, st, i, u_start, u1)
                         u[i] = u1
+                    elif adapting:
+                        adapt_end(kinds, decay, coup, arest, st, i, rs, rs)
                 else:
                     un, hn, big_h = _bin_step(ncode[p], npar, nops, nargs, tm, rs, bd, has_cutoff[p],
-                                              hcode[p], hpar, hops, hargs, theta[p], uses_slope[p],
+                                              hcode[p], hpar, hops, hargs, theta[p] + th1, uses_slope[p],
                                               age[i], tr, dt, e_dt, u[i], hz[i], d0, d1, stack, xbuf)
                     lam[i] += big_h
                     if lam[i] >= thr[i]:
                         fired = True
+                        th_n = 0.0
+                        d_n = d1
+                        if adapting:
+                            adapt_end(kinds, decay, coup, arest, st, i, u_start, un)
+                            for c in range(kinds.shape[0]):
+                                st[c, i] += kick[c]
+                            wn, th_n = adapt_sums(kinds, st, i)
+                            d_n = d1 + w1 - wn
                         u[i], hz[i] = _newborn(ncode[p], npar, nops, nargs, tm, rs, hcode[p], hpar, hops, hargs,
-                                               theta[p], uses_slope[p], tr, dt, d1, stack, xbuf)
+                                               theta[p] + th_n, uses_slope[p], tr, dt, d_n, stack, xbuf)
                         # firing again within the birth step (tau_ref < dt/2; see _refire_survival)
                         s_nb = _refire_survival(ncode[p], npar, nops, nargs, tm, rs, hcode[p], hpar, hops, hargs,
-                                                theta[p], uses_slope[p], tr, dt, d1, hz[i], stack, xbuf)
+                                                theta[p] + th_n, uses_slope[p], tr, dt, d_n, hz[i], stack, xbuf)
                         while s_nb < 1.0 and np.random.random() >= s_nb:
                             n_fire += 1
+                            if adapting:  # each spike with its kick, as in run_escape_adapting
+                                for c in range(kinds.shape[0]):
+                                    st[c, i] += kick[c]
+                                wn, th_n = adapt_sums(kinds, st, i)
+                                d_n = d1 + w1 - wn
+                                u[i], hz[i] = _newborn(ncode[p], npar, nops, nargs, tm, rs, hcode[p], hpar, hops,
+                                                       hargs, theta[p] + th_n, uses_slope[p], tr, dt, d_n, stack, xbuf)
+                                s_nb = _refire_survival(ncode[p], npar, nops, nargs, tm, rs, hcode[p], hpar, hops,
+                                                        hargs, theta[p] + th_n, uses_slope[p], tr, dt, d_n, hz[i],
+                                                        stack, xbuf)
                         age[i] = 0.5 * dt
                         lam[i] = 0.0
                         thr[i] = np.random.exponential(1.0)
                     else:
+                        if adapting:
+                            adapt_end(kinds, decay, coup, arest, st, i, u_start, un)
                         u[i] = un
                         hz[i] = hn
                         age[i] += dt
