@@ -23,7 +23,8 @@ LAYERS = (
     ("popdens.network",),
     ("popdens.sweeps",),
     ("popdens.scenario",),
-    ("popdens.cli", "popdens.benchmarks", "popdens"),
+    # the documentation sources (Sphinx conf.py, gallery scripts) use only the public API
+    ("popdens.cli", "popdens.benchmarks", "popdens.docs", "popdens"),
 )
 
 

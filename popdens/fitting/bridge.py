@@ -110,6 +110,8 @@ def calibrate_escape(population, drives, *, form="exponential", step_size=2.0, s
     Returns
     -------
     Calibration
+        The calibrated escape function (``.fit``, whose ``population`` is the stand-in), its
+        errors per drive (``.table``) and per regime (``.summary``), and ``.plot()``.
     """
     if not isinstance(population, Population) or not isinstance(population.noise, WhiteNoise):
         raise ValueError("`population` must be a white-noise popdens.Population")

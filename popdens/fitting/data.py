@@ -230,6 +230,7 @@ def load_spike_trains(path, *, unit=None, duration=None, unit_ids=None) -> Spike
     Returns
     -------
     SpikeTrains
+        One train per trial or unit, times in ms, with their ids and the recording duration (ms).
     """
     path = _check_file(path)
     suffix = path.suffix.lower()

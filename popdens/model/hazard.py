@@ -51,7 +51,7 @@ class EscapeFunction:
         raise NotImplementedError
 
     def slope(self, u, threshold, dudt=0.0):  # pragma: no cover - abstract
-        """dh/du in Hz/mV."""
+        """Derivative dh/du of the hazard, in Hz/mV."""
         raise NotImplementedError
 
     @property

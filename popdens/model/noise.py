@@ -83,6 +83,7 @@ class Population:
     neuron : NeuronBase
         LIF, EIF, QIF, PIF or CustomNeuron.
     noise : EscapeNoise or WhiteNoise
+        How the neurons fire: escape noise (a hazard) or white-noise input.
     """
 
     neuron: NeuronBase

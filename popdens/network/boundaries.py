@@ -364,11 +364,17 @@ def boundary_curves(circuit: Circuit, x_parameter, y_parameter, x_span, y_span, 
     Parameters
     ----------
     circuit : Circuit
+        The base circuit (external input taken at t = 0).
     x_parameter, y_parameter : str or CircuitParameter
         Paths of the two parameters (:mod:`popdens.network.parameters`).
     x_span, y_span : (float, float)
         The rectangle, in the parameters' units.
-    rate_range, gain, transfer : see :func:`bifurcation_diagram`
+    rate_range : (float, float)
+        Rate box (Hz), as in :func:`bifurcation_diagram`.
+    gain : callable, optional
+        As in :func:`bifurcation_diagram`.
+    transfer : callable, optional
+        As in :func:`bifurcation_diagram`.
     resolution : int
         Steps along a curve are at most ``1/resolution`` of the rectangle (as fine as a
         ``resolution x resolution`` stability map, or finer).
@@ -383,6 +389,7 @@ def boundary_curves(circuit: Circuit, x_parameter, y_parameter, x_span, y_span, 
     Returns
     -------
     BoundaryCurves
+        The fold and onset curves found in the rectangle.
 
     Notes
     -----

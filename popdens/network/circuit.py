@@ -334,8 +334,10 @@ class Circuit:
 
         Returns
         -------
-        mu, sigma : ndarray, shape (n,)
-            Drive (mV) and noise amplitude (mV; NaN for escape noise).
+        mu : ndarray, shape (n,)
+            Drive (mV) of every cohort.
+        sigma : ndarray, shape (n,)
+            Noise amplitude (mV; NaN for escape noise).
         """
         r = np.asarray(rates, dtype=float)
         if r.shape != (self.n,):

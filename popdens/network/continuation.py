@@ -535,6 +535,14 @@ def bifurcation_diagram(circuit: Circuit, parameter, span, *, rate_range=DEFAULT
     Returns
     -------
     BifurcationDiagram
+        The branches with their stability, folds and oscillation onsets.
+
+    Notes
+    -----
+    Branches seeded at none of the ``seeds`` parameter values and never reached by continuation
+    (an isolated closed branch lying between two seeds) are missed; raise ``seeds`` when in doubt.
+    Between two full root searches a root that enters from outside the search box and leaves
+    again unseen would be missed, as in a scan.
 
     Examples
     --------
@@ -545,13 +553,6 @@ def bifurcation_diagram(circuit: Circuit, parameter, span, *, rate_range=DEFAULT
     >>> d = bifurcation_diagram(c, "cohort.E.drive", (6.0, 18.0), rate_range=(0.0, 400.0), stability=False)
     >>> sorted(round(p.parameter, 4) for p in d.folds())
     [10.0507, 14.5326]
-
-    Notes
-    -----
-    Branches seeded at none of the ``seeds`` parameter values and never reached by continuation
-    (an isolated closed branch lying between two seeds) are missed; raise ``seeds`` when in doubt.
-    Between two full root searches a root that enters from outside the search box and leaves
-    again unseen would be missed, as in a scan.
     """
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")

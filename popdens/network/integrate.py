@@ -102,6 +102,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     Parameters
     ----------
     circuit : Circuit
+        The coupled cohorts.
     t_end : float
         Duration (ms).
     dt : float, optional

@@ -340,6 +340,7 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
     Parameters
     ----------
     circuit : Circuit
+        The coupled cohorts.
     state : FixedPoint
         From :func:`fixed_points`.
     transfer : callable, optional

@@ -70,8 +70,12 @@ def stability_map(build: Callable, x, y, *, x_label: str = "x", y_label: str = "
         Parameter values.
     x_label, y_label : str
         Axis labels (with units).
-    rate_range, gain : see :func:`fixed_points`
-    transfer : see :func:`characteristic_matrix`
+    rate_range : (float, float), optional
+        Rate box (Hz) searched for fixed points, as in :func:`fixed_points`.
+    gain : callable, optional
+        As in :func:`fixed_points`.
+    transfer : callable, optional
+        As in :func:`characteristic_matrix`.
     progress : bool, optional
         Progress line on stderr.
     **stability_options

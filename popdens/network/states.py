@@ -134,6 +134,13 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     list of FixedPoint
         Sorted by the rate of the first cohort.
 
+    Notes
+    -----
+    With several cohorts the search is a multistart root finder: fixed
+    points whose basin of attraction (for Powell's method) contains none
+    of the ``starts_per_dim ** n`` starts are missed; raise
+    ``starts_per_dim`` when in doubt.
+
     Examples
     --------
     >>> import popdens
@@ -142,13 +149,6 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     >>> c = Circuit([Cohort("E", pop, drive=12.0)], [Pathway("E", "E", 0.1, 200, 1.5)])
     >>> [round(float(fp.rates[0]), 2) for fp in fixed_points(c, (0.0, 300.0))]
     [0.06, 17.57, 242.04]
-
-    Notes
-    -----
-    With several cohorts the search is a multistart root finder: fixed
-    points whose basin of attraction (for Powell's method) contains none
-    of the ``starts_per_dim ** n`` starts are missed; raise
-    ``starts_per_dim`` when in doubt.
     """
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")

@@ -72,6 +72,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     Parameters
     ----------
     circuit : Circuit
+        The coupled cohorts (sizes and in-degrees are used as given).
     t_end : float
         Duration (ms) after the burn-in.
     dt : float, optional

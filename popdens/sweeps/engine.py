@@ -393,6 +393,7 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
     Returns
     -------
     SweepResult
+        The table of results, one record per point and output.
 
     Raises
     ------

@@ -648,6 +648,7 @@ def response_kernel(population, mu, dt: float, duration: float, modulate: str = 
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     mu : float
         Stationary drive (mV).
     dt : float
@@ -655,7 +656,11 @@ def response_kernel(population, mu, dt: float, duration: float, modulate: str = 
     duration : float
         Length of the kernel (ms); should exceed its decay time.  Computed on
         a period of twice this, so that slow tails do not alias.
-    modulate, method, progress
+    modulate : str, optional
+        As in :func:`transfer`.
+    method : str, optional
+        As in :func:`transfer`.
+    progress : bool, optional
         As in :func:`transfer`.
 
     Returns
@@ -695,6 +700,7 @@ def linear_rate_response(population, drive, t_end: float, dt: float, *, mu=None,
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     drive : Drive or float
         Input drive (mV) over time (ms).
     t_end : float
@@ -706,7 +712,9 @@ def linear_rate_response(population, drive, t_end: float, dt: float, *, mu=None,
     kernel_duration : float, optional
         Memory of the kernel (ms); default and minimum ``t_end``.  Raise it
         when the kernel rings longer than the run (weak noise).
-    method, progress
+    method : str, optional
+        As in :func:`transfer`.
+    progress : bool, optional
         As in :func:`transfer`.
 
     Returns

@@ -132,6 +132,7 @@ def spike_train_spectrum(population, mu, freqs, *, with_moments: bool = False):
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     mu : float
         Stationary drive (mV).
     freqs : array_like of float
@@ -144,7 +145,8 @@ def spike_train_spectrum(population, mu, freqs, *, with_moments: bool = False):
     ndarray of float
         Two-sided spectral density (Hz), without the ``r0^2 delta(f)`` peak;
         ``S(0) = r0 CV^2`` and ``S -> r0`` at high frequency.
-    (rate, cv2) : tuple of float, only with ``with_moments``
+    (rate, cv2) : tuple of float
+        Only with ``with_moments``: the stationary rate (Hz) and the squared ISI CV.
     """
     f = _real_freqs(freqs)
     ren = _Renewal(population, mu)
@@ -160,6 +162,22 @@ def population_rate_spectrum(population, mu, freqs, n) -> np.ndarray:
     ``r0^2 delta(f)`` peak left out.  A rate histogram with bins ``b`` (ms)
     therefore has variance ``~ S(0)/n / (b/1000)`` for bins long compared with
     the correlation time, and ``r0 / (n b/1000)`` for short bins.
+
+    Parameters
+    ----------
+    population : Population
+        The neurons and their noise model.
+    mu : float
+        Stationary drive (mV).
+    freqs : array_like of float
+        Frequencies (Hz).
+    n : int
+        Number of neurons, >= 1.
+
+    Returns
+    -------
+    ndarray of float
+        Two-sided spectral density of the population rate (Hz).
     """
     n = v.positive_int("n", n)
     return spike_train_spectrum(population, mu, freqs) / n

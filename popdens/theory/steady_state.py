@@ -169,6 +169,13 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     ndarray
         Rates in Hz, the shape of ``mu``.
 
+    Raises
+    ------
+    ValueError
+        Bad arguments, or a noise amplitude that varies in time.
+    ConvergenceError
+        No stationary state could be computed (the message names the drive).
+
     Notes
     -----
     Adapting neurons (``adaptation=[...]``): escape noise gives the
@@ -177,13 +184,6 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     sum_k w_k)`` with ``w_k = a_k(<u> - rest) + jump_k tau_k r`` (see
     :mod:`popdens.theory._adapted`); ``method`` then names how the renewal
     part is computed.
-
-    Raises
-    ------
-    ValueError
-        Bad arguments, or a noise amplitude that varies in time.
-    ConvergenceError
-        No stationary state could be computed (the message names the drive).
 
     Examples
     --------
@@ -222,6 +222,7 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     mu : float or array_like
         Drives (mV).
     sigma : float, optional
@@ -435,6 +436,7 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     mu : float
         Drive (mV).
     sigma : float, optional
@@ -569,6 +571,7 @@ def drive_for_rate(population, rate, *, sigma=None, bracket=None) -> float | np.
     Parameters
     ----------
     population : Population
+        The neurons and their noise model.
     rate : float or array_like
         Target rates (Hz), > 0 and below the ceiling ``1000/refractory``.
     sigma : float, optional
