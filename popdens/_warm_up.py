@@ -118,7 +118,11 @@ def _fitting():
     from popdens.fitting import isi_loglik, psth_loglik
 
     esc, white, *_ = _populations()
-    psth_loglik(esc, popdens.SpikeTrains([[1.0, 30.0, 70.0]], duration=100.0), 16.0, dt=0.1)
+    trains = popdens.SpikeTrains([[1.0, 30.0, 70.0]], duration=100.0)
+    psth_loglik(esc, trains, 16.0, dt=0.1)
+    adapting = popdens.Population(popdens.LIF(tau_m=10.0, threshold=20.0, reset=10.0, refractory=2.0,
+                                              adaptation=[popdens.Adaptation(tau=50.0, jump=1.0)]), esc.noise)
+    psth_loglik(adapting, trains, 16.0, dt=0.1, history=0.0)
     isi_loglik(white, [20.0 + k for k in range(10)], mu=18.0)
 
 
