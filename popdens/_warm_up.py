@@ -100,6 +100,14 @@ def _adapting():
     popdens.transfer(adapting_escape, 20.0, [10.0])
 
 
+def _synaptic():
+    import popdens
+
+    _, white, *_ = _populations()
+    coloured = popdens.Population(white.neuron, popdens.ColouredNoise(sigma=4.0, tau_syn=2.0))
+    popdens.montecarlo(coloured, 16.0, t_end=1.0, n=10, dt=0.1, seed=1, progress=False)
+
+
 def _network():
     import popdens
 
@@ -134,6 +142,7 @@ TASKS: dict[str, Callable[[], None]] = {
     "escape twin": _escape_twin,
     "fitting": _fitting,
     "network": _network,
+    "synaptic input": _synaptic,
     "white solver": _white_solver,
     "white theory": _white_theory,
     "white twin": _white_twin,
@@ -196,7 +205,9 @@ def compile_all(jobs: int = 1, names=None, stream=None) -> dict[str, float]:
 #: Kernels called only from other kernels (never from Python), beside the inlined helpers
 #: (``forceinline``): a caller loaded from the disk cache carries them without compiling them.
 CALLED_FROM_KERNELS_ONLY = frozenset({"popdens.model._kernels.evaluate_program",
-                                      "popdens.solvers.fokker_planck._solve"})
+                                      "popdens.solvers.fokker_planck._solve",
+                                      "popdens.twins._coloured.ou_step_moments",
+                                      "popdens.twins._coloured._hermite_max"})
 
 
 def uncompiled_kernels(package=None) -> list[str]:

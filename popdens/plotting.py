@@ -143,6 +143,48 @@ def plot_gain(mu, rates, labels=None, ax=None, title=None, dashed=None):
     return ax
 
 
+def plot_approximations(x, twin, twin_se, predictions, x_label, ax=None, title=None):
+    """What each approximation buys: the Monte Carlo twin's rate (with 2 SE bars) and each theory's.
+
+    Parameters
+    ----------
+    x : array_like, shape (n,)
+        The varied quantity (e.g. ``tau_syn / tau_m``).
+    twin, twin_se : array_like, shape (n,)
+        Twin rates (Hz) and their standard errors (Hz).
+    predictions : dict
+        Label -> rates (Hz), shape (n,), one line each.
+    x_label : str
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Top: rates; bottom: each prediction's error relative to the twin (%), the twin's 2 SE band shaded.
+    """
+    import matplotlib.pyplot as plt
+
+    x = np.asarray(x, dtype=float)
+    twin = np.asarray(twin, dtype=float)
+    se = np.asarray(twin_se, dtype=float)
+    fig, (top, bot) = plt.subplots(2, 1, figsize=(6.4, 6.0), sharex=True, height_ratios=(3, 2))
+    top.errorbar(x, twin, yerr=2 * se, fmt="o", color="black", ms=4, capsize=3, label="Monte Carlo twin (2 SE)")
+    styles = ("-", "--", "-.", ":")
+    for i, (label, rates) in enumerate(predictions.items()):
+        rates = np.asarray(rates, dtype=float)
+        top.plot(x, rates, styles[i % 4], lw=1.6, label=label)
+        bot.plot(x, 100.0 * (rates / twin - 1.0), styles[i % 4], marker=".", lw=1.6, label=label)
+    bot.fill_between(x, -200.0 * se / twin, 200.0 * se / twin, color="0.85", label="twin 2 SE")
+    bot.axhline(0.0, color="black", lw=0.8)
+    top.set_ylabel("stationary rate (Hz)")
+    bot.set_ylabel("error vs twin (%)")
+    bot.set_xlabel(x_label)
+    top.legend(frameon=False, loc="best")
+    if title:
+        top.set_title(title)
+    fig.tight_layout()
+    return fig
+
+
 def plot_transfer(freqs, chi, labels=None, unit="Hz/mV"):
     """Transfer-function magnitude and phase against frequency, on log axes.
 

@@ -5,8 +5,9 @@ from . import drive, hazard
 from .adaptation import Adaptation, MovingThreshold
 from .neurons import EIF, LIF, PIF, QIF, CustomNeuron, NeuronBase
 from .noise import EscapeNoise, Population, WhiteNoise
+from .synaptic import ColouredNoise
 
 __all__ = [
-    "Adaptation", "CustomNeuron", "EIF", "EscapeNoise", "LIF", "MovingThreshold", "NeuronBase", "PIF", "Population",
-    "QIF", "WhiteNoise", "drive", "hazard",
+    "Adaptation", "ColouredNoise", "CustomNeuron", "EIF", "EscapeNoise", "LIF", "MovingThreshold", "NeuronBase", "PIF",
+    "Population", "QIF", "WhiteNoise", "drive", "hazard",
 ]

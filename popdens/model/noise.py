@@ -1,6 +1,6 @@
 """Noise models and the population (neuron model + noise).
 
-Two noise models are supported:
+Three noise models are supported:
 
 * :class:`EscapeNoise` -- each neuron fires with an instantaneous rate (the
   hazard, Hz) that depends on its membrane potential; there is no hard
@@ -13,6 +13,9 @@ Two noise models are supported:
   so a free LIF membrane has stationary variance :math:`\\sigma^2/2`
   (sigma in mV, time in ms).  A spike occurs when ``u`` reaches the
   neuron's ``boundary``.
+* :class:`~popdens.model.synaptic.ColouredNoise` -- the same noise filtered by
+  an exponential synapse (time constant ``tau_syn``); see
+  :mod:`popdens.model.synaptic`.
 """
 
 from __future__ import annotations
@@ -24,6 +27,7 @@ from .. import _validation as v
 from .drive import Constant, Drive
 from .hazard import EscapeFunction
 from .neurons import NeuronBase
+from .synaptic import ColouredNoise
 
 __all__ = ["EscapeNoise", "WhiteNoise", "Population"]
 
@@ -74,6 +78,10 @@ class WhiteNoise:
         return self.sigma if isinstance(self.sigma, Drive) else Constant(self.sigma)
 
 
+#: Noise models a Population accepts.
+NOISE_MODELS = (EscapeNoise, WhiteNoise, ColouredNoise)
+
+
 @dataclass(frozen=True)
 class Population:
     """A large population of identical, independent neurons with one noise model.
@@ -82,20 +90,22 @@ class Population:
     ----------
     neuron : NeuronBase
         LIF, EIF, QIF, PIF or CustomNeuron.
-    noise : EscapeNoise or WhiteNoise
-        How the neurons fire: escape noise (a hazard) or white-noise input.
+    noise : EscapeNoise, WhiteNoise or ColouredNoise
+        How the neurons fire: escape noise (a hazard), white-noise input, or
+        white noise filtered by an exponential synapse.
     """
 
     neuron: NeuronBase
-    noise: Union[EscapeNoise, WhiteNoise]
+    noise: Union[EscapeNoise, WhiteNoise, ColouredNoise]
 
     def __post_init__(self):
         if not isinstance(self.neuron, NeuronBase):
             raise ValueError(f"`neuron` must be a popdens neuron model, got {self.neuron!r}")
-        if not isinstance(self.noise, (EscapeNoise, WhiteNoise)):
-            raise ValueError(f"`noise` must be EscapeNoise or WhiteNoise, got {self.noise!r}")
-        if isinstance(self.noise, WhiteNoise) and self.neuron.moving_thresholds:
-            raise ValueError("`adaptation` holds a MovingThreshold, which needs escape noise; with white noise "
-                             "the threshold is the absorbing boundary: use popdens.Adaptation currents instead")
+        if not isinstance(self.noise, NOISE_MODELS):
+            raise ValueError(f"`noise` must be EscapeNoise, WhiteNoise or ColouredNoise, got {self.noise!r}")
+        if isinstance(self.noise, (WhiteNoise, ColouredNoise)) and self.neuron.moving_thresholds:
+            raise ValueError("`adaptation` holds a MovingThreshold, which needs escape noise; with white or "
+                             "coloured noise the threshold is the absorbing boundary: use popdens.Adaptation "
+                             "currents instead")
 
 

@@ -157,7 +157,7 @@ class FixedPointEquations:
         a = np.asarray(a, dtype=float)
         mu, sg = c.stationary_input(a)
         res = float(np.max(np.abs(self.residual(a, p))))
-        return FixedPoint(c.names, a.copy(), mu, sg, res)
+        return FixedPoint(c.names, a.copy(), mu, sg, res, c.noise_time_constant(a))
 
 
 def null_vector(jac: np.ndarray, t_prev: np.ndarray | None) -> np.ndarray:

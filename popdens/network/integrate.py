@@ -6,6 +6,15 @@ midpoints and interpolated linearly in between; the delayed rate enters the
 exponential filter, which is integrated exactly for a piecewise-linear
 input.  A delayed rate that would be needed before the last completed step
 midpoint (delays shorter than 1.5 dt) is held at its last known value.
+
+Filtered input (``tau_syn > 0`` anywhere in a cohort's input, see
+:mod:`popdens.network.circuit`): the cohort's Fokker--Planck solver works on
+the white-noise problem with threshold and reset moved by the effective
+shift ``delta(t) = alpha/2 sum_i sigma_i^2 sqrt(tau_i/tau_m) / sigma`` from the
+filtered rates.  The grid is built at ``delta(0)``; later changes
+of ``delta`` enter as the mean input ``F'(theta) (delta - delta(0)) - tau_m
+d delta/dt`` (the change of variable ``u -> u - delta(t)``, exact for a
+linear drift, first order otherwise).
 """
 
 from __future__ import annotations
@@ -22,6 +31,9 @@ from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers.registry import resolve_method
 from ..solvers._recording import BoundarySamples, make_grid
 from ..solvers.fokker_planck import LOWER_STDS
+from ..model.effective import shifted_neuron
+from ..model.noise import Population, WhiteNoise
+from ..model.synaptic import ALPHA
 from .circuit import DEFAULT_DT, HZ_TO_PER_MS, STEP_TOL, Circuit, Pathway
 from .result import CircuitResult
 
@@ -161,6 +173,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     tq = grid.step_times(0, grid.n_steps)
     ext_mu = np.array([np.broadcast_to(a.external_mean(tq), tq.shape) for a in circuit.cohorts])
     ext_var = np.array([np.broadcast_to(a.external_variance(tq), tq.shape) for a in circuit.cohorts])
+    ext_fw = np.array([np.broadcast_to(a.external_filter_weight(tq), tq.shape) for a in circuit.cohorts])
     # external jumps on step boundaries: the input after the jump at its boundary, the input before
     # it kept apart (`ext_left`) for the end of the block that leads up to it (no response precedes it)
     ext_left: dict[int, tuple[np.ndarray, np.ndarray]] = {}
@@ -183,16 +196,35 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     if not (np.all(np.isfinite(ext_mu)) and np.all(np.isfinite(ext_var))):
         raise ValueError("the external drive or noise of a cohort is not finite on [0, t_end]")
     diffusive = [a.diffusive for a in circuit.cohorts]
+    # cohorts with filtered input and a hard threshold: moving effective boundary (module docstring)
+    filtered = [diffusive[k] and not a.population.neuron.has_cutoff
+                and (a.ext_tau_syn > 0 or (a.background is not None and a.background.tau_syn > 0)
+                     or any(p.tau_syn > 0 for p, t_ in zip(circuit.pathways, tgt) if t_ == k))
+                for k, a in enumerate(circuit.cohorts)]
+    slope_at_threshold = np.array([float(a.population.neuron.drift_slope(a.population.neuron.threshold))
+                                   for a in circuit.cohorts])
+    tau_ms = np.array([a.tau_m for a in circuit.cohorts])
+    root_tau = [math.sqrt(p.tau_syn) for p in circuit.pathways]
+    filtered = np.array(filtered, dtype=bool)
 
-    def inputs(j: int, s_values, left: bool = False) -> tuple[np.ndarray, np.ndarray]:
+    def inputs(j: int, s_values, left: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         mu, var = (a.copy() for a in ext_left[j]) if left else (ext_mu[:, j].copy(), ext_var[:, j].copy())
+        fw = ext_fw[:, j].copy()
         for q in range(len(lines)):
             mu[tgt[q]] += cmean[q] * s_values[q]
             var[tgt[q]] += cvar[q] * s_values[q]
-        return mu, np.sqrt(np.maximum(var, 0.0))
+            fw[tgt[q]] += cvar[q] * s_values[q] * root_tau[q]
+        sg = np.sqrt(np.maximum(var, 0.0))
+        with np.errstate(invalid="ignore", divide="ignore"):
+            shift = np.where(filtered & (sg > 0), 0.5 * ALPHA * fw / (np.where(sg > 0, sg, 1.0) * np.sqrt(tau_ms)), 0.0)
+        return mu, sg, shift
 
     watch = Stopwatch()
-    mu0, sg0 = inputs(0, [ln.s for ln in lines])
+    mu0, sg0, shift0 = inputs(0, [ln.s for ln in lines])
+
+    def moving(mu, shift, shift_before):
+        # the drive seen by the solvers: the moving boundary as mean input (module docstring)
+        return mu + slope_at_threshold * (shift - shift0) - tau_ms * (shift - shift_before) / dt
     solvers = []
     for k, a in enumerate(circuit.cohorts):
         cls = resolve_method(a.population, None)
@@ -206,8 +238,11 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
                 base = min(float(nrn.reset), float(nrn.rest) + min(float(mu0[k]), 0.0))
                 opts["u_min"] = (base - LOWER_STDS * sg0[k] / math.sqrt(2.0)
                                  - EXTRA_LOWER_SPANS * (float(nrn.boundary) - float(nrn.reset)))
+        pop_k = a.population
+        if diffusive[k]:  # the solver's white-noise problem, boundaries at the initial shift
+            pop_k = Population(shifted_neuron(a.population.neuron, float(shift0[k])), WhiteNoise(float(sg0[k])))
         try:
-            s = cls(a.population, dt, **opts)
+            s = cls(pop_k, dt, **opts)
         except TypeError as exc:
             raise ValueError(f"cohort {a.name!r}: bad solver option in {sorted(opts)}: {exc}") from None
         s.initialize(float(mu0[k]), float(sg0[k]) if diffusive[k] else None, "stationary")
@@ -217,7 +252,9 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     rate = np.empty((nk, n))
     mus = np.empty((nk, n + 1))
     sgs = np.empty((nk, n + 1))
-    mus[:, 0], sgs[:, 0] = mu0, sg0
+    shifts = np.empty((nk, n + 1))
+    mus[:, 0], sgs[:, 0], shifts[:, 0] = mu0, sg0, shift0
+    mus_eff = mus.copy()  # the drive seen by the solvers: with the moving-boundary term
     rate_init = np.array([s.instantaneous_rate(float(mu0[k]), float(sg0[k]) if diffusive[k] else None)
                           for k, s in enumerate(solvers)])
     a_prev = [ln.delayed(0.0, 0) for ln in lines]
@@ -245,10 +282,13 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
                     a1 = ln.delayed(t1, j)
                     s_new.append(ln.advance_filter(a_prev[q], a1))
                     a_prev[q] = a1
-                mus[:, j + b + 1], sgs[:, j + b + 1] = inputs(j + b + 1, s_new)
-            mu_blk, sg_blk = mus[:, j:j + nb + 1].copy(), sgs[:, j:j + nb + 1].copy()
+                i1 = j + b + 1
+                mus[:, i1], sgs[:, i1], shifts[:, i1] = inputs(i1, s_new)
+                mus_eff[:, i1] = moving(mus[:, i1], shifts[:, i1], shifts[:, i1 - 1])
+            mu_blk, sg_blk = mus_eff[:, j:j + nb + 1].copy(), sgs[:, j:j + nb + 1].copy()
             if j + nb in ext_left:
-                mu_blk[:, -1], sg_blk[:, -1] = inputs(j + nb, s_new, left=True)
+                mu_l, sg_blk[:, -1], sh_l = inputs(j + nb, s_new, left=True)
+                mu_blk[:, -1] = moving(mu_l, sh_l, shifts[:, j + nb - 1])
             for k, s in enumerate(solvers):
                 if diffusive[k]:
                     r, _, _ = s.advance(mu_blk[k], sg_blk[k])

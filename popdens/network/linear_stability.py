@@ -101,29 +101,60 @@ def characteristic_matrix(circuit: Circuit, state: FixedPoint, lam, transfer: Ca
     f = _freq_of(lam).ravel()
     n = circuit.n
     out = np.zeros((f.size, n, n), dtype=complex)
-    chi_m, chi_v = {}, {}
+    chi_m, chi_v, moving = {}, {}, {}
     same = {}  # cohorts with equal population and input share their transfer functions
     for p in circuit.pathways:
         k, l = circuit.index(p.target), circuit.index(p.source)
         a = circuit.cohorts[k]
         if k not in chi_m:
-            pop = circuit.population_at(k, state.sigma[k])
+            tau_k = float(state.tau_syn[k]) if state.tau_syn is not None else 0.0
+            pop = circuit.population_at(k, state.sigma[k], tau_k)
             try:
                 key = (pop, float(state.mu[k]))
                 hash(key)
             except TypeError:  # pragma: no cover - unhashable custom parameters
                 key = (id(pop), k)
             if key in same:
-                chi_m[k], chi_v[k] = chi_m[same[key]], chi_v[same[key]]
+                chi_m[k], chi_v[k], moving[k] = chi_m[same[key]], chi_v[same[key]], moving[same[key]]
             else:
                 same[key] = k
                 chi_m[k] = np.asarray(transfer(pop, float(state.mu[k]), f, "mean"), dtype=complex)
                 chi_v[k] = (np.asarray(transfer(pop, float(state.mu[k]), f, "noise"), dtype=complex)
                             if a.diffusive else np.zeros(f.size, dtype=complex))
+                moving[k] = _moving_boundary(pop, lam.ravel(), chi_m[k], float(state.sigma[k]), tau_k)
         kern = p.kernel_laplace(lam.ravel())
-        out[:, k, l] += (chi_m[k] * a.tau_m * p.weight + chi_v[k] * a.tau_m * p.weight ** 2) \
+        chi_var = chi_v[k]
+        if moving[k] is not None:
+            # the noise transfer above moves the boundary as for noise of the cohort's effective time
+            # constant; this pathway's variance moves it according to its own tau_syn
+            chi_var = chi_var + moving[k] * 2.0 * (1.0 - math.sqrt(p.tau_syn / float(state.tau_syn[k])))
+        out[:, k, l] += (chi_m[k] * a.tau_m * p.weight + chi_var * a.tau_m * p.weight ** 2) \
             * p.in_degree * kern * HZ_TO_PER_MS
     return out.reshape(lam.shape + (n, n))
+
+
+def _moving_boundary(population, lam, chi_mean, sigma: float, tau_eff: float):
+    """Rate response (Hz/mV^2) carried by the boundary shift per unit variance, or None.
+
+    The effective threshold and reset sit ``delta = alpha/2 W / (sigma sqrt(tau_m))`` above the true
+    ones, ``W = sum_i sigma_i^2 sqrt(tau_i) = sigma^2 sqrt(tau_eff)`` (:mod:`popdens.network.circuit`).
+    Moving both by ``d delta`` is, for a linear drift, a mean modulation ``-(1 + lam tau_m) d delta``
+    (the change of variable ``u -> u - delta(t)``; :func:`popdens.transfer` uses it for coloured noise).
+    The noise transfer of a coloured population assumes ``d delta / d sigma^2 = delta / (2 sigma^2)``;
+    a variance ``d v`` of time constant ``tau_q`` moves the boundary by
+    ``delta (sqrt(tau_q/tau_eff) - 1/2) d v / sigma^2`` instead: the returned term (the rate response
+    to ``delta / (2 sigma^2)``) times ``2 (1 - sqrt(tau_q/tau_eff))`` is the difference.
+    """
+    from ..model.effective import white_equivalent  # noqa: PLC0415
+
+    if tau_eff <= 0.0:
+        return None
+    nrn = population.neuron
+    shift = float(white_equivalent(population).neuron.reset - nrn.reset)
+    if shift == 0.0:
+        return None
+    leak = -float(nrn.drift_slope(nrn.threshold))
+    return chi_mean * (leak + lam * nrn.tau_m) * shift / (2.0 * sigma * sigma)
 
 
 @dataclass(frozen=True, eq=False)

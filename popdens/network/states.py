@@ -23,6 +23,7 @@ from scipy.optimize import brentq, root
 
 from .. import _validation as v
 from ..model.noise import WhiteNoise
+from ..model.synaptic import ColouredNoise
 from .circuit import Circuit
 
 __all__ = ["FixedPoint", "fixed_points", "solver_gain"]
@@ -60,7 +61,7 @@ def solver_gain(population, mu: float) -> float:
 
     cls = resolve_method(population, None)
     s = cls(population, 0.1)
-    sigma = float(population.noise.sigma) if isinstance(population.noise, WhiteNoise) else None
+    sigma = float(population.noise.sigma) if isinstance(population.noise, (WhiteNoise, ColouredNoise)) else None
     s.initialize(float(mu), sigma, "stationary")
     return float(s.instantaneous_rate(float(mu), sigma))
 
@@ -86,6 +87,9 @@ class FixedPoint:
         Total noise amplitude (mV; NaN for escape noise).
     residual : float
         ``max |A - Phi(A)|`` (Hz).
+    tau_syn : ndarray or None
+        Effective synaptic time constant of each cohort's noise (ms; 0 for
+        white input), :meth:`Circuit.noise_time_constant`.
     """
 
     names: tuple
@@ -93,6 +97,7 @@ class FixedPoint:
     mu: np.ndarray
     sigma: np.ndarray
     residual: float
+    tau_syn: np.ndarray | None = None
 
     def __repr__(self):
         body = ", ".join(f"{n}={r:.6g} Hz" for n, r in zip(self.names, self.rates))
@@ -101,12 +106,13 @@ class FixedPoint:
 
 def _rates_of(circuit: Circuit, gain: Callable, rates: np.ndarray) -> np.ndarray:
     mu, sg = circuit.stationary_input(np.maximum(rates, 0.0))
+    tau = circuit.noise_time_constant(np.maximum(rates, 0.0))
     out = np.empty(circuit.n)
     for k in range(circuit.n):
         if circuit.cohorts[k].diffusive and not sg[k] > 0:
             raise ValueError(f"cohort {circuit.names[k]!r}: noise amplitude {sg[k]!r} mV at rates {rates} Hz; "
                              "white-noise populations need sigma > 0")
-        out[k] = float(gain(circuit.population_at(k, sg[k]), float(mu[k])))
+        out[k] = float(gain(circuit.population_at(k, sg[k], tau[k]), float(mu[k])))
     return out
 
 
@@ -122,7 +128,8 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
         Rate box (Hz) searched, ``0 <= low < high``.
     gain : callable, optional
         ``gain(population, mu) -> rate (Hz)``; white-noise populations carry
-        their total ``sigma``.  Default: ``popdens.gain`` when
+        their total ``sigma``, filtered input makes them coloured-noise
+        populations with the effective ``tau_syn``.  Default: ``popdens.gain`` when
         available, else :func:`solver_gain`.
     starts_per_dim : int
         Starting points per cohort (several cohorts).
@@ -195,5 +202,6 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     out = []
     for r in sorted(found, key=lambda x: tuple(x)):
         mu, sg = circuit.stationary_input(r)
-        out.append(FixedPoint(circuit.names, r, mu, sg, float(np.max(np.abs(resid(r))))))
+        out.append(FixedPoint(circuit.names, r, mu, sg, float(np.max(np.abs(resid(r)))),
+                              circuit.noise_time_constant(r)))
     return out

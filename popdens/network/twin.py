@@ -55,6 +55,57 @@ def _delay_steps(p: Pathway, dt: float) -> int:
     return m
 
 
+class _Feeds:
+    """Filtered external inputs of the spiking twin, delivered as pseudo-pathways.
+
+    A Poisson background with ``tau_syn > 0`` and the external noise of a
+    cohort with :class:`~popdens.ColouredNoise` are exponential currents.  Each
+    becomes a pathway without presynaptic neurons whose ring buffer (``MC_BLOCK
+    + 1`` slots) the front end fills before every compiled call with the
+    coming steps' input: Poisson counts, delivered exactly like recurrent
+    spikes through an exponential synapse; or standard normal numbers, for
+    which the filter update ``x <- x e^{-dt/tau} + c z`` with ``c = sigma
+    sqrt(tau_m (1 - e^{-2 dt/tau}) / (2 tau))`` is the exact
+    Ornstein--Uhlenbeck step of the current (mV; Gillespie 1996).  The current
+    is linear within a step in the compiled code.
+    """
+
+    def __init__(self, circuit, dt):
+        self.targets, self.decay, self.drive, self.kinds, self.cohorts = [], [], [], [], []
+        for k, a in enumerate(circuit.cohorts):
+            bg = a.background
+            if bg is not None and bg.tau_syn > 0.0:
+                e = math.exp(-dt / bg.tau_syn)
+                self._add(k, a, e, a.tau_m * bg.weight * (1.0 - e) / dt, "poisson")
+            if a.diffusive and a.ext_tau_syn > 0.0:
+                tau = a.ext_tau_syn
+                e = math.exp(-dt / tau)
+                self._add(k, a, e, math.sqrt(a.tau_m * -math.expm1(-2.0 * dt / tau) / (2.0 * tau)), "gauss")
+        self.dt = dt
+
+    def _add(self, k, a, decay, drive, kind):
+        self.targets.append(k)
+        self.decay.append(decay)
+        self.drive.append(drive)
+        self.kinds.append(kind)
+        self.cohorts.append(a)
+
+    def fill(self, buf, q_head, q_buf_off, n_real, sizes, n_steps, t0, rng):
+        """Write the input of the next ``n_steps`` (<= MC_BLOCK) steps into the pseudo-pathways' slots."""
+        for j, (k, kind, a) in enumerate(zip(self.targets, self.kinds, self.cohorts)):
+            q = n_real + j
+            n_k = int(sizes[k])
+            slots = (q_head[q] + np.arange(n_steps)) % (MC_BLOCK + 1)
+            view = buf[q_buf_off[q]:q_buf_off[q] + (MC_BLOCK + 1) * n_k].reshape(MC_BLOCK + 1, n_k)
+            if kind == "poisson":
+                lam = a.background.count * a.background.rate * self.dt * 1e-3
+                view[slots] = rng.poisson(lam, size=(n_steps, n_k))
+            else:
+                # amplitude at the step ends (the value entering the filter at the end of step i)
+                sig = np.broadcast_to(a.sigma_ext(t0 + self.dt * (np.arange(n_steps) + 1.0)), (n_steps,))
+                view[slots] = rng.standard_normal((n_steps, n_k)) * sig[:, None]
+
+
 def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, seed=None, *,
                        burn_in: float | None = None, record_interval: float | None = None,
                        record_spikes: bool = False, bridge: bool = True,
@@ -148,8 +199,12 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     size = max([n_.program[0].size for n_ in nrns] + [h.program[0].size for h in hzs if h is not None]) + 2
     stack = np.empty(size)
     xbuf = np.zeros(3)
-    bg_lam = np.array([a.background.count * a.background.rate * dt * 1e-3 if a.background else 0.0 for a in asm])
+    # instantaneous background: drawn inside the compiled step; filtered background and filtered
+    # external noise: pseudo-pathways whose ring buffers the front end fills (see _Feeds)
+    bg_lam = np.array([a.background.count * a.background.rate * dt * 1e-3
+                       if a.background and a.background.tau_syn == 0.0 else 0.0 for a in asm])
     bg_drive = np.array([a.tau_m * a.background.weight / dt if a.background else 0.0 for a in asm])
+    feeds = _Feeds(circuit, dt)
     # adaptation: per-cohort components, flattened; every neuron carries its own state
     ad = [step_args(n_, dt) for n_ in nrns]
     ad_kinds, ad_ptr = _flat([x[0] for x in ad], np.int64)
@@ -161,15 +216,16 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
 
     # -- pathways: delays, drives, ring buffers, connectivity
     pws = circuit.pathways
-    nq = len(pws)
-    q_src = np.array([circuit.index(p.source) for p in pws], dtype=np.int64)
-    q_tgt = np.array([circuit.index(p.target) for p in pws], dtype=np.int64)
-    q_m = np.array([_delay_steps(p, dt) for p in pws], dtype=np.int64)
+    n_real = len(pws)
+    nq = n_real + len(feeds.targets)
+    q_src = np.array([circuit.index(p.source) for p in pws] + feeds.targets, dtype=np.int64)
+    q_tgt = np.array([circuit.index(p.target) for p in pws] + feeds.targets, dtype=np.int64)
+    q_m = np.array([_delay_steps(p, dt) for p in pws] + [MC_BLOCK] * len(feeds.targets), dtype=np.int64)
     q_head = np.zeros(nq, dtype=np.int64)
-    q_decay = np.array([math.exp(-dt / p.tau_syn) if p.tau_syn > 0 else 0.0 for p in pws])
+    q_decay = np.array([math.exp(-dt / p.tau_syn) if p.tau_syn > 0 else 0.0 for p in pws] + feeds.decay)
     q_drive = np.array([
         asm[q_tgt[q]].tau_m * p.weight * ((-math.expm1(-dt / p.tau_syn)) if p.tau_syn > 0 else 1.0) / dt
-        for q, p in enumerate(pws)])
+        for q, p in enumerate(pws)] + feeds.drive)
     buf_len = [(q_m[q] + 1) * sizes[q_tgt[q]] for q in range(nq)]
     q_buf_off = np.concatenate([[0], np.cumsum(buf_len)]).astype(np.int64)[:nq]
     x_len = [sizes[q_tgt[q]] for q in range(nq)]
@@ -185,10 +241,13 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
         ptr, tg = csr_by_source(sources, p.in_degree, ns)
         ptrs.append(ptr)
         idxs.append(tg)
+    for _ in feeds.targets:  # pseudo-pathways have no presynaptic neurons
+        ptrs.append(np.zeros(1, np.int64))
+        idxs.append(np.zeros(0, np.int32))
     ptr_flat, q_ptr_off = _flat(ptrs, np.int64) if nq else (np.zeros(1, np.int64), np.zeros(1, np.int64))
     idx_flat, q_idx_off = _flat(idxs, np.int32) if nq else (np.zeros(1, np.int32), np.zeros(1, np.int64))
     in_lists = [[q for q in range(nq) if q_tgt[q] == k] for k in range(npop)]
-    out_lists = [[q for q in range(nq) if q_src[q] == k] for k in range(npop)]
+    out_lists = [[q for q in range(n_real) if q_src[q] == k] for k in range(npop)]
     in_list, in_ptr = _flat([np.array(x, dtype=np.int64) for x in in_lists], np.int64)
     out_list, out_ptr = _flat([np.array(x, dtype=np.int64) for x in out_lists], np.int64)
     if in_list.size == 0:
@@ -209,7 +268,8 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     hz = np.zeros(n_total)
 
     mu_at = [BoundarySamples(a.drive, grid) for a in asm]
-    sg_at = [BoundarySamples(a.sigma_ext, grid) if a.diffusive else None for a in asm]
+    # coloured external noise is a pseudo-pathway (_Feeds): no white noise for those cohorts
+    sg_at = [BoundarySamples(a.sigma_ext, grid) if a.diffusive and a.ext_tau_syn == 0.0 else None for a in asm]
 
     def ext(k0, k1):
         # the Poisson background is drawn as spikes, so only the drive and the white noise enter here;
@@ -238,6 +298,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
         s_ = np.ascontiguousarray(np.repeat(sg_b, b1 - b0 + 1, axis=1))
         cnt = np.zeros((b1 - b0, npop), dtype=np.int64)
         mu_out = np.zeros((b1 - b0, npop))
+        feeds.fill(buf, q_head, q_buf_off, n_real, sizes, b1 - b0, 0.0, rng)
         run_network(*fixed, m_, s_, dt, bool(bridge), *net, 0.0, False, *no_spk, 0, cnt, mu_out, stack, xbuf)
         n_burn_spikes += int(cnt.sum())
 
@@ -255,6 +316,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
         for end in split_at_jumps(itertools.chain(range(per_call, n, per_call), [n]), *mu_at, *sg_at):
             while k < end:
                 m_, s_ = ext(k, end)
+                feeds.fill(buf, q_head, q_buf_off, n_real, sizes, end - k, k * dt, rng)
                 done, n_spk, full = run_network(*fixed, m_, s_, dt, bool(bridge), *net, k * dt, bool(record_spikes),
                                                 spk_t, spk_i, n_spk, counts[k:end], mean_u[k:end], stack, xbuf)
                 k += done

@@ -19,6 +19,12 @@ Tables
     ``mu``: the stationary drive (mV); ``frequencies`` (Hz): a list or a
     range table; ``modulate``: ``"mean"`` (default, Hz/mV), ``"noise"`` (the
     variance sigma^2, Hz/mV^2) or ``"sigma"`` (Hz/mV), the last two for white noise.
+``[approximations]``
+    coloured noise only: the Monte Carlo twin against the white-noise and the
+    effective-boundary (boundary shift) rates, what the correction buys.
+    ``mu``: the drive (mV); ``tau_syn`` (optional): synaptic time constants
+    (ms), default the ``[noise]`` one; ``neurons`` (default 2000), ``t_end``
+    (ms, default 2000) and ``seed`` (default 0) of the twin.
 """
 
 from __future__ import annotations
@@ -31,7 +37,7 @@ import numpy as np
 
 from ..exceptions import ScenarioError
 
-__all__ = ["GainCurve", "StationaryStats", "TransferCurve", "parse_analyses", "ANALYSIS_TABLES",
+__all__ = ["GainCurve", "StationaryStats", "TransferCurve", "ApproximationCheck", "parse_analyses", "ANALYSIS_TABLES",
            "describe_population", "write_table"]
 
 #: Most points accepted in one range (guards against typos such as 1e9).
@@ -119,13 +125,21 @@ def describe_population(population) -> str:
         d["noise"].update({"escape_function": type(noise.hazard).__name__, **noise.hazard.parameters()})
     else:
         d["noise"]["sigma_mV"] = noise.sigma
+        if hasattr(noise, "tau_syn"):
+            d["noise"]["tau_syn_ms"] = noise.tau_syn
     return json.dumps(jsonable(d), sort_keys=True)
 
 
 def _with_sigma(population, sigma):
     from ..model.noise import Population, WhiteNoise
+    from ..model.synaptic import ColouredNoise
 
-    return population if sigma is None else Population(population.neuron, WhiteNoise(float(sigma)))
+    if sigma is None:
+        return population
+    noise = population.noise
+    if isinstance(noise, ColouredNoise):
+        return Population(population.neuron, ColouredNoise(float(sigma), noise.tau_syn))
+    return Population(population.neuron, WhiteNoise(float(sigma)))
 
 
 def _save(fig, folder: Path, stem: str) -> list[str]:
@@ -246,12 +260,83 @@ class TransferCurve:
                 "modulate": self.modulate}
 
 
+@dataclass(frozen=True)
+class ApproximationCheck:
+    """Coloured noise: the twin's stationary rate against each approximation, over ``tau_syns`` (ms)."""
+
+    mu: float
+    tau_syns: tuple = ()
+    neurons: int = 2000
+    t_end: float = 2000.0
+    seed: int = 0
+
+    def compute(self, population) -> dict:
+        """Columns: tau_syn (ms), twin rate and SE (Hz), white-noise and effective-boundary rates (Hz)."""
+        from ..model.noise import Population, WhiteNoise
+        from ..model.synaptic import ColouredNoise
+        from ..theory.steady_state import gain
+        from ..twins.population import montecarlo
+
+        noise = population.noise
+        taus = self.tau_syns or (noise.tau_syn,)
+        sigma = noise.constant_sigma()
+        white = float(gain(Population(population.neuron, WhiteNoise(sigma)), self.mu))
+        out = {k: [] for k in ("tau_syn_ms", "twin_Hz", "twin_se_Hz", "white_noise_Hz", "boundary_shift_Hz")}
+        for i, tau in enumerate(taus):
+            pop = Population(population.neuron, ColouredNoise(sigma, float(tau)))
+            mc = montecarlo(pop, self.mu, t_end=self.t_end, n=self.neurons, seed=self.seed + i,
+                            record_spikes=True, record_interval=self.t_end)
+            counts = np.bincount(mc.spike_ids, minlength=self.neurons) / (self.t_end * 1e-3)
+            out["tau_syn_ms"].append(float(tau))
+            out["twin_Hz"].append(float(counts.mean()))
+            out["twin_se_Hz"].append(float(counts.std(ddof=1) / math.sqrt(self.neurons)))
+            out["white_noise_Hz"].append(white)
+            out["boundary_shift_Hz"].append(float(gain(pop, self.mu)))
+        return {k: np.array(v) for k, v in out.items()}
+
+    def write(self, population, folder: Path, header: dict) -> dict:
+        from ..plotting import plot_approximations
+
+        cols = self.compute(population)
+        tau_m = float(population.neuron.tau_m)
+        write_table(folder / "approximations.csv", cols,
+                    {**header, "population": describe_population(population), "units": "tau_syn ms, rates Hz",
+                     "drive_mV": f"{self.mu:g}",
+                     "twin": f"{self.neurons} neurons, {self.t_end:g} ms, SE from per-neuron counts"})
+        fig = plot_approximations(cols["tau_syn_ms"] / tau_m, cols["twin_Hz"], cols["twin_se_Hz"],
+                                  {"white noise (diffusion approximation)": cols["white_noise_Hz"],
+                                   "effective boundary shift": cols["boundary_shift_Hz"]},
+                                  "tau_syn / tau_m", title=f"coloured noise at mu = {self.mu:g} mV")
+        figs = _save(fig, folder, "approximations")
+        err = lambda name: [float(x) for x in 100.0 * (cols[name] / cols["twin_Hz"] - 1.0)]  # noqa: E731
+        return {"table": "approximations.csv", "figures": figs,
+                "error_percent": {"white_noise": err("white_noise_Hz"), "boundary_shift": err("boundary_shift_Hz")}}
+
+
+def _parse_approximations(src, table, data, white):
+    _unknown(src, table, data, {"mu", "tau_syn", "neurons", "t_end", "seed"}, ("mu",))
+    mu = _finite(src, table, "mu", data["mu"])
+    taus = tuple(float(t) for t in parse_values(src, table, "tau_syn", data["tau_syn"], positive=True)) \
+        if "tau_syn" in data else ()
+    n = data.get("neurons", 2000)
+    if isinstance(n, bool) or not isinstance(n, int) or not 2 <= n <= 10_000_000:
+        raise _err(src, table, "neurons", n, "an integer from 2 to 10000000")
+    t_end = _finite(src, table, "t_end", data.get("t_end", 2000.0))
+    if not 0.0 < t_end <= 1e7:
+        raise _err(src, table, "t_end", t_end, "a duration in (0, 1e7] ms")
+    seed = data.get("seed", 0)
+    if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
+        raise _err(src, table, "seed", seed, "a non-negative integer")
+    return ApproximationCheck(mu, taus, n, t_end, seed)
+
+
 def _parse_gain(src, table, data, white):
     _unknown(src, table, data, {"mu", "sigma"}, ("mu",))
     mu = parse_values(src, table, "mu", data["mu"])
     if "sigma" in data:
         if not white:
-            raise ScenarioError(f"{src}: [{table}] key `sigma` applies to white noise only ([noise] kind = 'white')")
+            raise ScenarioError(f"{src}: [{table}] key `sigma` applies to white noise only (or coloured) "
+                                "([noise] kind = 'white' or 'coloured')")
         sig = parse_values(src, table, "sigma", data["sigma"], positive=True)
         return GainCurve(mu, tuple(float(s) for s in sig))
     return GainCurve(mu)
@@ -272,12 +357,14 @@ def _parse_transfer(src, table, data, white):
     if modulate not in ("mean", "noise", "sigma"):
         raise _err(src, table, "modulate", modulate, "'mean', 'noise' (sigma^2) or 'sigma'")
     if modulate != "mean" and not white:
-        raise _err(src, table, "modulate", modulate, f"'mean' ('{modulate}' needs [noise] kind = 'white')")
+        raise _err(src, table, "modulate", modulate,
+                   f"'mean' ('{modulate}' needs [noise] kind = 'white' or 'coloured')")
     return TransferCurve(mu, freqs, modulate)
 
 
 #: Analysis table name → parser.
-ANALYSIS_TABLES = {"gain": _parse_gain, "stationary": _parse_stationary, "transfer": _parse_transfer}
+ANALYSIS_TABLES = {"gain": _parse_gain, "stationary": _parse_stationary, "transfer": _parse_transfer,
+                   "approximations": _parse_approximations}
 
 
 def parse_analyses(src, data: dict, white: bool) -> tuple:

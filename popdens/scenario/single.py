@@ -6,10 +6,12 @@ Top-level tables
 ``[neuron]``    ``model`` = "LIF" | "EIF" | "QIF" | "PIF" | "custom" and that model's parameters;
                 optional ``[[neuron.adaptation]]`` entries (``kind`` = "current" | "threshold",
                 ``tau`` ms, ``jump`` mV, ``coupling``), see :func:`parse_adaptation`
-``[noise]``     ``kind`` = "escape" with a ``[noise.hazard]`` table, or "white" with ``sigma`` (mV)
+``[noise]``     ``kind`` = "escape" with a ``[noise.hazard]`` table, "white" with ``sigma`` (mV), or
+                "coloured" with ``sigma`` (mV) and ``tau_syn`` (ms)
 ``[input]``     ``shape`` = "constant" | "step" | "pulse" | "ramp" | "sine" | "trace" and its parameters
 ``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``
-``[gain]``, ``[stationary]``, ``[transfer]``  steady-state and linear-response analyses
+``[gain]``, ``[stationary]``, ``[transfer]``, ``[approximations]``  steady-state and linear-response
+                analyses, the coloured-noise approximations against the twin
                 (see :mod:`popdens.scenario.analyses`)
 ``[[cohort]]``, ``[[pathway]]``, ``[network]``  a network scenario instead (see
                 :mod:`popdens.scenario.network`)
@@ -37,6 +39,7 @@ from ..model import hazard as hazard_mod
 from ..model.adaptation import Adaptation, MovingThreshold
 from ..model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..model.synaptic import ColouredNoise
 from ..solvers._recording import make_grid
 from ._schema import build, check_keys, err, flatten, model_params, number, parse_meta, select
 from .analyses import ANALYSIS_TABLES, parse_analyses
@@ -162,8 +165,11 @@ def parse_population(src, neuron_data, noise_data, prefix: str = "") -> Populati
     elif kind == "white":
         check_keys(src, t_noise, no, {"kind", "sigma"}, {"kind", "sigma"})
         noise = build(src, t_noise, WhiteNoise, {"sigma": number(src, t_noise, "sigma", no["sigma"])})
+    elif kind == "coloured":
+        check_keys(src, t_noise, no, {"kind", "sigma", "tau_syn"}, {"kind", "sigma", "tau_syn"})
+        noise = build(src, t_noise, ColouredNoise, {k: number(src, t_noise, k, no[k]) for k in ("sigma", "tau_syn")})
     else:
-        raise err(src, t_noise, "kind", kind, "'escape' or 'white'")
+        raise err(src, t_noise, "kind", kind, "'escape', 'white' or 'coloured'")
     return build(src, t_neuron, Population, {"neuron": neuron, "noise": noise})
 
 
@@ -182,7 +188,12 @@ def parse_single_scenario(data: dict, source: str | Path = "<scenario>") -> Scen
     population = parse_population(src, data["neuron"], data["noise"])
     noise = population.noise
 
-    analyses = parse_analyses(src, data, white=isinstance(noise, WhiteNoise))
+    analyses = parse_analyses(src, data, white=isinstance(noise, (WhiteNoise, ColouredNoise)))
+    if "approximations" in data and not isinstance(noise, ColouredNoise):
+        raise ScenarioError(f"{src}: [approximations] compares the approximations of filtered (coloured) noise "
+                            "with the twin: it needs [noise] kind = 'coloured'")
+    if "approximations" in data and noise.constant_sigma() is None:  # pragma: no cover - scenario sigma is a number
+        raise ScenarioError(f"{src}: [approximations] needs a constant [noise] `sigma`")
     if "fit" in data:
         analyses = (*analyses, ("fit", parse_fit(src, data["fit"])))
     digest = hashlib.sha256(repr(sorted(flatten(data))).encode()).hexdigest()[:16]

@@ -80,6 +80,7 @@ import numpy as np
 from .. import _validation as v
 from ..model._kernels import MS_TO_S, NO_REFCOUNT
 from ..model.adaptation import step_args
+from ..model.effective import white_equivalent
 from .grids import Grid, refined_grid
 from ._base import SolverBase
 
@@ -352,7 +353,11 @@ class FokkerPlanckSolver(SolverBase):
     Parameters
     ----------
     population : Population
-        Neuron model with :class:`~popdens.WhiteNoise`.
+        Neuron model with :class:`~popdens.WhiteNoise`, or with
+        :class:`~popdens.ColouredNoise` of constant ``sigma``: solved as its
+        white-noise equivalent with shifted threshold and reset
+        (:mod:`popdens.model.effective`; an approximation, first order in
+        ``sqrt(tau_syn/tau_m)``).
     dt : float
         Time step (ms).
     scheme : {"tr-bdf2", "backward-euler"}
@@ -383,14 +388,14 @@ class FokkerPlanckSolver(SolverBase):
 
     def __init__(self, population, dt: float, scheme: str = "tr-bdf2", n_cells: int | None = None,
                  refinement: float = 10.0, u_min: float | None = None, grid: Grid | None = None):
-        super().__init__(population, dt)
+        super().__init__(white_equivalent(population), dt)
         if scheme not in SCHEMES:
             raise ValueError(f"`scheme` must be one of {sorted(SCHEMES)}, got {scheme!r}")
         self.scheme = scheme
         self.n_cells_option = None if n_cells is None else v.positive_int("n_cells", n_cells)
         self._planned: list[tuple[float, float]] = []  # (mu, sigma) the grid must resolve
         self.refinement = float(refinement)
-        nrn = population.neuron
+        nrn = self.population.neuron
         if u_min is not None:
             u_min = v.as_finite_float("u_min", u_min)
             v.less_than("u_min", u_min, "reset", float(nrn.reset))

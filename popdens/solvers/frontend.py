@@ -14,7 +14,7 @@ from .. import _validation as v
 from ..model._jit import Stopwatch
 from ._recording import BoundarySamples, TimeGrid, block_ends, downsample, make_grid, split_at_jumps, steps_per_call
 from ..model.drive import as_drive
-from ..model.noise import Population, WhiteNoise
+from ..model.noise import Population
 from ..progress import Progress
 from ..exceptions import AccuracyWarning
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK, Result
@@ -202,8 +202,9 @@ def _control_error(population, drive, grid, cls, options, initial, solver, res, 
             return _run(population, drive, g, cls, pinned, initial, progress, label)[1]
 
     jumps = dict(BoundarySamples(drive, grid).jumps)
-    if isinstance(population.noise, WhiteNoise):
-        jumps.update(BoundarySamples(population.noise.sigma_drive, grid).jumps)
+    sigma_drive = getattr(population.noise, "sigma_drive", None)  # white or coloured noise
+    if sigma_drive is not None:
+        jumps.update(BoundarySamples(sigma_drive, grid).jumps)
     coarse_grid = _companion_grid(grid)
     tried = [grid.dt]
     if coarse_grid is not None and all(j % 2 == 0 for j in jumps):
@@ -253,7 +254,7 @@ def _control_error(population, drive, grid, cls, options, initial, solver, res, 
 def _run(population, drive, grid, cls, options, initial, progress, label=None):
     """One run of solver ``cls`` on ``grid``; returns the solver and the Result."""
     solver = cls(population, grid.dt, **options)
-    sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
+    sigma_drive = getattr(population.noise, "sigma_drive", None)  # white or coloured noise
     watch = Stopwatch()
     mu_at = BoundarySamples(drive, grid)
     sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None

@@ -7,6 +7,7 @@ noise model to the solver used when no method is given.
 from __future__ import annotations
 
 from ..model.noise import EscapeNoise, WhiteNoise
+from ..model.synaptic import ColouredNoise
 from ._base import SolverBase
 from .fokker_planck import FokkerPlanckSolver
 from .refractory import RefractoryDensitySolver
@@ -21,12 +22,13 @@ METHODS: dict[str, type[SolverBase]] = {
 DEFAULT_METHOD: dict[type, str] = {
     EscapeNoise: "refractory-density",
     WhiteNoise: "fokker-planck",
+    ColouredNoise: "fokker-planck",
 }
 
-#: Noise model each method solves.
-NOISE_OF_METHOD: dict[str, type] = {
-    "refractory-density": EscapeNoise,
-    "fokker-planck": WhiteNoise,
+#: Noise models each method solves (coloured noise through its white-noise equivalent).
+NOISE_OF_METHOD: dict[str, tuple[type, ...]] = {
+    "refractory-density": (EscapeNoise,),
+    "fokker-planck": (WhiteNoise, ColouredNoise),
 }
 
 
@@ -41,10 +43,10 @@ def resolve_method(population, method) -> type[SolverBase]:
         return method
     if method not in METHODS:
         raise ValueError(f"`method` must be one of {sorted(METHODS)}, got {method!r}")
-    if NOISE_OF_METHOD[method] is not noise_type:
+    if noise_type not in NOISE_OF_METHOD[method]:
         raise ValueError(
-            f"`method` {method!r} solves {NOISE_OF_METHOD[method].__name__} populations, "
-            f"but the population has {noise_type.__name__}"
+            f"`method` {method!r} solves {' or '.join(t.__name__ for t in NOISE_OF_METHOD[method])} "
+            f"populations, but the population has {noise_type.__name__}"
         )
     return METHODS[method]
 

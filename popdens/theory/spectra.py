@@ -34,6 +34,7 @@ from .. import _validation as v
 from ._modulated_threshold import NODES_PER_SIGMA, Sweep
 from ..model.adaptation import refuse
 from .linear_response import FREQ_BLOCK, _AgeGrid, _check_population, _sigma_of
+from ..model.effective import white_equivalent
 from ..model.noise import EscapeNoise
 
 __all__ = ["isi_transform", "spike_train_spectrum", "population_rate_spectrum"]
@@ -70,9 +71,12 @@ class _Renewal:
             self.rate = 1000.0 / m1
             self.cv2 = m2 / m1 ** 2 - 1.0
         else:
-            sigma = _sigma_of(population)
-            self.sweeps = (Sweep(population.neuron, self.mu, sigma, NODES_PER_SIGMA),
-                           Sweep(population.neuron, self.mu, sigma, 2 * NODES_PER_SIGMA))
+            # coloured noise: the effective white-noise problem (a renewal approximation: the
+            # synaptic current carries memory across spikes, ignored here)
+            white = white_equivalent(population)
+            sigma = _sigma_of(white)
+            self.sweeps = (Sweep(white.neuron, self.mu, sigma, NODES_PER_SIGMA),
+                           Sweep(white.neuron, self.mu, sigma, 2 * NODES_PER_SIGMA))
             self.rate = (4.0 * self.sweeps[1].rate - self.sweeps[0].rate) / 3.0
             rho = CAUCHY_RADIUS * self.rate * 1e-3  # 1/ms
             theta = 2.0 * math.pi * np.arange(CAUCHY_POINTS) / CAUCHY_POINTS

@@ -24,6 +24,11 @@ Methods
   Richardson-extrapolated from two widths.
 * Escape noise: renewal theory along the free trajectory after reset
   (:mod:`popdens.theory._stationary_escape`).
+* Coloured noise (:class:`~popdens.ColouredNoise`): every white-noise method
+  above, applied to the white-noise population with threshold and reset
+  moved up by ``sigma alpha/2 sqrt(tau_syn/tau_m)`` (Brunel & Sergi 1998;
+  Fourcaud & Brunel 2002; only the reset for models with a spike cut-off):
+  first order in ``sqrt(tau_syn/tau_m)``, see :mod:`popdens.model.effective`.
 
 The ISI CV of white-noise populations comes from the first two moments of
 the passage time from reset to the boundary; the ISI density from the
@@ -37,7 +42,7 @@ densities in 1/mV (potential) or 1/ms (age, ISI).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -47,7 +52,9 @@ from .. import _validation as v
 from ..exceptions import ConvergenceError, UnreachableTargetError
 from ..model.drive import Constant, Drive
 from ..model.neurons import CODE_LIF, CODE_PIF
+from ..model.effective import white_equivalent
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..model.synaptic import ColouredNoise
 from ._adapted import escape_adapted, white_adapted
 from ._isi_diffusive import passage_time_density
 from ._isi_markov import isi_chain
@@ -99,6 +106,15 @@ def _constant_sigma(population, sigma) -> float | None:
             f"{s!r}; pass `sigma=` (mV) or use a number / popdens.drive.Constant"
         )
     return float(s)
+
+
+def _as_white(population, sigma):
+    """Coloured noise -> its white-noise equivalent (the ``sigma`` override consumed); else unchanged."""
+    if isinstance(population.noise, ColouredNoise):
+        if sigma is not None:
+            sigma = v.positive("sigma", sigma)
+        return white_equivalent(population, sigma), None
+    return population, sigma
 
 
 def _drives(mu) -> np.ndarray:
@@ -194,6 +210,7 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     True
     """
     _check_population(population)
+    population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
     m = _resolve_method(population, method)
@@ -231,6 +248,7 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         As in :func:`gain`.
     """
     _check_population(population)
+    population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
     m = _resolve_method(population, method)
@@ -456,6 +474,8 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         noise), mean potential (mV).
     """
     _check_population(population)
+    original = population
+    population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
     mu = v.as_finite_float("mu", mu)
     m = _resolve_method(population, method)
@@ -463,7 +483,12 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         return _adapted_stationary(population, mu, sg, isi_t, m)
     if sg is None:
         return _escape_stationary(population, mu, isi_t)
-    return _diffusive_stationary(population, mu, sg, isi_t, m)
+    out = _diffusive_stationary(population, mu, sg, isi_t, m)
+    if population is original:
+        return out
+    shift = float(population.neuron.reset - original.neuron.reset)
+    return replace(out, population=original, method=f"{m} (boundary shift)",
+                   diagnostics={**out.diagnostics, "boundary_shift_mV": shift})
 
 
 def _adapted_isi(population, mu: float, z0: np.ndarray, isi_t: np.ndarray):
@@ -665,8 +690,8 @@ def drive_and_noise_for(population, rate, cv, *, sigma_range=None, n_scan=24) ->
         message gives the CV range found).
     """
     _check_population(population)
-    if not isinstance(population.noise, WhiteNoise):
-        raise ValueError("`drive_and_noise_for` needs a white-noise population")
+    if not isinstance(population.noise, (WhiteNoise, ColouredNoise)):
+        raise ValueError("`drive_and_noise_for` needs a white- or coloured-noise population")
     cv = v.positive("cv", cv)
     rate = v.positive("rate", rate)
     nrn = population.neuron
@@ -676,10 +701,11 @@ def drive_and_noise_for(population, rate, cv, *, sigma_range=None, n_scan=24) ->
 
     def cv_at(s):
         m = drive_for_rate(population, rate, sigma=s)
+        pop = white_equivalent(population, s)  # coloured noise: the shifted white-noise population
         if nrn.adapting:  # mean adaptation: the renewal neuron at the adapted drive
-            st = _adapted_state(population, m, s, _resolve_method(population, "auto"))
-            return cv_diffusive(_renewal_population(population), st.effective_drive, s), m
-        return cv_diffusive(population, m, s), m
+            st = _adapted_state(pop, m, s, _resolve_method(pop, "auto"))
+            return cv_diffusive(_renewal_population(pop), st.effective_drive, s), m
+        return cv_diffusive(pop, m, s), m
 
     sigmas = np.geomspace(lo, hi, max(n_scan, 2))
     vals = []

@@ -10,6 +10,7 @@ from __future__ import annotations
 
 import copy
 import logging
+import math
 
 import numpy as np
 
@@ -23,6 +24,7 @@ from ..solvers._recording import (WORK_PER_CALL, BoundarySamples, block_ends, do
                                   steps_per_call)
 from ..model.drive import as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..model.synaptic import ColouredNoise
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK, Result
 
@@ -32,6 +34,9 @@ logger = logging.getLogger(__name__)
 
 #: Default time step (ms).
 DEFAULT_DT = 0.1
+#: Coloured noise: default steps per synaptic time constant, at least (the default step is
+#: ``DEFAULT_DT`` divided by a whole number, so it still divides run lengths in 0.1 ms).
+COLOURED_STEPS_PER_TAU = 20
 #: Default burn-in (ms) at the initial drive for ``initial="stationary"``,
 #: in membrane time constants beyond the refractory period, plus a floor.
 BURN_IN_TAUS = 20.0
@@ -134,6 +139,13 @@ class _EscapeEnsemble:
         return float(np.mean(self.age < self.refractory - 1e-9 * self.dt))
 
 
+def _default_dt(population) -> float:
+    """``DEFAULT_DT``, divided for coloured noise so that ``tau_syn / dt >= COLOURED_STEPS_PER_TAU``."""
+    if isinstance(population.noise, ColouredNoise):
+        return DEFAULT_DT / math.ceil(COLOURED_STEPS_PER_TAU * DEFAULT_DT / population.noise.tau_syn - 1e-9)
+    return DEFAULT_DT
+
+
 def _make_ensemble(population, n, dt, rng, options):
     if isinstance(population.noise, EscapeNoise):
         if options:
@@ -143,6 +155,12 @@ def _make_ensemble(population, n, dt, rng, options):
         from ._diffusive import DiffusiveEnsemble  # noqa: PLC0415 - optional until available
 
         return DiffusiveEnsemble(population, n, dt, rng, **options)
+    if isinstance(population.noise, ColouredNoise):
+        if options:
+            raise ValueError(f"unknown option(s) {sorted(options)} for coloured-noise Monte Carlo")
+        from ._coloured import ColouredEnsemble  # noqa: PLC0415 - compiled kernel loaded on first use
+
+        return ColouredEnsemble(population, n, dt, rng)
     raise ValueError(f"unsupported noise {population.noise!r}")  # pragma: no cover
 
 
@@ -203,7 +221,9 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     n : int
         Number of neurons.
     dt : float, optional
-        Time step (ms), must divide ``t_end``; default 0.1 ms.
+        Time step (ms), must divide ``t_end``; default 0.1 ms (coloured noise:
+        0.1 ms divided by the smallest whole number giving at least
+        ``COLOURED_STEPS_PER_TAU`` steps per ``tau_syn``).
     seed : int or numpy.random.Generator, optional
         Seed or generator; the same seed gives bit-identical results.
     initial : {"stationary", "synchronous"}
@@ -244,7 +264,7 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
         raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
     drive = as_drive(drive)
     n = v.positive_int("n", n)
-    dt = DEFAULT_DT if dt is None else dt
+    dt = _default_dt(population) if dt is None else dt
     grid = make_grid(t_end, dt, record_interval, None)
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
     if initial not in ("stationary", "synchronous"):
@@ -256,7 +276,7 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     seed_compiled_rng(int(rng.integers(0, 2**31 - 1)))
     ens = _make_ensemble(population, n, grid.dt, rng, options)
     mu_at = BoundarySamples(drive, grid)
-    sigma_drive = population.noise.sigma_drive if isinstance(population.noise, WhiteNoise) else None
+    sigma_drive = getattr(population.noise, "sigma_drive", None)  # white or coloured noise
     sigma_at = BoundarySamples(sigma_drive, grid) if sigma_drive is not None else None
     mu0 = mu_at.start()
     if not np.isfinite(mu0):

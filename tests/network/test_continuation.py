@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import math
 
+import mpmath
 import numpy as np
 import pytest
 from scipy.optimize import brentq, minimize_scalar
@@ -116,15 +117,31 @@ def test_continuation_errors_name_the_argument():
 
 
 # --------------------------------------------------------------------------- folds
+#: alpha = sqrt(2) |zeta(1/2)| of the effective-boundary theory (Brunel & Sergi 1998; Fourcaud & Brunel
+#: 2002), zeta by mpmath.
+ALPHA = math.sqrt(2.0) * abs(float(mpmath.zeta(0.5)))
+
+
+def coloured_siegert(mu, a, c_in=150, tau_s=3.0):
+    """Rate (Hz) of the bistable cohort at drive mu (mV) and its own rate a (Hz): white external noise
+    (9 mV^2) plus the recurrent input filtered with tau_s, whose variance wv a carries the boundary shift
+    sigma alpha/2 sqrt(tau_eff/tau_m), sqrt(tau_eff) the variance-weighted mean of sqrt(tau) (0 for the
+    white part), i.e. a shift alpha/2 wv a sqrt(tau_s/tau_m) / sigma; Siegert formula on the shifted LIF."""
+    wv = 20.0 * 0.01 * c_in * 1e-3
+    sg = math.sqrt(9.0 + wv * a)
+    d = 0.5 * ALPHA * wv * a * math.sqrt(tau_s / 20.0) / sg
+    return siegert(mu, sg, theta=20.0 + d, reset=10.0 + d)
+
+
 def brute_force_folds(c_in=150, lo_rate=0.5, hi_rate=250.0):
     """Folds of the drive m along the branch, independently of popdens: the external drive that makes
-    A a fixed point, m(A) = mu*(A) - w A with Phi(mu*, sigma(A)) = A (Siegert formula by scipy quadrature,
-    brentq), on a dense grid of rates; its local extrema polished by bounded Brent minimisation."""
-    w, s0sq, wv = 20.0 * 0.1 * c_in * 1e-3, 9.0, 20.0 * 0.01 * c_in * 1e-3
+    A a fixed point, m(A) = mu*(A) - w A with Phi(mu*, sigma(A)) = A (Siegert formula by scipy quadrature
+    with the filtered recurrent input's boundary shift, :func:`coloured_siegert`, brentq), on a dense grid
+    of rates; its local extrema polished by bounded Brent minimisation."""
+    w = 20.0 * 0.1 * c_in * 1e-3
 
     def m_of(a):
-        sg = math.sqrt(s0sq + wv * a)
-        mu = brentq(lambda x: siegert(x, sg) - a, -60.0, 600.0, xtol=1e-14, rtol=1e-15)
+        mu = brentq(lambda x: coloured_siegert(x, a, c_in) - a, -60.0, 600.0, xtol=1e-14, rtol=1e-15)
         return mu - w * a
 
     grid = np.geomspace(lo_rate, hi_rate, 240)
@@ -157,10 +174,9 @@ def test_folds_of_a_bistable_population_against_a_brute_force_scan():
         assert np.all(b.stable[inner][low]) and np.all(b.stable[inner][high]) and not np.any(b.stable[inner][mid])
     assert all(p.loses_stability for p in d.folds())
     assert not d.onsets()
-    # every branch point solves the fixed-point equation with the independent Siegert formula
+    # every branch point solves the fixed-point equation with the independent (shifted) Siegert formula
     for p, a in zip(b.parameter[::10], b.rates[::10, 0]):
-        sg = math.sqrt(9.0 + 20.0 * 0.01 * 150 * 1e-3 * a)
-        assert a == pytest.approx(siegert(p + 20.0 * 0.1 * 150 * 1e-3 * a, sg), rel=1e-8, abs=1e-9)
+        assert a == pytest.approx(coloured_siegert(p + 20.0 * 0.1 * 150 * 1e-3 * a, a), rel=1e-8, abs=1e-9)
     fig, axes = d.plot()
     assert axes[-1].get_xlabel() == "cohort.E.drive (mV)"
     assert sum(len(ax.lines) for ax in axes) >= 5  # three branch pieces and two fold markers

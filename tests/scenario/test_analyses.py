@@ -46,6 +46,7 @@ def write(tmp_path, text):
     ("[gain]\nmu = [1.0]\nsigma = [2.0]\n", "white noise only"),
     ("[gain]\nmu = {start = 1.0, stop = 2.0, count = 3, step = 1}\n", "[gain.mu] unknown key `step`"),
     ("[stationary]\nmu = nan\n", "a finite number"),
+    ("[approximations]\nmu = 18.0\n", "needs [noise] kind = 'coloured'"),
 ])
 def test_analysis_tables_reject_bad_input_naming_the_key(tmp_path, extra, fragment):
     with pytest.raises(ScenarioError) as exc:
@@ -149,3 +150,30 @@ def test_gain_command_matches_the_siegert_formula(capsys):
                                rtol=1e-5)  # 6 digits printed; Siegert formula by quadrature
     assert main(["gain", *flags, "--mu", "1:2:3", "--sigma", "-1"]) == 2
     assert "positive" in capsys.readouterr().err
+
+
+COLOURED = POPULATION.replace('kind = "escape"', 'kind = "coloured"\nsigma = 4.0\ntau_syn = 2.0').split("[noise.hazard]")[0]
+
+
+@pytest.mark.parametrize("extra, fragment", [
+    ("[approximations]\nmu = 18.0\nneurons = 1\n", "`neurons` = 1"),
+    ("[approximations]\nmu = 18.0\ntau_syn = [0.0]\n", "positive values"),
+    ("[approximations]\nmu = 18.0\nt_end = -5.0\n", "`t_end` = -5.0"),
+    ("[approximations]\nmu = 18.0\nsed = 1\n", "did you mean `seed`"),
+    ("[noise]\nkind = 'coloured'\nsigma = 4.0\n", "tau_syn"),
+])
+def test_coloured_noise_tables_reject_bad_input(tmp_path, extra, fragment):
+    text = COLOURED + extra if not extra.startswith("[noise]") else POPULATION.split("[noise]")[0] + extra + \
+        "[gain]\nmu = [1.0]\n"
+    with pytest.raises(ScenarioError) as exc:
+        load_scenario(write(tmp_path, text))
+    assert fragment in str(exc.value)
+
+
+def test_coloured_noise_scenario_loads(tmp_path):
+    sc = load_scenario(write(tmp_path, COLOURED + "[gain]\nmu = [18.0]\nsigma = [3.0]\n"))
+    assert sc.population.noise == popdens.ColouredNoise(4.0, 2.0)
+    (name, g), = sc.analyses
+    # the sigma override keeps the synaptic filter
+    assert float(g.compute(sc.population)[0, 0]) == pytest.approx(
+        float(popdens.gain(popdens.Population(sc.population.neuron, popdens.ColouredNoise(3.0, 2.0)), 18.0)))

@@ -1,0 +1,158 @@
+"""Networks with filtered synapses: the effective time constant, the mean field with the boundary shift,
+the characteristic matrix with the moving boundary, the spiking twin's filtered external input, and
+Brunel-type E-I networks against the spiking twin (slow)."""
+
+from __future__ import annotations
+
+import math
+
+import mpmath
+import numpy as np
+import pytest
+from scipy.integrate import quad
+from scipy.special import erfcx
+
+import popdens
+from popdens.network import (Circuit, Cohort, Pathway, PoissonBackground, fixed_points, montecarlo_network,
+                             simulate_network, stability)
+from popdens.network.linear_stability import characteristic_matrix
+
+LIF = popdens.LIF(20.0, 20.0, 10.0, 2.0)
+A_HALF = abs(float(mpmath.zeta(0.5))) / math.sqrt(2.0)
+
+
+def fb_rate(mu, sigma, shift):
+    """LIF rate (Hz) with threshold and reset moved by ``shift`` (mV): the Siegert integral by scipy
+    quadrature (Brunel & Hakim 1999) at the shifted boundaries (Fourcaud & Brunel 2002)."""
+    lo, hi = (10.0 + shift - mu) / sigma, (20.0 + shift - mu) / sigma
+    return 1000.0 / (2.0 + 20.0 * math.sqrt(math.pi) * quad(lambda x: erfcx(-x), lo, hi, epsrel=1e-12)[0])
+
+
+def mixed_circuit():
+    """E and I with white external noise, filtered background (tau 3 ms) and pathways of 2 and 5 ms."""
+    bg = PoissonBackground(rate=100.0, weight=0.05, count=100, tau_syn=3.0)
+    pop = popdens.Population(LIF, popdens.WhiteNoise(2.0))
+    return Circuit([Cohort("E", pop, size=500, drive=8.0, background=bg),
+                    Cohort("I", pop, size=200, drive=16.0)],
+                   [Pathway("E", "E", 0.1, 100, 1.5, tau_syn=2.0), Pathway("E", "I", 0.2, 100, 1.5, tau_syn=2.0),
+                    Pathway("I", "E", -0.4, 50, 1.5, tau_syn=5.0), Pathway("I", "I", -0.4, 50, 1.5)])
+
+
+def test_effective_time_constant_of_a_mixture():
+    # tau_eff = (sum_i var_i sqrt(tau_i) / sum_i var_i)^2 (circuit module docstring), written out
+    c = mixed_circuit()
+    r = np.array([8.0, 12.0])
+    v_ext = 4.0
+    v_bg = 20.0 * 0.05 ** 2 * 100 * 100.0 * 1e-3
+    v_ee = 20.0 * 0.01 * 100 * 8e-3
+    v_ie = 20.0 * 0.16 * 50 * 12e-3
+    num = v_bg * math.sqrt(3.0) + v_ee * math.sqrt(2.0) + v_ie * math.sqrt(5.0)
+    tau_e = (num / (v_ext + v_bg + v_ee + v_ie)) ** 2
+    v_ei, v_ii = 20.0 * 0.04 * 100 * 8e-3, 20.0 * 0.16 * 50 * 12e-3
+    tau_i = (v_ei * math.sqrt(2.0) / (v_ext + v_ei + v_ii)) ** 2
+    assert c.noise_time_constant(r) == pytest.approx([tau_e, tau_i], rel=1e-12)
+    # a cohort with coloured external noise of one time constant and nothing else: that time constant
+    c1 = Circuit([Cohort("E", popdens.Population(LIF, popdens.ColouredNoise(3.0, 4.0)), drive=15.0)])
+    assert c1.noise_time_constant([5.0])[0] == pytest.approx(4.0, rel=1e-14)
+
+
+def test_fixed_point_is_the_shifted_siegert_rate():
+    c = Circuit([Cohort("E", popdens.Population(LIF, popdens.ColouredNoise(4.0, 2.0)), drive=16.0)],
+                [Pathway("E", "E", 0.05, 200, 1.5, tau_syn=2.0)])
+    (fp,) = fixed_points(c, (0.0, 300.0))
+    r = fp.rates[0]
+    mu = 16.0 + 20.0 * 0.05 * 200 * r * 1e-3
+    sigma = math.sqrt(16.0 + 20.0 * 0.0025 * 200 * r * 1e-3)
+    assert fp.tau_syn[0] == pytest.approx(2.0, rel=1e-12)
+    assert r == pytest.approx(fb_rate(mu, sigma, A_HALF * sigma * math.sqrt(0.1)), rel=1e-7)
+    # the mean-field integration settles there (the Fokker-Planck solver's own stationary state)
+    res = simulate_network(c, 100.0, dt=0.05, initial_rates=[r])
+    assert res.rate[0, -1] == pytest.approx(r, rel=3e-3)
+
+
+def test_characteristic_matrix_at_zero_is_the_jacobian_of_the_rate_map():
+    """M(0)_kl = d Phi_k / d r_l of the fixed-point map r -> Phi(mu(r), sigma(r), tau_eff(r)), by central
+    differences of popdens.gain: checks the moving-boundary term of every pathway (2, 5 ms, white)."""
+    c = mixed_circuit()
+    fps = fixed_points(c, (0.0, 100.0), starts_per_dim=3)
+    fp = fps[0]
+    m0 = characteristic_matrix(c, fp, 1e-9 + 0j).real
+
+    def phi(r):
+        mu, sg = c.stationary_input(r)
+        tau = c.noise_time_constant(r)
+        return np.array([float(popdens.gain(c.population_at(k, sg[k], tau[k]), mu[k])) for k in range(2)])
+
+    h = 1e-3
+    jac = np.empty((2, 2))
+    for l in range(2):
+        e = np.zeros(2)
+        e[l] = h
+        jac[:, l] = (phi(fp.rates + e) - phi(fp.rates - e)) / (2 * h)
+    assert np.allclose(m0, jac, rtol=2e-4, atol=1e-6)
+
+
+def test_twin_with_coloured_external_noise_matches_the_single_population():
+    """A cohort without pathways whose external noise is coloured: the network twin (pseudo-pathway fed
+    with exact Ornstein-Uhlenbeck increments) against the Fourcaud-Brunel rate, within 2 % + 4 SE
+    (the theory is within 0.1 % of the single-population twin here, see the guide).  SE from the per-neuron
+    count spread."""
+    c = Circuit([Cohort("E", popdens.Population(LIF, popdens.ColouredNoise(4.0, 2.0)), size=2000, drive=18.0)])
+    t_end = 500.0
+    mc = montecarlo_network(c, t_end, seed=2, burn_in=200.0, record_interval=t_end, record_spikes=True)
+    counts = np.bincount(mc.spike_ids, minlength=2000) / (t_end * 1e-3)
+    r, se = counts.mean(), counts.std(ddof=1) / math.sqrt(2000)
+    ref = fb_rate(18.0, 4.0, A_HALF * 4.0 * math.sqrt(0.1))
+    assert abs(r - ref) < 0.02 * ref + 4 * se
+
+
+# ------------------------------------------------------------------ slow: Brunel-type networks
+def brunel_filtered(tau_s, g=5.0, ratio=2.0, j=0.1, c_e=800, c_i=200, n_e=8000, n_i=2000, delay=1.5):
+    """Brunel 2000 (J. Comput. Neurosci. 8:183) network, every synapse exponential with time constant
+    tau_s, the external input Poisson spike trains (C_E of them at nu_ext = ratio nu_thr) through the
+    same synapses."""
+    nu_thr = 20.0 / (j * c_e * 20.0) * 1e3
+    bg = PoissonBackground(rate=ratio * nu_thr, weight=j, count=c_e, tau_syn=tau_s)
+    pop = popdens.Population(LIF, popdens.WhiteNoise(1.0))
+    coh = [Cohort(n, pop, size=s, drive=0.0, sigma_ext=0.0, background=bg) for n, s in (("E", n_e), ("I", n_i))]
+    pw = [Pathway(s, t, j if s == "E" else -g * j, c_e if s == "E" else c_i, delay, tau_s) for s in "EI" for t in "EI"]
+    return Circuit(coh, pw)
+
+
+def white_gain(pop, mu):
+    return popdens.gain(popdens.Population(pop.neuron, popdens.WhiteNoise(pop.noise.sigma)), mu)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("tau_s", [2.0, 5.0])
+def test_brunel_network_with_filtered_synapses(tau_s):
+    """Mean-field rates with the boundary shift vs the spiking twin (10^4 neurons, 1 s, SE from 20 batch
+    means): within 3 % + 2 SE (measured +0.4 % at 2 ms, -3.1 % at 5 ms); the white-noise mean field is
+    9.7 % and 11.7 % too high.  Oscillation: the leading root's frequency against the centroid of the twin's
+    spectral peak (Welch, 10-500 Hz): measured 43.7 vs 41 Hz at 5 ms (within 15 %); at 2 ms the damped
+    root (66.6 Hz, -224/s) lies well below the twin's peak (106 Hz), bounded here as measured."""
+    from scipy.signal import welch
+
+    c = brunel_filtered(tau_s)
+    (fp,) = fixed_points(c, (0.0, 300.0))
+    (fpw,) = fixed_points(c, (0.0, 300.0), gain=white_gain)
+    st = stability(c, fp)
+    mc = montecarlo_network(c, 1000.0, seed=3, burn_in=300.0, record_interval=0.5)
+    x = mc.rate[:, 1:]
+    r = x.mean(axis=1)
+    se = x.reshape(2, 20, -1).mean(axis=2).std(axis=1, ddof=1) / math.sqrt(20)
+    f, p = welch(x[0] - r[0], fs=2000.0, nperseg=1024)
+    band = (f > 10.0) & (f < 500.0)
+    k = int(np.argmax(np.where(band, p, 0.0)))
+    near = np.abs(f - f[k]) < 20.0
+    f_peak = float(np.sum(f[near] * p[near]) / np.sum(p[near]))
+    print(f"tau_s={tau_s}: twin {r} +- {se}; coloured MF {fp.rates} ({100 * (fp.rates / r - 1)} %), white MF "
+          f"{fpw.rates} ({100 * (fpw.rates / r - 1)} %); root {st.frequency:.1f} Hz, {st.growth_rate:.0f}/s; "
+          f"twin peak {f_peak:.1f} Hz")
+    assert np.all(np.abs(fp.rates - r) < 0.03 * r + 2 * se)
+    assert np.all(np.abs(fpw.rates - r) > 3 * np.abs(fp.rates - r))
+    assert st.stable
+    if tau_s == 5.0:
+        assert st.frequency == pytest.approx(f_peak, rel=0.15)
+    else:
+        assert 0.5 * f_peak < st.frequency < f_peak
