@@ -11,7 +11,64 @@ from typing import Any
 
 import numpy as np
 
-__all__ = ["atomic_write", "jsonable", "temp_prefix", "remove_stale_temporaries"]
+__all__ = ["atomic_write", "jsonable", "temp_prefix", "remove_stale_temporaries", "csv_with_metadata",
+           "read_regular_file", "live_temporaries", "remove_live_temporaries"]
+
+#: Temporary output folders this process is writing now (removed by :func:`remove_live_temporaries`
+#: when the process must end at once, e.g. on a signal while a kernel compiles).
+live_temporaries: set = set()
+
+
+def remove_live_temporaries() -> None:
+    """Delete every folder in :data:`live_temporaries` (best effort; never raises)."""
+    for path in list(live_temporaries):
+        shutil.rmtree(path, ignore_errors=True)
+        live_temporaries.discard(path)
+
+
+def read_regular_file(path, max_bytes: int, what: str = "file") -> bytes:
+    """The bytes of ``path``, which must be a regular file of at most ``max_bytes``.
+
+    A FIFO, a device (``/dev/zero``, also behind a symbolic link) or a socket is refused with a
+    ``ValueError`` instead of hanging or filling the memory: the file is opened without blocking
+    and checked with ``fstat`` before anything is read.  ``OSError`` for files that cannot be opened.
+    """
+    import stat
+
+    fd = os.open(os.fspath(path), os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_CLOEXEC", 0))
+    try:
+        st = os.fstat(fd)
+        if not stat.S_ISREG(st.st_mode):
+            kind = ("a FIFO (named pipe)" if stat.S_ISFIFO(st.st_mode) else "a device" if
+                    stat.S_ISCHR(st.st_mode) or stat.S_ISBLK(st.st_mode) else "a folder" if
+                    stat.S_ISDIR(st.st_mode) else "a socket" if stat.S_ISSOCK(st.st_mode) else "not a regular file")
+            raise ValueError(f"{path}: cannot read: it is {kind}, not a regular {what}")
+        if st.st_size > max_bytes:
+            raise ValueError(f"{path}: cannot read: it holds {st.st_size} bytes, more than the {max_bytes} "
+                             f"accepted for a {what}")
+        chunks, total = [], 0
+        while True:
+            chunk = os.read(fd, 1 << 20)
+            if not chunk:
+                break
+            total += len(chunk)
+            if total > max_bytes:  # grew while being read
+                raise ValueError(f"{path}: cannot read: it holds more than the {max_bytes} bytes accepted for a {what}")
+            chunks.append(chunk)
+        return b"".join(chunks)
+    finally:
+        os.close(fd)
+
+
+def csv_with_metadata(header_line: str, meta_lines, body: str) -> str:
+    """CSV text: the column names first, then ``#`` metadata lines, then the rows.
+
+    Names first, so ``numpy.genfromtxt(path, delimiter=",", names=True)`` takes its names from the
+    header (not from a metadata line) and ``pandas.read_csv(path, comment="#")`` skips the
+    metadata; every popdens table uses this layout.
+    """
+    meta = "".join(f"# {line}\n" for line in meta_lines)
+    return f"{header_line}\n{meta}{body}"
 
 
 def temp_prefix(name: str, kind: str = "") -> str:

@@ -9,7 +9,9 @@ from __future__ import annotations
 
 import argparse
 import logging
+import os
 import sys
+import threading
 import warnings
 
 from ._version import __version__
@@ -60,7 +62,8 @@ def _parser() -> argparse.ArgumentParser:
                                    "refractory=2 --noise kind=white sigma=4 --mu 5:30:26 --sigma 2 4 6")
     _population_flags(g)
     g.add_argument("--mu", required=True, metavar="START:STOP:POINTS",
-                   help="mean drives (mV): a range START:STOP:POINTS (linear) or a comma list")
+                   help="mean drives (mV): a range START:STOP:POINTS (evenly spaced; START:STOP:POINTS:log "
+                        "for log spacing) or a comma list")
     g.add_argument("--sigma", nargs="+", type=float, metavar="MV",
                    help="white noise only: one curve per noise level (mV)")
     _output_flags(g, "gain curve")
@@ -76,11 +79,12 @@ def _parser() -> argparse.ArgumentParser:
     tr = sub.add_parser("transfer", help="one-off transfer function (rate response per unit input modulation)",
                         description="Example: popdens transfer --neuron model=LIF tau_m=20 threshold=20 "
                                     "reset=10 refractory=2 --noise kind=white sigma=4 --mu 18 "
-                                    "--freq 1:1000:40")
+                                    "--freq 1:1000:40:log")
     _population_flags(tr)
     tr.add_argument("--mu", required=True, type=float, help="stationary mean drive (mV)")
     tr.add_argument("--freq", required=True, metavar="START:STOP:POINTS",
-                    help="frequencies (Hz): a log-spaced range START:STOP:POINTS or a comma list")
+                    help="frequencies (Hz): a range START:STOP:POINTS (evenly spaced) or "
+                         "START:STOP:POINTS:log (log-spaced), or a comma list")
     tr.add_argument("--modulate", choices=("mean", "noise", "sigma"), default="mean",
                     help="modulated input: the mean drive (default, Hz/mV), the noise variance sigma^2 "
                          "(Hz/mV^2) or the noise amplitude sigma (Hz/mV); the last two for white noise")
@@ -100,15 +104,20 @@ def _output_flags(p, what: str) -> None:
     p.add_argument("--plot", metavar="FILE", help=f"save a figure of the {what} (.png, .svg or .pdf)")
 
 
-def _values(text: str, flag: str, spacing: str) -> "np.ndarray":
-    """``START:STOP:POINTS`` (linear or log spacing) or a comma list → array."""
+def _values(text: str, flag: str) -> "np.ndarray":
+    """``START:STOP:POINTS[:log]`` (linear unless ``:log``, the same rule for every flag) or a comma
+    list → array."""
     import numpy as np
 
     from .scenario.analyses import MAX_POINTS
 
+    spacing = "linear"
     try:
         if ":" in text:
-            lo, hi, n = text.split(":")
+            parts = text.split(":")
+            if len(parts) == 4 and parts[3] in ("log", "lin"):
+                spacing = "log" if parts.pop() == "log" else "linear"
+            lo, hi, n = parts
             lo, hi, n = float(lo), float(hi), int(n)
             if not 1 <= n <= MAX_POINTS:
                 raise ValueError
@@ -119,9 +128,9 @@ def _values(text: str, flag: str, spacing: str) -> "np.ndarray":
             return np.linspace(lo, hi, n)
         out = np.array([float(x) for x in text.split(",")])
     except ValueError:
-        kind = "log-spaced, positive bounds" if spacing == "log" else "linear"
-        raise ScenarioError(f"{flag} {text!r}: expected START:STOP:POINTS ({kind}, 1 to {MAX_POINTS} points) "
-                            "or a comma-separated list of numbers") from None
+        raise ScenarioError(f"{flag} {text!r}: expected START:STOP:POINTS (evenly spaced; add :log for "
+                            f"log spacing, positive bounds; 1 to {MAX_POINTS} points) or a comma-separated "
+                            "list of numbers") from None
     if not np.all(np.isfinite(out)):
         raise ScenarioError(f"{flag} {text!r}: values must be finite")
     return out
@@ -173,7 +182,7 @@ def _analysis_command(args) -> int:
                 raise ScenarioError("--sigma applies to white noise only (--noise kind=white)")
             if args.sigma and min(args.sigma) <= 0:
                 raise ScenarioError(f"--sigma {args.sigma}: noise levels must be positive (mV)")
-            curve = GainCurve(_values(args.mu, "--mu", "linear"), tuple(args.sigma) if args.sigma else (None,))
+            curve = GainCurve(_values(args.mu, "--mu"), tuple(args.sigma) if args.sigma else (None,))
             rates = curve.compute(pop)
             cols = {"mu_mV": curve.mu}
             for s, row in zip(curve.sigmas, rates):
@@ -186,7 +195,7 @@ def _analysis_command(args) -> int:
                 fig = plot_gain(curve.mu, rates, labels=labels).figure
             _emit(args, cols, {"units": "mu mV, rate Hz"}, fig)
         elif args.command == "stationary":
-            st = StationaryStats(_values(args.mu, "--mu", "linear"))
+            st = StationaryStats(_values(args.mu, "--mu"))
             states = st.compute(pop)
             cols = {"mu_mV": st.mu, "rate_Hz": np.array([s.rate for s in states]),
                     "cv": np.array([s.cv for s in states]), "mean_u_mV": np.array([s.mean_u for s in states])}
@@ -203,7 +212,7 @@ def _analysis_command(args) -> int:
         else:
             if args.modulate != "mean" and not white:
                 raise ScenarioError(f"--modulate {args.modulate} needs white noise (--noise kind=white)")
-            tc = TransferCurve(args.mu, _values(args.freq, "--freq", "log"), args.modulate)
+            tc = TransferCurve(args.mu, _values(args.freq, "--freq"), args.modulate)
             if np.any(tc.freqs < 0):
                 raise ScenarioError(f"--freq {args.freq!r}: frequencies must be >= 0 (Hz)")
             chi = tc.compute(pop)
@@ -312,6 +321,15 @@ def _network_command(args, sc) -> int:
         both = ", ".join(f"{k} {m['mean_field_second_half_hz'][k]:.4g} / {v:.4g} Hz"
                          for k, v in m["mean_rates_second_half_hz"].items())
         print(f"  mean rates over the second half, mean field / spiking twin: {both}")
+        fl = m.get("fluctuations")
+        if fl:
+            per = "; ".join(f"{k} s.d. {v['sd_hz']:.3g} Hz (independent neurons {v['sd_independent_neurons_hz']:.3g} Hz), "
+                            f"peak {v['spectral_peak_hz']:.3g} Hz" for k, v in fl.items() if isinstance(v, dict))
+            mode = fl.get("predicted_mode_hz")
+            print(f"  rate fluctuations of the spiking twin: {per}"
+                  + (f"; least damped predicted mode {mode:.3g} Hz" if mode else ""))
+    for note in summary.get("notes", []):
+        print(f"  note: {note}")
     print("  (model predictions from a research tool; not a basis for clinical or safety decisions)")
     return 0
 
@@ -370,7 +388,7 @@ def _step_command(args) -> int:
         res.to_csv(args.csv)
         print(f"wrote {args.csv}")
     else:
-        print("# t_ms rate_hz mean_u_mv drive_mv")
+        print("# t_ms rate_Hz mean_u_mV drive_mV")
         for row in zip(res.t, res.rate, res.mean_u, res.drive):
             print(" ".join(f"{x:.6g}" for x in row))
     return 0 if res.success else 1
@@ -414,35 +432,128 @@ class _Terminated(KeyboardInterrupt):
     """SIGTERM, handled exactly like Ctrl-C (same clean-up), exit code 143."""
 
 
-def _on_sigterm(signum, frame):
-    _TERMINATED[0] = True
-    raise _Terminated("terminated (SIGTERM)")
+def _compiling() -> bool:
+    """True while numba compiles in this process (never imports numba itself)."""
+    jit = sys.modules.get("popdens.model._jit")
+    return jit is not None and jit.busy()
+
+
+_EXITING = threading.Lock()
+
+
+def _exit_now(signum: int) -> None:
+    """End the process at once on Ctrl-C or SIGTERM during a compilation.
+
+    An exception raised into numba while it compiles can be dropped (numba runs Python callbacks
+    from inside LLVM, where exceptions are printed and ignored: the signal was lost and the run went
+    on for minutes) or leave it half-made (a ``RuntimeError`` traceback, exit 1), and a long LLVM
+    pass runs no Python signal handler until it returns.  So the temporary output is removed here
+    and the process exits with the interrupted status; kernels compiled before stay cached (numba
+    writes each cache file by rename, so none is left half-written).
+    """
+    import signal
+
+    if not _EXITING.acquire(blocking=False):
+        return
+    terminated = signum == signal.SIGTERM
+    try:
+        files = sys.modules.get("popdens._files")
+        if files is not None:
+            files.remove_live_temporaries()
+        why = "terminated (SIGTERM)" if terminated else "interrupted by the user"
+        sys.stderr.write(f"\npopdens: {why} while compiling; no partial output was kept (kernels compiled "
+                         "so far stay cached)\n")
+        sys.stderr.flush()
+    finally:
+        os._exit(EXIT_TERMINATED if terminated else EXIT_INTERRUPTED)
+
+
+def _on_signal(signum, frame):
+    import signal
+
+    if signum == signal.SIGTERM:
+        _TERMINATED[0] = True
+    if _compiling():
+        _exit_now(signum)
+    if signum == signal.SIGTERM:
+        raise _Terminated("terminated (SIGTERM)")
+    raise KeyboardInterrupt
+
+
+def _watch_signals(fd: int) -> None:
+    """Acts on Ctrl-C and SIGTERM while the main thread is inside a compilation.
+
+    The C-level signal handler writes each signal's number to ``fd`` at once (``signal.set_wakeup_fd``),
+    even while the main thread runs a long LLVM pass that releases the GIL; outside compilations the
+    Python handler in the main thread does the usual clean-up, so nothing is done here.
+    """
+    import signal
+
+    wanted = {int(signal.SIGINT), int(signal.SIGTERM)}
+    while True:
+        try:
+            data = os.read(fd, 64)
+        except OSError:
+            return
+        if not data:
+            os.close(fd)
+            return
+        for signum in data:
+            if signum in wanted and _compiling():
+                _exit_now(signum)
+
+
+class _SignalGuard:
+    """Installs the command's SIGINT/SIGTERM handling for one ``main`` call (main thread only)."""
+
+    def __enter__(self):
+        import signal
+
+        self.active = threading.current_thread() is threading.main_thread()
+        if not self.active:
+            return self
+        self.previous = {s: signal.signal(s, _on_signal) for s in (signal.SIGINT, signal.SIGTERM)}
+        read_fd, self.write_fd = os.pipe()
+        os.set_blocking(self.write_fd, False)
+        try:
+            self.previous_fd = signal.set_wakeup_fd(self.write_fd, warn_on_full_buffer=False)
+        except ValueError:  # not allowed here
+            os.close(read_fd)
+            os.close(self.write_fd)
+            self.write_fd = None
+        else:
+            threading.Thread(target=_watch_signals, args=(read_fd,), daemon=True, name="popdens-signals").start()
+        return self
+
+    def __exit__(self, *exc):
+        import signal
+
+        if not self.active:
+            return False
+        if self.write_fd is not None:
+            signal.set_wakeup_fd(self.previous_fd)
+            os.close(self.write_fd)  # the watcher reads end of file and stops
+        for s, handler in self.previous.items():
+            signal.signal(s, handler)
+        return False
 
 
 def main(argv: list[str] | None = None) -> int:
     """Entry point; returns the exit code."""
-    import signal
-    import threading
-
     args = _parser().parse_args(argv)
     logging.basicConfig(level=logging.WARNING, format="popdens: %(message)s")
     # SIGTERM (kill, a batch scheduler's time limit) takes the Ctrl-C path: temporary output removed,
-    # a folder being replaced kept, finished sweep points saved
-    previous = None
+    # a folder being replaced kept, finished sweep points saved; during a compilation both end the
+    # process at once (_exit_now)
     _TERMINATED[0] = False
-    if threading.current_thread() is threading.main_thread():
-        previous = signal.signal(signal.SIGTERM, _on_sigterm)
     try:
-        with warnings.catch_warnings():
+        with _SignalGuard(), warnings.catch_warnings():
             # accuracy warnings are shown once each, as one plain line, never raised
             warnings.simplefilter("always", AccuracyWarning)
             warnings.showwarning = _show_warning
             code = _main(args)
     except _Terminated:
         code = EXIT_INTERRUPTED
-    finally:
-        if previous is not None:
-            signal.signal(signal.SIGTERM, previous)
     if _TERMINATED[0] and code == EXIT_INTERRUPTED:
         return EXIT_TERMINATED
     return code
@@ -556,6 +667,10 @@ def _main(args) -> int:
         return 2
     except ValueError as exc:  # misuse found by the library after loading (message names the setting)
         print(f"popdens: error: {exc}", file=sys.stderr)
+        return 2
+    except OSError as exc:  # the file system refused (a name too long, no space, no permission)
+        where = f"{exc.filename}: " if exc.filename else ""
+        print(f"popdens: error: {where}{exc.strerror or exc}", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         why = "terminated (SIGTERM)" if _TERMINATED[0] else "interrupted by the user"

@@ -5,9 +5,9 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["save_figure", "plot_agreement", "plot_bifurcation_diagram", "plot_boundary_curves", "plot_calibration",
-           "plot_circuit_rates", "plot_comparison", "plot_density_map", "plot_fit", "plot_gain", "plot_isi", "plot_ks",
-           "plot_rate",
+__all__ = ["axis_label", "save_figure", "plot_agreement", "plot_bifurcation_diagram", "plot_boundary_curves",
+           "plot_calibration", "plot_circuit_comparison", "plot_circuit_rates", "plot_rate_spectrum",
+           "plot_comparison", "plot_density_map", "plot_fit", "plot_gain", "plot_isi", "plot_ks", "plot_rate",
            "plot_stability_map", "plot_steady_state", "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map",
            "plot_transfer"]
 
@@ -122,6 +122,7 @@ def plot_gain(mu, rates, labels=None, ax=None, title=None, dashed=None):
     Returns
     -------
     matplotlib.axes.Axes
+        The Axes drawn on.
     """
     ax = _axes(ax)
     mu = np.asarray(mu, dtype=float)
@@ -195,6 +196,7 @@ def plot_transfer(freqs, chi, labels=None, unit="Hz/mV"):
     chi : array_like of complex, shape (n,) or (n_curves, n)
         Transfer function values (``unit``).
     labels : sequence of str, optional
+        One legend label per curve.
     unit : str
         Unit of the magnitude axis.
 
@@ -228,7 +230,21 @@ def plot_isi(t, density, ax=None, label=None, **kwargs):
     ax.plot(np.asarray(t, dtype=float), np.asarray(density, dtype=float), lw=1.6, label=label, **kwargs)
     ax.set_xlabel("interspike interval (ms)")
     ax.set_ylabel("ISI density (1/ms)")
-    ax.set_ylim(bottom=0.0)
+    # limits from every curve drawn so far (a fixed limit from the first would clip later, taller ones)
+    top, right = 0.0, 0.0
+    for line in ax.get_lines():
+        x, y = np.asarray(line.get_xdata(), float), np.asarray(line.get_ydata(), float)
+        ok = np.isfinite(y)
+        if not np.any(ok):
+            continue
+        peak = float(np.max(y[ok]))
+        top = max(top, peak)
+        above = x[ok][y[ok] >= 1e-3 * peak] if peak > 0 else x[ok]
+        right = max(right, float(above.max()) if above.size else 0.0)
+    if top > 0:
+        ax.set_ylim(0.0, 1.05 * top)
+    if right > 0:
+        ax.set_xlim(0.0, 1.05 * right)
     return ax
 
 
@@ -241,6 +257,7 @@ def plot_density_map(result, ax=None, cmap="magma"):
     Returns
     -------
     matplotlib.axes.Axes
+        The Axes drawn on.
     """
     if result.snapshots is None or result.snapshot_t is None or len(result.snapshot_t) < 2:
         raise ValueError("the result holds fewer than two density snapshots; pass `snapshot_interval` "
@@ -287,9 +304,49 @@ def plot_steady_state(state):
 MAX_LEGEND_CURVES = 10
 
 
+#: Units of scenario keys (the last part of a dotted key such as ``neuron.tau_m``), for axis labels.
+KEY_UNITS = {
+    "tau_m": "ms", "refractory": "ms", "threshold": "mV", "reset": "mV", "rest": "mV", "soft_threshold": "mV",
+    "slope_factor": "mV", "cutoff": "mV", "critical": "mV", "sigma": "mV", "mu": "mV", "amplitude": "mV",
+    "mean": "mV", "before": "mV", "after": "mV", "frequency": "Hz", "rate": "Hz", "max_rate": "Hz",
+    "width": "mV", "t": "ms", "t_end": "ms", "dt": "ms", "duration": "ms", "record_interval": "ms",
+    "phase": "rad", "tau": "ms", "jump": "mV", "coupling": "1", "drive": "mV", "weight": "mV", "delay": "ms",
+    "tau_syn": "ms", "size": "neurons", "in_degree": "synapses", "base": "mV", "start": "ms", "stop": "ms",
+}
+#: Unit suffixes of column and output names (``rate_Hz``, ``transfer_amplitude_Hz_per_mV``), longest first.
+SUFFIX_UNITS = (("_Hz_per_mV", "Hz/mV"), ("_per_s", "1/s"), ("_Hz", "Hz"), ("_hz", "Hz"), ("_mV", "mV"),
+                ("_mv", "mV"), ("_ms", "ms"), ("_deg", "degrees"), ("_s", "s"))
+
+
+def axis_label(name: str) -> str:
+    """``quantity (unit)`` for a column, output or swept-key name: ``rate_Hz`` -> ``rate (Hz)``,
+    ``input.mu`` -> ``input mu (mV)``, ``neuron.tau_m`` -> ``neuron tau m (ms)``."""
+    if name == "point":
+        return "point (index)"
+    if "." in name:
+        table, _, key = name.rpartition(".")
+        unit = KEY_UNITS.get(key)
+        text = f"{table.replace('.', ' ')} {key.replace('_', ' ')}"
+        return f"{text} ({unit})" if unit and unit != "1" else text
+    for suffix, unit in SUFFIX_UNITS:
+        if name.endswith(suffix) and len(name) > len(suffix):
+            return f"{name[: -len(suffix)].replace('_', ' ')} ({unit})"
+    unit = KEY_UNITS.get(name)
+    return f"{name.replace('_', ' ')} ({unit})" if unit and unit != "1" else name.replace("_", " ")
+
+
+def _is_frequency(name: str) -> bool:
+    return name.rpartition(".")[2].lower().startswith("frequency")
+
+
+#: Below this many points per line, markers show where values were computed.
+MARKERS_BELOW = 30
+
+
 def plot_sweep_map(y_values, x_values, values, y_name, x_name, name):
     """Heat map of a scalar sweep output over a two-parameter grid (``values[i, j]`` at
-    ``y_values[i]``, ``x_values[j]``); failed points show as blank.  Returns the Figure."""
+    ``y_values[i]``, ``x_values[j]``); failed points show as blank.  Axes and colour bar are labelled
+    with quantity and unit.  Returns the Figure."""
     import matplotlib.pyplot as plt
 
     fig, ax = plt.subplots(figsize=(6.0, 4.6), constrained_layout=True)
@@ -298,46 +355,95 @@ def plot_sweep_map(y_values, x_values, values, y_name, x_name, name):
     z = np.ma.masked_invalid(np.asarray(values, dtype=float))
     shading = "nearest" if x.size > 1 and y.size > 1 else "auto"
     mesh = ax.pcolormesh(x, y, z, shading=shading, cmap="viridis")
-    fig.colorbar(mesh, ax=ax, label=name)
-    ax.set_xlabel(x_name)
-    ax.set_ylabel(y_name)
-    ax.set_title(name)
+    fig.colorbar(mesh, ax=ax, label=axis_label(name))
+    if _is_frequency(x_name) and np.all(x > 0):
+        ax.set_xscale("log")
+    if _is_frequency(y_name) and np.all(y > 0):
+        ax.set_yscale("log")
+    ax.set_xlabel(axis_label(x_name))
+    ax.set_ylabel(axis_label(y_name))
+    ax.set_title(axis_label(name))
     return fig
 
 
 def plot_sweep_line(x_values, values, x_name, name):
-    """A scalar sweep output against one swept parameter (or the point index).  Returns the Figure."""
+    """A scalar sweep output against one swept parameter (or the point index), with markers at the
+    computed points and a log axis for frequencies.  Returns the Figure."""
     import matplotlib.pyplot as plt
 
     fig, ax = plt.subplots(figsize=(6.0, 3.6), constrained_layout=True)
-    ax.plot(np.asarray(x_values, dtype=float), np.asarray(values, dtype=float), "o-", ms=3)
-    ax.set_xlabel(x_name)
-    ax.set_ylabel(name)
+    x = np.asarray(x_values, dtype=float)
+    ax.plot(x, np.asarray(values, dtype=float), "o-", ms=4)
+    if _is_frequency(x_name) and np.any(x > 0):
+        ax.set_xscale("log")
+    ax.set_xlabel(axis_label(x_name))
+    ax.set_ylabel(axis_label(name))
     return fig
 
 
-def plot_sweep_curves(x, ys, x_name, name, labels):
-    """A family of curves, one per sweep point (rows of ``ys``); log frequency axes for
-    coordinates named ``frequency...``.  Returns the Figure."""
+def plot_sweep_curves(x, ys, x_name, name, labels, colour_by=None, style_by=None):
+    """A family of curves, one per sweep point (rows of ``ys``).
+
+    Parameters
+    ----------
+    x, ys : array_like
+        Common coordinate and one row per point.
+    x_name, name : str
+        Coordinate and output names (labels get quantity and unit); frequencies go on a log axis
+        (0 Hz left out) with markers where points are sparse.
+    labels : list of str
+        One label per point (legend of small families without ``colour_by``).
+    colour_by : (str, array_like), optional
+        Swept parameter and its value at each point: curves coloured by it, with a colour bar.
+    style_by : (str, array_like), optional
+        A second swept parameter: one line style per value, in the legend.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        The figure of the family.
+    """
     import matplotlib.pyplot as plt
 
-    fig, ax = plt.subplots(figsize=(6.4, 4.0), constrained_layout=True)
+    fig, ax = plt.subplots(figsize=(6.6, 4.0), constrained_layout=True)
     ys = np.atleast_2d(np.asarray(ys, dtype=float))
+    xs = np.asarray(x, dtype=float)
+    keep = xs > 0 if _is_frequency(x_name) and np.any(xs > 0) else np.ones(xs.size, bool)
+    marker = "o" if keep.sum() < MARKERS_BELOW else None
     n = ys.shape[0]
     cmap = plt.get_cmap("viridis")
-    for i in range(n):
-        ax.plot(x, ys[i], color=cmap(i / max(n - 1, 1)), lw=1.2,
-                label=labels[i] if n <= MAX_LEGEND_CURVES else None)
-    if n <= MAX_LEGEND_CURVES:
-        ax.legend(frameon=False, fontsize="small")
+    styles = ("-", "--", ":", "-.")
+    style_of = {}
+    if style_by is not None:
+        for v in style_by[1]:
+            style_of.setdefault(v, styles[len(style_of) % len(styles)])
+    if colour_by is not None:
+        vals = np.asarray(colour_by[1], dtype=float)
+        norm = plt.Normalize(float(np.nanmin(vals)), float(np.nanmax(vals)) if np.nanmax(vals) > np.nanmin(vals)
+                             else float(np.nanmin(vals)) + 1.0)
+        for i in range(n):
+            ls = style_of[style_by[1][i]] if style_by is not None else "-"
+            ax.plot(xs[keep], ys[i][keep], color=cmap(norm(vals[i])), ls=ls, lw=1.3, marker=marker, ms=3)
+        sm = plt.cm.ScalarMappable(cmap=cmap, norm=norm)
+        fig.colorbar(sm, ax=ax, label=axis_label(colour_by[0]))
+        if style_by is not None:
+            for v, ls in style_of.items():
+                ax.plot([], [], color="0.3", ls=ls, label=f"{axis_label(style_by[0])} = {v:g}"
+                        if isinstance(v, (int, float)) else f"{style_by[0]} = {v}")
+            ax.legend(frameon=False, fontsize="small")
     else:
-        sm = plt.cm.ScalarMappable(cmap=cmap, norm=plt.Normalize(0, n - 1))
-        fig.colorbar(sm, ax=ax, label="point index")
-    xs = np.asarray(x, dtype=float)
-    if x_name.startswith("frequency") and np.any(xs > 0):
-        ax.set_xscale("symlog", linthresh=max(float(np.min(xs[xs > 0])), 1e-3))
-    ax.set_xlabel(x_name)
-    ax.set_ylabel(name)
+        for i in range(n):
+            ax.plot(xs[keep], ys[i][keep], color=cmap(i / max(n - 1, 1)), lw=1.3, marker=marker, ms=3,
+                    label=labels[i] if n <= MAX_LEGEND_CURVES else None)
+        if n <= MAX_LEGEND_CURVES:
+            ax.legend(frameon=False, fontsize="small")
+        else:
+            sm = plt.cm.ScalarMappable(cmap=cmap, norm=plt.Normalize(0, n - 1))
+            fig.colorbar(sm, ax=ax, label="point (index; see results.csv)")
+    if _is_frequency(x_name) and np.any(xs > 0):
+        ax.set_xscale("log")
+    ax.set_xlabel(axis_label(x_name))
+    ax.set_ylabel(axis_label(name))
     return fig
 
 
@@ -350,6 +456,49 @@ def plot_circuit_rates(result, ax=None, **kwargs):
     ax.set_ylabel("population rate (Hz)")
     ax.legend(frameon=False)
     return ax
+
+
+#: Line styles of cohorts in circuit figures (colour and dash differ, so cohorts stay apart in print).
+_COHORT_STYLES = (("C0", "-"), ("C3", "--"), ("C2", "-."), ("C1", ":"), ("C4", "-"), ("C5", "--"))
+
+
+def plot_circuit_comparison(mean_field, twin=None, ax=None):
+    """Mean-field rates (thick) and, if given, the spiking twin's (thin, same colour and dash) of every
+    cohort against time (ms); returns the Figure."""
+    ax = _axes(ax)
+    for k, nm in enumerate(mean_field.names):
+        colour, dash = _COHORT_STYLES[k % len(_COHORT_STYLES)]
+        if twin is not None:
+            ax.plot(twin.t[1:], twin.rate[k, 1:], color=colour, ls=dash, lw=0.7, alpha=0.55,
+                    label=f"{nm}: spiking twin (N = {twin.sizes[k]})")
+        ax.plot(mean_field.t[1:], mean_field.rate[k, 1:], color=colour, ls=dash, lw=2.4, label=f"{nm}: mean field")
+    ax.set_xlabel("time (ms)")
+    ax.set_ylabel("population rate (Hz)")
+    ax.legend(frameon=False, fontsize="small", ncol=2)
+    return ax.figure
+
+
+def plot_rate_spectrum(spectra, names, marks=(), floor=None, ax=None):
+    """Power spectra of the cohorts' rates (``CircuitResult.rate_spectrum``) on log axes, with
+    vertical lines at predicted frequencies (``marks``: (Hz, label) pairs) and, per cohort, the level
+    of independent neurons (``floor``: name -> Hz^2/Hz).  Returns the Figure."""
+    ax = _axes(ax)
+    freqs, power = spectra
+    sel = freqs > 0
+    for k, nm in enumerate(names):
+        colour, dash = _COHORT_STYLES[k % len(_COHORT_STYLES)]
+        ax.plot(freqs[sel], power[k][sel], color=colour, ls=dash, lw=1.4, marker="o", ms=2.5,
+                label=f"{nm}: spiking twin")
+        if floor and nm in floor:
+            ax.axhline(floor[nm], color=colour, ls=":", lw=0.8, label=f"{nm}: independent neurons")
+    for i, (f, label) in enumerate(marks):
+        ax.axvline(f, color="0.3", ls=(0, (4, 2)) if i == 0 else ":", lw=1.0, label=label)
+    ax.set_xscale("log")
+    ax.set_yscale("log")
+    ax.set_xlabel("frequency (Hz)")
+    ax.set_ylabel("rate power spectrum (Hz²/Hz)")
+    ax.legend(frameon=False, fontsize="small")
+    return ax.figure
 
 
 def plot_stability_map(smap, ax=None, curves=None):

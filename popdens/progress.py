@@ -1,7 +1,8 @@
 """A minimal progress reporter for long computations.
 
-It writes a single updating line to ``stderr`` and stays silent when
-``stderr`` is not a terminal (unless forced), so logs and CI output stay clean.
+It writes a single line to ``stderr`` that updates in place (carriage return) on a terminal and in
+a Jupyter notebook, whose front ends redraw such lines in place too, and stays silent elsewhere
+(unless forced), so logs and CI output stay clean.
 """
 
 from __future__ import annotations
@@ -9,7 +10,7 @@ from __future__ import annotations
 import sys
 import time
 
-__all__ = ["Progress"]
+__all__ = ["Progress", "interactive"]
 
 #: Seconds between redraws.
 REDRAW_INTERVAL = 0.25
@@ -19,6 +20,16 @@ QUIET_BELOW = 1.0
 ANNOUNCE_ABOVE = 60.0
 #: Seconds of work after the first update (which may include compilation) behind the estimate.
 ESTIMATE_AFTER = 1.0
+
+
+def interactive(stream) -> bool:
+    """True for a terminal, and for a Jupyter kernel's output stream (redraws ``\\r`` lines in place)."""
+    try:
+        if stream.isatty():
+            return True
+    except (AttributeError, ValueError):  # closed or not a file
+        return False
+    return "ipykernel" in sys.modules and type(stream).__name__ == "OutStream"
 
 
 class Progress:
@@ -45,7 +56,7 @@ class Progress:
         self._estimate = enabled is not False
         self._first = None
         if enabled is None:
-            enabled = bool(getattr(self.stream, "isatty", lambda: False)())
+            enabled = interactive(self.stream)
             self._auto = True
         else:
             self._auto = False

@@ -9,7 +9,8 @@ from typing import Any
 
 import numpy as np
 
-from ._files import atomic_write, jsonable
+from ._display import Displayable, dataframe, fmt, rate_range
+from ._files import atomic_write, csv_with_metadata, jsonable
 
 __all__ = ["Result", "load_result"]
 
@@ -20,10 +21,12 @@ STATUS_INTERRUPTED = -2
 #: Diagnostics that differ between identical runs; kept out of output files so that the
 #: same scenario and seed give bit-identical files (wall times go to ``timing.json``).
 VOLATILE_DIAGNOSTICS = ("wall_time_s", "compile_time_s")
+#: Columns of :meth:`Result.to_csv` (and of ``popdens step``): units in the names.
+CSV_COLUMNS = ("t_ms", "rate_Hz", "mean_u_mV", "refractory_fraction", "drive_mV")
 
 
 @dataclass(frozen=True, eq=False)
-class Result:
+class Result(Displayable):
     """Outcome of a simulation (density solver or Monte Carlo).
 
     Attributes
@@ -114,6 +117,27 @@ class Result:
         width = np.diff(self.t, prepend=np.nan) * 1e-3
         return np.sqrt(np.maximum(self.rate, 0.0) / (self.n_neurons * width))
 
+    def _card(self):
+        pop = self.population
+        who = f"{type(pop.neuron).__name__}, {type(pop.noise).__name__}" if pop is not None else "?"
+        rows = [("method", self.method), ("population", who),
+                ("time span", f"0 to {self.t[-1]:g} ms, {self.t.size - 1} intervals, dt = {self.dt:g} ms"),
+                ("rate", rate_range(self.rate[1:])),
+                ("drive", f"{np.nanmin(self.drive):.4g} to {np.nanmax(self.drive):.4g} mV")]
+        if self.n_neurons is not None:
+            rows.append(("neurons", fmt(self.n_neurons)))
+        if "compile_time_s" in self.diagnostics:
+            rows.append(("run time", f"{fmt(self.diagnostics.get('wall_time_s'), 's', 3)} "
+                                     f"(+ {fmt(self.diagnostics['compile_time_s'], 's', 3)} compiling)"))
+        for w in self.diagnostics.get("accuracy_warnings", []):
+            rows.append(("accuracy warning", w))
+        return "Result", rows, f"status {self.status}: {self.message}"
+
+    def to_dataframe(self):
+        """The time courses as a pandas DataFrame, one row per output time, units in the column names."""
+        return dataframe({"t_ms": self.t, "rate_Hz": self.rate, "mean_u_mV": self.mean_u,
+                          "refractory_fraction": self.refractory_fraction, "drive_mV": self.drive})
+
     def __repr__(self) -> str:
         pop = self.population
         who = f"{type(pop.neuron).__name__}/{type(pop.noise).__name__}" if pop is not None else "?"
@@ -127,7 +151,8 @@ class Result:
     def to_csv(self, path: str | Path, *, header_extra: dict | None = None) -> Path:
         """Write ``t, rate, mean_u, refractory_fraction, drive`` as CSV (atomic).
 
-        The header line (``#``) records units, method, version, parameters and
+        Column names (units in them) come first, then one ``#`` line that records method, version,
+        parameters and
         the numerical settings (diagnostics without wall times), and nothing
         that differs between identical runs.
         """
@@ -137,11 +162,10 @@ class Result:
         if self.population is not None:
             meta["neuron"] = {"model": type(self.population.neuron).__name__, **self.population.neuron.parameters()}
         meta["version"] = self.diagnostics.get("version")
-        lines = ["# popdens result; " + json.dumps(jsonable(meta), sort_keys=True)]
-        lines.append("t_ms,rate_hz,mean_u_mv,refractory_fraction,drive_mv")
         arr = np.column_stack([self.t, self.rate, self.mean_u, self.refractory_fraction, self.drive])
-        body = "\n".join(",".join(f"{x:.12g}" for x in row) for row in arr)
-        text = "\n".join(lines) + "\n" + body + "\n"
+        body = "".join(",".join(f"{x:.12g}" for x in row) + "\n" for row in arr)
+        meta_line = "popdens result; " + json.dumps(jsonable(meta), sort_keys=True)
+        text = csv_with_metadata(",".join(CSV_COLUMNS), [meta_line], body)
         atomic_write(path, lambda fh: fh.write(text.encode("utf-8")))
         return path
 

@@ -13,7 +13,8 @@ PACKAGE = Path(__file__).resolve().parents[1] / "popdens"
 
 #: Bottom to top.  A module may import from its own layer or from layers listed before it.
 LAYERS = (
-    ("popdens._version", "popdens._lazy", "popdens.exceptions", "popdens._validation", "popdens._files", "popdens.progress",
+    ("popdens._version", "popdens._lazy", "popdens._display", "popdens.exceptions", "popdens._validation",
+     "popdens._files", "popdens.progress",
      "popdens.plotting", "popdens.result"),
     ("popdens.model",),
     ("popdens.theory",),

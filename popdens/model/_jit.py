@@ -25,7 +25,9 @@ import time
 
 from numba.core import event
 
-__all__ = ["compile_seconds", "EXPECTED_SECONDS", "quiet_compilation", "Stopwatch"]
+from ..progress import interactive
+
+__all__ = ["busy", "compile_seconds", "EXPECTED_SECONDS", "quiet_compilation", "Stopwatch"]
 
 #: Cold compile time (s) of each kernel called from Python, including the helpers compiled with it,
 #: measured on a fast 2-core machine under load (DEVELOPERS.md, "Compiled loops").  Kernels taking
@@ -121,11 +123,7 @@ class _Listener(event.Listener):
         about = f", about {expected:g} s on a fast machine" if expected else ""
         text = (f"popdens: compiling {name} (once per installation{about}; "
                 "`popdens compile` does it ahead of time)")
-        try:
-            tty = stream.isatty()
-        except (AttributeError, ValueError):
-            tty = False
-        if tty:
+        if interactive(stream):
             stream.write(text + " ...")
             stream.flush()
             _state.ticker = _Ticker(stream, text + " ...")
@@ -165,5 +163,32 @@ class quiet_compilation:
         return False
 
 
+class _LockListener(event.Listener):
+    """Counts holders of numba's compiler lock, which covers a compilation and the writing of its
+    cache entry (the object code is emitted then, outside the ``numba:compile`` event)."""
+
+    def on_start(self, ev):
+        with _lock:
+            _busy[0] += 1
+
+    def on_end(self, ev):
+        with _lock:
+            _busy[0] -= 1
+
+
+_busy = [0]
+
+
+def busy() -> bool:
+    """True while numba compiles (or loads or saves a cache entry) in any thread of this process.
+
+    Raising an exception into numba then can be lost (numba runs Python callbacks from inside
+    LLVM, where exceptions are printed and dropped) or leave its state half-made, so the command
+    line acts on Ctrl-C and SIGTERM in another way while this is true (``popdens.cli``).
+    """
+    return _busy[0] > 0
+
+
 _LISTENER = _Listener()
 event.register("numba:compile", _LISTENER)
+event.register("numba:compiler_lock", _LockListener())

@@ -18,6 +18,7 @@ Examples
 from __future__ import annotations
 
 import csv
+import io
 import math
 from dataclasses import dataclass
 from pathlib import Path
@@ -25,6 +26,7 @@ from pathlib import Path
 import numpy as np
 
 from .. import _validation as v
+from .._files import read_regular_file
 
 __all__ = ["Drive", "Constant", "Step", "Pulse", "Ramp", "Sine", "Trace", "Sum", "as_drive"]
 
@@ -190,6 +192,10 @@ class Sine(Drive):
         return self.mean + self.amplitude * np.sin(2.0 * math.pi * self.frequency * t * 1e-3 + self.phase)
 
 
+#: Largest trace file read (bytes): about 10^7 samples; guards against a wrong file (a device, a log).
+MAX_TRACE_BYTES = 200_000_000
+
+
 @dataclass(frozen=True, eq=False)
 class Trace(Drive):
     """A sampled drive, linearly interpolated; constant beyond the ends.
@@ -219,21 +225,25 @@ class Trace(Drive):
 
     @classmethod
     def from_csv(cls, path: str | Path) -> "Trace":
-        """Read a two-column CSV file: time (ms), drive (mV).  A header line is allowed."""
+        """Read a two-column CSV file: time (ms), drive (mV).  A header line is allowed; a FIFO, a
+        device or a file over ``MAX_TRACE_BYTES`` is refused (``ValueError``)."""
         rows: list[tuple[float, float]] = []
         path = Path(path)
-        with path.open(newline="", encoding="utf-8") as fh:
-            for i, row in enumerate(csv.reader(fh)):
-                if not row or row[0].lstrip().startswith("#"):
-                    continue
-                if len(row) < 2:
-                    raise ValueError(f"{path}:{i + 1}: expected two columns (ms, mV), got {row!r}")
-                try:
-                    rows.append((float(row[0]), float(row[1])))
-                except ValueError:
-                    if rows:
-                        raise ValueError(f"{path}:{i + 1}: not numbers: {row!r}") from None
-                    continue  # header line
+        try:
+            text = read_regular_file(path, MAX_TRACE_BYTES, "trace file").decode("utf-8")
+        except UnicodeDecodeError:
+            raise ValueError(f"{path}: not UTF-8 text") from None
+        for i, row in enumerate(csv.reader(io.StringIO(text, newline=""))):
+            if not row or row[0].lstrip().startswith("#"):
+                continue
+            if len(row) < 2:
+                raise ValueError(f"{path}:{i + 1}: expected two columns (ms, mV), got {row!r}")
+            try:
+                rows.append((float(row[0]), float(row[1])))
+            except ValueError:
+                if rows:
+                    raise ValueError(f"{path}:{i + 1}: not numbers: {row!r}") from None
+                continue  # header line
         if not rows:
             raise ValueError(f"{path}: no data rows")
         arr = np.asarray(rows)

@@ -42,6 +42,7 @@ from .continuation import CHECK_EVERY, _validated_span, bifurcation_diagram
 from .linear_stability import characteristic_matrix, count_unstable
 from .parameters import as_parameter
 from .states import DEFAULT_RATE_RANGE, _default_gain
+from .._display import Displayable, dataframe
 
 __all__ = ["BoundaryCurve", "BoundaryCurves", "boundary_curves"]
 
@@ -104,7 +105,7 @@ class BoundaryCurve:
 
 
 @dataclass(frozen=True, eq=False)
-class BoundaryCurves:
+class BoundaryCurves(Displayable):
     """Fold and onset curves of a circuit in a rectangle of two parameters.
 
     Attributes
@@ -127,6 +128,17 @@ class BoundaryCurves:
     y_span: tuple
     curves: list = field(default_factory=list)
     complete: bool = True
+
+    def _card(self):
+        rows = [(self.x_label, f"{self.x_span[0]:g} to {self.x_span[1]:g}"),
+                (self.y_label, f"{self.y_span[0]:g} to {self.y_span[1]:g}")]
+        for c in self.curves:
+            rows.append((f"{c.kind} curve", f"{len(c)} points"))
+        return "BoundaryCurves", rows, None if self.complete else "incomplete (interrupted)"
+
+    def to_dataframe(self):
+        """The curve points (as ``columns()``, the CSV table) as a pandas DataFrame."""
+        return dataframe(self.columns())
 
     def columns(self) -> dict:
         """Curve points as table columns (for CSV)."""

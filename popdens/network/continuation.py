@@ -47,6 +47,7 @@ from .circuit import Circuit
 from .linear_stability import MARGINAL_GROWTH, count_unstable, roots_near, stability as full_stability
 from .parameters import as_parameter
 from .states import DEFAULT_RATE_RANGE, _default_gain, fixed_points
+from .._display import Displayable, dataframe
 
 __all__ = ["Branch", "BifurcationDiagram", "SpecialPoint", "bifurcation_diagram"]
 
@@ -153,7 +154,7 @@ class SpecialPoint:
 
 
 @dataclass(frozen=True, eq=False)
-class BifurcationDiagram:
+class BifurcationDiagram(Displayable):
     """Branches of fixed points over one parameter, with their folds and oscillation onsets.
 
     Attributes
@@ -213,6 +214,17 @@ class BifurcationDiagram:
         from ..plotting import plot_bifurcation_diagram
 
         return plot_bifurcation_diagram(self, ax)
+
+    def _card(self):
+        rows = [("parameter", f"{self.label}: {self.span[0]:g} to {self.span[1]:g}"),
+                ("branches", f"{len(self.branches)} ({sum(len(b) for b in self.branches)} points)")]
+        for p in self.points[:8]:
+            rows.append((p.kind, repr(p).strip("<>")))
+        return "BifurcationDiagram", rows, None if self.complete else "incomplete (interrupted)"
+
+    def to_dataframe(self):
+        """The branch points (as ``columns()``, the CSV table) as a pandas DataFrame."""
+        return dataframe(self.columns())
 
     def __repr__(self):
         kinds = ", ".join(repr(p) for p in self.points) or "no special points"

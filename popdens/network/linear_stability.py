@@ -33,6 +33,7 @@ from typing import Callable
 import numpy as np
 
 from .. import _validation as v
+from .._display import Displayable, fmt
 from ..exceptions import ConvergenceError
 from .circuit import HZ_TO_PER_MS, Circuit
 from .states import FixedPoint
@@ -158,7 +159,7 @@ def _moving_boundary(population, lam, chi_mean, sigma: float, tau_eff: float):
 
 
 @dataclass(frozen=True, eq=False)
-class Stability:
+class Stability(Displayable):
     """Linear stability of a fixed point.
 
     Attributes
@@ -192,6 +193,15 @@ class Stability:
     n_unstable: int = -1
     complete: bool = True
     marginal: bool = False
+
+    def _card(self):
+        word = "marginal" if self.marginal else ("stable" if self.stable else "UNSTABLE")
+        rows = [("verdict", word),
+                ("leading root", f"growth rate {self.growth_rate:.4g} 1/s, frequency {self.frequency:.4g} Hz"),
+                ("roots found (Im >= 0)", ", ".join(f"{1000 * r.real:.4g}/s at {1000 * r.imag / (2 * math.pi):.4g} Hz"
+                                                    for r in self.roots[:4]) or "none"),
+                ("unstable roots counted", fmt(self.n_unstable))]
+        return "Stability of the fixed point", rows, None
 
     def __repr__(self):
         word = "marginal" if self.marginal else ("stable" if self.stable else "unstable")

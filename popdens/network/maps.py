@@ -7,6 +7,7 @@ from typing import Callable
 
 import numpy as np
 
+from .._display import Displayable, dataframe
 from ..exceptions import ConvergenceError
 from ..progress import Progress
 from .states import DEFAULT_RATE_RANGE, fixed_points
@@ -16,7 +17,7 @@ __all__ = ["StabilityMap", "stability_map"]
 
 
 @dataclass(frozen=True, eq=False)
-class StabilityMap:
+class StabilityMap(Displayable):
     """Leading growth rate and frequency over a grid of two parameters.
 
     Attributes
@@ -43,6 +44,23 @@ class StabilityMap:
     frequency: np.ndarray
     rates: np.ndarray
     complete: bool = True
+
+    def _card(self):
+        g = self.growth_rate
+        rows = [(self.x_label, f"{self.x.min():.4g} to {self.x.max():.4g} ({self.x.size} values)"),
+                (self.y_label, f"{self.y.min():.4g} to {self.y.max():.4g} ({self.y.size} values)"),
+                ("unstable points", f"{int(np.sum(g > 0))} of {g.size}"),
+                ("points without a fixed point", f"{int(np.sum(~np.isfinite(g)))}")]
+        return "StabilityMap", rows, None if self.complete else "incomplete (interrupted)"
+
+    def to_dataframe(self):
+        """One row per grid point: both parameters, growth rate (1/s), frequency (Hz) and the rates (Hz)."""
+        xx, yy = np.meshgrid(self.x, self.y)
+        cols = {"x": xx.ravel(), "y": yy.ravel(), "growth_rate_per_s": self.growth_rate.ravel(),
+                "frequency_Hz": self.frequency.ravel()}
+        for k in range(self.rates.shape[-1]):
+            cols[f"rate_Hz_{k}"] = self.rates[..., k].ravel()
+        return dataframe(cols)
 
     def plot(self, ax=None, curves=None):
         """Growth rate of the leading root, the stability boundary (growth rate 0) drawn in black and

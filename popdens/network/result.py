@@ -7,13 +7,14 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .._files import atomic_write
+from .._display import Displayable, dataframe, rate_range
 from ..result import STATUS_OK
 
 __all__ = ["CircuitResult"]
 
 
 @dataclass(frozen=True, eq=False)
-class CircuitResult:
+class CircuitResult(Displayable):
     """Rates over time of every cohort of a circuit.
 
     Attributes
@@ -84,6 +85,35 @@ class CircuitResult:
             raise ValueError(f"`t_from` = {t_from!r} ms leaves no output interval")
         return self.rate[:, 1:][:, sel].mean(axis=1)
 
+    def rate_spectrum(self, t_from: float = 0.0, segment_ms: float = 256.0):
+        """Power spectrum of each cohort's rate fluctuations (Welch's method, one-sided).
+
+        Parameters
+        ----------
+        t_from : float
+            Start (ms) of the stretch analysed.
+        segment_ms : float
+            Length of Welch's segments (ms); the frequency resolution is 1000 / segment_ms Hz.
+
+        Returns
+        -------
+        freqs : ndarray
+            Frequencies (Hz) up to half the output rate.
+        power : ndarray, shape (n_cohorts, n_freqs)
+            Spectral density of the binned rate (Hz^2/Hz).  Independent neurons at rate ``r`` give
+            about ``2 r / N`` at high frequencies (one-sided Poisson level).
+        """
+        from scipy import signal
+
+        sel = self.t > t_from + 1e-9
+        x = self.rate[:, sel]
+        if x.shape[1] < 8:
+            raise ValueError(f"`t_from` = {t_from!r} ms leaves fewer than 8 output intervals for a spectrum")
+        fs = 1000.0 / float(self.t[1] - self.t[0])  # outputs per second
+        nper = int(min(x.shape[1], max(8, round(segment_ms * fs / 1000.0))))
+        freqs, power = signal.welch(x - x.mean(axis=1, keepdims=True), fs=fs, nperseg=nper, axis=1)
+        return freqs, power
+
     def save(self, path) -> "Path":  # noqa: F821
         """Save arrays as ``.npz`` (atomic)."""
         from pathlib import Path
@@ -107,6 +137,18 @@ class CircuitResult:
         from ..plotting import plot_circuit_rates
 
         return plot_circuit_rates(self, ax, **kwargs)
+
+    def _card(self):
+        rows = [("method", self.method),
+                ("time span", f"0 to {self.t[-1]:g} ms, {self.t.size - 1} intervals, dt = {self.dt:g} ms")]
+        for k, nm in enumerate(self.names):
+            size = f" (N = {self.sizes[k]})" if self.sizes else ""
+            rows.append((f"rate of {nm}{size}", rate_range(self.rate[k, 1:])))
+        return "CircuitResult", rows, f"status {self.status}: {self.message}"
+
+    def to_dataframe(self):
+        """Rates over time as a pandas DataFrame: ``t_ms`` and one ``rate_Hz_<cohort>`` column per cohort."""
+        return dataframe({"t_ms": self.t, **{f"rate_Hz_{nm}": self.rate[k] for k, nm in enumerate(self.names)}})
 
     def __repr__(self) -> str:
         return (f"<CircuitResult {self.method}: {list(self.names)}, {self.t.size} times to {self.t[-1]:g} ms, "

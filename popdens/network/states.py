@@ -22,6 +22,7 @@ import numpy as np
 from scipy.optimize import brentq, root
 
 from .. import _validation as v
+from .._display import Displayable
 from ..model.noise import WhiteNoise
 from ..model.synaptic import ColouredNoise
 from .circuit import Circuit
@@ -73,7 +74,7 @@ def _default_gain() -> Callable:
 
 
 @dataclass(frozen=True, eq=False)
-class FixedPoint:
+class FixedPoint(Displayable):
     """A stationary state of a circuit.
 
     Attributes
@@ -98,6 +99,13 @@ class FixedPoint:
     sigma: np.ndarray
     residual: float
     tau_syn: np.ndarray | None = None
+
+    def _card(self):
+        rows = []
+        for k, nm in enumerate(self.names):
+            noise = f", noise {self.sigma[k]:.4g} mV" if np.isfinite(self.sigma[k]) else ""
+            rows.append((f"cohort {nm}", f"{self.rates[k]:.6g} Hz at a drive of {self.mu[k]:.4g} mV{noise}"))
+        return "FixedPoint", rows, f"self-consistent to {self.residual:.2g} Hz"
 
     def __repr__(self):
         body = ", ".join(f"{n}={r:.6g} Hz" for n, r in zip(self.names, self.rates))

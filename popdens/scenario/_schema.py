@@ -20,6 +20,37 @@ __all__ = ["SCENARIO_KEYS", "build", "check_keys", "err", "flatten", "model_para
 SCENARIO_KEYS = {"title", "output", "notes"}
 
 
+#: Longest folder name of an output (bytes): file systems allow 255, and the hidden temporary folder
+#: beside it adds about 30 characters (``.NAME.pPID.xxxxxxxx`` plus ``.old``).
+MAX_NAME_BYTES = 200
+#: Deepest output folder below the scenario's folder.
+MAX_OUTPUT_DEPTH = 16
+#: Deepest nesting of tables accepted in a scenario file (real scenarios use 3).
+MAX_TABLE_DEPTH = 12
+
+
+def table_depth(data) -> int:
+    """Nesting depth of tables and arrays in ``data`` (iterative: no recursion limit)."""
+    depth, stack = 0, [(data, 1)]
+    while stack:
+        node, d = stack.pop()
+        depth = max(depth, d)
+        if isinstance(node, dict):
+            stack.extend((v, d + 1) for v in node.values() if isinstance(v, (dict, list)))
+        elif isinstance(node, list):
+            stack.extend((v, d + 1) for v in node if isinstance(v, (dict, list)))
+    return depth
+
+
+def short(text: str) -> str:
+    """A key or value shortened for messages (a 5000-part dotted key is not worth 10 kB of output)."""
+    if isinstance(text, str):
+        return _REPR.repr(text)[1:-1]
+    if isinstance(text, dict) and len(text) <= _REPR.maxdict:  # keep the order (reprlib sorts keys)
+        return "{" + ", ".join(f"{_REPR.repr(k)}: {_REPR.repr(v)}" for k, v in text.items()) + "}"
+    return _REPR.repr(text)
+
+
 def err(src, table, key, value, expected) -> ScenarioError:
     where = _where(table)
     k = f" key `{key}`" if key else ""
@@ -126,6 +157,9 @@ def output_folder(src, out: str) -> Path:
     path = Path(out)
     if path.is_absolute() or path.drive or ".." in path.parts or not path.parts or "\\" in out:
         raise err(src, "scenario", "output", out, expected)
+    if any(len(part.encode("utf-8")) > MAX_NAME_BYTES for part in path.parts) or len(path.parts) > MAX_OUTPUT_DEPTH:
+        raise err(src, "scenario", "output", out, f"{expected}, each name at most {MAX_NAME_BYTES} bytes and "
+                                                  f"at most {MAX_OUTPUT_DEPTH} folders deep")
     return path
 
 

@@ -100,15 +100,16 @@ def parse_values(src, table, key, value, *, positive=False) -> np.ndarray:
 
 
 def write_table(path: Path, columns: dict, header: dict) -> None:
-    """Write ``columns`` (name → 1-D array) as CSV with ``# key: value`` header lines, atomically."""
+    """Write ``columns`` (name → 1-D array) as CSV, names first and ``# key: value`` lines after them,
+    atomically."""
     from .._files import atomic_write
+
+    from .._files import csv_with_metadata
 
     names = list(columns)
     data = np.column_stack([np.asarray(columns[n], dtype=float) for n in names])
-    lines = [f"# {k}: {val}" for k, val in header.items()]
-    lines.append(",".join(names))
-    lines += [",".join(f"{x:.12g}" for x in row) for row in data]
-    text = "\n".join(lines) + "\n"
+    body = "".join(",".join(f"{x:.12g}" for x in row) + "\n" for row in data)
+    text = csv_with_metadata(",".join(names), [f"{k}: {val}" for k, val in header.items()], body)
     atomic_write(Path(path), lambda fh: fh.write(text.encode("utf-8")))
 
 

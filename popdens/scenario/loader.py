@@ -10,11 +10,17 @@ from __future__ import annotations
 import tomllib
 from pathlib import Path
 
+from .._files import read_regular_file
 from ..exceptions import ScenarioError
+from ._schema import MAX_TABLE_DEPTH, table_depth
 from .network import NetworkScenario, parse_network_scenario
 from .single import Scenario, parse_single_scenario
 
 __all__ = ["load_scenario", "parse_scenario"]
+
+
+#: Largest scenario file read (bytes): scenarios are a few kilobytes; this guards against a wrong file.
+MAX_SCENARIO_BYTES = 10_000_000
 
 
 def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario | NetworkScenario:
@@ -24,9 +30,16 @@ def parse_scenario(data: dict, source: str | Path = "<scenario>") -> Scenario | 
     :class:`~popdens.scenario.network.NetworkScenario`; any other a
     :class:`~popdens.scenario.single.Scenario`.
     """
-    if isinstance(data, dict) and "cohort" in data:
-        return parse_network_scenario(data, source)
-    return parse_single_scenario(data, source)
+    depth = table_depth(data)
+    if depth > MAX_TABLE_DEPTH:
+        raise ScenarioError(f"{source}: tables nested {depth} deep (at most {MAX_TABLE_DEPTH}); a dotted key with "
+                            "many parts nests one table per part")
+    try:
+        if isinstance(data, dict) and "cohort" in data:
+            return parse_network_scenario(data, source)
+        return parse_single_scenario(data, source)
+    except RecursionError:
+        raise ScenarioError(f"{source}: a value nests too deeply to be read") from None
 
 
 def load_scenario(path: str | Path) -> Scenario:
@@ -39,9 +52,11 @@ def load_scenario(path: str | Path) -> Scenario:
     """
     path = Path(path)
     try:
-        raw = path.read_bytes()
+        raw = read_regular_file(path, MAX_SCENARIO_BYTES, "scenario file")
     except OSError as exc:
         raise ScenarioError(f"{path}: cannot read: {exc.strerror or exc}") from None
+    except ValueError as exc:
+        raise ScenarioError(str(exc)) from None
     try:
         data = tomllib.loads(raw.decode("utf-8"))
     except UnicodeDecodeError:

@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .._files import jsonable, remove_stale_temporaries, stale_temporaries, temp_prefix
+from .._files import jsonable, live_temporaries, remove_stale_temporaries, stale_temporaries, temp_prefix
 from .._version import __version__
 from ..model._jit import Stopwatch
 from ..exceptions import ScenarioError
@@ -81,6 +81,7 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
                                   f"run); refusing to replace it")
     dest.parent.mkdir(parents=True, exist_ok=True)
     tmp = Path(tempfile.mkdtemp(prefix=temp_prefix(dest.name), dir=dest.parent))
+    live_temporaries.add(tmp)
     try:
         header = {"scenario": str(scenario.source.name), "scenario_sha256_16": scenario.digest,
                   "popdens_version": __version__}
@@ -113,6 +114,8 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
+    finally:
+        live_temporaries.discard(tmp)
     summary["output"] = str(dest)
     summary["timing"] = timing
     return summary
@@ -175,7 +178,7 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
     from ..network.integrate import simulate_network
     from ..network.twin import montecarlo_network
     from ..network.states import fixed_points
-    from ..plotting import save_figure
+    from ..plotting import plot_circuit_comparison, plot_rate_spectrum, save_figure
 
     c = scenario.circuit
     names = list(c.names)
@@ -185,6 +188,8 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
                            "seed": scenario.seed, "rate_range_hz": list(scenario.rate_range)}
     summary["cohorts"] = {a.name: {"size": a.size, "model": type(a.population.neuron).__name__,
                                       "noise": type(a.population.noise).__name__} for a in c.cohorts}
+    summary["notes"] = c.density_notes()
+    start, start_verdict = None, None
     if scenario.fixed_points:
         watch = Stopwatch()
         states = fixed_points(c, scenario.rate_range)
@@ -209,6 +214,11 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
              **({} if v is None else {"stable": bool(v.stable), "leading_growth_rate_per_s": float(v.growth_rate),
                                       "leading_frequency_hz": float(v.frequency), "n_unstable": int(v.n_unstable)})}
             for st, v in zip(states, verdicts)]
+        # the mean field starts where the spiking twin's burn-in leads: the first stable state found
+        for st, v in zip(states, verdicts):
+            if v is None or v.stable:
+                start, start_verdict = st, v
+                break
     if scenario.stability_grid is not None:
         from ..network.maps import stability_map
 
@@ -259,14 +269,16 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
         figures += _bifurcation(scenario, tmp, header, summary, timing, progress)
     if scenario.t_end > 0:
         mf = simulate_network(c, scenario.t_end, scenario.dt, record_interval=scenario.record_interval,
-                              progress=progress)
+                              initial_rates=None if start is None else start.rates, progress=progress)
         _stop_if_interrupted(mf)
         timing["mean_field_s"] = mf.diagnostics.get("wall_time_s")
         cols = {"t_ms": mf.t, **{f"rate_Hz_{nm}": mf.rate[k] for k, nm in enumerate(names)}}
         write_table(tmp / "network_prediction.csv", cols, {**header, "method": mf.method, "units": "t ms, rate Hz"})
         summary["prediction"] = {"method": mf.method, "status": mf.status, "message": mf.message,
+                                 "initial_rates_hz": (None if start is None
+                                                      else dict(zip(names, map(float, start.rates)))),
                                  "final_rates_hz": dict(zip(names, map(float, mf.rate[:, -1])))}
-        ax = mf.plot()
+        mc = None
         if scenario.montecarlo:
             mc = montecarlo_network(c, scenario.t_end, scenario.dt, seed=scenario.seed,
                                     record_interval=scenario.record_interval, progress=progress)
@@ -280,13 +292,49 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
                                      "sizes": dict(zip(names, mc.sizes)) if mc.sizes else None,
                                      "mean_rates_second_half_hz": dict(zip(names, map(float, mc.mean_rate(half)))),
                                      "mean_field_second_half_hz": dict(zip(names, map(float, mf.mean_rate(half))))}
-            for k, nm in enumerate(names):
-                ax.plot(mc.t[1:], mc.rate[k, 1:], lw=0.7, alpha=0.6, color=f"C{k}", label=f"{nm} (spiking twin)")
-            ax.legend(frameon=False)
-        save_figure(ax.figure, tmp, "network_rate")
+            spectra = mc.rate_spectrum()
+            summary["montecarlo"]["fluctuations"] = _fluctuation_summary(mc, spectra, start_verdict)
+            marks = [m for m in _root_marks(start_verdict) if m[0] <= spectra[0][-1]]
+            fig = plot_rate_spectrum(spectra, mc.names, marks,
+                                     floor={nm: 2.0 * r / n for nm, r, n in zip(names, mc.mean_rate(0.0), mc.sizes)})
+            save_figure(fig, tmp, "network_spectrum")
+        save_figure(plot_circuit_comparison(mf, mc), tmp, "network_rate")
         figures.append(("network_rate.png", "Rates of the cohorts over time"
-                        + (" (mean field and spiking twin)" if scenario.montecarlo else "")))
+                        + (" (mean field thick, spiking twin thin)" if mc is not None else "")))
+        if mc is not None:
+            figures.append(("network_spectrum.png", "Rate fluctuations of the spiking twin: power spectrum, with "
+                                                    "the oscillation frequencies the linear stability analysis "
+                                                    "predicts and the level of independent neurons"))
     return figures
+
+
+def _root_marks(verdict) -> list:
+    """(frequency Hz, label) of the least damped oscillatory roots of a stability verdict."""
+    if verdict is None:
+        return []
+    out = []
+    for lam in verdict.roots[:3]:
+        f = float(lam.imag) * 1000.0 / (2.0 * math.pi)
+        if f > 0.5:
+            out.append((f, f"predicted mode {f:.1f} Hz, damping {-1000.0 * float(lam.real):.0f}/s"))
+    return out
+
+
+def _fluctuation_summary(mc, spectra, verdict) -> dict:
+    """Rate fluctuations of the twin against independent neurons, and the spectral peak per cohort."""
+    freqs, power = spectra
+    width_s = float(mc.t[2] - mc.t[1]) * 1e-3 if mc.t.size > 2 else float("nan")  # bin width (s)
+    out = {}
+    for k, nm in enumerate(mc.names):
+        r = mc.rate[k, 1:]
+        sel = freqs > 2.0
+        peak = float(freqs[sel][np.argmax(power[k][sel])]) if np.any(sel) else float("nan")
+        # independent neurons: Poisson-like counts, variance = mean count (short bins; common practice)
+        independent = math.sqrt(max(float(np.mean(r)), 0.0) / (mc.sizes[k] * width_s))
+        out[nm] = {"sd_hz": float(np.std(r)), "sd_independent_neurons_hz": independent, "spectral_peak_hz": peak}
+    marks = _root_marks(verdict)
+    out["predicted_mode_hz"] = marks[0][0] if marks else None
+    return out
 
 
 #: Codes of the special points and curves in the CSV tables.

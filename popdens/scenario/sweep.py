@@ -46,21 +46,22 @@ import numpy as np
 from ..model import drive as drive_mod
 from ..exceptions import ScenarioError
 from .loader import load_scenario, parse_scenario
+from ._schema import short
 from .single import Scenario
 from ..sweeps.engine import Curve, SweepResult, sweep
 
 __all__ = ["ANALYSES", "ScenarioPoint", "SweepPlan", "plan_sweep", "run_sweep_scenario"]
 
 #: Settings of the [sweep] table; every other key must be a dotted parameter key.
-SETTINGS = {"analysis", "mode", "seed", "retries", "frequencies", "drives"}
+SETTINGS = {"analysis", "mode", "seed", "retries", "frequencies", "drives", "time_courses"}
 MODES = ("grid", "list")
 #: Tables whose values may be swept.
 SWEEPABLE = ("neuron", "noise", "input", "run")
 RANGE_KEYS = {"start", "stop", "count"}
+#: Most parts of a swept dotted key (``noise.hazard.width`` has 3).
+MAX_KEY_PARTS = 6
 #: Largest number of values in a range (a guard against typos).
 MAX_RANGE_COUNT = 100_000
-#: Share of Monte Carlo output bins within this many standard errors is reported (as in ``popdens run``).
-AGREEMENT_SE = 4.0
 
 
 # ------------------------------------------------------------------ analyses
@@ -90,19 +91,29 @@ def summary_analysis(sc: Scenario, seed: np.random.SeedSequence, options: dict) 
         raise RuntimeError(f"the density solver stopped: {pred.message}")
     width = np.diff(pred.t)
     k = int(np.argmax(pred.rate))
-    out = {"mean_rate_hz": float(np.sum(pred.rate[1:] * width) / np.sum(width)),
-           "peak_rate_hz": float(pred.rate[k]), "peak_time_ms": float(pred.t[k]),
-           "final_rate_hz": float(pred.rate[-1]), "final_mean_u_mv": float(pred.mean_u[-1])}
+    out = {"mean_rate_Hz": float(np.sum(pred.rate[1:] * width) / np.sum(width)),
+           "peak_rate_Hz": float(pred.rate[k]), "peak_time_ms": float(pred.t[k]),
+           "final_rate_Hz": float(pred.rate[-1]), "final_mean_u_mV": float(pred.mean_u[-1])}
+    if options.get("time_courses"):
+        out["rate_Hz"] = Curve("t_ms", pred.t[1:], pred.rate[1:])
     if sc.montecarlo_neurons:
+        from ..twins.agreement import agreement
         from ..twins.population import montecarlo
 
         mc = montecarlo(sc.population, sc.drive, sc.t_end, sc.montecarlo_neurons, dt=pred.dt,
                         seed=np.random.default_rng(seed), record_interval=sc.record_interval, progress=False)
         _reraise_interrupt(mc)
-        se = mc.rate_standard_error()[1:]
-        z = np.abs(mc.rate[1:] - pred.rate[1:]) / np.maximum(se, 1e-12)
-        out["montecarlo_mean_rate_hz"] = float(np.sum(mc.rate[1:] * width) / np.sum(width))
-        out["montecarlo_fraction_within_4_se"] = float(np.mean(z <= AGREEMENT_SE))
+        check = agreement(pred, mc, drive=sc.drive)
+        out["montecarlo_mean_rate_Hz"] = float(np.sum(mc.rate[1:] * width) / np.sum(width))
+        out["montecarlo_fraction_within_4_se"] = float(check.fraction_within_4_se)
+        out["montecarlo_chi2_p_value"] = float(check.p_value)
+        out["montecarlo_mean_p_value"] = float(check.mean_p_value)
+        out["montecarlo_agrees"] = float(check.agrees)
+        if check.modulation is not None:
+            out["montecarlo_modulation_Hz"] = float(check.modulation.amplitude_hz)
+            out["predicted_modulation_Hz"] = float(check.modulation.predicted_amplitude_hz)
+        if options.get("time_courses"):
+            out["montecarlo_rate_Hz"] = Curve("t_ms", mc.t[1:], mc.rate[1:])
     return out
 
 
@@ -116,8 +127,8 @@ def gain_analysis(sc: Scenario, seed: np.random.SeedSequence, options: dict) -> 
             rates = np.asarray(gain(sc.population, mus), dtype=float).reshape(mus.shape)
         except (TypeError, ValueError):  # a scalar-only gain: one call per drive
             rates = np.array([float(gain(sc.population, float(m))) for m in mus])
-        return {"rate_hz": Curve("drive_mv", mus, rates)}
-    return {"rate_hz": float(np.asarray(gain(sc.population, _constant_mu(sc, "gain")), dtype=float))}
+        return {"rate_Hz": Curve("drive_mV", mus, rates)}
+    return {"rate_Hz": float(np.asarray(gain(sc.population, _constant_mu(sc, "gain")), dtype=float))}
 
 
 def transfer_analysis(sc: Scenario, seed: np.random.SeedSequence, options: dict) -> dict:
@@ -126,8 +137,8 @@ def transfer_analysis(sc: Scenario, seed: np.random.SeedSequence, options: dict)
 
     f = np.asarray(options["frequencies"], dtype=float)
     chi = np.asarray(transfer(sc.population, _constant_mu(sc, "transfer"), f))
-    return {"transfer_amplitude_hz_per_mv": Curve("frequency_hz", f, np.abs(chi)),
-            "transfer_phase_deg": Curve("frequency_hz", f, np.degrees(np.angle(chi)))}
+    return {"transfer_amplitude_Hz_per_mV": Curve("frequency_Hz", f, np.abs(chi)),
+            "transfer_phase_deg": Curve("frequency_Hz", f, np.degrees(np.angle(chi)))}
 
 
 def _check_summary(sc, options):
@@ -147,7 +158,7 @@ def _check_transfer(sc, options):
 
 #: name -> (analysis, check run once on the base scenario, options it accepts)
 ANALYSES = {
-    "summary": (summary_analysis, _check_summary, set()),
+    "summary": (summary_analysis, _check_summary, {"time_courses"}),
     "gain": (gain_analysis, _check_gain, {"drives"}),
     "transfer": (transfer_analysis, _check_transfer, {"frequencies"}),
 }
@@ -156,9 +167,9 @@ ANALYSES = {
 # ------------------------------------------------------------------ one point
 def _set_dotted(data: dict, key: str, value, src: str) -> None:
     parts = key.split(".")
-    if parts[0] not in SWEEPABLE or len(parts) < 2 or not all(parts):
-        raise ScenarioError(f"{src}: [sweep] key `{key}`: expected a dotted key into one of "
-                            f"{list(SWEEPABLE)}, e.g. \"neuron.tau_m\"")
+    if parts[0] not in SWEEPABLE or not 2 <= len(parts) <= MAX_KEY_PARTS or not all(parts):
+        raise ScenarioError(f"{src}: [sweep] key `{short(key)}` ({len(parts)} parts): expected a dotted key of at "
+                            f"most {MAX_KEY_PARTS} parts into one of {list(SWEEPABLE)}, e.g. \"neuron.tau_m\"")
     node = data
     for i, part in enumerate(parts[:-1]):
         nxt = node.get(part) if isinstance(node, dict) else None
@@ -291,6 +302,13 @@ def plan_sweep(sc: Scenario, *, validate_points: bool = True) -> SweepPlan:
         raise ScenarioError(f"{src}: [sweep] key `retries` = {retries!r}: expected an integer from 0 to 100")
     _, check, accepted = ANALYSES[analysis]
     options = {}
+    if "time_courses" in settings:
+        if "time_courses" not in accepted:
+            raise ScenarioError(f"{src}: [sweep] key `time_courses` is used by analysis `summary` only")
+        if not isinstance(settings["time_courses"], bool):
+            raise ScenarioError(f"{src}: [sweep] key `time_courses` = {settings['time_courses']!r}: expected "
+                                "true or false")
+        options["time_courses"] = settings["time_courses"]
     for k in ("frequencies", "drives"):
         if k in settings:
             if k not in accepted:
@@ -317,7 +335,7 @@ def plan_sweep(sc: Scenario, *, validate_points: bool = True) -> SweepPlan:
         try:
             point_sc = point.scenario(params)
         except ScenarioError as exc:
-            raise ScenarioError(f"{src}: [sweep] point {i} {params}: {_unprefixed(exc, point.source)}") from None
+            raise ScenarioError(f"{src}: [sweep] point {i} {short(params)}: {_unprefixed(exc, point.source)}") from None
         if i == 0:
             try:
                 check(point_sc, options)
@@ -344,4 +362,4 @@ def run_sweep_scenario(scenario: Scenario | str | Path, output: str | Path | Non
     dest = Path(output) if output is not None else sc.source.parent / sc.output
     return sweep(plan.point, plan.points, dest, seed=plan.seed, backend=backend, workers=workers,
                  scheduler=scheduler, retries=plan.retries, resume=resume, overwrite=overwrite,
-                 retry_failed=retry_failed, figures=figures, progress=progress)
+                 retry_failed=retry_failed, figures=figures, progress=progress, title=sc.title)

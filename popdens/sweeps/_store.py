@@ -23,7 +23,7 @@ import os
 import tempfile
 from pathlib import Path
 
-from .._files import remove_stale_temporaries, temp_prefix
+from .._files import csv_with_metadata, remove_stale_temporaries, temp_prefix
 
 __all__: list[str] = []
 
@@ -135,13 +135,11 @@ def tidy_rows(points: list[dict], records: list[dict | None]) -> tuple[list[str]
 
 
 def csv_text(header: list[str], rows: list[list[str]], comment: str | None = None) -> str:
+    head = io.StringIO()
+    csv.writer(head, lineterminator="").writerow(header)
     buf = io.StringIO()
-    if comment:
-        buf.write(f"# {comment}\n")
-    w = csv.writer(buf, lineterminator="\n")
-    w.writerow(header)
-    w.writerows(rows)
-    return buf.getvalue()
+    csv.writer(buf, lineterminator="\n").writerows(rows)
+    return csv_with_metadata(head.getvalue(), [comment] if comment else [], buf.getvalue())
 
 
 def failure_rows(points: list[dict], records: list[dict | None]):

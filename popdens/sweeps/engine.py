@@ -25,6 +25,7 @@ recorded as failed with its error; the other points go on.  See
 from __future__ import annotations
 
 import itertools
+import functools
 import json
 import logging
 import math
@@ -42,9 +43,11 @@ from typing import Any, Callable
 
 import numpy as np
 
+from .._display import Displayable, dataframe, fmt
 from .._version import __version__
 from . import _backends as backends
 from . import _store as store
+from .report import sweep_report
 from .. import _validation as v
 from ..progress import Progress
 
@@ -182,6 +185,40 @@ def evaluate_point(func: Callable, index: int, params: dict, entropy: int, retri
             "worker": f"{socket.gethostname()}:{os.getpid()}"}
 
 
+@functools.lru_cache(maxsize=8)
+def _loaded(payload: bytes) -> Callable:
+    import cloudpickle
+
+    return cloudpickle.loads(payload)
+
+
+def evaluate_serialised(payload: bytes, index: int, params: dict, entropy: int, retries: int) -> dict:
+    """:func:`evaluate_point` for a function sent by value (cloudpickle), in a worker process.
+
+    A function defined in a notebook or a script's ``__main__`` cannot be imported by a worker, so
+    it travels as bytes; if even that fails (a module the worker lacks), the point's record says so
+    instead of the worker dying with the cause lost on its stderr."""
+    try:
+        func = _loaded(payload)
+    except Exception as exc:
+        why = "".join(traceback.format_exception_only(exc)).strip()
+        return {"index": index, "params": params, "status": "failed", "outputs": {}, "curves": {},
+                "attempts": 1, "error": f"the sweep function could not be loaded in the worker: {why}",
+                "wall_time_s": 0.0, "worker": f"{socket.gethostname()}:{os.getpid()}"}
+    return evaluate_point(func, index, params, entropy, retries)
+
+
+def _serialised(func) -> bytes:
+    """``func`` as bytes for worker processes (by value where it is not importable, e.g. a notebook)."""
+    import cloudpickle
+
+    try:
+        return cloudpickle.dumps(func)
+    except Exception as exc:
+        raise ValueError(f"`func` {func!r} cannot be sent to worker processes ({exc}); "
+                         "use backend='serial' or make it picklable") from None
+
+
 def _fingerprint(func) -> str:
     fp = getattr(func, "fingerprint", None)
     if callable(fp):
@@ -192,7 +229,7 @@ def _fingerprint(func) -> str:
 
 # ------------------------------------------------------------------ result
 @dataclass(frozen=True, eq=False)
-class SweepResult:
+class SweepResult(Displayable):
     """Outcome of a sweep: the points and one record per point (``None`` where not computed).
 
     Attributes
@@ -278,6 +315,32 @@ class SweepResult:
         header, rows = store.tidy_rows(self.points, self.records)
         return store.csv_text(header, rows)
 
+    def _card(self):
+        done = sum(r is not None for r in self.records)
+        rows = [("points", f"{len(self.points)} ({done} done, {len(self.failed)} failed)")]
+        if self.axes is not None:
+            for name, vals in self.axes.items():
+                rows.append((f"swept: {name}", ", ".join(f"{x:g}" if isinstance(x, (int, float)) else str(x)
+                                                        for x in list(vals)[:8]) + (" ..." if len(vals) > 8 else "")))
+        sc, cu = self.output_names()
+        for name in sc:
+            vals = self.values(name)
+            rows.append((f"output: {name}", f"{np.nanmin(vals):.4g} to {np.nanmax(vals):.4g}"
+                         if np.any(np.isfinite(vals)) else "n/a"))
+        for name in cu:
+            rows.append((f"curve output: {name}", "one curve per point"))
+        for i, params, err in self.failed[:3]:
+            rows.append((f"point {i} failed", f"{params}: {err}"))
+        d = self.diagnostics
+        status = (f"{d.get('backend', '?')} backend, {d.get('workers', '?')} worker(s), "
+                  f"{fmt(d.get('wall_time_s'), 's', 3)}; folder {self.output}")
+        return "SweepResult", rows, status
+
+    def to_dataframe(self):
+        """The tidy table (as ``results.csv``: one row per point and output value) as a pandas DataFrame."""
+        header, rows = store.tidy_rows(self.points, self.records)
+        return dataframe({h: [r[j] for r in rows] for j, h in enumerate(header)})
+
     def __repr__(self) -> str:
         done = sum(r is not None for r in self.records)
         return (f"<SweepResult {len(self.points)} points ({done} done, {len(self.failed)} failed), "
@@ -345,7 +408,8 @@ def _prepare_folder(out: Path, manifest: dict, resume: bool, overwrite: bool) ->
 def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int = 0,
           backend: str | None = None, workers: int | None = None, scheduler: str | None = None,
           retries: int = DEFAULT_RETRIES, resume: bool = False, overwrite: bool = False,
-          retry_failed: bool = False, figures: bool = True, progress: bool | None = None) -> SweepResult:
+          retry_failed: bool = False, figures: bool = True, progress: bool | None = None,
+          title: str | None = None, no_worker_timeout: float | None = None) -> SweepResult:
     """Evaluate ``func`` at every point, in parallel, writing each finished point to ``output``.
 
     Parameters
@@ -388,7 +452,12 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
     figures : bool
         Draw heat maps and families of curves into ``output/figures``.
     progress : bool, optional
-        Progress line on stderr (default: only on a terminal).
+        Progress line on stderr (default: on a terminal or in a notebook).
+    title : str, optional
+        Title of the HTML report (``report.html`` in ``output``).
+    no_worker_timeout : float, optional
+        Dask: seconds without any connected worker after which the sweep gives up with a
+        ``ConnectionError`` (finished points are kept); default 120.
 
     Returns
     -------
@@ -441,12 +510,22 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
         raise ImportError("the Dask backend needs the optional extra: pip install 'popdens[dask]'")
     n_workers = workers or _default_workers()
 
+    payload = None if backend == "serial" else _serialised(func)  # before anything is created
+    # a Dask scheduler is reached before the output folder is made: a wrong address leaves nothing
+    connection = backends.dask_connect(n_workers, scheduler) if backend == "dask" else None
     manifest = {"layout": store.LAYOUT_VERSION, "version": __version__, "fingerprint": _fingerprint(func),
                 "points": pts, "axes": axes, "seed": seed}
     out = Path(output) if output is not None else None
     on_disk: dict[int, dict] = {}
     if out is not None:
-        on_disk = _prepare_folder(out, manifest, resume, overwrite)
+        try:
+            on_disk = _prepare_folder(out, manifest, resume, overwrite)
+        except BaseException:
+            if connection is not None:
+                connection[0].close()
+                if connection[1] is not None:
+                    connection[1].close()
+            raise
     if retry_failed:
         on_disk = {i: r for i, r in on_disk.items() if r["status"] == "ok"}
     records: list[dict | None] = [on_disk.get(i) for i in range(len(pts))]
@@ -455,9 +534,12 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
     if backend == "serial":
         gen = backends.run_serial(evaluate_point, func, tasks, retries)
     elif backend == "processes":
-        gen = backends.run_processes(evaluate_point, func, tasks, retries, min(n_workers, max(len(tasks), 1)))
+        gen = backends.run_processes(evaluate_serialised, payload, tasks, retries,
+                                     min(n_workers, max(len(tasks), 1)))
     else:
-        gen = backends.run_dask(evaluate_point, func, tasks, retries, n_workers, scheduler, uuid.uuid4().hex[:12])
+        gen = backends.run_dask(evaluate_serialised, payload, tasks, retries, n_workers, scheduler,
+                                uuid.uuid4().hex[:12], connection,
+                                backends.NO_WORKER_TIMEOUT if no_worker_timeout is None else no_worker_timeout)
     done = len(pts) - len(tasks)
     n_failed = sum(r is not None and r["status"] != "ok" for r in records)
     bar = _SweepProgress(len(pts), done, progress)
@@ -487,11 +569,15 @@ def sweep(func: Callable, points, output: str | Path | None = None, *, seed: int
                    "version": __version__}
     res = SweepResult(points=pts, records=records, axes=axes, output=out, seed=seed, diagnostics=diagnostics)
     if out is not None:
-        _write_tables(res, out, figures)
+        _write_tables(res, out, figures, title)
     return res
 
 
-def _write_tables(res: SweepResult, out: Path, figures: bool) -> None:
+#: The sweep's HTML report, beside results.csv.
+REPORT = "report.html"
+
+
+def _write_tables(res: SweepResult, out: Path, figures: bool, title: str | None = None) -> None:
     header, rows = store.tidy_rows(res.points, res.records)
     store.durable_write(out / store.RESULTS, store.csv_text(
         header, rows, "popdens sweep; one row per point and output; units are part of each output name"))
@@ -501,47 +587,56 @@ def _write_tables(res: SweepResult, out: Path, figures: bool) -> None:
         store.durable_write(fpath, store.csv_text(fh, frows))
     elif fpath.exists():
         fpath.unlink()
-    if figures:
-        _figures(res, out / store.FIGURES)
+    shown = _figures(res, out / store.FIGURES) if figures else []
     summary = {"n_points": len(res.points), "n_ok": sum(r is not None and r["status"] == "ok" for r in res.records),
                "n_failed": len(res.failed), "shape": list(res.shape), "seed": res.seed,
                "outputs": res.output_names()[0], "curves": res.output_names()[1], **res.diagnostics}
     store.durable_write(out / store.SUMMARY, json.dumps(summary, indent=2, sort_keys=True) + "\n")
+    store.durable_write(out / REPORT, sweep_report(res, out, shown, title))
 
 
-def _figures(res: SweepResult, folder: Path) -> None:
-    """A heat map per scalar output on 2-D grids, lines on 1-D grids, a family per curve output."""
-    import matplotlib.pyplot as plt
-
-    from ..plotting import plot_sweep_curves, plot_sweep_line, plot_sweep_map
+def _figures(res: SweepResult, folder: Path) -> list[tuple[str, str]]:
+    """A heat map per scalar output on 2-D grids, lines on 1-D grids, a family per curve output
+    (coloured by the first swept parameter, styled by the second); returns (file, caption) pairs."""
+    from ..plotting import axis_label, plot_sweep_curves, plot_sweep_line, plot_sweep_map, save_figure
 
     folder.mkdir(parents=True, exist_ok=True)
     scalars, curves = res.output_names()
     figs = []
-    names = list(res.axes) if res.axes is not None else []
-    numeric = res.axes is not None and all(
-        all(isinstance(x, (int, float)) and not isinstance(x, bool) for x in vs) for vs in res.axes.values())
+    names = list(res.axes) if res.axes is not None else list(res.points[0]) if res.points else []
+    numeric = {k: all(isinstance(p[k], (int, float)) and not isinstance(p[k], bool) for p in res.points)
+               for k in names}
+    varying = [k for k in names if len({repr(p[k]) for p in res.points}) > 1]
     for name in scalars:
         vals = res.values(name)
-        if numeric and len(names) == 2:
+        if res.axes is not None and len(names) == 2 and all(numeric.values()):
             fig = plot_sweep_map(res.axes[names[0]], res.axes[names[1]], vals, names[0], names[1], name)
-        elif numeric and len(names) == 1:
+            caption = f"{axis_label(name)} over {axis_label(names[0])} and {axis_label(names[1])}"
+        elif res.axes is not None and len(names) == 1 and numeric[names[0]]:
             fig = plot_sweep_line(res.axes[names[0]], vals, names[0], name)
+            caption = f"{axis_label(name)} against {axis_label(names[0])}"
         else:
             fig = plot_sweep_line(np.arange(len(res.points)), vals.ravel(), "point", name)
-        figs.append((name, fig))
+            caption = f"{axis_label(name)} at each point (parameters in results.csv)"
+        figs.append((name, fig, caption))
+    colour = next((k for k in varying if numeric[k]), None)
+    style = next((k for k in varying if k != colour and len({repr(p[k]) for p in res.points}) <= 4), None)
     for name in curves:
         x, y = res.curves(name)
         x_name = next(r["curves"][name]["x_name"] for r in res.records if r is not None and name in r["curves"])
         labels = [", ".join(f"{k}={p[k]:g}" if isinstance(p[k], float) else f"{k}={p[k]}" for k in p)
                   for p in res.points]
-        fig = plot_sweep_curves(x, y, x_name, name, labels)
-        figs.append((name, fig))
-    for name, fig in figs:
+        fig = plot_sweep_curves(x, y, x_name, name, labels,
+                                colour_by=(colour, [p[colour] for p in res.points]) if colour else None,
+                                style_by=(style, [p[style] for p in res.points]) if style and colour else None)
+        figs.append((name, fig, f"{axis_label(name)} against {axis_label(x_name)}, one curve per point"
+                     + (f", coloured by {axis_label(colour)}" if colour else "")))
+    out = []
+    for name, fig, caption in figs:
         safe = "".join(ch if ch.isalnum() or ch in "-_." else "_" for ch in name)
-        fig.savefig(folder / f"{safe}.png", dpi=120)
-        fig.savefig(folder / f"{safe}.svg")
-        plt.close(fig)
+        save_figure(fig, folder, safe)  # no dates, fixed SVG ids: reruns give the same bytes
+        out.append((f"{safe}.png", caption))
+    return out
 
 
 def load_sweep(folder: str | Path) -> SweepResult:

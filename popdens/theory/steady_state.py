@@ -49,6 +49,7 @@ import numpy as np
 from scipy.optimize import brentq
 
 from .. import _validation as v
+from .._display import Displayable, fmt
 from ..exceptions import ConvergenceError, UnreachableTargetError
 from ..model.drive import Constant, Drive
 from ..model.neurons import CODE_LIF, CODE_PIF
@@ -171,9 +172,10 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         Any neuron model with escape or white noise.
     mu : float or array_like
         Constant drives (mV).
-    sigma : float, optional
+    sigma : float or array_like, optional
         White-noise amplitude (mV) overriding the population's (for sweeps
-        over the noise); not allowed for escape noise.
+        over the noise); a list gives one gain curve per level, as a scenario's
+        ``[gain] sigma = [...]`` does.  Not allowed for escape noise.
     method : {"auto", "siegert", "inverse-gaussian", "threshold-integration", "renewal"}
         ``"auto"``: Siegert formula for the white-noise LIF, the
         inverse-Gaussian closed form for the white-noise PIF, threshold
@@ -183,7 +185,7 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     Returns
     -------
     ndarray
-        Rates in Hz, the shape of ``mu``.
+        Rates in Hz, the shape of ``mu`` (``(len(sigma),) + mu.shape`` for a list of ``sigma``).
 
     Raises
     ------
@@ -210,6 +212,11 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     True
     """
     _check_population(population)
+    if sigma is not None and np.ndim(sigma) > 0:
+        levels = np.asarray(sigma, dtype=float).ravel()
+        if levels.size == 0:
+            raise ValueError("`sigma` must hold at least one noise level (mV), got an empty list")
+        return np.stack([gain(population, mu, sigma=float(s), method=method) for s in levels])
     population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
@@ -265,7 +272,7 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
 
 
 @dataclass(frozen=True, repr=False)
-class SteadyState:
+class SteadyState(Displayable):
     """Stationary state of a population at constant drive (see :func:`stationary`).
 
     Attributes
@@ -330,6 +337,16 @@ class SteadyState:
     age_density: np.ndarray | None = None
     serial_correlation: np.ndarray | None = None
     diagnostics: dict = field(default_factory=dict)
+
+    def _card(self):
+        who = f"{type(self.population.neuron).__name__}, {type(self.population.noise).__name__}"
+        rows = [("population", who), ("drive", fmt(self.mu, "mV"))]
+        if self.sigma is not None:
+            rows.append(("noise sigma", fmt(self.sigma, "mV")))
+        rows += [("rate", fmt(self.rate, "Hz", 6)), ("ISI CV", fmt(self.cv)), ("mean ISI", fmt(self.mean_isi, "ms")),
+                 ("mean potential", fmt(self.mean_u, "mV")), ("refractory fraction", fmt(self.refractory_fraction, "", 3)),
+                 ("method", self.method)]
+        return "SteadyState", rows, None
 
     def __repr__(self) -> str:
         who = f"{type(self.population.neuron).__name__}/{type(self.population.noise).__name__}"

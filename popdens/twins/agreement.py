@@ -34,6 +34,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .._display import Displayable, dataframe
+
 __all__ = ["Agreement", "Modulation", "agreement", "DEFAULT_ALPHA"]
 
 #: Default significance level of the verdict.
@@ -70,7 +72,7 @@ class Modulation:
 
 
 @dataclass(frozen=True)
-class Agreement:
+class Agreement(Displayable):
     """The verdict of :func:`agreement` with its statistics.
 
     Attributes
@@ -140,10 +142,10 @@ class Agreement:
 
         return plot_agreement(self)
 
-    def _repr_markdown_(self) -> str:
-        rows = [("verdict", ("agrees" if self.agrees else "**disagrees**") + f" at level {self.alpha:g}"),
-                ("chi-square (pooled bins)", f"{self.chi2:.2f} on {self.dof} bins" if self.dof else "n/a"),
-                ("p-value", f"{self.p_value:.3g}" if self.dof else "n/a"),
+    def _card(self):
+        rows = [("verdict", ("agrees" if self.agrees else "DISAGREES") + f" at level {self.alpha:g}"),
+                ("chi-square (pooled bins)", f"{self.chi2:.2f} on {self.dof} bins, p = {self.p_value:.3g}"
+                 if self.dof else "n/a"),
                 ("mean rate: twin / predicted - 1", f"{100 * self.rate_excess:+.2f} % (p = {self.mean_p_value:.3g})"),
                 ("bins within 4 SE", f"{100 * self.fraction_within_4_se:.1f} %"),
                 ("twin size", f"{self.n_neurons} neurons")]
@@ -157,8 +159,12 @@ class Agreement:
                       f"{m.phase_deg:.1f}° [{m.phase_ci_deg[0]:.1f}, {m.phase_ci_deg[1]:.1f}] / "
                       f"{m.predicted_phase_deg:.1f}°"),
                      ("modulation p-value", f"{m.p_value:.3g}")]
-        return "**Agreement of the Monte Carlo twin with the prediction**\n\n| | |\n|---|---|\n" + "\n".join(
-            f"| {k} | {v} |" for k, v in rows)
+        return "Agreement of the Monte Carlo twin with the prediction", rows, None
+
+    def to_dataframe(self):
+        """Per bin: end time (ms), prediction and twin (Hz), standard error (Hz) and standardised residual."""
+        return dataframe({"t_ms": self.t, "prediction_Hz": self.prediction, "twin_Hz": self.twin,
+                          "se_Hz": self.se, "z": self.z})
 
 
 def _num(x):

@@ -92,7 +92,14 @@ def test_transfer_command_prints_and_rejects_bad_ranges(capsys):
     pop = popdens.Population(popdens.LIF(10.0, 20.0, 0.0, 2.0), popdens.EscapeNoise(popdens.hazard.Exponential(20.0, 2.0)))
     chi = popdens.transfer(pop, 18.0, [5.0, 50.0])
     np.testing.assert_allclose([float(r[1]) for r in rows], np.abs(chi), rtol=1e-5)  # 6 digits printed
-    assert main(["transfer", *flags, "--freq", "0:10:3"]) == 2
+    # START:STOP:POINTS means the same for every flag: evenly spaced (":log" for log spacing)
+    assert main(["transfer", *flags, "--freq", "10:30:3"]) == 0
+    freqs = [float(ln.split()[0]) for ln in capsys.readouterr().out.splitlines() if not ln.startswith("#")]
+    assert freqs == [10.0, 20.0, 30.0]
+    assert main(["transfer", *flags, "--freq", "1:100:3:log"]) == 0
+    freqs = [float(ln.split()[0]) for ln in capsys.readouterr().out.splitlines() if not ln.startswith("#")]
+    assert freqs == pytest.approx([1.0, 10.0, 100.0])
+    assert main(["transfer", *flags, "--freq", "0:10:3:log"]) == 2  # log spacing needs positive bounds
     assert "positive bounds" in capsys.readouterr().err
     assert main(["transfer", *flags, "--freq", "1:10:3", "--modulate", "noise"]) == 2
     assert "white noise" in capsys.readouterr().err

@@ -342,3 +342,65 @@ def test_overwrite_refuses_a_folder_that_is_not_an_output(tmp_path, capsys):
     assert main(["run", str(p), "--quiet"]) == 0
     assert main(["run", str(p), "--quiet", "--overwrite"]) == 0  # a popdens output may be replaced
     assert sorted(x.name for x in tmp_path.iterdir()) == ["out", "precious", "s.toml"]
+
+
+# ------------------------------------------------------------------ special files, long names, deep keys
+@pytest.mark.skipif(not hasattr(os, "mkfifo"), reason="needs FIFOs")
+def test_a_fifo_scenario_or_trace_file_is_refused_without_hanging(tmp_path):
+    fifo = tmp_path / "pipe.toml"
+    os.mkfifo(fifo)  # nobody writes to it: a plain open() would block forever
+    with pytest.raises(ScenarioError, match="FIFO"):
+        load_scenario(fifo)
+    os.mkfifo(tmp_path / "trace.csv")
+    data = copy.deepcopy(VALID)
+    data["input"] = {"shape": "trace", "file": "trace.csv"}
+    with pytest.raises(ScenarioError, match=r"`file`.*FIFO"):
+        parse_scenario(data, tmp_path / "s.toml")
+
+
+@pytest.mark.skipif(not os.path.exists("/dev/zero"), reason="needs /dev/zero")
+def test_a_trace_linked_to_a_device_is_refused(tmp_path):
+    os.symlink("/dev/zero", tmp_path / "trace.csv")  # endless input: reading it used to fill the memory
+    data = copy.deepcopy(VALID)
+    data["input"] = {"shape": "trace", "file": "trace.csv"}
+    with pytest.raises(ScenarioError, match=r"`file`.*a device"):
+        parse_scenario(data, tmp_path / "s.toml")
+    os.symlink("/dev/zero", tmp_path / "zero.toml")
+    with pytest.raises(ScenarioError, match="a device"):
+        load_scenario(tmp_path / "zero.toml")
+
+
+@pytest.mark.parametrize("out", ["x" * 300, "a/" * 40 + "b", "é" * 150])
+def test_a_long_output_name_is_exit_2_naming_the_key(out, tmp_path, capsys):
+    data = copy.deepcopy(VALID)
+    data["scenario"]["output"] = out
+    data["run"]["montecarlo_neurons"] = 0
+    p = tmp_path / "s.toml"
+    p.write_text(to_toml(data), encoding="utf-8")
+    assert main(["run", str(p), "--quiet"]) == 2  # regression: OSError "File name too long", exit 1
+    err = capsys.readouterr().err
+    assert "`output`" in err and "at most 200 bytes" in err and len(err) < 2000
+    assert sorted(x.name for x in tmp_path.iterdir()) == ["s.toml"]
+
+
+def test_a_long_out_flag_is_exit_2_naming_the_file_system_cause(tmp_path, capsys):
+    data = copy.deepcopy(VALID)
+    data["run"]["montecarlo_neurons"] = 0
+    p = tmp_path / "s.toml"
+    p.write_text(to_toml(data), encoding="utf-8")
+    assert main(["run", str(p), "--quiet", "--out", str(tmp_path / ("y" * 300))]) == 2
+    assert "too long" in capsys.readouterr().err  # strerror of ENAMETOOLONG
+
+
+def test_a_5000_deep_dotted_key_is_exit_2(tmp_path, capsys):
+    p = tmp_path / "deep.toml"
+    p.write_text(to_toml(VALID) + "\n[extra]\n" + ".".join(["k"] * 5000) + " = 1\n", encoding="utf-8")
+    assert main(["run", str(p), "--quiet"]) == 2  # regression: RecursionError traceback, exit 1
+    err = capsys.readouterr().err
+    assert "nested" in err and len(err) < 2000
+    q = tmp_path / "sweep.toml"
+    q.write_text(to_toml(VALID) + '\n[sweep]\n"' + "neuron." + ".".join(["k"] * 5000) + '" = [1.0]\n',
+                 encoding="utf-8")
+    assert main(["sweep", str(q), "--quiet"]) == 2
+    err = capsys.readouterr().err
+    assert "dotted key" in err and "5001 parts" in err and len(err) < 2000

@@ -71,7 +71,10 @@ def test_same_scenario_and_seed_give_bit_identical_files(tmp_path):
     c = files(tmp_path / "c")
     assert c["montecarlo.csv"] != a["montecarlo.csv"]
     # the prediction does not depend on the seed (its header names the other scenario file)
-    assert c["prediction.csv"].split(b"\n", 1)[1] == a["prediction.csv"].split(b"\n", 1)[1]
+    def data(text):
+        return [ln for ln in text.split(b"\n") if not ln.startswith(b"#")]
+
+    assert data(c["prediction.csv"]) == data(a["prediction.csv"])
 
 
 def test_every_output_records_version_and_settings(tmp_path):
@@ -79,13 +82,13 @@ def test_every_output_records_version_and_settings(tmp_path):
     assert main(["run", str(p), "--quiet"]) == 0
     out = tmp_path / "out"
     for name in ("prediction.csv", "montecarlo.csv"):
-        head = (out / name).read_text().splitlines()[0]
+        head = (out / name).read_text().splitlines()[1]  # the metadata line after the column names
         meta = json.loads(head.split("; ", 1)[1])
         assert meta["version"] == __version__ and meta["dt_ms"] == 0.1 and meta["t_end_ms"] == 60.0
         assert meta["record_interval_ms"] == 1.0 and "wall_time_s" not in meta["settings"]
-    pred_meta = json.loads((out / "prediction.csv").read_text().splitlines()[0].split("; ", 1)[1])
+    pred_meta = json.loads((out / "prediction.csv").read_text().splitlines()[1].split("; ", 1)[1])
     assert {"n_bins", "max_age_ms", "accuracy_warnings", "method"} <= set(pred_meta["settings"])
-    mc_meta = json.loads((out / "montecarlo.csv").read_text().splitlines()[0].split("; ", 1)[1])
+    mc_meta = json.loads((out / "montecarlo.csv").read_text().splitlines()[1].split("; ", 1)[1])
     assert mc_meta["settings"]["seed"] == 11 and mc_meta["settings"]["burn_in_ms"] > 0
     summary = json.loads((out / "summary.json").read_text())
     assert summary["version"] == __version__

@@ -13,7 +13,7 @@ from pathlib import Path
 import pytest
 
 from popdens._files import stale_temporaries
-from popdens.cli import EXIT_TERMINATED, main
+from popdens.cli import EXIT_INTERRUPTED, EXIT_TERMINATED, main
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -77,6 +77,32 @@ def test_sigterm_is_handled_like_ctrl_c(tmp_path):
     assert time.monotonic() - t0 < 30.0  # measured: under 1 s to the message (DEVELOPERS.md)
     assert not (tmp_path / "out").exists()
     assert hidden(tmp_path) == []
+
+
+@pytest.mark.parametrize("signum,code", [(signal.SIGTERM, EXIT_TERMINATED), (signal.SIGINT, EXIT_INTERRUPTED)])
+def test_a_signal_during_first_use_compilation_ends_the_run_promptly(tmp_path, signum, code):
+    """Regression: SIGTERM while numba compiled was lost (raised inside an LLVM callback) or ended in
+    a RuntimeError traceback; the run went on until compilation ended (> 90 s)."""
+    (tmp_path / "long.toml").write_text(LONG, encoding="utf-8")
+    env = {**os.environ, "PYTHONPATH": str(ROOT) + os.pathsep + os.environ.get("PYTHONPATH", ""),
+           "NUMBA_CACHE_DIR": str(tmp_path / "cold-cache")}  # an empty cache: every kernel compiles
+    env.pop("POPDENS_QUIET_COMPILE", None)
+    proc = subprocess.Popen([sys.executable, "-m", "popdens", "run", str(tmp_path / "long.toml"), "--quiet"],
+                            env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    seen = ""
+    while "compiling refractory._advance" not in seen:  # the longest kernel of this run (seconds)
+        line = proc.stderr.readline()
+        assert line, seen + proc.communicate()[1]
+        seen += line
+    time.sleep(0.1)  # inside that compilation
+    t0 = time.monotonic()
+    proc.send_signal(signum)
+    out, err = proc.communicate(timeout=60)
+    latency = time.monotonic() - t0
+    assert proc.returncode == code, err
+    assert "while compiling; no partial output was kept" in err and "Traceback" not in err, err
+    assert latency < 10.0  # measured: 0.1 s (DEVELOPERS.md, "Responsive long runs")
+    assert not (tmp_path / "out").exists() and hidden(tmp_path) == []
 
 
 def test_the_next_run_removes_what_a_killed_run_left(tmp_path):

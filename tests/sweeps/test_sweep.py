@@ -228,7 +228,7 @@ def test_transfer_sweep_equals_direct_calls(tmp_path):
     import popdens
 
     f = np.array([0.0, 5.0, 50.0])
-    x, amp = res.curves("transfer_amplitude_hz_per_mv")
+    x, amp = res.curves("transfer_amplitude_Hz_per_mV")
     _, ph = res.curves("transfer_phase_deg")
     assert x.tolist() == f.tolist()
     for i, p in enumerate(res.points):
@@ -248,7 +248,7 @@ def test_gain_sweeps_match_renewal_theory_and_the_siegert_formula(tmp_path):
     text = SCENARIO.replace("[sweep]", '[sweep]\nanalysis = "gain"')
     sc = parse_scenario(__import__("tomllib").loads(text), tmp_path / "g.toml")
     res = run_sweep_scenario(sc, tmp_path / "g", backend="serial", figures=False)
-    for p, r in zip(res.points, res.values("rate_hz").ravel()):
+    for p, r in zip(res.points, res.values("rate_Hz").ravel()):
         ref = renewal_rate_hz(10.0, 20.0, 0.0, 2.0, 20.0, p["noise.hazard.width"], p["input.mu"])
         assert r == pytest.approx(ref, rel=1e-6)
     # gain curves across noise levels, white-noise LIF
@@ -258,8 +258,8 @@ def test_gain_sweeps_match_renewal_theory_and_the_siegert_formula(tmp_path):
         '"noise.sigma" = [2.0, 5.0]\n'
     sc = parse_scenario(__import__("tomllib").loads(white), tmp_path / "w.toml")
     res = run_sweep_scenario(sc, tmp_path / "w", backend="serial")
-    mus, rates = res.curves("rate_hz")
-    assert (tmp_path / "w" / "figures" / "rate_hz.png").stat().st_size > 0
+    mus, rates = res.curves("rate_Hz")
+    assert (tmp_path / "w" / "figures" / "rate_Hz.png").stat().st_size > 0
     from scipy.special import erfcx
 
     for i, sigma in enumerate((2.0, 5.0)):
@@ -281,7 +281,7 @@ def test_cli_sweep_exit_codes_outputs_and_resume(tmp_path, capsys):
     assert main(["sweep", str(p), "--workers", "1", "--quiet"]) == 0
     out = tmp_path / "swept"
     assert (out / "results.csv").stat().st_size > 0 and len(list((out / "points").glob("*.json"))) == 4
-    assert (out / "figures" / "final_rate_hz.png").stat().st_size > 0  # a heat map over the 2-D grid
+    assert (out / "figures" / "final_rate_Hz.png").stat().st_size > 0  # a heat map over the 2-D grid
     assert "4 points (4 computed now, 0 failed)" in capsys.readouterr().out
     assert main(["sweep", str(p), "--workers", "1", "--quiet"]) == 2
     assert "resume it or overwrite it" in capsys.readouterr().err
@@ -310,19 +310,19 @@ def test_same_scenario_sweep_on_serial_process_pool_and_dask_is_identical(tmp_pa
     # the numbers themselves: the stationary rate from renewal theory (scipy quadrature); the
     # solver starts stationary under a constant drive, so its final rate is that rate
     for (mu, width), rate in zip([(m, w) for m in (15.0, 18.0) for w in (2.0, 3.0)],
-                                 serial.values("final_rate_hz").ravel()):
+                                 serial.values("final_rate_Hz").ravel()):
         ref = renewal_rate_hz(10.0, 20.0, 0.0, 2.0, 20.0, width, mu)
         assert rate == pytest.approx(ref, rel=2e-3)
     # Monte Carlo twin with N = 3000 over 40 ms: Poisson standard error of the mean rate
     # sqrt(r / (N T)); renewal counts with CV < 1 vary less, so 5 SE is a loose bound (common practice)
-    pred = serial.values("mean_rate_hz").ravel()
-    mc = serial.values("montecarlo_mean_rate_hz").ravel()
+    pred = serial.values("mean_rate_Hz").ravel()
+    mc = serial.values("montecarlo_mean_rate_Hz").ravel()
     se = np.sqrt(pred / (3000 * 0.040))
     assert np.all(np.abs(mc - pred) <= 5 * se)
     # different seeds give different Monte Carlo numbers (the seed reaches the point)
     other = sweep(plan_sweep(sc).point, plan_sweep(sc).points, seed=4, backend="serial", figures=False)
-    assert not np.array_equal(other.values("montecarlo_mean_rate_hz"), serial.values("montecarlo_mean_rate_hz"))
-    assert np.array_equal(other.values("final_rate_hz"), serial.values("final_rate_hz"))
+    assert not np.array_equal(other.values("montecarlo_mean_rate_Hz"), serial.values("montecarlo_mean_rate_Hz"))
+    assert np.array_equal(other.values("final_rate_Hz"), serial.values("final_rate_Hz"))
 
 
 @pytest.mark.parametrize("backend", ["serial", "processes", "dask"])

@@ -484,3 +484,18 @@ def test_stationary_states_report_an_error_estimate_that_bounds_the_error():
     ref = renewal_rate(lif_escape(), 17.0)
     assert esc.diagnostics["rate_error_hz"] <= 1e-6 * ref
     assert abs(esc.rate / ref - 1.0) < 1e-6
+
+
+def test_gain_takes_a_list_of_noise_levels_as_scenario_files_do():
+    """One curve per noise level, each the Siegert formula by scipy quadrature (Siegert 1951)."""
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(4.0))
+    mu = np.array([12.0, 18.0, 24.0])
+    rates = popdens.gain(pop, mu, sigma=[2.0, 5.0])
+    assert rates.shape == (2, 3)
+    from references import siegert_rate
+
+    for s, row in zip((2.0, 5.0), rates):
+        at_s = popdens.Population(pop.neuron, popdens.WhiteNoise(s))
+        np.testing.assert_allclose(row, [siegert_rate(at_s, m) for m in mu], rtol=1e-7)
+    with pytest.raises(ValueError, match="`sigma`"):
+        popdens.gain(pop, mu, sigma=[])
