@@ -7,7 +7,7 @@ The package is layered, bottom to top (each layer imports only from those
 below it; ``tests/test_layering.py`` enforces it): the shared ground floor
 (``_version``, ``exceptions``, ``_validation``, ``_files``, ``progress``,
 ``plotting``, ``result``), then ``model``, ``theory``, ``solvers``,
-``twins``, ``network``, ``sweeps``, ``scenario`` and the command line.
+``twins``, ``fitting``, ``network``, ``sweeps``, ``scenario`` and the command line.
 This module only re-exports the public names, importing each on first use.
 """
 
@@ -56,6 +56,11 @@ _LAZY = {
     "stationary": "theory.steady_state",
     "montecarlo": "twins.population",
     "Agreement": "twins.agreement", "agreement": "twins.agreement",
+    "Calibration": "fitting.bridge", "calibrate_escape": "fitting.bridge",
+    "GainCurve": "fitting.data", "SpikeTrains": "fitting.data", "load_gain_curve": "fitting.data",
+    "load_spike_trains": "fitting.data", "load_stimulus": "fitting.data",
+    "FitResult": "fitting.estimate", "fit_gain": "fitting.gain_curve", "fit_isi": "fitting.isi",
+    "fit_psth": "fitting.psth",
 }
 
 
@@ -67,6 +72,7 @@ __all__ = [
     "Agreement",
     "BifurcationDiagram",
     "BoundaryCurves",
+    "Calibration",
     "Circuit",
     "CircuitResult",
     "Cohort",
@@ -77,7 +83,9 @@ __all__ = [
     "EIF",
     "EscapeNoise",
     "ExpressionError",
+    "FitResult",
     "FixedPoint",
+    "GainCurve",
     "LIF",
     "MovingThreshold",
     "PIF",
@@ -89,6 +97,7 @@ __all__ = [
     "Result",
     "ScenarioError",
     "ShotNoise",
+    "SpikeTrains",
     "Stability",
     "StabilityMap",
     "SteadyState",
@@ -99,9 +108,13 @@ __all__ = [
     "agreement",
     "bifurcation_diagram",
     "boundary_curves",
+    "calibrate_escape",
     "drive",
     "drive_and_noise_for",
     "drive_for_rate",
+    "fit_gain",
+    "fit_isi",
+    "fit_psth",
     "fixed_points",
     "gain",
     "gain_slope",
@@ -109,7 +122,10 @@ __all__ = [
     "hazard",
     "high_frequency_limit",
     "linear_rate_response",
+    "load_gain_curve",
     "load_result",
+    "load_spike_trains",
+    "load_stimulus",
     "load_sweep",
     "montecarlo",
     "montecarlo_network",

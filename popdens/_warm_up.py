@@ -130,6 +130,19 @@ def _finite_size():
     popdens.simulate(esc, 16.0, t_end=1.0, dt=0.1, n=10, seed=1, burn_in=0.0, progress=False)
 
 
+def _fitting():
+    import popdens
+    from popdens.fitting import isi_loglik, psth_loglik
+
+    esc, white, *_ = _populations()
+    trains = popdens.SpikeTrains([[1.0, 30.0, 70.0]], duration=100.0)
+    psth_loglik(esc, trains, 16.0, dt=0.1)
+    adapting = popdens.Population(popdens.LIF(tau_m=10.0, threshold=20.0, reset=10.0, refractory=2.0,
+                                              adaptation=[popdens.Adaptation(tau=50.0, jump=1.0)]), esc.noise)
+    psth_loglik(adapting, trains, 16.0, dt=0.1, history=0.0)
+    isi_loglik(white, [20.0 + k for k in range(10)], mu=18.0)
+
+
 #: Warm-up problems by name, each reaching a group of kernels (tiny sizes: their run time is negligible).
 TASKS: dict[str, Callable[[], None]] = {
     "adapting": _adapting,
@@ -137,6 +150,7 @@ TASKS: dict[str, Callable[[], None]] = {
     "escape theory": _escape_theory,
     "escape twin": _escape_twin,
     "finite size": _finite_size,
+    "fitting": _fitting,
     "network": _network,
     "synaptic input": _synaptic,
     "white solver": _white_solver,

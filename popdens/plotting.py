@@ -6,9 +6,10 @@ from __future__ import annotations
 import numpy as np
 
 __all__ = ["axis_label", "save_figure", "plot_agreement", "plot_bifurcation_diagram", "plot_boundary_curves",
-           "plot_circuit_comparison", "plot_circuit_rates", "plot_comparison", "plot_density_map", "plot_finite_circuit",
-           "plot_gain", "plot_isi", "plot_rate", "plot_rate_spectrum", "plot_spectra", "plot_stability_map",
-           "plot_steady_state", "plot_sweep_curves", "plot_sweep_line", "plot_sweep_map", "plot_transfer", "plot_trials"]
+           "plot_calibration", "plot_circuit_comparison", "plot_circuit_rates", "plot_comparison",
+           "plot_density_map", "plot_finite_circuit", "plot_fit", "plot_gain", "plot_isi", "plot_ks", "plot_rate",
+           "plot_rate_spectrum", "plot_spectra", "plot_stability_map", "plot_steady_state", "plot_sweep_curves",
+           "plot_sweep_line", "plot_sweep_map", "plot_transfer", "plot_trials"]
 
 
 def save_figure(fig, folder, stem: str) -> list[str]:
@@ -726,4 +727,86 @@ def plot_finite_circuit(finite, mean_field=None, spiking=None):
         ax.set_ylabel(f"{nm} rate (Hz)")
         ax.legend(frameon=False, fontsize=8, loc="upper right")
     axes[-1, 0].set_xlabel("time (ms)")
+    return fig
+
+
+# ---------------------------------------------------------------- fits
+def plot_ks(z_sorted, band, ax=None, title=None):
+    """Kolmogorov-Smirnov plot of time-rescaled intervals (Brown et al. 2002, Fig. 1).
+
+    Sorted ``z = 1 - exp(-tau)`` against the uniform quantiles ``(k - 1/2)/n``,
+    with the 95 % band ``+/- band`` around the diagonal.  Returns the Axes.
+    """
+    ax = _axes(ax)
+    z = np.asarray(z_sorted, dtype=float)
+    q = (np.arange(z.size) + 0.5) / z.size
+    ax.plot([0, 1], [0, 1], color="0.3", lw=1.0)
+    ax.fill_between([0, 1], [-band, 1 - band], [band, 1 + band], color="0.85", label="95 % band")
+    ax.plot(q, z, lw=1.6, label="rescaled intervals")
+    ax.set_xlim(0, 1)
+    ax.set_ylim(0, 1)
+    ax.set_xlabel("uniform quantile")
+    ax.set_ylabel("empirical CDF of z")
+    ax.set_title(title or "time-rescaling KS plot", fontsize="medium")
+    ax.legend(frameon=False, loc="upper left")
+    return ax
+
+
+def plot_fit(fit):
+    """The figure of a :class:`~popdens.fitting.estimate.FitResult`: data against the fitted model,
+    and the KS plot where there is one; returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    d = fit.plot_data
+    has_ks = "z_sorted" in d
+    fig, axes = plt.subplots(1, 2 if has_ks else 1, figsize=(10.0 if has_ks else 6.0, 3.8),
+                             constrained_layout=True, squeeze=False)
+    ax = axes[0, 0]
+    params = ", ".join(f"{n} = {fit.estimates[n]:.4g} ± {fit.se[n]:.2g}" for n in fit.names)
+    if fit.kind == "isi":
+        isis = np.asarray(d["isis"])
+        top = float(np.quantile(isis, 0.995))
+        ax.hist(isis, bins=min(100, max(10, isis.size // 50)), range=(0, top), density=True, color="0.75",
+                label=f"data ({isis.size} ISIs)")
+        keep = np.asarray(d["model_t"]) <= top
+        ax.plot(np.asarray(d["model_t"])[keep], np.asarray(d["model_density"])[keep], lw=1.8, label="fitted model")
+        ax.set_xlabel("interspike interval (ms)")
+        ax.set_ylabel("ISI density (1/ms)")
+    elif fit.kind == "psth":
+        ax.stairs(d["observed"], d["edges"], color="0.55", label=f"observed ({d['n_trials']} trials, {d['bin']:g} ms bins)")
+        ax.plot(d["pred_t"][1:], d["pred_rate"][1:], lw=1.2, label="predicted (density solver)")
+        ax.set_xlabel("time (ms)")
+        ax.set_ylabel("rate (Hz)")
+    elif fit.kind == "gain":
+        ax.errorbar(d["drive"], d["rate"], yerr=d["se"], fmt="o", ms=4, color="0.3", label="measured ± SE")
+        ax.plot(d["model_drive"], d["model_rate"], lw=1.8, label="fitted gain")
+        ax.set_xlabel("drive (stimulus units)")
+        ax.set_ylabel("rate (Hz)")
+    ax.set_title(params, fontsize="small")
+    ax.legend(frameon=False, loc="best", fontsize="small")
+    if has_ks:
+        g = fit.goodness
+        plot_ks(d["z_sorted"], d["band_95"], ax=axes[0, 1],
+                title=f"KS {g['ks_statistic']:.3g}, p = {g['p_value']:.3g} ({g['n_intervals']} intervals)")
+    return fig
+
+
+def plot_calibration(cal):
+    """Stationary rate and CV of a white-noise population and its calibrated escape-noise stand-in
+    against the drive (a :class:`~popdens.fitting.bridge.Calibration`); returns the Figure."""
+    import matplotlib.pyplot as plt
+
+    rows = cal.table
+    mu = [r["mu"] for r in rows]
+    fig, (ax1, ax2) = plt.subplots(1, 2, figsize=(9.0, 3.5), constrained_layout=True)
+    ax1.plot(mu, [r["rate_white"] for r in rows], "o-", label="white noise")
+    ax1.plot(mu, [r["rate_escape"] for r in rows], "s--", label="calibrated escape noise")
+    ax1.set_xlabel("drive (mV)")
+    ax1.set_ylabel("rate (Hz)")
+    ax1.legend(frameon=False)
+    ax2.plot(mu, [r["cv_white"] for r in rows], "o-")
+    ax2.plot(mu, [r["cv_escape"] for r in rows], "s--")
+    ax2.set_xlabel("drive (mV)")
+    ax2.set_ylabel("ISI CV")
+    fig.suptitle(", ".join(f"{n} = {cal.fit.estimates[n]:.4g}" for n in cal.fit.names), fontsize="medium")
     return fig

@@ -131,6 +131,8 @@ def test_scenario_equals_script():
 def test_shipped_scenarios_run(tmp_path, path):
     local = tmp_path / path.name
     shutil.copy(path, local)
+    for data in SCENARIOS.glob("*_demo"):  # demo data read by [fit] tables
+        shutil.copytree(data, tmp_path / data.name)
     text = local.read_text()
     # reduced settings: fewer Monte Carlo neurons, a shorter network run and a coarser stability map
     import re

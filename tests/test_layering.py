@@ -20,6 +20,7 @@ LAYERS = (
     ("popdens.theory",),
     ("popdens.solvers",),
     ("popdens.twins",),
+    ("popdens.fitting",),
     ("popdens.network",),
     ("popdens.sweeps",),
     ("popdens.scenario",),

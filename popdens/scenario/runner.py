@@ -125,6 +125,7 @@ def run_scenario(scenario: Scenario, output: str | Path | None = None, *, overwr
 CAPTIONS = {"gain": "Gain function: stationary rate against mean drive",
             "stationary": "Stationary interspike-interval densities",
             "transfer": "Transfer function: magnitude and phase against frequency",
+            "fit": "Fit to recorded data: data against the fitted model, and the time-rescaling KS plot",
             "approximations": "Coloured noise: Monte Carlo twin against the white-noise approximation and the "
                               "effective boundary shift (rates, and each one's error against the twin)"}
 

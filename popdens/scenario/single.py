@@ -17,6 +17,7 @@ Top-level tables
                 (see :mod:`popdens.scenario.analyses`)
 ``[[cohort]]``, ``[[pathway]]``, ``[network]``  a network scenario instead (see
                 :mod:`popdens.scenario.network`)
+``[fit]``       fit the model to recorded data (see :mod:`popdens.scenario.fit`)
 ``[sweep]``     optional: values to sweep and the analysis; checked by :mod:`popdens.scenario.sweep`
 
 ``[neuron]`` and ``[noise]`` are required, and at least one analysis: a
@@ -44,6 +45,7 @@ from ..model.synaptic import ColouredNoise
 from ..solvers._recording import make_grid
 from ._schema import build, check_keys, err, flatten, model_params, number, parse_meta, select
 from .analyses import ANALYSIS_TABLES, parse_analyses
+from .fit import parse_fit
 
 __all__ = ["Scenario", "parse_population", "parse_single_scenario"]
 
@@ -80,7 +82,7 @@ RUN_KEYS = {"t_end", "dt", "record_interval", "snapshot_interval", "montecarlo_n
 DEFAULT_TRIALS = 10
 #: Most realisations of a finite population in a scenario.
 MAX_TRIALS = 100_000
-TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run", "sweep"} | set(ANALYSIS_TABLES)
+TOP_LEVEL = {"scenario", "neuron", "noise", "input", "run", "sweep", "fit"} | set(ANALYSIS_TABLES)
 #: Largest accepted number of Monte Carlo neurons in a scenario.
 MAX_NEURONS = 10_000_000
 #: Largest accepted number of time steps in a scenario: the solvers keep three
@@ -188,9 +190,10 @@ def parse_single_scenario(data: dict, source: str | Path = "<scenario>") -> Scen
     if ("input" in data) != ("run" in data):
         missing = "run" if "input" in data else "input"
         raise ScenarioError(f"{src}: missing table `{missing}`: a time-domain run needs both [input] and [run]")
-    if "run" not in data and not any(k in data for k in ANALYSIS_TABLES):
+    if "run" not in data and not any(k in data for k in (*ANALYSIS_TABLES, "fit")):
         raise ScenarioError(f"{src}: nothing to compute: add the tables `input` and `run` for a time-domain "
-                            f"run, or one of the analysis tables {', '.join('`' + k + '`' for k in ANALYSIS_TABLES)}")
+                            f"run, or one of the analysis tables "
+                            f"{', '.join('`' + k + '`' for k in (*ANALYSIS_TABLES, 'fit'))}")
     title, out_path = parse_meta(src, data)
     population = parse_population(src, data["neuron"], data["noise"])
     noise = population.noise
@@ -201,6 +204,8 @@ def parse_single_scenario(data: dict, source: str | Path = "<scenario>") -> Scen
                             "with the twin: it needs [noise] kind = 'coloured'")
     if "approximations" in data and noise.constant_sigma() is None:  # pragma: no cover - scenario sigma is a number
         raise ScenarioError(f"{src}: [approximations] needs a constant [noise] `sigma`")
+    if "fit" in data:
+        analyses = (*analyses, ("fit", parse_fit(src, data["fit"])))
     digest = hashlib.sha256(repr(sorted(flatten(data))).encode()).hexdigest()[:16]
     if "run" not in data:
         return Scenario(source=Path(src), title=title, output=out_path, population=population, drive=None,

@@ -1,0 +1,160 @@
+"""Named model parameters: which ones a fit frees, and the population they give.
+
+A fit names each free parameter as the model does: a neuron parameter
+(``tau_m``, ``threshold``, ``reset``, ``refractory``, ``rest``...), an escape
+function's (``rate``, ``width``, ``slope``, ``max_rate``, ``c1``...), the
+white-noise ``sigma``, or a drive parameter of the fit (``mu`` for a
+constant drive; ``scale`` and ``offset`` mapping a stimulus to the drive,
+``scale * stimulus + offset``).  Positive quantities are optimised on a log
+scale.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .. import _validation as v
+from ..model.hazard import CustomEscape
+from ..model.neurons import CustomNeuron
+from ..model.noise import EscapeNoise, Population, WhiteNoise
+
+__all__ = ["ParameterSet", "UNITS"]
+
+#: Unit of every parameter name a fit accepts.
+UNITS = {
+    "tau_m": "ms", "threshold": "mV", "reset": "mV", "refractory": "ms", "rest": "mV", "soft_threshold": "mV",
+    "slope_factor": "mV", "cutoff": "mV", "critical": "mV",
+    "rate": "Hz", "width": "mV", "slope": "Hz/mV", "max_rate": "Hz", "sigma": "mV", "tau": "ms",
+    "c1": "1", "c2": "1", "mu": "mV", "scale": "mV per stimulus unit", "offset": "mV",
+}
+#: Parameters that must stay positive (fitted as logarithms).
+POSITIVE = {"tau_m", "refractory", "slope_factor", "rate", "width", "slope", "max_rate", "sigma", "tau", "c1", "c2"}
+
+
+def _init_names(obj) -> list:
+    """The constructor's parameter names of an escape function (its ``parameters()`` keys that are arguments)."""
+    import inspect
+
+    args = inspect.signature(type(obj).__init__).parameters
+    return [k for k in obj.parameters() if k in args]
+
+
+@dataclass(frozen=True)
+class ParameterSet:
+    """The free parameters of a fit and how to turn their values into a model.
+
+    Parameters
+    ----------
+    population : Population
+        The model; its parameter values are the fixed ones.
+    free : sequence of str or mapping
+        Names to fit, or ``{name: start}`` / ``{name: (low, high)}`` (start at
+        the middle; the range bounds the search).
+    drive_names : tuple of str
+        Drive parameters this fit knows (e.g. ``("mu",)``) with their
+        defaults in ``drive_values``.
+    """
+
+    population: Population
+    names: tuple
+    start: np.ndarray
+    bounds: tuple
+    drive_values: dict
+
+    @classmethod
+    def make(cls, population, free, drive_values):
+        if not isinstance(population, Population):
+            raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
+        if isinstance(population.neuron, CustomNeuron):
+            raise ValueError("fitting a CustomNeuron is not supported: write the model as LIF, EIF, QIF or PIF")
+        noise = population.noise
+        if isinstance(noise, EscapeNoise) and isinstance(noise.hazard, CustomEscape):
+            raise ValueError("fitting a CustomEscape is not supported: use a built-in escape function")
+        if isinstance(noise, WhiteNoise) and not isinstance(noise.sigma, (int, float)):
+            raise ValueError("fitting needs a constant white-noise `sigma` (mV)")
+        current = cls.current_values(population, drive_values)
+        if isinstance(free, str):
+            free = [free]
+        items = list(free.items()) if isinstance(free, dict) else [(n, None) for n in free]
+        if not items:
+            raise ValueError("`free` names no parameter to fit")
+        names, start, bounds = [], [], []
+        for name, spec in items:
+            if name not in current:
+                raise ValueError(f"`free`: {name!r} is not a parameter of this model; choose from {sorted(current)}")
+            if name in names:
+                raise ValueError(f"`free`: {name!r} appears twice")
+            lo, hi = -math.inf, math.inf
+            if spec is None:
+                x0 = current[name]
+            elif isinstance(spec, (tuple, list)):
+                if len(spec) != 2:
+                    raise ValueError(f"`free[{name!r}]` must be a start value or a (low, high) range, got {spec!r}")
+                lo, hi = v.as_finite_float(f"free[{name!r}][0]", spec[0]), v.as_finite_float(f"free[{name!r}][1]", spec[1])
+                v.less_than(f"free[{name!r}][0]", lo, f"free[{name!r}][1]", hi)
+                x0 = math.sqrt(lo * hi) if name in POSITIVE and lo > 0 else 0.5 * (lo + hi)
+            else:
+                x0 = v.as_finite_float(f"free[{name!r}]", spec)
+            if name in POSITIVE:
+                if x0 <= 0:
+                    raise ValueError(f"`free[{name!r}]`: the start value must be > 0, got {x0!r}")
+                lo = max(lo, 0.0)
+            names.append(name)
+            start.append(float(x0))
+            bounds.append((lo, hi))
+        return cls(population, tuple(names), np.array(start), tuple(bounds), dict(drive_values))
+
+    @staticmethod
+    def current_values(population, drive_values) -> dict:
+        out = {}
+        for k, val in population.neuron.parameters().items():
+            if k != "adaptation":
+                out[k] = float(val)
+        if isinstance(population.noise, EscapeNoise):
+            for k in _init_names(population.noise.hazard):
+                out[k] = float(population.noise.hazard.parameters()[k])
+        else:
+            out["sigma"] = float(population.noise.sigma)
+        out.update({k: float(val) for k, val in drive_values.items()})
+        return out
+
+    # -- transformed coordinates (log for positive parameters) --------------------
+    def to_z(self, x) -> np.ndarray:
+        return np.array([math.log(xi) if n in POSITIVE else xi for n, xi in zip(self.names, x)])
+
+    def from_z(self, z) -> np.ndarray:
+        return np.array([math.exp(min(zi, 700.0)) if n in POSITIVE else zi for n, zi in zip(self.names, z)])
+
+    def z_bounds(self):
+        out = []
+        for n, (lo, hi) in zip(self.names, self.bounds):
+            if n in POSITIVE:
+                out.append((math.log(lo) if lo > 0 else None, math.log(hi) if math.isfinite(hi) else None))
+            else:
+                out.append((lo if math.isfinite(lo) else None, hi if math.isfinite(hi) else None))
+        return out
+
+    def values(self, x) -> dict:
+        """All parameter values (fixed and free) with the free ones set to ``x``."""
+        vals = self.current_values(self.population, self.drive_values)
+        vals.update(dict(zip(self.names, (float(xi) for xi in x))))
+        return vals
+
+    def build(self, x):
+        """``(population, drive_values)`` at free values ``x``; ``ValueError`` if the model rejects them."""
+        vals = self.values(x)
+        nrn = self.population.neuron
+        kw = {k: vals[k] for k in nrn.parameters() if k != "adaptation"}
+        if nrn.adaptation:
+            kw["adaptation"] = list(nrn.adaptation)
+        nrn_new = type(nrn)(**kw)
+        noise = self.population.noise
+        if isinstance(noise, EscapeNoise):
+            hz = noise.hazard
+            noise_new = EscapeNoise(type(hz)(**{k: vals[k] for k in _init_names(hz)}))
+        else:
+            noise_new = WhiteNoise(vals["sigma"])
+        return Population(nrn_new, noise_new), {k: vals[k] for k in self.drive_values}

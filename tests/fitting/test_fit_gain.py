@@ -1,0 +1,55 @@
+"""Gain-curve fits: weighted least squares with the exact gain function."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy.optimize import curve_fit
+from scipy.special import erfcx
+from scipy.integrate import quad
+
+import popdens
+from popdens import GainCurve
+
+
+def _siegert_hz(mu, sigma, tau=20.0, theta=20.0, reset=10.0, ref=2.0):
+    # Siegert formula (Siegert 1951; Brunel & Hakim 1999) by scipy quadrature of the scaled erfc
+    lo, hi = (reset - mu) / sigma, (theta - mu) / sigma
+    integral = quad(lambda x: erfcx(-x), lo, hi, limit=200)[0]
+    return 1000.0 / (ref + tau * np.sqrt(np.pi) * integral)
+
+
+def test_gain_fit_recovers_noise_and_offset_and_matches_scipy_curve_fit():
+    # a curve computed with the Siegert formula plus Gaussian noise of known SE (5 % + 0.2 Hz):
+    # estimates within 3 SE, chi-square per degree of freedom within its 99 % range for 28 dof,
+    # and the same estimates and SEs as scipy's curve_fit (absolute_sigma) on the same data
+    rng = np.random.default_rng(5)
+    drive = np.linspace(12.0, 30.0, 30)
+    true = np.array([_siegert_hz(m + 1.5, 4.0) for m in drive])
+    se = 0.05 * true + 0.2
+    rates = np.abs(true + se * rng.standard_normal(drive.size))
+    curve = GainCurve(drive, rates, se)
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(3.0))
+    fit = popdens.fit_gain(pop, curve, ["sigma", "offset"], offset=0.0, profile=True)
+    assert abs(fit.estimates["sigma"] - 4.0) < 3 * fit.se["sigma"]
+    assert abs(fit.estimates["offset"] - 1.5) < 3 * fit.se["offset"]
+    assert 0.45 < fit.goodness["chi2_per_dof"] < 1.8  # chi2(28): 1 % and 99 % quantiles / 28
+    popt, pcov = curve_fit(lambda m, s, o: np.array([_siegert_hz(x + o, s) for x in m]), drive, rates,
+                           p0=[3.5, 1.0], sigma=se, absolute_sigma=True)
+    # the Newton steps stop within 2 % of a standard error of the maximum
+    assert abs(fit.estimates["sigma"] - popt[0]) < 0.03 * fit.se["sigma"]
+    assert abs(fit.estimates["offset"] - popt[1]) < 0.03 * fit.se["offset"]
+    assert fit.se["sigma"] == pytest.approx(np.sqrt(pcov[0, 0]), rel=0.02)
+    assert fit.se["offset"] == pytest.approx(np.sqrt(pcov[1, 1]), rel=0.02)
+    # near-Gaussian likelihood: the profile interval is close to the Wald interval
+    for name in ("sigma", "offset"):
+        lo, hi = fit.profile[name]
+        wlo, whi = fit.interval(name)
+        assert abs(lo - wlo) < 0.1 * (whi - wlo) and abs(hi - whi) < 0.1 * (whi - wlo)
+    assert len(fit.plot().axes) == 1
+
+
+def test_gain_fit_needs_more_points_than_parameters():
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(3.0))
+    with pytest.raises(ValueError, match="more points"):
+        popdens.fit_gain(pop, GainCurve([15.0, 20.0], [2.0, 8.0], [0.5, 0.5]), ["sigma", "offset"])
