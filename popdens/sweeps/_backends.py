@@ -290,6 +290,17 @@ NO_WORKER_TIMEOUT = 120.0
 WORKER_CHECK_INTERVAL = 2.0
 
 
+def _host_port_ok(rest: str) -> bool:
+    """``host``, ``host:port`` or ``[ipv6]:port`` with a non-empty host and a numeric port."""
+    if rest.startswith("["):
+        host, sep, tail = rest[1:].partition("]")
+        return bool(host) and bool(sep) and (tail == "" or (tail.startswith(":") and tail[1:].isdigit()))
+    if ":" not in rest:
+        return bool(rest) and "/" not in rest
+    host, _, port = rest.rpartition(":")
+    return bool(host) and ":" not in host and port.isdigit()
+
+
 def dask_connect(workers: int, scheduler: str | None):
     """``(client, cluster)`` for a Dask sweep, connected before anything is written.
 
@@ -310,6 +321,11 @@ def dask_connect(workers: int, scheduler: str | None):
         # been seen to hang instead of raising
         raise ConnectionError(f"cannot reach the Dask scheduler at {scheduler!r}: unknown address scheme "
                               f"{scheme!r} (expected one of {', '.join(s + '://' for s in KNOWN_SCHEMES)})")
+    rest = scheduler.split("://", 1)[1] if "://" in scheduler else scheduler
+    if scheme in ("tcp", "tls", "ws", "wss") and not _host_port_ok(rest):
+        # checked here: distributed's own reaction to a malformed address differs between its versions
+        raise ConnectionError(f"cannot reach the Dask scheduler at {scheduler!r}: invalid address "
+                              "(expected host:port, e.g. tcp://10.0.0.5:8786)")
     try:
         client = distributed.Client(scheduler, timeout=CONNECT_TIMEOUT)
     except Exception as exc:  # OSError (no answer), ValueError (scheme), TypeError (tls without a context)
