@@ -13,6 +13,7 @@ def test_arrays_are_kept_in_ms_and_seconds_are_converted():
     assert sp.n_trials == 2 and sp.n_spikes == 4 and sp.duration == 100.0
     np.testing.assert_array_equal(sp.isis(), [29.0, 45.5])
     sec = SpikeTrains([[0.001, 0.030, 0.0755]], duration=0.1, unit="s")
+    # unit conversion s -> ms by hand (x 1000; common practice)
     np.testing.assert_allclose(sec.trains[0], [1.0, 30.0, 75.5])
     assert sec.duration == pytest.approx(100.0)
 

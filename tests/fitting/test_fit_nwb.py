@@ -37,6 +37,7 @@ def test_nwb_units_and_stimulus_give_the_same_fit_as_the_arrays(tmp_path):
 
     loaded = popdens.load_spike_trains(path, duration=2.0)  # seconds, the file's unit
     stim_loaded = popdens.load_stimulus(path, name="drive")
+    # round trip through a file written by pynwb: the same data and the same fit as the arrays (common practice)
     assert loaded.n_trials == 10 and loaded.duration == pytest.approx(2000.0)
     for a, b in zip(loaded.trains, trains):
         np.testing.assert_allclose(a, b, rtol=1e-12, atol=1e-9)

@@ -78,6 +78,7 @@ def test_transfer_table_writes_the_same_numbers_as_the_api(tmp_path, capsys):
     sc = load_scenario(p)
     chi = popdens.transfer(sc.population, 18.0, [2.0, 30.0, 200.0])
     # the scenario and the equivalent script give identical numbers (12 significant digits written)
+    # round trip: the written table against popdens.transfer called directly (common practice)
     np.testing.assert_allclose(table[:, 1] + 1j * table[:, 2], chi, rtol=1e-11)
     summary = json.loads((out / "summary.json").read_text())
     assert summary["transfer"]["frequencies"] == 3

@@ -46,6 +46,7 @@ def test_finite_population_scenario_equals_the_script(tmp_path):
     names = lines[0].split(",")
     data = dict(zip(names, np.loadtxt(lines[1:], delimiter=",").T))
     ref = popdens.simulate(sc.population, sc.drive, 200.0, n=100, trials=3, seed=4, record_interval=1.0)
+    # round trip: the CSV against the same simulate() call in memory (common practice)
     np.testing.assert_allclose(data["trial_mean_Hz"], ref.trial_mean(), rtol=1e-10)
     assert "Finite population of 100 neurons" in (out / "report.html").read_text()
     assert json.loads((out / "summary.json").read_text())["settings"]["population_size"] == 100

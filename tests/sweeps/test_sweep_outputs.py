@@ -92,6 +92,7 @@ def test_prediction_tables_are_readable_by_numpy_and_pandas(tmp_path):
     res.to_csv(tmp_path / "p.csv")
     arr = np.genfromtxt(tmp_path / "p.csv", delimiter=",", names=True)
     assert arr.dtype.names == ("t_ms", "rate_Hz", "mean_u_mV", "refractory_fraction", "drive_mV")
+    # round trip: numpy and pandas read back what the sweep computed (common practice)
     np.testing.assert_allclose(arr["rate_Hz"], res.rate, rtol=1e-11)
     pd = pytest.importorskip("pandas")
     np.testing.assert_allclose(pd.read_csv(tmp_path / "p.csv", comment="#")["rate_Hz"], res.rate, rtol=1e-11)

@@ -4,7 +4,7 @@ An excitatory-inhibitory network: fixed point, stability and the spiking twin
 
 Two coupled cohorts of white-noise LIF neurons (2000 excitatory, 500 inhibitory, each neuron with
 200 excitatory and 50 inhibitory inputs).  The mean field gives the self-consistent rates and
-their linear stability; the coupled Fokker–Planck solvers give the time course from rest, and the
+their linear stability; the coupled Fokker–Planck solvers give the rates over time from rest, and the
 spiking network it describes is simulated for comparison.
 """
 
