@@ -275,6 +275,7 @@ class ApproximationCheck:
         """Columns: tau_syn (ms), twin rate and SE (Hz), white-noise and effective-boundary rates (Hz)."""
         from ..model.noise import Population, WhiteNoise
         from ..model.synaptic import ColouredNoise
+        from ..result import STATUS_INTERRUPTED
         from ..theory.steady_state import gain
         from ..twins.population import montecarlo
 
@@ -287,6 +288,8 @@ class ApproximationCheck:
             pop = Population(population.neuron, ColouredNoise(sigma, float(tau)))
             mc = montecarlo(pop, self.mu, t_end=self.t_end, n=self.neurons, seed=self.seed + i,
                             record_spikes=True, record_interval=self.t_end)
+            if mc.status == STATUS_INTERRUPTED:  # partial spike counts are not a rate
+                raise KeyboardInterrupt(mc.message)
             counts = np.bincount(mc.spike_ids, minlength=self.neurons) / (self.t_end * 1e-3)
             out["tau_syn_ms"].append(float(tau))
             out["twin_Hz"].append(float(counts.mean()))

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import inspect
 import logging
 import math
@@ -235,7 +236,8 @@ def simulate(population, drive, t_end, dt=None, *, n=None, seed=None, trials=Non
         res = _control_error(population, drive, grid, cls, options, initial, solver, res, refine, rtol, atol,
                              progress)
     except KeyboardInterrupt:
-        res.status, res.message = STATUS_INTERRUPTED, "interrupted by the user during the time-step error check"
+        res = dataclasses.replace(res, status=STATUS_INTERRUPTED,
+                                  message="interrupted by the user during the time-step error check")
         logger.warning(res.message)
     res.diagnostics.update(watch.times())  # every run, the error control's included
     return res
@@ -275,7 +277,10 @@ def _control_error(population, drive, grid, cls, options, initial, solver, res, 
     def run(g, label):
         with warnings.catch_warnings():  # a companion's own accuracy warnings are not the user's
             warnings.simplefilter("ignore", AccuracyWarning)
-            return _run(population, drive, g, cls, pinned, initial, progress, label)[1]
+            out = _run(population, drive, g, cls, pinned, initial, progress, label)[1]
+        if out.status == STATUS_INTERRUPTED:  # the user's Ctrl-C or SIGTERM, not a failed companion
+            raise KeyboardInterrupt(out.message)
+        return out
 
     jumps = dict(BoundarySamples(drive, grid).jumps)
     sigma_drive = getattr(population.noise, "sigma_drive", None)  # white or coloured noise

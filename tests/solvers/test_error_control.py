@@ -9,6 +9,7 @@ direct simulations in test_checks_vs_direct_simulation.py.
 
 from __future__ import annotations
 
+import dataclasses
 import warnings
 
 import numpy as np
@@ -82,3 +83,26 @@ def test_error_control_can_be_switched_off_and_bad_values_are_refused():
         popdens.simulate(ESCAPE, 15.0, 5.0, error_control="sometimes")
     with pytest.raises(ValueError, match="`rtol`"):
         popdens.simulate(ESCAPE, 15.0, 5.0, rtol=0.0)
+
+
+@pytest.mark.parametrize("dt", [None, 0.1], ids=["refine", "dt-given"])
+def test_an_interrupt_during_the_companion_run_is_reported_not_dropped(monkeypatch, dt):
+    """Regression: a Ctrl-C or SIGTERM that landed in the error check's companion run was taken for a
+    failed companion; the first run was returned as completed and the signal was lost (a scenario
+    then went on into its Monte Carlo run)."""
+    from popdens.result import STATUS_INTERRUPTED
+    from popdens.solvers import frontend
+
+    real, calls = frontend._run, []
+
+    def interrupted_companion(*args, **kwargs):
+        solver, res = real(*args, **kwargs)
+        calls.append(res.dt)
+        if len(calls) == 2:  # the companion: as if the user's signal arrived during it
+            res = dataclasses.replace(res, status=STATUS_INTERRUPTED, message="interrupted by the user at t = 0 ms")
+        return solver, res
+
+    monkeypatch.setattr(frontend, "_run", interrupted_companion)
+    res = popdens.simulate(ESCAPE, 16.0, 10.0, dt)
+    assert len(calls) == 2
+    assert res.status == STATUS_INTERRUPTED and "error check" in res.message
