@@ -3,7 +3,8 @@
 A fit names each free parameter as the model does: a neuron parameter
 (``tau_m``, ``threshold``, ``reset``, ``refractory``, ``rest``...), an escape
 function's (``rate``, ``width``, ``slope``, ``max_rate``, ``c1``...), the
-white-noise ``sigma``, or a drive parameter of the fit (``mu`` for a
+white-noise ``sigma``, the coloured-noise ``sigma`` and ``tau_syn``, the
+shot-noise input (``exc_rate``, ``exc_psp``, ``inh_rate``, ``inh_psp``), or a drive parameter of the fit (``mu`` for a
 constant drive; ``scale`` and ``offset`` mapping a stimulus to the drive,
 ``scale * stimulus + offset``).  Positive quantities are optimised on a log
 scale.
@@ -20,6 +21,8 @@ from .. import _validation as v
 from ..model.hazard import CustomEscape
 from ..model.neurons import CustomNeuron
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..model.shot import ShotNoise
+from ..model.synaptic import ColouredNoise
 
 __all__ = ["ParameterSet", "UNITS"]
 
@@ -29,9 +32,14 @@ UNITS = {
     "slope_factor": "mV", "cutoff": "mV", "critical": "mV",
     "rate": "Hz", "width": "mV", "slope": "Hz/mV", "max_rate": "Hz", "sigma": "mV", "tau": "ms",
     "c1": "1", "c2": "1", "mu": "mV", "scale": "mV per stimulus unit", "offset": "mV",
+    "tau_syn": "ms", "exc_rate": "Hz", "exc_psp": "mV", "inh_rate": "Hz", "inh_psp": "mV",
 }
 #: Parameters that must stay positive (fitted as logarithms).
-POSITIVE = {"tau_m", "refractory", "slope_factor", "rate", "width", "slope", "max_rate", "sigma", "tau", "c1", "c2"}
+POSITIVE = {"tau_m", "refractory", "slope_factor", "rate", "width", "slope", "max_rate", "sigma", "tau", "c1", "c2",
+            "tau_syn", "exc_rate", "exc_psp", "inh_rate", "inh_psp"}
+#: Numeric parameters of each diffusive noise model (the rest of the model is kept as it is).
+NOISE_PARAMETERS = {WhiteNoise: ("sigma",), ColouredNoise: ("sigma", "tau_syn"),
+                    ShotNoise: ("exc_rate", "exc_psp", "inh_rate", "inh_psp")}
 
 
 def _init_names(obj) -> list:
@@ -73,8 +81,8 @@ class ParameterSet:
         noise = population.noise
         if isinstance(noise, EscapeNoise) and isinstance(noise.hazard, CustomEscape):
             raise ValueError("fitting a CustomEscape is not supported: use a built-in escape function")
-        if isinstance(noise, WhiteNoise) and not isinstance(noise.sigma, (int, float)):
-            raise ValueError("fitting needs a constant white-noise `sigma` (mV)")
+        if isinstance(noise, (WhiteNoise, ColouredNoise)) and not isinstance(noise.sigma, (int, float)):
+            raise ValueError(f"fitting needs a constant noise `sigma` (mV), got {noise.sigma!r}")
         current = cls.current_values(population, drive_values)
         if isinstance(free, str):
             free = [free]
@@ -117,7 +125,8 @@ class ParameterSet:
             for k in _init_names(population.noise.hazard):
                 out[k] = float(population.noise.hazard.parameters()[k])
         else:
-            out["sigma"] = float(population.noise.sigma)
+            for k in NOISE_PARAMETERS[type(population.noise)]:
+                out[k] = float(getattr(population.noise, k))
         out.update({k: float(val) for k, val in drive_values.items()})
         return out
 
@@ -156,5 +165,8 @@ class ParameterSet:
             hz = noise.hazard
             noise_new = EscapeNoise(type(hz)(**{k: vals[k] for k in _init_names(hz)}))
         else:
-            noise_new = WhiteNoise(vals["sigma"])
+            # the same noise model (coloured and shot noise keep their kind and fixed settings)
+            from dataclasses import replace
+
+            noise_new = replace(noise, **{k: vals[k] for k in NOISE_PARAMETERS[type(noise)]})
         return Population(nrn_new, noise_new), {k: vals[k] for k in self.drive_values}
