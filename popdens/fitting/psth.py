@@ -59,7 +59,7 @@ def _history_steps(population, history, dt: float, duration: float) -> int:
         history = HISTORY_TAUS * max(a.tau for a in nrn.adaptation) if nrn.adaptation else 0.0
     history = v.non_negative("history", history)
     if history > 0.0 and not nrn.adaptation:
-        raise ValueError(f"`history` = {history:g} ms is for adapting neurons (it sets their adaptation); "
+        raise ValueError(f"`history` is for adapting neurons (it sets their adaptation), got {history:g} ms; "
                          "without adaptation every trial starts exactly at its first spike")
     if history >= duration:
         raise ValueError(f"`history` ({history:g} ms) must be shorter than the recording ({duration:g} ms): "
