@@ -148,7 +148,10 @@ def fit_psth(population, spikes: SpikeTrains, stimulus, free, *, dt=DEFAULT_DT, 
         stimulus + offset`` (mV).
     free : sequence of str or mapping
         Parameters to fit (see :class:`popdens.fitting.params.ParameterSet`),
-        e.g. ``["rate", "width", "refractory"]`` or ``{"offset": (0, 20)}``.
+        e.g. ``["rate", "width", "refractory"]`` or ``{"offset": (0, 20)}``;
+        for adapting neurons also ``"adaptation[k].jump"`` (mV),
+        ``"adaptation[k].tau"`` (ms) or ``"adaptation[k].coupling"`` of the
+        neuron's ``k``-th adaptation component (from 0).
     dt : float
         Likelihood time step (ms); must divide the trial duration and leave
         at most one spike per step of each trial.
@@ -170,6 +173,8 @@ def fit_psth(population, spikes: SpikeTrains, stimulus, free, *, dt=DEFAULT_DT, 
         The adaptation left by spikes before the recording decays as
         ``exp(-history / tau)``; ``history`` = 0 assumes none (each trial
         starts at its first spike with that spike's adaptation alone).
+        When an adaptation ``tau`` is free the default is set from its
+        start value.
 
     Returns
     -------
