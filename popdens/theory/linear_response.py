@@ -63,6 +63,7 @@ from ..model.hazard import CODE_LINEAR
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..model.synaptic import ColouredNoise
 from ..model.shot import ShotNoise
+from ..model.conductance import ConductanceNoise
 from ..progress import Progress
 
 __all__ = ["transfer", "response_kernel", "linear_rate_response", "laplace_to_freq", "stationary_rate",
@@ -520,9 +521,9 @@ def stationary_rate(population, mu) -> float:
 def _check_population(population):
     if not isinstance(population, Population):
         raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
-    if isinstance(population.noise, ShotNoise):
-        raise ValueError("the linear response and spectra of ShotNoise populations are not available yet; "
-                         "popdens.simulate with a small sinusoidal drive, or popdens.montecarlo, measure them")
+    if isinstance(population.noise, (ShotNoise, ConductanceNoise)):
+        raise ValueError(f"the linear response and spectra of {type(population.noise).__name__} populations are not "
+                         "available yet; popdens.montecarlo with a small sinusoidal drive measures them")
     if isinstance(population.noise, EscapeNoise) and population.noise.hazard.uses_slope:
         raise ValueError("the linear response does not support escape functions that depend on du/dt")
     return population
