@@ -53,6 +53,8 @@ EXPECTED_SECONDS = {
     "_renewal_adapting.adapted_renewal": 6.0,
     "_isi_markov._density": 2.0,
     "_shot.run_shot": 2.5,
+    "_conductance.run_conductance": 2.0,
+    "_conductance.conductance_sweep_rates": 2.4,
 }
 
 #: Environment variable that silences the compilation notices (the messages, not the timing).
