@@ -174,7 +174,7 @@ def fit_isi(population, data, free, *, mu, profile=False) -> FitResult:
     white = isinstance(population.noise, WhiteNoise)
     if not white and not isinstance(population.noise, EscapeNoise):
         raise ValueError(f"`population`: the ISI fit takes escape or white noise, got {type(population.noise).__name__}; "
-                         "its exact ISI density is not available for filtered (coloured) or shot-noise input "
+                         "its exact ISI density is not available for filtered (coloured), shot-noise or conductance input "
                          "(fit_gain takes them, with their gain functions)")
     if white and isinstance(free, (list, tuple)) and {"mu", "sigma"} <= set(free):
         start = _start_mu_sigma(population, isis)

@@ -4,7 +4,9 @@ A fit names each free parameter as the model does: a neuron parameter
 (``tau_m``, ``threshold``, ``reset``, ``refractory``, ``rest``...), an escape
 function's (``rate``, ``width``, ``slope``, ``max_rate``, ``c1``...), the
 white-noise ``sigma``, the coloured-noise ``sigma`` and ``tau_syn``, the
-shot-noise input (``exc_rate``, ``exc_psp``, ``inh_rate``, ``inh_psp``), an
+shot-noise input (``exc_rate``, ``exc_psp``, ``inh_rate``, ``inh_psp``), the
+conductance input (``exc_rate``, ``exc_weight``, ``exc_tau``, ``exc_reversal``
+and the ``inh_`` ones), an
 adaptation component's ``adaptation[k].jump``, ``adaptation[k].tau`` or
 ``adaptation[k].coupling`` (``k`` its place in the neuron's ``adaptation``
 list, from 0), or a drive parameter of the fit (``mu`` for a
@@ -24,6 +26,7 @@ import numpy as np
 from .. import _validation as v
 from ..model.hazard import CustomEscape
 from ..model.neurons import CustomNeuron
+from ..model.conductance import ConductanceNoise
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..model.shot import ShotNoise
 from ..model.synaptic import ColouredNoise
@@ -37,13 +40,17 @@ UNITS = {
     "rate": "Hz", "width": "mV", "slope": "Hz/mV", "max_rate": "Hz", "sigma": "mV", "tau": "ms",
     "c1": "1", "c2": "1", "mu": "mV", "scale": "mV per stimulus unit", "offset": "mV",
     "tau_syn": "ms", "exc_rate": "Hz", "exc_psp": "mV", "inh_rate": "Hz", "inh_psp": "mV",
+    "exc_weight": "leak conductance", "inh_weight": "leak conductance", "exc_tau": "ms", "inh_tau": "ms",
+    "exc_reversal": "mV", "inh_reversal": "mV",
 }
 #: Parameters that must stay positive (fitted as logarithms).
 POSITIVE = {"tau_m", "refractory", "slope_factor", "rate", "width", "slope", "max_rate", "sigma", "tau", "c1", "c2",
-            "tau_syn", "exc_rate", "exc_psp", "inh_rate", "inh_psp"}
+            "tau_syn", "exc_rate", "exc_psp", "inh_rate", "inh_psp", "exc_weight", "inh_weight", "exc_tau", "inh_tau"}
 #: Numeric parameters of each diffusive noise model (the rest of the model is kept as it is).
 NOISE_PARAMETERS = {WhiteNoise: ("sigma",), ColouredNoise: ("sigma", "tau_syn"),
-                    ShotNoise: ("exc_rate", "exc_psp", "inh_rate", "inh_psp")}
+                    ShotNoise: ("exc_rate", "exc_psp", "inh_rate", "inh_psp"),
+                    ConductanceNoise: ("exc_rate", "exc_weight", "exc_tau", "exc_reversal", "inh_rate", "inh_weight",
+                                       "inh_tau", "inh_reversal")}
 #: Names of adaptation parameters: ``adaptation[k].tau`` (ms), ``.jump`` (mV), ``.coupling`` (1).
 ADAPTATION_NAME = re.compile(r"^adaptation\[(\d+)\]\.(tau|jump|coupling)$")
 _ADAPTATION_UNITS = {"tau": "ms", "jump": "mV", "coupling": "1"}
@@ -151,7 +158,8 @@ class ParameterSet:
                 out[k] = float(population.noise.hazard.parameters()[k])
         else:
             for k in NOISE_PARAMETERS[type(population.noise)]:
-                out[k] = float(getattr(population.noise, k))
+                if getattr(population.noise, k) is not None:
+                    out[k] = float(getattr(population.noise, k))
         out.update({k: float(val) for k, val in drive_values.items()})
         return out
 
@@ -193,5 +201,5 @@ class ParameterSet:
             noise_new = EscapeNoise(type(hz)(**{k: vals[k] for k in _init_names(hz)}))
         else:
             # the same noise model (coloured and shot noise keep their kind and fixed settings)
-            noise_new = replace(noise, **{k: vals[k] for k in NOISE_PARAMETERS[type(noise)]})
+            noise_new = replace(noise, **{k: vals[k] for k in NOISE_PARAMETERS[type(noise)] if k in vals})
         return Population(nrn_new, noise_new), {k: vals[k] for k in self.drive_values}

@@ -109,7 +109,23 @@ def test_gain_fit_of_shot_noise_frees_an_input_rate():
     assert fit.se["exc_rate"] == pytest.approx(np.sqrt(pcov[0, 0]), rel=0.02)
 
 
-@pytest.mark.parametrize("noise", [popdens.ColouredNoise(4.0, 2.0), popdens.ShotNoise(exc_rate=800.0, exc_psp=0.5)])
+NOISES = [popdens.ColouredNoise(4.0, 2.0), popdens.ShotNoise(exc_rate=800.0, exc_psp=0.5),
+          popdens.ConductanceNoise(exc_rate=20000.0, exc_weight=0.02, exc_tau=2.0, exc_reversal=70.0)]
+
+
+@pytest.mark.parametrize("noise", NOISES)
+def test_a_fit_keeps_the_noise_model(noise):
+    # the population a fit builds keeps the noise model and its fixed settings (it was rebuilt as white noise)
+    from popdens.fitting.params import ParameterSet
+
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), noise)
+    free = ["exc_rate"] if hasattr(noise, "exc_rate") else ["sigma"]
+    params = ParameterSet.make(pop, free, {"scale": 1.0, "offset": 0.0})
+    assert params.build(params.start)[0] == pop
+    assert type(params.build(params.start * 1.1)[0].noise) is type(noise)
+
+
+@pytest.mark.parametrize("noise", NOISES)
 def test_isi_fit_refuses_filtered_and_shot_noise(noise):
     pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), noise)
     isis = np.random.default_rng(0).exponential(50.0, 100) + 2.0
