@@ -146,18 +146,19 @@ def test_adaptation_parameter_names_are_checked():
 
 
 @pytest.mark.slow
-def test_adaptation_parameters_recovered_without_bias_over_100_data_sets():
-    # 100 data sets of the adapting twin (30 neurons x 3 s, ~1550 spikes each): 95 % Wald intervals of
-    # every free parameter cover the truth in 90-99 of 100 (the 99 % range of binomial(100, 0.95)) and
-    # the bias is below a third of the mean SE (its own standard error is SE/10; normal theory)
-    truth, est, se, _ = _adaptation_recovery(100, seed0=40000)
+def test_adaptation_parameters_recovered_without_bias_over_20_data_sets():
+    # 20 data sets of the adapting twin (30 neurons x 3 s, ~1550 spikes each): the 95 % Wald intervals of
+    # every free parameter cover the truth in >= 16 of 20 (P(<= 15 | binomial(20, 0.95)) = 0.3 %) and the
+    # mean estimate lies within 3 standard errors of that mean (SE / sqrt(20)) of the truth (normal theory)
+    n_sets = 20
+    truth, est, se, _ = _adaptation_recovery(n_sets, seed0=40000)
     for i, (name, value) in enumerate(truth.items()):
-        covered = np.mean(np.abs(est[:, i] - value) <= 1.959964 * se[:, i])
+        covered = int(np.sum(np.abs(est[:, i] - value) <= 1.959964 * se[:, i]))
         bias = est[:, i].mean() - value
-        print(f"adaptation fit {name}: coverage {covered:.2f}, bias/SE {bias / se[:, i].mean():+.3f}, "
+        print(f"adaptation fit {name}: covered {covered}/{n_sets}, bias/SE {bias / se[:, i].mean():+.3f}, "
               f"SD / mean SE {est[:, i].std(ddof=1) / se[:, i].mean():.3f}", flush=True)
-        assert 0.90 <= covered <= 0.99, (name, covered)
-        assert abs(bias) < se[:, i].mean() / 3.0, (name, bias)
+        assert covered >= 16, (name, covered)
+        assert abs(bias) < 3.0 * se[:, i].mean() / np.sqrt(n_sets), (name, bias)
 
 
 def test_history_errors():
