@@ -53,6 +53,7 @@ EXPECTED_SECONDS = {
     "_renewal_adapting.adapted_renewal": 6.0,
     "_isi_markov._density": 2.0,
     "_shot.run_shot": 2.5,
+    "_inputs.block_inputs": 0.6,
 }
 
 #: Environment variable that silences the compilation notices (the messages, not the timing).
