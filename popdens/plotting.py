@@ -312,6 +312,7 @@ KEY_UNITS = {
     "width": "mV", "t": "ms", "t_end": "ms", "dt": "ms", "duration": "ms", "record_interval": "ms",
     "phase": "rad", "tau": "ms", "jump": "mV", "coupling": "1", "drive": "mV", "weight": "mV", "delay": "ms",
     "tau_syn": "ms", "size": "neurons", "in_degree": "synapses", "base": "mV", "start": "ms", "stop": "ms",
+    "exc_rate": "Hz", "exc_psp": "mV", "inh_rate": "Hz", "inh_psp": "mV", "psp": "mV",
 }
 #: Unit suffixes of column and output names (``rate_Hz``, ``transfer_amplitude_Hz_per_mV``), longest first.
 SUFFIX_UNITS = (("_Hz_per_mV", "Hz/mV"), ("_per_s", "1/s"), ("_Hz", "Hz"), ("_hz", "Hz"), ("_mV", "mV"),

@@ -20,11 +20,18 @@ Tables
     range table; ``modulate``: ``"mean"`` (default, Hz/mV), ``"noise"`` (the
     variance sigma^2, Hz/mV^2) or ``"sigma"`` (Hz/mV), the last two for white noise.
 ``[approximations]``
-    coloured noise only: the Monte Carlo twin against the white-noise and the
-    effective-boundary (boundary shift) rates, what the correction buys.
-    ``mu``: the drive (mV); ``tau_syn`` (optional): synaptic time constants
-    (ms), default the ``[noise]`` one; ``neurons`` (default 2000), ``t_end``
-    (ms, default 2000) and ``seed`` (default 0) of the twin.
+    coloured or shot noise: the Monte Carlo twin's stationary rate against each
+    theory, what each correction buys.  ``mu``: the drive (mV); ``neurons``
+    (default 2000), ``t_end`` (ms, default 2000) and ``seed`` (default 0) of the
+    twin.  Coloured noise: the white-noise and the effective-boundary (boundary
+    shift) rates over ``tau_syn`` (optional, ms; default the ``[noise]`` one).
+    Shot noise: the diffusion approximation and the finite-PSP theory (exact
+    rate for exponential amplitudes, jump-density solver for fixed ones) over
+    ``psp`` (optional, mV; default the ``[noise]`` ``exc_psp``): at each PSP
+    size both amplitudes equal ``psp`` and the excitatory and inhibitory rates
+    are chosen so that the input's mean and variance stay those of ``[noise]``
+    (Campbell's theorem), so the diffusion approximation is the same at every
+    point and the twin shows what finite PSPs change.
 """
 
 from __future__ import annotations
@@ -38,7 +45,7 @@ import numpy as np
 from ..exceptions import ScenarioError
 
 __all__ = ["GainCurve", "StationaryStats", "TransferCurve", "ApproximationCheck", "parse_analyses", "ANALYSIS_TABLES",
-           "describe_population", "write_table"]
+           "check_approximations", "describe_population", "noise_fields", "write_table", "same_moments"]
 
 #: Most points accepted in one range (guards against typos such as 1e9).
 MAX_POINTS = 100_000
@@ -124,11 +131,20 @@ def describe_population(population) -> str:
          "noise": {"kind": type(noise).__name__}}
     if hasattr(noise, "hazard"):
         d["noise"].update({"escape_function": type(noise.hazard).__name__, **noise.hazard.parameters()})
-    else:
-        d["noise"]["sigma_mV"] = noise.sigma
-        if hasattr(noise, "tau_syn"):
-            d["noise"]["tau_syn_ms"] = noise.tau_syn
+    else:  # white, coloured or shot noise: its fields, each name with its unit
+        from ..plotting import KEY_UNITS
+
+        for k, val in noise_fields(noise).items():
+            unit = KEY_UNITS.get(k)
+            d["noise"][f"{k}_{unit}" if unit else k] = val
     return json.dumps(jsonable(d), sort_keys=True)
+
+
+def noise_fields(noise) -> dict:
+    """The parameters of a white, coloured or shot noise model (its dataclass fields), by name."""
+    import dataclasses
+
+    return {f.name: getattr(noise, f.name) for f in dataclasses.fields(noise)}
 
 
 def _with_sigma(population, sigma):
@@ -261,67 +277,166 @@ class TransferCurve:
                 "modulate": self.modulate}
 
 
+def same_moments(noise, psp: float):
+    """Shot noise with both PSP amplitudes ``psp`` (mV) and the input mean and variance of ``noise``.
+
+    Campbell's theorem: the input adds mean ``tau_m (nu_e <a_e> - nu_i <a_i>)`` and variance
+    ``tau_m (nu_e <a_e^2> + nu_i <a_i^2>)``; with ``a_e = a_i = psp`` the rates solve
+    ``nu_e - nu_i = m / psp`` and ``nu_e + nu_i = v / (k psp^2)`` (``k`` = 1 for fixed, 2 for
+    exponential amplitudes), which needs ``psp <= v / (k |m|)``.
+
+    Parameters
+    ----------
+    noise : ShotNoise
+        The input whose mean and variance are kept.
+    psp : float
+        The new amplitude (mV) of both excitatory and inhibitory PSPs.
+
+    Returns
+    -------
+    ShotNoise
+        The rescaled input.
+
+    Raises
+    ------
+    ValueError
+        When ``psp`` is too large for the variance (the inhibitory or excitatory rate would be negative).
+    """
+    from ..model.shot import ShotNoise
+
+    k = 2.0 if noise.exponential else 1.0
+    m = noise.exc_rate * noise.exc_psp - noise.inh_rate * noise.inh_psp          # Hz mV
+    var = k * (noise.exc_rate * noise.exc_psp ** 2 + noise.inh_rate * noise.inh_psp ** 2)  # Hz mV^2
+    a = float(psp)
+    if not (math.isfinite(a) and a > 0.0):
+        raise ValueError(f"`psp` must be a positive number of mV, got {psp!r}")
+    total, diff = var / (k * a * a), m / a
+    if total < abs(diff) * (1.0 - 1e-12):
+        raise ValueError(f"`psp` = {a:g} mV is too large to keep the input's mean and variance (at most "
+                         f"{var / (k * abs(m)):.4g} mV for this [noise])")
+    exc, inh = 0.5 * (total + diff), max(0.0, 0.5 * (total - diff))
+    return ShotNoise(exc, a, inh, a if inh > 0.0 else 0.0, noise.amplitudes)
+
+
 @dataclass(frozen=True)
 class ApproximationCheck:
-    """Coloured noise: the twin's stationary rate against each approximation, over ``tau_syns`` (ms)."""
+    """The twin's stationary rate against each approximation: over ``tau_syns`` (ms) for coloured noise,
+    over PSP amplitudes ``psps`` (mV, at the same input mean and variance) for shot noise."""
 
     mu: float
     tau_syns: tuple = ()
     neurons: int = 2000
     t_end: float = 2000.0
     seed: int = 0
+    psps: tuple = ()
 
-    def compute(self, population) -> dict:
-        """Columns: tau_syn (ms), twin rate and SE (Hz), white-noise and effective-boundary rates (Hz)."""
-        from ..model.noise import Population, WhiteNoise
-        from ..model.synaptic import ColouredNoise
+    def _twin(self, pop, i):
+        """Twin rate and SE (Hz) from per-neuron spike counts (independent neurons: std / sqrt(N))."""
         from ..result import STATUS_INTERRUPTED
-        from ..theory.steady_state import gain
         from ..twins.population import montecarlo
 
+        mc = montecarlo(pop, self.mu, t_end=self.t_end, n=self.neurons, seed=self.seed + i,
+                        record_spikes=True, record_interval=self.t_end)
+        if mc.status == STATUS_INTERRUPTED:  # partial spike counts are not a rate
+            raise KeyboardInterrupt(mc.message)
+        counts = np.bincount(mc.spike_ids, minlength=self.neurons) / (self.t_end * 1e-3)
+        return float(counts.mean()), float(counts.std(ddof=1) / math.sqrt(self.neurons))
+
+    def compute(self, population) -> dict:
+        """The table's columns (rates in Hz; coloured: tau_syn in ms; shot: PSP in mV, input rates in Hz)."""
+        from ..model.noise import Population, WhiteNoise
+        from ..model.shot import ShotNoise
+        from ..model.synaptic import ColouredNoise
+        from ..theory.steady_state import gain
+
         noise = population.noise
+        if isinstance(noise, ShotNoise):
+            out = {k: [] for k in ("psp_mV", "exc_rate_Hz", "inh_rate_Hz", "twin_Hz", "twin_se_Hz",
+                                   "diffusion_Hz", "finite_psp_Hz")}
+            for i, a in enumerate(self.psps or (noise.exc_psp,)):
+                pop = Population(population.neuron, same_moments(noise, a))
+                r, se = self._twin(pop, i)
+                for key, val in (("psp_mV", a), ("exc_rate_Hz", pop.noise.exc_rate),
+                                 ("inh_rate_Hz", pop.noise.inh_rate), ("twin_Hz", r), ("twin_se_Hz", se),
+                                 ("diffusion_Hz", gain(pop, self.mu, method="diffusion")),
+                                 ("finite_psp_Hz", gain(pop, self.mu))):
+                    out[key].append(float(val))
+            return {k: np.array(v) for k, v in out.items()}
         taus = self.tau_syns or (noise.tau_syn,)
         sigma = noise.constant_sigma()
         white = float(gain(Population(population.neuron, WhiteNoise(sigma)), self.mu))
         out = {k: [] for k in ("tau_syn_ms", "twin_Hz", "twin_se_Hz", "white_noise_Hz", "boundary_shift_Hz")}
         for i, tau in enumerate(taus):
             pop = Population(population.neuron, ColouredNoise(sigma, float(tau)))
-            mc = montecarlo(pop, self.mu, t_end=self.t_end, n=self.neurons, seed=self.seed + i,
-                            record_spikes=True, record_interval=self.t_end)
-            if mc.status == STATUS_INTERRUPTED:  # partial spike counts are not a rate
-                raise KeyboardInterrupt(mc.message)
-            counts = np.bincount(mc.spike_ids, minlength=self.neurons) / (self.t_end * 1e-3)
+            r, se = self._twin(pop, i)
             out["tau_syn_ms"].append(float(tau))
-            out["twin_Hz"].append(float(counts.mean()))
-            out["twin_se_Hz"].append(float(counts.std(ddof=1) / math.sqrt(self.neurons)))
+            out["twin_Hz"].append(r)
+            out["twin_se_Hz"].append(se)
             out["white_noise_Hz"].append(white)
             out["boundary_shift_Hz"].append(float(gain(pop, self.mu)))
         return {k: np.array(v) for k, v in out.items()}
 
     def write(self, population, folder: Path, header: dict) -> dict:
+        from ..model.shot import ShotNoise
         from ..plotting import plot_approximations
 
         cols = self.compute(population)
-        tau_m = float(population.neuron.tau_m)
-        write_table(folder / "approximations.csv", cols,
-                    {**header, "population": describe_population(population), "units": "tau_syn ms, rates Hz",
-                     "drive_mV": f"{self.mu:g}",
-                     "twin": f"{self.neurons} neurons, {self.t_end:g} ms, SE from per-neuron counts"})
-        fig = plot_approximations(cols["tau_syn_ms"] / tau_m, cols["twin_Hz"], cols["twin_se_Hz"],
-                                  {"white noise (diffusion approximation)": cols["white_noise_Hz"],
-                                   "effective boundary shift": cols["boundary_shift_Hz"]},
-                                  "tau_syn / tau_m", title=f"coloured noise at mu = {self.mu:g} mV")
+        twin = f"{self.neurons} neurons, {self.t_end:g} ms, SE from per-neuron counts"
+        if isinstance(population.noise, ShotNoise):
+            names = {"diffusion": "diffusion_Hz", "finite_psp": "finite_psp_Hz"}
+            write_table(folder / "approximations.csv", cols,
+                        {**header, "population": describe_population(population), "drive_mV": f"{self.mu:g}",
+                         "units": "psp mV, input rates Hz, rates Hz", "twin": twin,
+                         "inputs": "both PSP amplitudes = psp; input mean and variance kept those of [noise]"})
+            fig = plot_approximations(cols["psp_mV"], cols["twin_Hz"], cols["twin_se_Hz"],
+                                      {"white noise (diffusion approximation)": cols["diffusion_Hz"],
+                                       "finite PSPs (" + ("exact" if population.noise.exponential
+                                                          else "jump-density solver") + ")": cols["finite_psp_Hz"]},
+                                      "PSP amplitude (mV)",
+                                      title=f"shot noise ({population.noise.amplitudes} PSPs) at mu = {self.mu:g} mV")
+        else:
+            names = {"white_noise": "white_noise_Hz", "boundary_shift": "boundary_shift_Hz"}
+            tau_m = float(population.neuron.tau_m)
+            write_table(folder / "approximations.csv", cols,
+                        {**header, "population": describe_population(population), "units": "tau_syn ms, rates Hz",
+                         "drive_mV": f"{self.mu:g}", "twin": twin})
+            fig = plot_approximations(cols["tau_syn_ms"] / tau_m, cols["twin_Hz"], cols["twin_se_Hz"],
+                                      {"white noise (diffusion approximation)": cols["white_noise_Hz"],
+                                       "effective boundary shift": cols["boundary_shift_Hz"]},
+                                      "tau_syn / tau_m", title=f"coloured noise at mu = {self.mu:g} mV")
         figs = _save(fig, folder, "approximations")
-        err = lambda name: [float(x) for x in 100.0 * (cols[name] / cols["twin_Hz"] - 1.0)]  # noqa: E731
-        return {"table": "approximations.csv", "figures": figs,
-                "error_percent": {"white_noise": err("white_noise_Hz"), "boundary_shift": err("boundary_shift_Hz")}}
+        err = {name: [float(x) for x in 100.0 * (cols[col] / cols["twin_Hz"] - 1.0)] for name, col in names.items()}
+        return {"table": "approximations.csv", "figures": figs, "error_percent": err}
+
+
+def check_approximations(src, data, noise) -> None:
+    """``[approximations]`` needs coloured or shot noise, and the key that matches it."""
+    from ..model.shot import ShotNoise
+    from ..model.synaptic import ColouredNoise
+
+    if not isinstance(noise, (ColouredNoise, ShotNoise)):
+        raise ScenarioError(f"{src}: [approximations] compares the approximations of filtered (coloured) or shot "
+                            "noise with the twin: it needs [noise] kind = 'coloured' or 'shot'")
+    wrong = "psp" if isinstance(noise, ColouredNoise) else "tau_syn"
+    if isinstance(data, dict) and wrong in data:
+        right = "tau_syn" if wrong == "psp" else "psp"
+        raise ScenarioError(f"{src}: [approximations] key `{wrong}` does not apply to this [noise] kind; "
+                            f"use `{right}`")
+    if isinstance(noise, ShotNoise) and isinstance(data, dict) and "psp" in data:
+        for a in parse_values(src, "approximations", "psp", data["psp"], positive=True):
+            try:
+                same_moments(noise, float(a))
+            except ValueError as exc:
+                raise ScenarioError(f"{src}: [approximations] {exc}") from None
 
 
 def _parse_approximations(src, table, data, white):
-    _unknown(src, table, data, {"mu", "tau_syn", "neurons", "t_end", "seed"}, ("mu",))
+    _unknown(src, table, data, {"mu", "tau_syn", "psp", "neurons", "t_end", "seed"}, ("mu",))
     mu = _finite(src, table, "mu", data["mu"])
     taus = tuple(float(t) for t in parse_values(src, table, "tau_syn", data["tau_syn"], positive=True)) \
         if "tau_syn" in data else ()
+    psps = tuple(float(a) for a in parse_values(src, table, "psp", data["psp"], positive=True)) \
+        if "psp" in data else ()
     n = data.get("neurons", 2000)
     if isinstance(n, bool) or not isinstance(n, int) or not 2 <= n <= 10_000_000:
         raise _err(src, table, "neurons", n, "an integer from 2 to 10000000")
@@ -331,7 +446,7 @@ def _parse_approximations(src, table, data, white):
     seed = data.get("seed", 0)
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise _err(src, table, "seed", seed, "a non-negative integer")
-    return ApproximationCheck(mu, taus, n, t_end, seed)
+    return ApproximationCheck(mu, taus, n, t_end, seed, psps)
 
 
 def _parse_gain(src, table, data, white):

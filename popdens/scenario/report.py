@@ -7,6 +7,7 @@ import html
 from pathlib import Path
 
 from .._version import __version__
+from .analyses import noise_fields
 
 __all__ = ["html_report"]
 
@@ -88,8 +89,8 @@ def html_report(scenario, summary: dict, folder: Path, figures: list) -> str:
         rows.append(("noise", type(noise).__name__))
         if hasattr(noise, "hazard"):
             rows += [("escape function", type(noise.hazard).__name__), *_unit_rows(noise.hazard.parameters())]
-        else:
-            rows += [("sigma (mV)", _plain(noise.sigma, "mV"))]
+        else:  # white, coloured or shot noise: its fields, units from their names
+            rows += _unit_rows(noise_fields(noise))
         return rows
 
     if hasattr(scenario, "circuit"):

@@ -126,8 +126,9 @@ CAPTIONS = {"gain": "Gain function: stationary rate against mean drive",
             "stationary": "Stationary interspike-interval densities",
             "transfer": "Transfer function: magnitude and phase against frequency",
             "fit": "Fit to recorded data: data against the fitted model, and the time-rescaling KS plot",
-            "approximations": "Coloured noise: Monte Carlo twin against the white-noise approximation and the "
-                              "effective boundary shift (rates, and each one's error against the twin)"}
+            "approximations": "Monte Carlo twin against each approximation (coloured noise: white noise and the "
+                              "effective boundary shift; shot noise: diffusion approximation and the finite-PSP "
+                              "theory): rates, and each one's error against the twin"}
 
 
 def _time_domain(scenario: Scenario, tmp: Path, header: dict, summary: dict, timing: dict, progress) -> list:

@@ -6,14 +6,16 @@ Top-level tables
 ``[neuron]``    ``model`` = "LIF" | "EIF" | "QIF" | "PIF" | "custom" and that model's parameters;
                 optional ``[[neuron.adaptation]]`` entries (``kind`` = "current" | "threshold",
                 ``tau`` ms, ``jump`` mV, ``coupling``), see :func:`parse_adaptation`
-``[noise]``     ``kind`` = "escape" with a ``[noise.hazard]`` table, "white" with ``sigma`` (mV), or
-                "coloured" with ``sigma`` (mV) and ``tau_syn`` (ms)
+``[noise]``     ``kind`` = "escape" with a ``[noise.hazard]`` table, "white" with ``sigma`` (mV),
+                "coloured" with ``sigma`` (mV) and ``tau_syn`` (ms), or "shot" (finite PSPs) with
+                ``exc_rate`` (Hz), ``exc_psp`` (mV), optional ``inh_rate`` (Hz), ``inh_psp`` (mV) and
+                ``amplitudes`` = "fixed" | "exponential"
 ``[input]``     ``shape`` = "constant" | "step" | "pulse" | "ramp" | "sine" | "trace" and its parameters
 ``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``;
                 ``population_size`` (escape noise: also integrate a population of that many neurons, the
                 finite-size mesoscopic equations) with ``trials`` realisations (default 10)
 ``[gain]``, ``[stationary]``, ``[transfer]``, ``[approximations]``  steady-state and linear-response
-                analyses, the coloured-noise approximations against the twin
+                analyses, the coloured- or shot-noise approximations against the twin
                 (see :mod:`popdens.scenario.analyses`)
 ``[[cohort]]``, ``[[pathway]]``, ``[network]``  a network scenario instead (see
                 :mod:`popdens.scenario.network`)
@@ -41,10 +43,11 @@ from ..model import hazard as hazard_mod
 from ..model.adaptation import Adaptation, MovingThreshold
 from ..model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
 from ..model.noise import EscapeNoise, Population, WhiteNoise
+from ..model.shot import AMPLITUDE_LAWS, ShotNoise
 from ..model.synaptic import ColouredNoise
 from ..solvers._recording import make_grid
 from ._schema import build, check_keys, err, flatten, model_params, number, parse_meta, select
-from .analyses import ANALYSIS_TABLES, parse_analyses
+from .analyses import ANALYSIS_TABLES, check_approximations, parse_analyses
 from .fit import parse_fit
 
 __all__ = ["Scenario", "parse_population", "parse_single_scenario"]
@@ -178,8 +181,17 @@ def parse_population(src, neuron_data, noise_data, prefix: str = "") -> Populati
     elif kind == "coloured":
         check_keys(src, t_noise, no, {"kind", "sigma", "tau_syn"}, {"kind", "sigma", "tau_syn"})
         noise = build(src, t_noise, ColouredNoise, {k: number(src, t_noise, k, no[k]) for k in ("sigma", "tau_syn")})
+    elif kind == "shot":
+        keys = {"exc_rate", "exc_psp", "inh_rate", "inh_psp"}
+        check_keys(src, t_noise, no, keys | {"kind", "amplitudes"}, {"kind", "exc_rate", "exc_psp"})
+        params = {k: number(src, t_noise, k, no[k]) for k in keys if k in no}
+        if "amplitudes" in no:
+            if no["amplitudes"] not in AMPLITUDE_LAWS:
+                raise err(src, t_noise, "amplitudes", no["amplitudes"], " or ".join(f"'{a}'" for a in AMPLITUDE_LAWS))
+            params["amplitudes"] = no["amplitudes"]
+        noise = build(src, t_noise, ShotNoise, params)
     else:
-        raise err(src, t_noise, "kind", kind, "'escape', 'white' or 'coloured'")
+        raise err(src, t_noise, "kind", kind, "'escape', 'white', 'coloured' or 'shot'")
     return build(src, t_neuron, Population, {"neuron": neuron, "noise": noise})
 
 
@@ -199,11 +211,11 @@ def parse_single_scenario(data: dict, source: str | Path = "<scenario>") -> Scen
     noise = population.noise
 
     analyses = parse_analyses(src, data, white=isinstance(noise, (WhiteNoise, ColouredNoise)))
-    if "approximations" in data and not isinstance(noise, ColouredNoise):
-        raise ScenarioError(f"{src}: [approximations] compares the approximations of filtered (coloured) noise "
-                            "with the twin: it needs [noise] kind = 'coloured'")
-    if "approximations" in data and noise.constant_sigma() is None:  # pragma: no cover - scenario sigma is a number
-        raise ScenarioError(f"{src}: [approximations] needs a constant [noise] `sigma`")
+    if "approximations" in data:
+        check_approximations(src, data["approximations"], noise)
+    if isinstance(noise, ShotNoise) and "stationary" in data:
+        raise ScenarioError(f"{src}: [stationary] is not available for shot noise ([noise] kind = 'shot') yet; "
+                            "[gain] gives its stationary rates, [transfer] its linear response")
     if "fit" in data:
         analyses = (*analyses, ("fit", parse_fit(src, data["fit"])))
     digest = hashlib.sha256(repr(sorted(flatten(data))).encode()).hexdigest()[:16]

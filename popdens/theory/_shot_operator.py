@@ -272,9 +272,10 @@ def jump_density_rates(population, mus, n_cells: int | None = None, levels: int 
     return out.reshape(mus.shape)
 
 
-def richardson(values) -> float:
-    """Extrapolation to h -> 0 of values on grids h, h/2, h/4, ... with errors c1 h + c2 h^2 + ..."""
-    t = [float(x) for x in values]
+def richardson(values):
+    """Extrapolation to h -> 0 of values (real or complex) on grids h, h/2, h/4, ... with errors
+    c1 h + c2 h^2 + ..."""
+    t = [complex(x) if isinstance(x, complex) or np.iscomplexobj(x) else float(x) for x in values]
     for order in range(1, len(t)):
         f = 2.0 ** order
         t = [(f * t[j + 1] - t[j]) / (f - 1.0) for j in range(len(t) - 1)]

@@ -521,8 +521,8 @@ def _check_population(population):
     if not isinstance(population, Population):
         raise ValueError(f"`population` must be a popdens.Population, got {population!r}")
     if isinstance(population.noise, ShotNoise):
-        raise ValueError("the linear response and spectra of ShotNoise populations are not available yet; "
-                         "popdens.simulate with a small sinusoidal drive, or popdens.montecarlo, measure them")
+        raise ValueError("this analysis is not available for ShotNoise populations yet (`transfer` is); "
+                         "popdens.montecarlo measures it")
     if isinstance(population.noise, EscapeNoise) and population.noise.hazard.uses_slope:
         raise ValueError("the linear response does not support escape functions that depend on du/dt")
     return population
@@ -545,8 +545,10 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
     Parameters
     ----------
     population : Population
-        Escape noise (hazard depending on ``u`` only) or white noise with a
-        constant ``sigma``.
+        Escape noise (hazard depending on ``u`` only), white or coloured noise
+        with a constant ``sigma``, or shot noise (finite PSPs; ``modulate =
+        "mean"``: the linear response of the jump-density operator, exact in
+        the PSP size up to its grid, extrapolated over three grids).
     mu : float
         Stationary drive (mV).
     freqs : array_like of float or complex
@@ -557,10 +559,10 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
         The modulated input: the mean drive ``mu`` (result in Hz/mV); the
         noise intensity ``sigma**2`` (``"noise"``, Hz/mV^2, white noise
         only); or the amplitude ``sigma`` (Hz/mV, white noise only).
-    method : {"renewal", "threshold-integration", "closed-form"}, optional
+    method : {"renewal", "threshold-integration", "closed-form", "jump-density"}, optional
         Default: ``"renewal"`` for escape noise, ``"threshold-integration"``
-        for white noise.  ``"closed-form"``: white-noise LIF only, needs
-        mpmath, ~10 ms per frequency.
+        for white noise, ``"jump-density"`` for shot noise.  ``"closed-form"``:
+        white-noise LIF only, needs mpmath, ~10 ms per frequency.
     progress : bool, optional
         Progress line on stderr (default: on a terminal, for long runs).
     rtol : float, optional
@@ -600,6 +602,9 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
     >>> chi.dtype.kind
     'c'
     """
+    if isinstance(population, Population) and isinstance(population.noise, ShotNoise):
+        out, err = _shot_transfer(population, mu, freqs, modulate, method, progress)
+        return (out, err) if return_error else out
     population = _check_population(population)
     mu = v.as_finite_float("mu", mu)
     f = _check_freqs(freqs)
@@ -648,6 +653,24 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
     if return_error:
         return out.reshape(f.shape), err.reshape(f.shape)
     return out.reshape(f.shape)
+
+
+def _shot_transfer(population, mu, freqs, modulate, method, progress):
+    """Shot noise: the linear response of the jump-density operator (:mod:`._shot_response`)."""
+    from ._shot_response import shot_transfer
+
+    mu = v.as_finite_float("mu", mu)
+    f = _check_freqs(freqs)
+    if modulate != "mean":
+        raise ValueError(f"`modulate` must be 'mean' for shot noise (its fluctuations follow from the input "
+                         f"rates), got {modulate!r}")
+    if method not in (None, "jump-density"):
+        raise ValueError(f"`method` must be 'jump-density' for shot noise, got {method!r}")
+    if population.neuron.adapting:
+        raise ValueError("the linear response of shot noise does not support `adaptation` yet; remove it from "
+                         "the neuron")
+    out, err = shot_transfer(population, mu, (2j * math.pi * 1e-3) * f.ravel(), progress)
+    return out.reshape(f.shape), err.reshape(f.shape)
 
 
 def _coloured_transfer(population, mu, f, modulate, method, progress, rtol):

@@ -185,3 +185,69 @@ def test_coloured_noise_scenario_loads(tmp_path):
     # the sigma override keeps the synaptic filter
     assert float(g.compute(sc.population)[0, 0]) == pytest.approx(
         float(popdens.gain(popdens.Population(sc.population.neuron, popdens.ColouredNoise(3.0, 2.0)), 18.0)))
+
+
+SHOT = POPULATION.replace('kind = "escape"', 'kind = "shot"\nexc_rate = 2000.0\nexc_psp = 0.5\ninh_rate = 500.0\n'
+                                              'inh_psp = 0.5').split("[noise.hazard]")[0]
+
+
+@pytest.mark.parametrize("extra, fragment", [
+    ("[approximations]\nmu = 5.0\npsp = [1.0]\n", "at most 0.8333 mV"),  # variance/mean = 625/750 mV
+    ("[approximations]\nmu = 5.0\ntau_syn = [1.0]\n", "`tau_syn` does not apply"),
+    ("[approximations]\nmu = 5.0\npsp = [-0.5]\n", "positive values"),
+    ("[transfer]\nmu = 5.0\nfrequencies = [1.0]\nmodulate = 'sigma'\n", "needs [noise] kind = 'white'"),
+    ("[stationary]\nmu = 5.0\n", "not available for shot noise"),
+])
+def test_shot_noise_tables_reject_bad_input(tmp_path, extra, fragment):
+    with pytest.raises(ScenarioError) as exc:
+        load_scenario(write(tmp_path, SHOT + extra))
+    assert fragment in str(exc.value)
+
+
+@pytest.mark.parametrize("noise, fragment", [
+    ("kind = 'shot'\nexc_rate = 100.0\n", "missing key `exc_psp`"),
+    ("kind = 'shot'\nexc_rate = 100.0\nexc_psp = 0.5\namplitudes = 'gamma'\n", "`amplitudes` = 'gamma'"),
+    ("kind = 'shot'\nexc_rate = 100.0\nexc_psp = 0.5\ninh_rate = 10.0\n", "`inh_psp` must be > 0"),
+    ("kind = 'shot'\nexc_rate = 100.0\nexc_psp = 0.5\nexc_pps = 1.0\n", "did you mean `exc_psp`"),
+    ("kind = 'shot'\nexc_rate = -1.0\nexc_psp = 0.5\n", "`exc_rate`"),
+    ("kind = 'coloured'\nsigma = 4.0\ntau_syn = 2.0\n[approximations]\nmu = 1.0\npsp = [0.5]\n",
+     "`psp` does not apply"),
+])
+def test_shot_noise_table_names_the_bad_key(tmp_path, noise, fragment):
+    text = POPULATION.split("[noise]")[0] + "[noise]\n" + noise + "\n[gain]\nmu = [1.0]\n"
+    with pytest.raises(ScenarioError) as exc:
+        load_scenario(write(tmp_path, text))
+    assert fragment in str(exc.value) and "s.toml" in str(exc.value)
+
+
+@pytest.mark.parametrize("law", ["fixed", "exponential"])
+@pytest.mark.parametrize("psp", [0.1, 0.3, 0.5])
+def test_same_moments_keeps_the_input_mean_and_variance(law, psp):
+    """Campbell's theorem: the input adds mean tau (nu_e <a_e> - nu_i <a_i>) and variance
+    tau (nu_e <a_e^2> + nu_i <a_i^2>), <a^2> = a^2 (fixed) or 2 a^2 (exponential amplitudes)."""
+    from popdens.scenario.analyses import same_moments
+
+    k = 2.0 if law == "exponential" else 1.0
+    old = popdens.ShotNoise(2000.0, 0.5, 500.0, 0.5, law)
+    new = same_moments(old, psp)
+    assert new.exc_psp == new.inh_psp == psp and new.amplitudes == law
+    assert new.exc_rate * psp - new.inh_rate * psp == pytest.approx(2000.0 * 0.5 - 500.0 * 0.5, rel=1e-12)
+    assert k * (new.exc_rate + new.inh_rate) * psp ** 2 == pytest.approx(k * 2500.0 * 0.25, rel=1e-12)
+
+
+def test_shot_noise_scenario_runs_the_approximation_table(tmp_path):
+    """Twin (400 neurons x 500 ms) against the jump-density rate: within 4 SE (SE from the spread of
+    per-neuron counts); the summary states each theory's error against the twin."""
+    p = write(tmp_path, SHOT + "amplitudes = 'fixed'\n[approximations]\nmu = 5.0\npsp = [0.5, 0.8]\n"
+                               "neurons = 400\nt_end = 500.0\n")
+    sc = load_scenario(p)
+    assert sc.population.noise == popdens.ShotNoise(2000.0, 0.5, 500.0, 0.5, "fixed")
+    assert main(["run", str(p), "--quiet"]) == 0
+    rows = read_table(tmp_path / "out" / "approximations.csv")
+    psp, twin, se, diffusion, theory = rows[:, 0], rows[:, 3], rows[:, 4], rows[:, 5], rows[:, 6]
+    assert list(psp) == [0.5, 0.8]
+    assert np.all(np.abs(theory - twin) < 4 * se)  # Monte Carlo twin, 4 SE
+    assert diffusion[0] == pytest.approx(diffusion[1], rel=1e-9)  # same mean and variance: same diffusion rate
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert set(summary["approximations"]["error_percent"]) == {"diffusion", "finite_psp"}
+    assert "exc_psp (mV)" in (tmp_path / "out" / "report.html").read_text()
