@@ -108,6 +108,10 @@ def _synaptic():
     popdens.montecarlo(coloured, 16.0, t_end=1.0, n=10, dt=0.1, seed=1, progress=False)
     shot = popdens.Population(white.neuron, popdens.ShotNoise(exc_rate=1000.0, exc_psp=0.5))
     popdens.montecarlo(shot, 16.0, t_end=1.0, n=10, dt=0.1, seed=1, progress=False)
+    conductance = popdens.Population(white.neuron, popdens.ConductanceNoise(
+        exc_rate=5000.0, exc_weight=0.05, exc_tau=2.0, exc_reversal=70.0))
+    popdens.montecarlo(conductance, 16.0, t_end=1.0, n=10, dt=0.1, seed=1, progress=False)
+    popdens.gain(conductance, [10.0])
 
 
 def _network():

@@ -25,11 +25,14 @@ while moving the reset would make it 3 % and 9 % too high.
 
 from __future__ import annotations
 
+import math
+
+from .conductance import ConductanceNoise
 from .neurons import NeuronBase
 from .noise import Population, WhiteNoise
 from .synaptic import ColouredNoise
 
-__all__ = ["shifted_neuron", "white_equivalent", "is_white_like"]
+__all__ = ["shifted_neuron", "moved_neuron", "white_equivalent", "is_white_like", "conductance_carrier"]
 
 
 def is_white_like(noise) -> bool:
@@ -39,16 +42,44 @@ def is_white_like(noise) -> bool:
 
 def shifted_neuron(neuron: NeuronBase, shift: float) -> NeuronBase:
     """The same hard-threshold neuron with threshold and reset raised by ``shift`` (mV)."""
-    if shift == 0.0:
+    return moved_neuron(neuron, shift, shift)
+
+
+def moved_neuron(neuron: NeuronBase, d_threshold: float, d_reset: float) -> NeuronBase:
+    """The same hard-threshold neuron with threshold raised by ``d_threshold`` and reset by ``d_reset`` (mV)."""
+    if d_threshold == 0.0 and d_reset == 0.0:
         return neuron
     if neuron.has_cutoff:
         raise ValueError(f"{type(neuron).__name__} has a spike cut-off, not a threshold to shift")
     params = dict(neuron.parameters())
     if "adaptation" in params:  # the components themselves (parameters() lists them as records)
         params["adaptation"] = list(neuron.adaptation)
-    params["reset"] = float(params["reset"]) + shift
-    params["threshold"] = float(params["threshold"]) + shift
+    params["reset"] = float(params["reset"]) + d_reset
+    params["threshold"] = float(params["threshold"]) + d_threshold
     return type(neuron)(**params)
+
+
+def conductance_carrier(population: Population) -> tuple[Population, float]:
+    """The white-noise population that carries a conductance population through the Fokker--Planck solver.
+
+    Its neuron has threshold and reset moved for the synaptic filtering
+    (:meth:`~popdens.ConductanceNoise.boundary_shifts`; not for models with a spike cut-off) and its
+    amplitude ``sigma_ref = sqrt(2 tau_m D(threshold))`` (mV) is the conductance noise's at threshold;
+    the solver scales the diffusion coefficient by ``D(u)/D(threshold)`` per face and adds the
+    conductances' drift (:meth:`~popdens.ConductanceNoise.density_terms`).  Returns the population and
+    ``sigma_ref``.
+    """
+    nrn, noise = population.neuron, population.noise
+    if not isinstance(noise, ConductanceNoise):
+        raise ValueError(f"no conductance carrier for {noise!r}")
+    d_th, d_re = (0.0, 0.0) if nrn.has_cutoff else noise.boundary_shifts(nrn.tau_m, nrn.boundary, nrn.reset)
+    moved = moved_neuron(nrn, d_th, d_re)
+    d_ref = float(noise.white_diffusion(nrn.tau_m, moved.boundary))
+    if not d_ref > 0.0:
+        raise ValueError("conductance input without fluctuations at threshold: `exc_rate` must be > 0 Hz and the "
+                         "reversal potentials away from the threshold")
+    sigma_ref = math.sqrt(2.0 * nrn.tau_m * d_ref)
+    return Population(moved, WhiteNoise(sigma_ref)), sigma_ref
 
 
 def white_equivalent(population: Population, sigma: float | None = None) -> Population:

@@ -18,6 +18,9 @@ Three noise models are supported:
   :mod:`popdens.model.synaptic`.
 * :class:`~popdens.model.shot.ShotNoise` -- Poisson input spike trains with
   finite PSPs (jumps of ``u``); see :mod:`popdens.model.shot`.
+* :class:`~popdens.model.conductance.ConductanceNoise` -- Poisson input spike
+  trains through synaptic conductances with reversal potentials; see
+  :mod:`popdens.model.conductance`.
 """
 
 from __future__ import annotations
@@ -28,6 +31,7 @@ from typing import Union
 from .. import _validation as v
 from .drive import Constant, Drive
 from .hazard import EscapeFunction
+from .conductance import ConductanceNoise
 from .neurons import NeuronBase
 from .shot import ShotNoise
 from .synaptic import ColouredNoise
@@ -82,7 +86,7 @@ class WhiteNoise:
 
 
 #: Noise models a Population accepts.
-NOISE_MODELS = (EscapeNoise, WhiteNoise, ColouredNoise, ShotNoise)
+NOISE_MODELS = (EscapeNoise, WhiteNoise, ColouredNoise, ShotNoise, ConductanceNoise)
 
 
 @dataclass(frozen=True)
@@ -93,24 +97,25 @@ class Population:
     ----------
     neuron : NeuronBase
         LIF, EIF, QIF, PIF or CustomNeuron.
-    noise : EscapeNoise, WhiteNoise, ColouredNoise or ShotNoise
+    noise : EscapeNoise, WhiteNoise, ColouredNoise, ShotNoise or ConductanceNoise
         How the neurons fire: escape noise (a hazard), white-noise input,
-        white noise filtered by an exponential synapse, or Poisson input
-        spikes with finite PSPs.
+        white noise filtered by an exponential synapse, Poisson input
+        spikes with finite PSPs, or Poisson input through synaptic
+        conductances.
     """
 
     neuron: NeuronBase
-    noise: Union[EscapeNoise, WhiteNoise, ColouredNoise, ShotNoise]
+    noise: Union[EscapeNoise, WhiteNoise, ColouredNoise, ShotNoise, ConductanceNoise]
 
     def __post_init__(self):
         if not isinstance(self.neuron, NeuronBase):
             raise ValueError(f"`neuron` must be a popdens neuron model, got {self.neuron!r}")
         if not isinstance(self.noise, NOISE_MODELS):
-            raise ValueError(f"`noise` must be EscapeNoise, WhiteNoise, ColouredNoise or ShotNoise, "
-                             f"got {self.noise!r}")
-        if isinstance(self.noise, (WhiteNoise, ColouredNoise, ShotNoise)) and self.neuron.moving_thresholds:
+            raise ValueError(f"`noise` must be EscapeNoise, WhiteNoise, ColouredNoise, ShotNoise or "
+                             f"ConductanceNoise, got {self.noise!r}")
+        if isinstance(self.noise, (WhiteNoise, ColouredNoise, ShotNoise, ConductanceNoise)) and self.neuron.moving_thresholds:
             raise ValueError("`adaptation` holds a MovingThreshold, which needs escape noise; with white, "
-                             "coloured or shot noise the threshold is the absorbing boundary: use popdens.Adaptation "
+                             "coloured, shot or conductance noise the threshold is the absorbing boundary: use popdens.Adaptation "
                              "currents instead")
 
 

@@ -52,6 +52,15 @@ averaged over the step and gain ``b_k exp(-dt/(2 tau_k))`` per unit of mass
 fired; the drive at the step end uses the means predicted with the previous
 step's firing.
 
+Conductance input
+-----------------
+For :class:`~popdens.ConductanceNoise` the drift gains the mean conductances and the Stratonovich
+term, ``A = (F(u) + mu + sum_x g_x0 (E_x - u))/tau_m - D'(u)/2``, and the diffusion coefficient
+varies with the potential, ``D(u) = sum_x w_x^2 nu_x tau_x^2 (E_x - u)^2 / (2 tau_m^2)``
+(:mod:`popdens.theory._conductance`): each face takes its own ``D`` in the Scharfetter--Gummel
+flux (frozen over the face, as the drift is), with threshold and reset moved for the synaptic
+filtering (:func:`popdens.model.effective.conductance_carrier`).
+
 Refractoriness
 --------------
 The mass leaving in a step (spikes spread uniformly over the step) is
@@ -80,7 +89,8 @@ import numpy as np
 from .. import _validation as v
 from ..model._kernels import MS_TO_S, NO_REFCOUNT
 from ..model.adaptation import step_args
-from ..model.effective import white_equivalent
+from ..model.conductance import ConductanceNoise
+from ..model.effective import conductance_carrier, white_equivalent
 from .grids import Grid, refined_grid
 from ._base import SolverBase
 
@@ -121,6 +131,9 @@ RATE_ATOL = 0.01
 GRID_SHARE = 0.5
 #: Most cells the automatic grid chooses (beyond, an AccuracyWarning names n_cells).
 MAX_AUTO_CELLS = 12_000
+#: Smallest diffusion factor of a face (conductance input: D vanishes at a reversal potential, where
+#: the drift points away and the density is negligible).
+MIN_DIFFUSION_FACTOR = 1e-12
 #: Rescaling threshold of the stationary backward recursion (avoids overflow).
 RESCALE_ABOVE = 1e200
 
@@ -136,11 +149,16 @@ def _bern(x):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
-def _coefficients(ff, dist, mu, sigma, tau_m, alpha, beta):  # pragma: no cover - compiled
-    """Face coefficients: J_{i+1/2} = alpha_i p_i - beta_i p_{i+1} (mV/ms)."""
-    dd = sigma * sigma / (2.0 * tau_m)
+def _coefficients(ff, dist, ds, mu, sigma, tau_m, alpha, beta):  # pragma: no cover - compiled
+    """Face coefficients: J_{i+1/2} = alpha_i p_i - beta_i p_{i+1} (mV/ms).
+
+    ``ds``: per-face factors of the diffusion coefficient (voltage-dependent noise), or empty (constant).
+    """
+    d_ref = sigma * sigma / (2.0 * tau_m)
+    varying = ds.shape[0] > 0
     for i in range(ff.shape[0]):
         a = (ff[i] + mu) / tau_m
+        dd = d_ref * ds[i] if varying else d_ref
         g = dd / dist[i]
         x = a * dist[i] / dd
         if x >= 0.0:
@@ -188,7 +206,7 @@ def _solve(h, inv_delta, alpha, beta, rhs, r, phi, out, cp, z):  # pragma: no co
 
 
 @numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
-def _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, mu0, mu1, sg0, sg1,
+def _step(ff, dist, ds, h, tau_m, r, scheme, dt, phi, q, p, mu0, mu1, sg0, sg1,
           a0, b0, a1, b1, rhs, pg, cp, z):  # pragma: no cover - compiled
     """One step of the density ``p`` with drive ``mu0 -> mu1`` (mV) and noise ``sg0 -> sg1`` (mV).
 
@@ -205,7 +223,7 @@ def _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, mu0, mu1, sg0, sg1,
         if const:
             ae, be = a0, b0
         else:
-            _coefficients(ff, dist, mu1, sg1, tau_m, a1, b1)
+            _coefficients(ff, dist, ds, mu1, sg1, tau_m, a1, b1)
             ae, be = a1, b1
         inv = 1.0 / dt
         for i in range(n):
@@ -220,7 +238,7 @@ def _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, mu0, mu1, sg0, sg1,
         if const:
             ae, be = a0, b0
         else:
-            _coefficients(ff, dist, mu0 + g * (mu1 - mu0), sg0 + g * (sg1 - sg0), tau_m, a1, b1)
+            _coefficients(ff, dist, ds, mu0 + g * (mu1 - mu0), sg0 + g * (sg1 - sg0), tau_m, a1, b1)
             ae, be = a1, b1
         d1 = 0.5 * g * dt
         inv = 1.0 / d1
@@ -237,7 +255,7 @@ def _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, mu0, mu1, sg0, sg1,
         _solve(h, inv, ae, be, rhs, r, phi, pg, cp, z)
         j_g = ae[n - 1] * pg[n - 1]
         if not const:
-            _coefficients(ff, dist, mu1, sg1, tau_m, a1, b1)
+            _coefficients(ff, dist, ds, mu1, sg1, tau_m, a1, b1)
         inv = 1.0 / (wc * dt)
         for i in range(n):
             rhs[i] = h[i] * (wa * pg[i] - wb * p[i]) * inv
@@ -268,18 +286,18 @@ def _reinject(buf, head, n_delay, frac, outflow):  # pragma: no cover - compiled
 
 
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
-def _advance(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay, frac,
+def _advance(ff, dist, ds, h, centres, tau_m, reset, r, scheme, dt, n_delay, frac,
              p, buf, head, mu, sigma, out_rate, out_mean_u, out_refr,
              a0, b0, a1, b1, rhs, pg, cp, z):  # pragma: no cover - compiled
     """Advance ``len(mu) - 1`` steps in place; returns (head, steps_done, ok)."""
     n = h.shape[0]
     n_steps = mu.shape[0] - 1
     phi = (1.0 - frac) if n_delay == 0 else 0.0
-    _coefficients(ff, dist, mu[0], sigma[0], tau_m, a0, b0)
+    _coefficients(ff, dist, ds, mu[0], sigma[0], tau_m, a0, b0)
     for k in range(n_steps):
         q = buf[head] / dt  # known reinjection rate during this step (1/ms)
         buf[head] = 0.0
-        outflow = _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, mu[k], mu[k + 1], sigma[k], sigma[k + 1],
+        outflow = _step(ff, dist, ds, h, tau_m, r, scheme, dt, phi, q, p, mu[k], mu[k + 1], sigma[k], sigma[k + 1],
                         a0, b0, a1, b1, rhs, pg, cp, z)
         head, refr = _reinject(buf, head, n_delay, frac, outflow)
         su = 0.0
@@ -294,7 +312,7 @@ def _advance(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay, frac,
 
 
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
-def _advance_adapting(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay, frac,
+def _advance_adapting(ff, dist, ds, h, centres, tau_m, reset, r, scheme, dt, n_delay, frac,
                       decay, coup, kick, rest, w, aux,
                       p, buf, head, mu, sigma, out_rate, out_mean_u, out_refr,
                       a0, b0, a1, b1, rhs, pg, cp, z):  # pragma: no cover - compiled
@@ -309,7 +327,7 @@ def _advance_adapting(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay
     n_steps = mu.shape[0] - 1
     n_comp = w.shape[0]
     phi = (1.0 - frac) if n_delay == 0 else 0.0
-    _coefficients(ff, dist, mu[0] - aux[0], sigma[0], tau_m, a0, b0)
+    _coefficients(ff, dist, ds, mu[0] - aux[0], sigma[0], tau_m, a0, b0)
     for k in range(n_steps):
         q = buf[head] / dt
         buf[head] = 0.0
@@ -318,7 +336,7 @@ def _advance_adapting(ff, dist, h, centres, tau_m, reset, r, scheme, dt, n_delay
         for c in range(n_comp):
             w_end += w[c] * decay[c] + coup[c] * (1.0 - decay[c]) * (aux[1] - rest) + kick[c] * aux[2]
         mu_end = mu[k + 1] - w_end
-        outflow = _step(ff, dist, h, tau_m, r, scheme, dt, phi, q, p, mu[k] - aux[0], mu_end, sigma[k], sigma[k + 1],
+        outflow = _step(ff, dist, ds, h, tau_m, r, scheme, dt, phi, q, p, mu[k] - aux[0], mu_end, sigma[k], sigma[k + 1],
                         a0, b0, a1, b1, rhs, pg, cp, z)
         head, refr = _reinject(buf, head, n_delay, frac, outflow)
         su = 0.0
@@ -369,7 +387,12 @@ class FokkerPlanckSolver(SolverBase):
         :class:`~popdens.ColouredNoise` of constant ``sigma``: solved as its
         white-noise equivalent with shifted threshold and reset
         (:mod:`popdens.model.effective`; an approximation, first order in
-        ``sqrt(tau_syn/tau_m)``).
+        ``sqrt(tau_syn/tau_m)``); or with :class:`~popdens.ConductanceNoise`:
+        voltage-dependent drift and diffusion of the conductances (white
+        limit, Stratonovich) with threshold and reset moved for the
+        synaptic filtering, the equation of
+        :mod:`popdens.theory._conductance` (``sigma`` is then the noise
+        amplitude at threshold, set by the solver).
     dt : float
         Time step (ms).
     scheme : {"tr-bdf2", "backward-euler"}
@@ -400,7 +423,14 @@ class FokkerPlanckSolver(SolverBase):
 
     def __init__(self, population, dt: float, scheme: str = "tr-bdf2", n_cells: int | None = None,
                  refinement: float = 10.0, u_min: float | None = None, grid: Grid | None = None):
-        super().__init__(white_equivalent(population), dt)
+        self._conductance = None
+        self._sigma_ref = None
+        if isinstance(getattr(population, "noise", None), ConductanceNoise):
+            self._conductance = population.noise
+            carrier, self._sigma_ref = conductance_carrier(population)
+            super().__init__(carrier, dt)
+        else:
+            super().__init__(white_equivalent(population), dt)
         if scheme not in SCHEMES:
             raise ValueError(f"`scheme` must be one of {sorted(SCHEMES)}, got {scheme!r}")
         self.scheme = scheme
@@ -444,6 +474,12 @@ class FokkerPlanckSolver(SolverBase):
     def resolution_options(self) -> dict:
         return {"grid": self.grid} if self.grid is not None else {}
 
+    def _noise(self, sigma, mu):
+        """``sigma`` as given, or for conductance input the amplitude at threshold (shaped like ``mu``)."""
+        if self._conductance is None:
+            return sigma
+        return self._sigma_ref if np.ndim(mu) == 0 else np.full(np.shape(mu), self._sigma_ref)
+
     def plan(self, mu, sigma) -> None:
         """Declare the drives ``mu`` and noise amplitudes ``sigma`` (mV, arrays) a run will see.
 
@@ -451,6 +487,7 @@ class FokkerPlanckSolver(SolverBase):
         extremes, and the automatic ``u_min`` is set below the lowest drive.
         Call before :meth:`initialize`.
         """
+        sigma = self._noise(sigma, np.asarray(mu, dtype=float).ravel())
         mu = np.asarray(mu, dtype=float).ravel()
         sigma = np.asarray(sigma, dtype=float).ravel()
         ok = np.isfinite(mu)
@@ -468,7 +505,8 @@ class FokkerPlanckSolver(SolverBase):
         return base - LOWER_STDS * max(sigmas) / math.sqrt(2.0)
 
     def _arrays(self, grid: Grid):
-        """Widths, centres, centre distances, face drifts (mV) and reset cell of ``grid``."""
+        """Widths, centres, centre distances, face drifts (mV), reset cell and face diffusion factors
+        (empty for constant noise) of ``grid``."""
         nrn = self.population.neuron
         c = np.array(grid.centres)
         e = np.array(grid.edges)
@@ -476,15 +514,22 @@ class FokkerPlanckSolver(SolverBase):
         dist = np.append(np.diff(c), e[-1] - c[-1])
         faces = np.append(e[1:-1], 0.5 * (c[-1] + e[-1]))
         ff = np.ascontiguousarray(nrn.drift(faces), dtype=float)
+        ds = np.zeros(0)
+        if self._conductance is not None:
+            tau_m = float(nrn.tau_m)
+            extra, d = self._conductance.density_terms(tau_m, faces)
+            ff = np.ascontiguousarray(ff + extra)
+            d_ref = self._sigma_ref ** 2 / (2.0 * tau_m)
+            ds = np.ascontiguousarray(np.maximum(d / d_ref, MIN_DIFFUSION_FACTOR))
         if not np.all(np.isfinite(ff)):
             raise ValueError("the neuron's drift is not finite on the grid")
-        return np.array(grid.widths), c, dist, ff, int(grid.reset_cell)
+        return np.array(grid.widths), c, dist, ff, int(grid.reset_cell), ds
 
     def _stationary_rate(self, arrays, mu: float, sigma: float) -> float:
         """Stationary rate (Hz) of the discrete operator on a grid's ``arrays``."""
-        h, _, dist, ff, r = arrays
+        h, _, dist, ff, r, ds = arrays
         a, b, p = np.zeros(h.size), np.zeros(h.size), np.zeros(h.size)
-        _coefficients(ff, dist, float(mu), float(sigma), float(self.population.neuron.tau_m), a, b)
+        _coefficients(ff, dist, ds, float(mu), float(sigma), float(self.population.neuron.tau_m), a, b)
         jv = _stationary(a, b, r, p)
         total = float(np.dot(h, p)) + jv * float(self.population.neuron.refractory)
         return jv / total / MS_TO_S
@@ -529,7 +574,7 @@ class FokkerPlanckSolver(SolverBase):
                 n = self._auto_cells(lo, [(mu0, sigma0)] + self._planned)
             self.grid = refined_grid(lo, nrn.boundary, nrn.reset, n, self.refinement)
         gr = self.grid
-        self._h, self._c, self._dist, self._ff, self._r = self._arrays(gr)
+        self._h, self._c, self._dist, self._ff, self._r, self._ds = self._arrays(gr)
         self._fine = None  # the 2x grid of the grid-error guard, built when first needed
         n = self._c.size
         self._scratch = [np.zeros(n) for _ in range(8)]
@@ -537,7 +582,7 @@ class FokkerPlanckSolver(SolverBase):
 
     def _args(self):
         nrn = self.population.neuron
-        return (self._ff, self._dist, self._h, self._c, float(nrn.tau_m), float(nrn.reset), self._r,
+        return (self._ff, self._dist, self._ds, self._h, self._c, float(nrn.tau_m), float(nrn.reset), self._r,
                 SCHEMES[self.scheme], self.dt, self.n_delay, self.frac)
 
     def _schedule_fired(self, mass: float, steps_ago: int) -> None:
@@ -561,6 +606,7 @@ class FokkerPlanckSolver(SolverBase):
         array: a density (1/mV) on :attr:`axis` (normalised here; no
         refractory mass).
         """
+        sigma0 = self._noise(sigma0, 0.0)
         if sigma0 is None or not sigma0 > 0:
             raise ValueError(f"the noise amplitude must be > 0 mV, got {sigma0!r}")
         if self.p is None:
@@ -604,7 +650,7 @@ class FokkerPlanckSolver(SolverBase):
     def _stationary_density(self, mu: float, sigma: float) -> float:
         """Set ``p`` to the stationary density of the discrete operator at drive ``mu`` (mV); returns the flux (1/ms)."""
         a, b = self._scratch[0], self._scratch[1]
-        _coefficients(self._ff, self._dist, mu, sigma, float(self.population.neuron.tau_m), a, b)
+        _coefficients(self._ff, self._dist, self._ds, mu, sigma, float(self.population.neuron.tau_m), a, b)
         jv = _stationary(a, b, self._r, self.p)
         total = float(np.dot(self._h, self.p)) + jv * self.population.neuron.refractory
         self.p /= total
@@ -660,6 +706,7 @@ class FokkerPlanckSolver(SolverBase):
     def _advance_impl(self, mu, sigma):
         if self.p is None:
             raise RuntimeError("call initialize() first")
+        sigma = self._noise(sigma, mu)
         if sigma is None or sigma.shape != mu.shape:
             raise ValueError("`sigma` (mV) must be given at the same step boundaries as `mu`")
         if not np.all(sigma > 0):
@@ -705,7 +752,8 @@ class FokkerPlanckSolver(SolverBase):
         """Outgoing flux at the boundary (Hz) for drive ``mu`` (mV) and noise ``sigma`` (mV)."""
         a, b = np.zeros(self.p.size), np.zeros(self.p.size)
         mu = float(mu) - float(self.w.sum())
-        _coefficients(self._ff, self._dist, mu, float(sigma), float(self.population.neuron.tau_m), a, b)
+        sigma = self._noise(sigma, mu)
+        _coefficients(self._ff, self._dist, self._ds, mu, float(sigma), float(self.population.neuron.tau_m), a, b)
         return float(a[-1] * self.p[-1] / MS_TO_S)
 
     def accuracy_issues(self, mu, sigma) -> list[tuple[str, str]]:
@@ -714,6 +762,7 @@ class FokkerPlanckSolver(SolverBase):
         if self.p is None:
             return issues
         tau_m = float(self.population.neuron.tau_m)
+        sigma = self._noise(sigma, np.asarray(mu, dtype=float))
         s_min = float(np.min(sigma)) if sigma is not None and np.size(sigma) else math.nan
         ratio = float(self._h.max()) / (s_min / math.sqrt(2.0))
         # the grid's estimated rate error at the current drive (as the density sees it: less the mean
@@ -756,7 +805,7 @@ class FokkerPlanckSolver(SolverBase):
                                    mids[g.reset_cell + 1:]])
             fine = Grid(np.sort(np.concatenate([e, cuts])), 2 * g.reset_cell + 1)
             self._fine = self._arrays(fine)
-        coarse = (self._h, self._c, self._dist, self._ff, self._r)
+        coarse = (self._h, self._c, self._dist, self._ff, self._r, self._ds)
         return self._grid_error(coarse, self._fine, [(float(mu[-1]), float(sigma[-1]))])
 
     def diagnostics(self) -> dict:

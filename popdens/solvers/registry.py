@@ -8,6 +8,7 @@ maps the noise model to the solver of a population of ``n`` neurons
 
 from __future__ import annotations
 
+from ..model.conductance import ConductanceNoise
 from ..model.noise import EscapeNoise, WhiteNoise
 from ..model.shot import ShotNoise
 from ..model.synaptic import ColouredNoise
@@ -31,12 +32,14 @@ DEFAULT_METHOD: dict[type, str] = {
     WhiteNoise: "fokker-planck",
     ColouredNoise: "fokker-planck",
     ShotNoise: "jump-density",
+    ConductanceNoise: "fokker-planck",
 }
 
-#: Noise models each method solves (coloured noise through its white-noise equivalent).
+#: Noise models each method solves (coloured noise through its white-noise equivalent, conductance input
+#: with voltage-dependent drift and diffusion).
 NOISE_OF_METHOD: dict[str, tuple[type, ...]] = {
     "refractory-density": (EscapeNoise,),
-    "fokker-planck": (WhiteNoise, ColouredNoise),
+    "fokker-planck": (WhiteNoise, ColouredNoise, ConductanceNoise),
     "jump-density": (ShotNoise,),
 }
 

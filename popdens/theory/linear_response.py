@@ -63,6 +63,7 @@ from ..model.hazard import CODE_LINEAR
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..model.synaptic import ColouredNoise
 from ..model.shot import ShotNoise
+from ..model.conductance import ConductanceNoise
 from ..progress import Progress
 
 __all__ = ["transfer", "response_kernel", "linear_rate_response", "laplace_to_freq", "stationary_rate",
@@ -523,6 +524,9 @@ def _check_population(population):
     if isinstance(population.noise, ShotNoise):
         raise ValueError("this analysis is not available for ShotNoise populations yet (`transfer` is); "
                          "popdens.montecarlo measures it")
+    if isinstance(population.noise, ConductanceNoise):
+        raise ValueError("the linear response and spectra of ConductanceNoise populations are not available yet; "
+                         "popdens.montecarlo with a small sinusoidal drive measures them")
     if isinstance(population.noise, EscapeNoise) and population.noise.hazard.uses_slope:
         raise ValueError("the linear response does not support escape functions that depend on du/dt")
     return population

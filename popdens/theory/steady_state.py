@@ -33,6 +33,11 @@ Methods
   of the LIF with exponentially distributed PSPs (Richardson & Swarbrick
   2010), else the stationary state of the jump-density operator
   (:mod:`popdens.theory._stationary_shot`).
+* Conductance input (:class:`~popdens.ConductanceNoise`, :func:`gain` only):
+  threshold integration with voltage-dependent drift and diffusion (the
+  effective-time-constant approximation with the fluctuations' driving
+  force), threshold and reset moved for the synaptic filtering
+  (:mod:`popdens.theory._conductance`).
 
 The ISI CV of white-noise populations comes from the first two moments of
 the passage time from reset to the boundary; the ISI density from the
@@ -60,9 +65,11 @@ from ..model.neurons import CODE_LIF, CODE_PIF
 from ..model.effective import white_equivalent
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..model.shot import ShotNoise
+from ..model.conductance import ConductanceNoise
 from ..model.synaptic import ColouredNoise
 from ._adapted import escape_adapted, white_adapted
 from ._stationary_shot import shot_rates
+from ._conductance import conductance_rates
 from ._isi_diffusive import passage_time_density
 from ._isi_markov import isi_chain
 from ._renewal import STATUS_OK as _RENEWAL_OK
@@ -101,6 +108,9 @@ def _constant_sigma(population, sigma) -> float | None:
     if isinstance(noise, ShotNoise):
         _shot(population, sigma)
         return None
+    if isinstance(noise, ConductanceNoise):
+        _conductance(population, sigma)
+        return None
     if isinstance(noise, EscapeNoise):
         if sigma is not None:
             raise ValueError("`sigma` applies to white-noise populations only; this population has escape noise")
@@ -128,6 +138,16 @@ def _shot(population, sigma) -> bool:
     if population.neuron.adapting:
         raise ValueError("the steady state of shot noise does not support `adaptation` yet; remove it from the "
                          "neuron model or use popdens.montecarlo")
+    return True
+
+
+def _conductance(population, sigma) -> bool:
+    """True for conductance input (after the checks that apply to it)."""
+    if not isinstance(population.noise, ConductanceNoise):
+        return False
+    if sigma is not None:
+        raise ValueError("`sigma` does not apply to ConductanceNoise: its fluctuations follow from the input "
+                         "rates, weights and reversal potentials")
     return True
 
 
@@ -209,7 +229,11 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         noise.  Shot noise (:class:`~popdens.ShotNoise`) takes ``"auto"``,
         ``"exponential-psp"`` (exact, LIF with exponential PSPs),
         ``"jump-density"`` or ``"diffusion"`` (the diffusion approximation),
-        see :mod:`popdens.theory._stationary_shot`.
+        see :mod:`popdens.theory._stationary_shot`.  Conductance input
+        (:class:`~popdens.ConductanceNoise`) takes ``"auto"`` (=
+        ``"filtered"``), ``"diffusion"`` or ``"current-based"`` (the naive
+        approximation, for comparison), see
+        :mod:`popdens.theory._conductance`.
 
     Returns
     -------
@@ -243,6 +267,8 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
     _check_population(population)
     if _shot(population, sigma):
         return shot_rates(population, _drives(mu), method, _white_rates)
+    if _conductance(population, sigma):
+        return conductance_rates(population, _drives(mu), method, _white_rates)
     if sigma is not None and np.ndim(sigma) > 0:
         levels = np.asarray(sigma, dtype=float).ravel()
         if levels.size == 0:
@@ -286,7 +312,7 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         As in :func:`gain`.
     """
     _check_population(population)
-    if _shot(population, sigma):
+    if _shot(population, sigma) or _conductance(population, sigma):
         h = SLOPE_STEP_MV
         mus = _drives(mu)
         r = gain(population, np.stack([mus - 2 * h, mus - h, mus + h, mus + 2 * h]), method=method)
@@ -527,9 +553,9 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         noise), mean potential (mV).
     """
     _check_population(population)
-    if isinstance(population.noise, ShotNoise):
-        raise ValueError("`stationary` (ISI statistics, densities) is not available for ShotNoise yet; "
-                         "popdens.gain gives its stationary rate")
+    if isinstance(population.noise, (ShotNoise, ConductanceNoise)):
+        raise ValueError(f"`stationary` (ISI statistics, densities) is not available for "
+                         f"{type(population.noise).__name__} yet; popdens.gain gives its stationary rate")
     original = population
     population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)

@@ -25,6 +25,7 @@ from ..solvers._recording import (WORK_PER_CALL, BoundarySamples, block_ends, do
 from ..model.drive import as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..model.shot import ShotNoise
+from ..model.conductance import ConductanceNoise
 from ..model.synaptic import ColouredNoise
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK, Result
@@ -38,6 +39,9 @@ DEFAULT_DT = 0.1
 #: Coloured noise: default steps per synaptic time constant, at least (the default step is
 #: ``DEFAULT_DT`` divided by a whole number, so it still divides run lengths in 0.1 ms).
 COLOURED_STEPS_PER_TAU = 20
+#: Conductance input: the same steps per (shorter) synaptic time constant, and a step of at most this
+#: (ms): the step-averaged conductances make a bias of order dt (measured in the tests).
+CONDUCTANCE_MAX_DT = 0.02
 #: Default burn-in (ms) at the initial drive for ``initial="stationary"``,
 #: in membrane time constants beyond the refractory period, plus a floor.
 BURN_IN_TAUS = 20.0
@@ -144,6 +148,10 @@ def _default_dt(population) -> float:
     """``DEFAULT_DT``, divided for coloured noise so that ``tau_syn / dt >= COLOURED_STEPS_PER_TAU``."""
     if isinstance(population.noise, ColouredNoise):
         return DEFAULT_DT / math.ceil(COLOURED_STEPS_PER_TAU * DEFAULT_DT / population.noise.tau_syn - 1e-9)
+    if isinstance(population.noise, ConductanceNoise):
+        taus = [tau for _, _, tau, _ in population.noise.channels()]
+        parts = max(COLOURED_STEPS_PER_TAU * DEFAULT_DT / min(taus), DEFAULT_DT / CONDUCTANCE_MAX_DT)
+        return DEFAULT_DT / math.ceil(parts - 1e-9)
     return DEFAULT_DT
 
 
@@ -168,6 +176,12 @@ def _make_ensemble(population, n, dt, rng, options):
         from ._shot import ShotEnsemble  # noqa: PLC0415 - compiled kernel loaded on first use
 
         return ShotEnsemble(population, n, dt, rng)
+    if isinstance(population.noise, ConductanceNoise):
+        if options:
+            raise ValueError(f"unknown option(s) {sorted(options)} for conductance Monte Carlo")
+        from ._conductance import ConductanceEnsemble  # noqa: PLC0415 - compiled kernel loaded on first use
+
+        return ConductanceEnsemble(population, n, dt, rng)
     raise ValueError(f"unsupported noise {population.noise!r}")  # pragma: no cover
 
 
@@ -230,7 +244,9 @@ def montecarlo(population, drive, t_end, n, dt=None, seed=None, *, initial="stat
     dt : float, optional
         Time step (ms), must divide ``t_end``; default 0.1 ms (coloured noise:
         0.1 ms divided by the smallest whole number giving at least
-        ``COLOURED_STEPS_PER_TAU`` steps per ``tau_syn``).
+        ``COLOURED_STEPS_PER_TAU`` steps per ``tau_syn``; conductance input:
+        the same per shorter conductance time constant, and at most
+        ``CONDUCTANCE_MAX_DT`` = 0.02 ms).
     seed : int or numpy.random.Generator, optional
         Seed or generator; the same seed gives bit-identical results.
     initial : {"stationary", "synchronous"}
