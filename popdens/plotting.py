@@ -313,6 +313,8 @@ KEY_UNITS = {
     "phase": "rad", "tau": "ms", "jump": "mV", "coupling": "1", "drive": "mV", "weight": "mV", "delay": "ms",
     "tau_syn": "ms", "size": "neurons", "in_degree": "synapses", "base": "mV", "start": "ms", "stop": "ms",
     "exc_rate": "Hz", "exc_psp": "mV", "inh_rate": "Hz", "inh_psp": "mV", "psp": "mV",
+    "exc_weight": "leak units", "inh_weight": "leak units", "exc_tau": "ms", "inh_tau": "ms",
+    "exc_reversal": "mV", "inh_reversal": "mV",
 }
 #: Unit suffixes of column and output names (``rate_Hz``, ``transfer_amplitude_Hz_per_mV``), longest first.
 SUFFIX_UNITS = (("_Hz_per_mV", "Hz/mV"), ("_per_s", "1/s"), ("_Hz", "Hz"), ("_hz", "Hz"), ("_mV", "mV"),

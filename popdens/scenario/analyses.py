@@ -20,7 +20,7 @@ Tables
     range table; ``modulate``: ``"mean"`` (default, Hz/mV), ``"noise"`` (the
     variance sigma^2, Hz/mV^2) or ``"sigma"`` (Hz/mV), the last two for white noise.
 ``[approximations]``
-    coloured or shot noise: the Monte Carlo twin's stationary rate against each
+    coloured, shot or conductance noise: the Monte Carlo twin's stationary rate against each
     theory, what each correction buys.  ``mu``: the drive (mV); ``neurons``
     (default 2000), ``t_end`` (ms, default 2000) and ``seed`` (default 0) of the
     twin.  Coloured noise: the white-noise and the effective-boundary (boundary
@@ -31,7 +31,12 @@ Tables
     size both amplitudes equal ``psp`` and the excitatory and inhibitory rates
     are chosen so that the input's mean and variance stay those of ``[noise]``
     (Campbell's theorem), so the diffusion approximation is the same at every
-    point and the twin shows what finite PSPs change.
+    point and the twin shows what finite PSPs change.  Conductance input: the
+    default (filtered), white-conductance (diffusion) and naive current-based
+    rates over ``tau_factor`` (optional; default 1): both synaptic time
+    constants times the factor and both weights divided by it, so the mean
+    conductances and their white-limit intensities stay those of ``[noise]``
+    and the twin shows what the conductances' correlation time changes.
 """
 
 from __future__ import annotations
@@ -318,10 +323,39 @@ def same_moments(noise, psp: float):
     return ShotNoise(exc, a, inh, a if inh > 0.0 else 0.0, noise.amplitudes)
 
 
+def scaled_synapses(noise, factor: float):
+    """Conductance input with both synaptic time constants times ``factor`` and both weights divided by it.
+
+    The mean conductances ``w nu tau`` and their white-limit intensities ``w^2 nu tau^2`` stay those of
+    ``noise`` (Campbell's theorem); only the conductances' correlation time changes.
+
+    Parameters
+    ----------
+    noise : ConductanceNoise
+        The input whose means and intensities are kept.
+    factor : float
+        Scale of the time constants (> 0).
+
+    Returns
+    -------
+    ConductanceNoise
+        The rescaled input.
+    """
+    import dataclasses
+
+    f = float(factor)
+    if not (math.isfinite(f) and f > 0.0):
+        raise ValueError(f"`tau_factor` must be a positive number, got {factor!r}")
+    return dataclasses.replace(noise, exc_tau=noise.exc_tau * f, exc_weight=noise.exc_weight / f,
+                               inh_tau=noise.inh_tau * f, inh_weight=noise.inh_weight / f)
+
+
 @dataclass(frozen=True)
 class ApproximationCheck:
     """The twin's stationary rate against each approximation: over ``tau_syns`` (ms) for coloured noise,
-    over PSP amplitudes ``psps`` (mV, at the same input mean and variance) for shot noise."""
+    over PSP amplitudes ``psps`` (mV, at the same input mean and variance) for shot noise, over
+    ``tau_factors`` (synaptic time constants scaled at fixed mean conductances and intensities) for
+    conductance input."""
 
     mu: float
     tau_syns: tuple = ()
@@ -329,6 +363,7 @@ class ApproximationCheck:
     t_end: float = 2000.0
     seed: int = 0
     psps: tuple = ()
+    tau_factors: tuple = ()
 
     def _twin(self, pop, i):
         """Twin rate and SE (Hz) from per-neuron spike counts (independent neurons: std / sqrt(N))."""
@@ -349,7 +384,25 @@ class ApproximationCheck:
         from ..model.synaptic import ColouredNoise
         from ..theory.steady_state import gain
 
+        from ..model.conductance import ConductanceNoise
+
         noise = population.noise
+        if isinstance(noise, ConductanceNoise):
+            out = {k: [] for k in ("tau_factor", "exc_tau_ms", "inh_tau_ms", "inh_tau_over_tau_eff", "twin_Hz",
+                                   "twin_se_Hz", "filtered_Hz", "diffusion_Hz", "current_based_Hz")}
+            tau_eff = noise.effective_time_constant(population.neuron.tau_m)
+            for i, f in enumerate(self.tau_factors or (1.0,)):
+                pop = Population(population.neuron, scaled_synapses(noise, f))
+                r, se = self._twin(pop, i)
+                for key, val in (("tau_factor", f), ("exc_tau_ms", pop.noise.exc_tau), ("inh_tau_ms", pop.noise.inh_tau),
+                                 ("inh_tau_over_tau_eff", (pop.noise.inh_tau if pop.noise.inhibited
+                                                           else pop.noise.exc_tau) / tau_eff),
+                                 ("twin_Hz", r), ("twin_se_Hz", se), ("filtered_Hz", gain(pop, self.mu)),
+                                 ("diffusion_Hz", gain(pop, self.mu, method="diffusion")),
+                                 ("current_based_Hz", gain(pop, self.mu, method="current-based")
+                                  if type(population.neuron).__name__ == "LIF" else math.nan)):
+                    out[key].append(float(val))
+            return {k: np.array(v) for k, v in out.items()}
         if isinstance(noise, ShotNoise):
             out = {k: [] for k in ("psp_mV", "exc_rate_Hz", "inh_rate_Hz", "twin_Hz", "twin_se_Hz",
                                    "diffusion_Hz", "finite_psp_Hz")}
@@ -377,12 +430,26 @@ class ApproximationCheck:
         return {k: np.array(v) for k, v in out.items()}
 
     def write(self, population, folder: Path, header: dict) -> dict:
+        from ..model.conductance import ConductanceNoise
         from ..model.shot import ShotNoise
         from ..plotting import plot_approximations
 
         cols = self.compute(population)
         twin = f"{self.neurons} neurons, {self.t_end:g} ms, SE from per-neuron counts"
-        if isinstance(population.noise, ShotNoise):
+        if isinstance(population.noise, ConductanceNoise):
+            names = {"filtered": "filtered_Hz", "diffusion": "diffusion_Hz", "current_based": "current_based_Hz"}
+            write_table(folder / "approximations.csv", cols,
+                        {**header, "population": describe_population(population), "drive_mV": f"{self.mu:g}",
+                         "units": "time constants ms, rates Hz", "twin": twin,
+                         "inputs": "synaptic time constants times tau_factor, weights divided by it (mean "
+                                   "conductances and their white-limit intensities kept those of [noise])"})
+            fig = plot_approximations(cols["inh_tau_over_tau_eff"], cols["twin_Hz"], cols["twin_se_Hz"],
+                                      {"filtered (default)": cols["filtered_Hz"],
+                                       "white conductance noise": cols["diffusion_Hz"],
+                                       "current-based (naive)": cols["current_based_Hz"]},
+                                      "inhibitory synaptic / effective membrane time constant",
+                                      title=f"conductance input at mu = {self.mu:g} mV")
+        elif isinstance(population.noise, ShotNoise):
             names = {"diffusion": "diffusion_Hz", "finite_psp": "finite_psp_Hz"}
             write_table(folder / "approximations.csv", cols,
                         {**header, "population": describe_population(population), "drive_mV": f"{self.mu:g}",
@@ -410,18 +477,20 @@ class ApproximationCheck:
 
 
 def check_approximations(src, data, noise) -> None:
-    """``[approximations]`` needs coloured or shot noise, and the key that matches it."""
+    """``[approximations]`` needs coloured, shot or conductance noise, and the key that matches it."""
+    from ..model.conductance import ConductanceNoise
     from ..model.shot import ShotNoise
     from ..model.synaptic import ColouredNoise
 
-    if not isinstance(noise, (ColouredNoise, ShotNoise)):
-        raise ScenarioError(f"{src}: [approximations] compares the approximations of filtered (coloured) or shot "
-                            "noise with the twin: it needs [noise] kind = 'coloured' or 'shot'")
-    wrong = "psp" if isinstance(noise, ColouredNoise) else "tau_syn"
-    if isinstance(data, dict) and wrong in data:
-        right = "tau_syn" if wrong == "psp" else "psp"
-        raise ScenarioError(f"{src}: [approximations] key `{wrong}` does not apply to this [noise] kind; "
-                            f"use `{right}`")
+    if not isinstance(noise, (ColouredNoise, ShotNoise, ConductanceNoise)):
+        raise ScenarioError(f"{src}: [approximations] compares the approximations of filtered (coloured), shot or "
+                            "conductance noise with the twin: it needs [noise] kind = 'coloured', 'shot' or "
+                            "'conductance'")
+    right = "tau_syn" if isinstance(noise, ColouredNoise) else "psp" if isinstance(noise, ShotNoise) else "tau_factor"
+    for wrong in {"tau_syn", "psp", "tau_factor"} - {right}:
+        if isinstance(data, dict) and wrong in data:
+            raise ScenarioError(f"{src}: [approximations] key `{wrong}` does not apply to this [noise] kind; "
+                                f"use `{right}`")
     if isinstance(noise, ShotNoise) and isinstance(data, dict) and "psp" in data:
         for a in parse_values(src, "approximations", "psp", data["psp"], positive=True):
             try:
@@ -431,7 +500,7 @@ def check_approximations(src, data, noise) -> None:
 
 
 def _parse_approximations(src, table, data, white):
-    _unknown(src, table, data, {"mu", "tau_syn", "psp", "neurons", "t_end", "seed"}, ("mu",))
+    _unknown(src, table, data, {"mu", "tau_syn", "psp", "tau_factor", "neurons", "t_end", "seed"}, ("mu",))
     mu = _finite(src, table, "mu", data["mu"])
     taus = tuple(float(t) for t in parse_values(src, table, "tau_syn", data["tau_syn"], positive=True)) \
         if "tau_syn" in data else ()
@@ -446,7 +515,9 @@ def _parse_approximations(src, table, data, white):
     seed = data.get("seed", 0)
     if isinstance(seed, bool) or not isinstance(seed, int) or seed < 0:
         raise _err(src, table, "seed", seed, "a non-negative integer")
-    return ApproximationCheck(mu, taus, n, t_end, seed, psps)
+    factors = tuple(float(f) for f in parse_values(src, table, "tau_factor", data["tau_factor"], positive=True)) \
+        if "tau_factor" in data else ()
+    return ApproximationCheck(mu, taus, n, t_end, seed, psps, factors)
 
 
 def _parse_gain(src, table, data, white):

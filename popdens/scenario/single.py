@@ -9,7 +9,10 @@ Top-level tables
 ``[noise]``     ``kind`` = "escape" with a ``[noise.hazard]`` table, "white" with ``sigma`` (mV),
                 "coloured" with ``sigma`` (mV) and ``tau_syn`` (ms), or "shot" (finite PSPs) with
                 ``exc_rate`` (Hz), ``exc_psp`` (mV), optional ``inh_rate`` (Hz), ``inh_psp`` (mV) and
-                ``amplitudes`` = "fixed" | "exponential"
+                ``amplitudes`` = "fixed" | "exponential", or "conductance" (Poisson input through
+                exponential conductances, leak units) with ``exc_rate`` (Hz), ``exc_weight`` (1),
+                ``exc_tau`` (ms), ``exc_reversal`` (mV), optional ``inh_rate``, ``inh_weight``,
+                ``inh_tau``, ``inh_reversal``
 ``[input]``     ``shape`` = "constant" | "step" | "pulse" | "ramp" | "sine" | "trace" and its parameters
 ``[run]``       ``t_end``, ``dt``, ``record_interval``, ``snapshot_interval`` (ms), ``montecarlo_neurons``, ``seed``;
                 ``population_size`` (escape noise: also integrate a population of that many neurons, the
@@ -44,6 +47,7 @@ from ..model.adaptation import Adaptation, MovingThreshold
 from ..model.neurons import EIF, LIF, PIF, QIF, CustomNeuron
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..model.shot import AMPLITUDE_LAWS, ShotNoise
+from ..model.conductance import ConductanceNoise
 from ..model.synaptic import ColouredNoise
 from ..solvers._recording import make_grid
 from ._schema import build, check_keys, err, flatten, model_params, number, parse_meta, select
@@ -190,8 +194,13 @@ def parse_population(src, neuron_data, noise_data, prefix: str = "") -> Populati
                 raise err(src, t_noise, "amplitudes", no["amplitudes"], " or ".join(f"'{a}'" for a in AMPLITUDE_LAWS))
             params["amplitudes"] = no["amplitudes"]
         noise = build(src, t_noise, ShotNoise, params)
+    elif kind == "conductance":
+        keys = {"exc_rate", "exc_weight", "exc_tau", "exc_reversal", "inh_rate", "inh_weight", "inh_tau",
+                "inh_reversal"}
+        check_keys(src, t_noise, no, keys | {"kind"}, {"kind", "exc_rate", "exc_weight", "exc_tau", "exc_reversal"})
+        noise = build(src, t_noise, ConductanceNoise, {k: number(src, t_noise, k, no[k]) for k in keys if k in no})
     else:
-        raise err(src, t_noise, "kind", kind, "'escape', 'white', 'coloured' or 'shot'")
+        raise err(src, t_noise, "kind", kind, "'escape', 'white', 'coloured', 'shot' or 'conductance'")
     return build(src, t_neuron, Population, {"neuron": neuron, "noise": noise})
 
 
@@ -216,6 +225,12 @@ def parse_single_scenario(data: dict, source: str | Path = "<scenario>") -> Scen
     if isinstance(noise, ShotNoise) and "stationary" in data:
         raise ScenarioError(f"{src}: [stationary] is not available for shot noise ([noise] kind = 'shot') yet; "
                             "[gain] gives its stationary rates, [transfer] its linear response")
+    if isinstance(noise, ConductanceNoise):
+        for table in ("stationary", "transfer"):
+            if table in data:
+                raise ScenarioError(f"{src}: [{table}] is not available for conductance input ([noise] kind = "
+                                    "'conductance') yet; [gain] gives its stationary rates, a run ([input] and "
+                                    "[run]) its response over time")
     if "fit" in data:
         analyses = (*analyses, ("fit", parse_fit(src, data["fit"])))
     digest = hashlib.sha256(repr(sorted(flatten(data))).encode()).hexdigest()[:16]

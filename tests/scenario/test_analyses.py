@@ -251,3 +251,70 @@ def test_shot_noise_scenario_runs_the_approximation_table(tmp_path):
     summary = json.loads((tmp_path / "out" / "summary.json").read_text())
     assert set(summary["approximations"]["error_percent"]) == {"diffusion", "finite_psp"}
     assert "exc_psp (mV)" in (tmp_path / "out" / "report.html").read_text()
+
+
+CONDUCTANCE = POPULATION.replace('kind = "escape"', 'kind = "conductance"\nexc_rate = 20000.0\nexc_weight = 0.08\n'
+                                 'exc_tau = 0.5\nexc_reversal = 70.0\ninh_rate = 5000.0\ninh_weight = 0.25\n'
+                                 'inh_tau = 1.0\ninh_reversal = -10.0').split("[noise.hazard]")[0]
+
+
+@pytest.mark.parametrize("extra, fragment", [
+    ("[approximations]\nmu = 5.0\npsp = [0.5]\n", "`psp` does not apply"),
+    ("[approximations]\nmu = 5.0\ntau_syn = [1.0]\n", "`tau_syn` does not apply"),
+    ("[approximations]\nmu = 5.0\ntau_factor = [-1.0]\n", "positive values"),
+    ("[transfer]\nmu = 5.0\nfrequencies = [1.0]\n", "not available for conductance input"),
+    ("[stationary]\nmu = 5.0\n", "not available for conductance input"),
+    ("[gain]\nmu = [5.0]\nsigma = [1.0]\n", "`sigma` applies to white noise only"),
+])
+def test_conductance_tables_reject_bad_input(tmp_path, extra, fragment):
+    with pytest.raises(ScenarioError) as exc:
+        load_scenario(write(tmp_path, CONDUCTANCE + extra))
+    assert fragment in str(exc.value)
+
+
+@pytest.mark.parametrize("noise, fragment", [
+    ("kind = 'conductance'\nexc_rate = 100.0\nexc_weight = 0.1\nexc_tau = 2.0\n", "missing key `exc_reversal`"),
+    ("kind = 'conductance'\nexc_rate = 100.0\nexc_weight = 0.1\nexc_tau = 2.0\nexc_reversal = 70.0\n"
+     "inh_rate = 10.0\ninh_weight = 0.1\n", "`inh_reversal` (mV) is required"),
+    ("kind = 'conductance'\nexc_rate = 100.0\nexc_weight = 0.1\nexc_tau = 2.0\nexc_reversal = 70.0\n"
+     "exc_wieght = 1.0\n", "did you mean `exc_weight`"),
+    ("kind = 'conductance'\nexc_rate = 100.0\nexc_weight = -0.1\nexc_tau = 2.0\nexc_reversal = 70.0\n",
+     "`exc_weight`"),
+])
+def test_conductance_table_names_the_bad_key(tmp_path, noise, fragment):
+    text = POPULATION.split("[noise]")[0] + "[noise]\n" + noise + "\n[gain]\nmu = [1.0]\n"
+    with pytest.raises(ScenarioError) as exc:
+        load_scenario(write(tmp_path, text))
+    assert fragment in str(exc.value) and "s.toml" in str(exc.value)
+
+
+def test_scaled_synapses_keep_the_mean_conductance_and_intensity():
+    """Campbell's theorem: mean w nu tau and white-limit intensity w^2 nu tau^2 unchanged when tau -> f tau,
+    w -> w / f."""
+    from popdens.scenario.analyses import scaled_synapses
+
+    old = popdens.ConductanceNoise(20000.0, 0.08, 0.5, 70.0, 5000.0, 0.25, 1.0, -10.0)
+    new = scaled_synapses(old, 2.5)
+    assert new.exc_tau == pytest.approx(1.25) and new.inh_tau == pytest.approx(2.5)
+    for (nu0, w0, t0, _), (nu1, w1, t1, _) in zip(old.channels(), new.channels()):
+        assert w1 * nu1 * t1 == pytest.approx(w0 * nu0 * t0, rel=1e-12)  # Campbell: mean
+        assert w1 ** 2 * nu1 * t1 ** 2 == pytest.approx(w0 ** 2 * nu0 * t0 ** 2, rel=1e-12)  # white intensity
+
+
+def test_conductance_scenario_runs_the_approximation_table(tmp_path):
+    """Twin (400 neurons x 500 ms) against the default (filtered) rate: within 4 SE (SE from the spread of
+    per-neuron counts) where the theory holds (tau_m 10 ms here, tau_eff 3.3 ms: inhibitory time constants
+    0.25 and 0.5 ms are 0.08 and 0.15 of it); the white-conductance rate is the same at every factor."""
+    p = write(tmp_path, CONDUCTANCE + "[gain]\nmu = [0.0, 10.0]\n[approximations]\nmu = 10.0\n"
+                                      "tau_factor = [0.25, 0.5]\nneurons = 400\nt_end = 500.0\n")
+    sc = load_scenario(p)
+    assert sc.population.noise.inh_reversal == -10.0
+    assert main(["run", str(p), "--quiet"]) == 0
+    rows = read_table(tmp_path / "out" / "approximations.csv")
+    twin, se, filtered, diffusion = rows[:, 4], rows[:, 5], rows[:, 6], rows[:, 7]
+    assert list(rows[:, 0]) == [0.25, 0.5]
+    assert np.all(np.abs(filtered - twin) < 4 * se)  # Monte Carlo twin, 4 SE
+    assert diffusion[0] == pytest.approx(diffusion[1], rel=1e-9)  # same mean and intensity: same rate
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert set(summary["approximations"]["error_percent"]) == {"filtered", "diffusion", "current_based"}
+    assert "exc_reversal (mV)" in (tmp_path / "out" / "report.html").read_text()
