@@ -146,19 +146,23 @@ def test_adaptation_parameter_names_are_checked():
 
 
 @pytest.mark.slow
-def test_adaptation_parameters_recovered_without_bias_over_20_data_sets():
-    # 20 data sets of the adapting twin (30 neurons x 3 s, ~1550 spikes each): the 95 % Wald intervals of
-    # every free parameter cover the truth in >= 16 of 20 (P(<= 15 | binomial(20, 0.95)) = 0.3 %) and the
-    # mean estimate lies within 3 standard errors of that mean (SE / sqrt(20)) of the truth (normal theory)
-    n_sets = 20
+def test_adaptation_parameters_recovered_without_bias_over_100_data_sets():
+    # 100 data sets of the adapting twin (30 neurons x 3 s, ~1550 spikes each; ~5 s CPU per fit): the 95 %
+    # Wald intervals of every free parameter cover the truth in 89-100 of 100 (the central 99 % range of
+    # binomial(100, 0.95), scipy) and the bias is below a third of the mean SE (its own standard error is
+    # SE/10; normal theory).  Measured: covered 96, 90, 93, 93, 96; bias/SE +0.13, -0.14, -0.01, -0.06, +0.21
+    from scipy.stats import binom
+
+    n_sets = 100
+    lo, hi = binom.ppf(0.005, n_sets, 0.95), binom.isf(0.005, n_sets, 0.95)
     truth, est, se, _ = _adaptation_recovery(n_sets, seed0=40000)
     for i, (name, value) in enumerate(truth.items()):
         covered = int(np.sum(np.abs(est[:, i] - value) <= 1.959964 * se[:, i]))
         bias = est[:, i].mean() - value
         print(f"adaptation fit {name}: covered {covered}/{n_sets}, bias/SE {bias / se[:, i].mean():+.3f}, "
               f"SD / mean SE {est[:, i].std(ddof=1) / se[:, i].mean():.3f}", flush=True)
-        assert covered >= 16, (name, covered)
-        assert abs(bias) < 3.0 * se[:, i].mean() / np.sqrt(n_sets), (name, bias)
+        assert lo <= covered <= hi, (name, covered)
+        assert abs(bias) < se[:, i].mean() / 3.0, (name, bias)
 
 
 def test_history_errors():
