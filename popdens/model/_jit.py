@@ -53,6 +53,7 @@ EXPECTED_SECONDS = {
     "_renewal_adapting.adapted_renewal": 6.0,
     "_isi_markov._density": 2.0,
     "_shot.run_shot": 2.5,
+    "_inputs.block_inputs": 0.6,
     "_conductance.run_conductance": 2.0,
     "_conductance.conductance_sweep_rates": 2.4,
 }

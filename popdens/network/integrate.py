@@ -36,6 +36,7 @@ from ..solvers.mesoscopic import MesoscopicSolver, seed_kernel_rng
 from ..model.effective import shifted_neuron
 from ..model.noise import Population, WhiteNoise
 from ..model.synaptic import ALPHA
+from ._inputs import block_inputs, combine
 from .circuit import DEFAULT_DT, HZ_TO_PER_MS, STEP_TOL, Circuit, Pathway
 from .result import CircuitResult
 from .twin import DEFAULT_BURN_IN_MS  # finite cohorts burn in as long as the spiking twin
@@ -57,52 +58,6 @@ PROGRESS_BLOCK = 500
 
 #: Mean field: most steps advanced per solver call (the delays set the actual block).
 MAX_BLOCK_STEPS = 1000
-
-
-class _DelayLine:
-    """Delayed, filtered rate of one pathway for the mean-field integrator.
-
-    Rates are step means (1/ms) at step midpoints; the value at a delayed
-    time is interpolated linearly between midpoints (held at the last
-    known midpoint beyond it).  The exponential filter is integrated exactly
-    for that piecewise-linear input.
-    """
-
-    def __init__(self, pathway: Pathway, dt: float, r0: float, n_steps: int):
-        self.d = pathway.delay
-        self.tau = pathway.tau_syn
-        self.dt = dt
-        self.hist = np.full(n_steps + 2, np.nan)
-        self.r0 = r0
-        self.s = r0  # filtered value at the current boundary (1/ms)
-        self.e = math.exp(-dt / self.tau) if self.tau > 0 else 0.0
-
-    def delayed(self, t: float, known: int) -> float:
-        """Rate (1/ms) at time ``t - d`` given ``known`` completed steps.
-
-        Steps before t = 0 count as having had the initial rate.
-        """
-        x = (t - self.d) / self.dt - 0.5  # position in units of step midpoints
-        last = known - 1
-        if x >= last:
-            return self.hist[last] if last >= 0 else self.r0
-        j = int(math.floor(x))
-        w = x - j
-        lo = self.hist[j] if j >= 0 else self.r0
-        hi = self.hist[j + 1] if j + 1 >= 0 else self.r0
-        return (1.0 - w) * lo + w * hi
-
-    def advance_filter(self, a0: float, a1: float) -> float:
-        """Exact exponential filter over one step for input linear from a0 to a1 (1/ms)."""
-        if self.tau <= 0.0:
-            self.s = a1
-            return a1
-        e = self.e
-        h = self.dt
-        slope = (a1 - a0) / h
-        # s' = (a - s)/tau with a(t) = a0 + slope t: s(h) = a1 - tau slope + (s0 - a0 + tau slope) e
-        self.s = a1 - self.tau * slope + (self.s - a0 + self.tau * slope) * e
-        return self.s
 
 
 def _own_spike_drive(circuit: Circuit, k: int, ages: np.ndarray, dt: float) -> np.ndarray:
@@ -229,8 +184,6 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             if value is not None:
                 raise ValueError(f"`{name}` = {value!r} applies to finite cohorts: pass `finite_size=True`")
 
-    lines = [_DelayLine(p, dt, r0[circuit.index(p.source)] * HZ_TO_PER_MS, grid.n_steps + n_burn)
-             for p in circuit.pathways]
     tgt = [circuit.index(p.target) for p in circuit.pathways]
     src = [circuit.index(p.source) for p in circuit.pathways]
     cmean = [circuit.cohorts[k].tau_m * p.weight * p.in_degree for p, k in zip(circuit.pathways, tgt)]
@@ -282,23 +235,33 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     slope_at_threshold = np.array([float(a.population.neuron.drift_slope(a.population.neuron.threshold))
                                    for a in circuit.cohorts])
     tau_ms = np.array([a.tau_m for a in circuit.cohorts])
-    root_tau = [math.sqrt(p.tau_syn) for p in circuit.pathways]
     filtered = np.array(filtered, dtype=bool)
+    # pathway and cohort constants of the compiled input loop (popdens.network._inputs)
+    pw = circuit.pathways
+    src_a, tgt_a = np.array(src, dtype=np.int64), np.array(tgt, dtype=np.int64)
+    delay_a = np.array([p.delay for p in pw], dtype=float)
+    tau_a = np.array([p.tau_syn for p in pw], dtype=float)
+    decay_a = np.array([math.exp(-dt / p.tau_syn) if p.tau_syn > 0 else 0.0 for p in pw])
+    root_tau = np.array([math.sqrt(p.tau_syn) for p in pw])
+    cmean_a, cvar_a = np.array(cmean, dtype=float), np.array(cvar, dtype=float)
+    root_tau_m = np.sqrt(tau_ms)
+    half_alpha = 0.5 * ALPHA
+    r0_q = np.array([r0[k] * HZ_TO_PER_MS for k in src], dtype=float)  # the past's rate of each source (1/ms)
+    s_filt = r0_q.copy()  # filtered delayed rates at the current boundary (1/ms)
+    scratch = [np.empty(nk) for _ in range(3)]
 
-    def inputs(j: int, s_values, left: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        mu, var = (a.copy() for a in ext_left[j]) if left else (ext_mu[:, j].copy(), ext_var[:, j].copy())
-        fw = ext_fw[:, j].copy()
-        for q in range(len(lines)):
-            mu[tgt[q]] += cmean[q] * s_values[q]
-            var[tgt[q]] += cvar[q] * s_values[q]
-            fw[tgt[q]] += cvar[q] * s_values[q] * root_tau[q]
-        sg = np.sqrt(np.maximum(var, 0.0))
-        with np.errstate(invalid="ignore", divide="ignore"):
-            shift = np.where(filtered & (sg > 0), 0.5 * ALPHA * fw / (np.where(sg > 0, sg, 1.0) * np.sqrt(tau_ms)), 0.0)
+    def inputs(col: int, ext=(ext_mu, ext_var, ext_fw)) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        mu, sg, shift = (np.empty(nk) for _ in range(3))
+        combine(*ext, col, s_filt, tgt_a, cmean_a, cvar_a, root_tau, filtered, root_tau_m, half_alpha, mu, sg, shift)
         return mu, sg, shift
 
+    def inputs_left(col: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        # the input just before an external jump at boundary `col`
+        m, var = ext_left[col]
+        return inputs(0, tuple(np.ascontiguousarray(x) for x in (m[:, None], var[:, None], ext_fw[:, col:col + 1])))
+
     watch = Stopwatch()
-    mu0, sg0, shift0 = inputs(0, [ln.s for ln in lines])
+    mu0, sg0, shift0 = inputs(0)
 
     def moving(mu, shift, shift_before):
         # the drive seen by the solvers: the moving boundary as mean input (module docstring)
@@ -340,7 +303,15 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     mus_eff = mus.copy()  # the drive seen by the solvers: with the moving-boundary term
     rate_init = np.array([s.instantaneous_rate(float(mu0[k]), float(sg0[k]) if diffusive[k] else None)
                           for k, s in enumerate(solvers)])
-    a_prev = [ln.delayed(0.0, 0) for ln in lines]
+    # the delayed rate at t = 0 (before it, every source had its initial rate)
+    a_prev = np.empty(len(pw))
+    for q in range(len(pw)):
+        x = -delay_a[q] / dt - 0.5
+        if x >= -1:
+            a_prev[q] = r0_q[q]
+        else:
+            w = x - math.floor(x)
+            a_prev[q] = (1.0 - w) * r0_q[q] + w * r0_q[q]
     # Block of steps whose delayed input is already known from completed steps: the drive at
     # t_{j+b+1} needs rates up to (t_{j+b+1} - d)/dt - 1/2 <= j - 1 midpoints, i.e. b <= d/dt - 3/2.
     # Advancing such a block in one solver call gives the same numbers as single steps, without
@@ -358,19 +329,12 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             later = [x for x in jump_steps if x > j]
             if later:
                 nb = min(nb, later[0] - j)  # a block ends at each external jump
-            for b in range(nb):
-                t1 = (j + b + 1) * dt
-                s_new = []
-                for q, ln in enumerate(lines):
-                    a1 = ln.delayed(t1, j)
-                    s_new.append(ln.advance_filter(a_prev[q], a1))
-                    a_prev[q] = a1
-                i1 = j + b + 1
-                mus[:, i1], sgs[:, i1], shifts[:, i1] = inputs(i1, s_new)
-                mus_eff[:, i1] = moving(mus[:, i1], shifts[:, i1], shifts[:, i1 - 1])
+            block_inputs(j, nb, dt, rate, src_a, tgt_a, delay_a, tau_a, decay_a, r0_q, s_filt, a_prev,
+                         cmean_a, cvar_a, root_tau, ext_mu, ext_var, ext_fw, filtered, root_tau_m, half_alpha,
+                         slope_at_threshold, tau_ms, shift0, mus, sgs, shifts, mus_eff, *scratch)
             mu_blk, sg_blk = mus_eff[:, j:j + nb + 1].copy(), sgs[:, j:j + nb + 1].copy()
             if j + nb in ext_left:
-                mu_l, sg_blk[:, -1], sh_l = inputs(j + nb, s_new, left=True)
+                mu_l, sg_blk[:, -1], sh_l = inputs_left(j + nb)
                 mu_blk[:, -1] = moving(mu_l, sh_l, shifts[:, j + nb - 1])
             for k, s in enumerate(solvers):
                 if diffusive[k]:
@@ -383,8 +347,6 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
                 rate[k, j:j + nb] = r
             if status != STATUS_OK:
                 break
-            for q, ln in enumerate(lines):
-                ln.hist[j:j + nb] = rate[src[q], j:j + nb] * HZ_TO_PER_MS
             j += nb
             done = j
             if (done // nb) % max(1, PROGRESS_BLOCK // nb) == 0:

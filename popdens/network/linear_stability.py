@@ -65,6 +65,13 @@ MARGIN_TRIES = 4
 #: WIDEN_TRIES times (strongly damped states have their leading root at -1e3 .. -1e4 1/s).
 WIDEN_FACTOR = 5.0
 WIDEN_TRIES = 3
+#: When every start has ``|det(I - M) - 1|`` below this, the coupling is negligible: roots can lie only
+#: where the transfer functions are about 1/WEAK_COUPLING times larger, at their own poles (a nearly
+#: silent population); moving the starting grid left is then not tried.
+WEAK_COUPLING = 1e-6
+#: Bisection steps locating, on the real axis, the left edge of the region where the transfer
+#: functions exist (escape noise: minus the decay rate of the stationary ISI density's tail).
+EDGE_BISECTIONS = 40
 
 
 def _default_transfer() -> Callable:
@@ -183,6 +190,12 @@ class Stability(Displayable):
     marginal : bool
         True when the leading root lies on the imaginary axis (``|growth_rate| <=``
         MARGINAL_GROWTH): the fixed point sits on a stability boundary; ``stable`` is False.
+    bounded : bool
+        True when no root was found, yet the argument principle shows none with ``Re > 0``
+        (``stable`` True, ``roots`` empty, ``frequency`` NaN).  ``growth_rate`` is then an upper
+        bound: the left edge (1/s) of the region where the transfer functions exist, when that
+        edge lies in the search region (escape noise at low rates: minus the decay rate of the
+        stationary ISI density's tail, which sets the slowest decay of perturbations), else NaN.
     """
 
     state: FixedPoint
@@ -193,9 +206,13 @@ class Stability(Displayable):
     n_unstable: int = -1
     complete: bool = True
     marginal: bool = False
+    bounded: bool = False
 
     def _card(self):
         word = "marginal" if self.marginal else ("stable" if self.stable else "UNSTABLE")
+        if self.bounded:
+            word += (" (no root found; growth rate at most the value below)" if np.isfinite(self.growth_rate)
+                     else " (no root found; none unstable by the argument principle)")
         rows = [("verdict", word),
                 ("leading root", f"growth rate {self.growth_rate:.4g} 1/s, frequency {self.frequency:.4g} Hz"),
                 ("roots found (Im >= 0)", ", ".join(f"{1000 * r.real:.4g}/s at {1000 * r.imag / (2 * math.pi):.4g} Hz"
@@ -205,6 +222,9 @@ class Stability(Displayable):
 
     def __repr__(self):
         word = "marginal" if self.marginal else ("stable" if self.stable else "unstable")
+        if self.bounded:
+            return (f"<Stability stable: no root found, leading growth rate <= {self.growth_rate:.4g} 1/s; "
+                    f"{self.n_unstable} unstable by the argument principle>")
         return (f"<Stability {word}: leading root {self.growth_rate:.4g} 1/s, {self.frequency:.4g} Hz; "
                 f"{self.roots.size} roots, {self.n_unstable} unstable by the argument principle>")
 
@@ -373,6 +393,51 @@ def count_unstable(circuit: Circuit, state: FixedPoint, roots=(), *, transfer: C
     return _count_unstable(det, np.asarray(roots, dtype=complex), max_growth * 1e-3, w_max)[0]
 
 
+def _existence_edge(det: Callable, lo: float) -> float | None:
+    """Left edge (1/ms), on the real axis in ``(lo, 0)``, of the region where ``det`` is finite (the
+    transfer functions exist); None when ``det`` is finite at ``lo`` or not at 0."""
+    def ok(x):
+        return bool(np.isfinite(det(np.array([complex(x, 1e-6)]))[0]))
+
+    if ok(lo) or not ok(0.0):
+        return None
+    a, b = lo, 0.0
+    for _ in range(EDGE_BISECTIONS):
+        mid = 0.5 * (a + b)
+        a, b = (a, mid) if ok(mid) else (mid, b)
+    return b
+
+
+def _without_roots(det: Callable, state: FixedPoint, lo: float, max_growth: float, w_max: float) -> Stability:
+    """Verdict when the secant search found no root (growth rates in 1/ms; see :func:`stability`).
+
+    Where the transfer functions cease to exist inside the search region (escape noise at low rates:
+    the decay rate of the ISI density's tail), the argument principle is applied right of that edge,
+    so that no root with a larger growth rate exists and the edge bounds the leading growth rate;
+    otherwise it shows that no root has ``Re > 0``.  Unstable roots that the search missed raise.
+    """
+    edge = _existence_edge(det, lo)
+    bound = math.nan
+    n = -1
+    if edge is not None:
+        left = edge + 0.01 * abs(edge)
+        try:
+            n = count_roots(det, left, max_growth, w_max)
+            bound = left * 1e3
+        except ConvergenceError:
+            n = -1
+    if n != 0:
+        n, _ = _count_unstable(det, np.empty(0, dtype=complex), max_growth, w_max)
+        bound = math.nan
+    if n != 0:
+        raise ConvergenceError("no root of the characteristic equation was found in the search region, "
+                               + ("and the count of unstable roots failed" if n < 0 else
+                                  f"but {n} unstable root(s) are counted there")
+                               + "; widen `min_growth`/`max_frequency` or refine the starting grid")
+    return Stability(state=state, roots=np.empty(0, dtype=complex), growth_rate=float(bound), frequency=math.nan,
+                     stable=True, n_unstable=0, complete=True, marginal=False, bounded=True)
+
+
 def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None = None,
               max_frequency: float = 500.0, min_growth: float = -200.0, max_growth: float = 200.0,
               n_frequency: int = 24, n_growth: int = 4) -> Stability:
@@ -397,13 +462,18 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
     -------
     Stability
         With ``marginal`` True (and ``stable`` False) when the leading root lies on the
-        imaginary axis within MARGINAL_GROWTH: exactly at a stability boundary.
+        imaginary axis within MARGINAL_GROWTH: exactly at a stability boundary.  With
+        ``bounded`` True when no root is found from any start (also after moving the starting
+        grid's left edge WIDEN_TRIES times further left, unless the coupling is negligible,
+        WEAK_COUPLING) but the argument principle shows that none is unstable: a nearly silent
+        state, or an escape-noise state firing so slowly (about 1 Hz) that its transfer function
+        exists only for growth rates above minus the decay rate of its ISI density's tail, with
+        every root left of that edge; ``growth_rate`` is then that edge (an upper bound) or NaN.
 
     Raises
     ------
     ConvergenceError
-        When no root is found from any start, also after moving the starting grid's left edge
-        WIDEN_TRIES times further left (enlarge the search region).
+        When no root is found and the argument principle counts unstable roots (or fails).
 
     Notes
     -----
@@ -431,7 +501,11 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
     w_max = 2 * math.pi * max_frequency * 1e-3
     roots = _accepted_roots(*_secant_roots(det, z, lim), 1.5 * w_max)
     lo = min_growth
-    for _ in range(WIDEN_TRIES if not roots.size else 0):
+    weak = False
+    if not roots.size:  # negligible coupling: no root anywhere but at the transfer functions' poles
+        at_starts = det(z)
+        weak = bool(np.all(np.abs(at_starts[np.isfinite(at_starts)] - 1.0) < WEAK_COUPLING))
+    for _ in range(WIDEN_TRIES if not roots.size and not weak else 0):
         # a strongly damped state: its roots lie left of the box; start further left
         lo = lo * WIDEN_FACTOR if lo < 0 else lo - 1000.0
         g = np.linspace(lo, max_growth, v.positive_int("n_growth", n_growth)) * 1e-3
@@ -441,8 +515,7 @@ def stability(circuit: Circuit, state: FixedPoint, *, transfer: Callable | None 
         if roots.size:
             break
     if not roots.size:
-        raise ConvergenceError("no root of the characteristic equation was found in the search region; "
-                               "widen `min_growth`/`max_frequency`")
+        return _without_roots(det, state, lo * 1e-3, max_growth * 1e-3, w_max)
     lead = roots[0]
     n_count, re_lo = _count_unstable(det, roots, max_growth * 1e-3, w_max)
     inside = [r for r in roots if 0.0 < r.real <= max_growth * 1e-3 and r.imag <= w_max]

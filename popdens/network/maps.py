@@ -27,7 +27,9 @@ class StabilityMap(Displayable):
     x_label, y_label : str
     growth_rate : ndarray, shape (len(y), len(x))
         Largest leading growth rate (1/s) over the fixed points found (NaN:
-        no fixed point in range).
+        no fixed point in range, or only stable ones whose leading root could
+        not be located, see ``Stability.bounded``); an escape-noise state
+        without roots contributes its growth-rate bound.
     frequency : ndarray, shape (len(y), len(x))
         Frequency (Hz) of that root.
     rates : ndarray, shape (len(y), len(x), n)
@@ -122,6 +124,8 @@ def stability_map(build: Callable, x, y, *, x_label: str = "x", y_label: str = "
                     try:
                         st = stability(circ, fp, transfer=transfer, **stability_options)
                     except ConvergenceError:
+                        continue
+                    if np.isnan(st.growth_rate):  # stable, leading root not located (Stability.bounded)
                         continue
                     if not st.growth_rate <= gr[i, j]:
                         gr[i, j], fr[i, j] = st.growth_rate, st.frequency

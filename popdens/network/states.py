@@ -15,6 +15,7 @@ Units: rates in Hz, drives and noise amplitudes in mV.
 from __future__ import annotations
 
 import itertools
+import math
 from dataclasses import dataclass
 from typing import Callable
 
@@ -25,7 +26,7 @@ from .. import _validation as v
 from .._display import Displayable
 from ..model.noise import WhiteNoise
 from ..model.synaptic import ColouredNoise
-from .circuit import Circuit
+from .circuit import HZ_TO_PER_MS, Circuit
 
 __all__ = ["FixedPoint", "fixed_points", "solver_gain"]
 
@@ -124,6 +125,59 @@ def _rates_of(circuit: Circuit, gain: Callable, rates: np.ndarray) -> np.ndarray
     return out
 
 
+class _RateMap:
+    """``rates -> stationary rates`` (Hz) of a circuit, as :func:`_rates_of`, for many calls.
+
+    The coupling matrices and the external input are computed once, with the arithmetic of
+    :meth:`Circuit.stationary_input` and :meth:`Circuit.noise_time_constant` (same values, bit for
+    bit), and ``gain`` is called once per distinct (population, drive, noise): cohorts of equal
+    population and input, and the root finder's repeated points, share the evaluation (``gain`` is
+    taken to be a pure function).
+    """
+
+    def __init__(self, circuit: Circuit, gain: Callable):
+        self.circuit, self.gain = circuit, gain
+        self.wm, self.wv = circuit.coupling()
+        cohorts = circuit.cohorts
+        self.ext_mu = np.array([a.external_mean(0.0) for a in cohorts])
+        self.ext_var = np.array([a.external_variance(0.0) for a in cohorts])
+        self.ext_fw = np.array([float(a.external_filter_weight(0.0)) for a in cohorts])
+        self.ext_var_f = np.array([float(a.external_variance(0.0)) for a in cohorts])
+        self.diffusive = [a.diffusive for a in cohorts]
+        self.terms = []  # (target, source, variance per Hz, sqrt(tau_syn)) of each pathway into a white-noise cohort
+        for p in circuit.pathways:
+            k, l = circuit.index(p.target), circuit.index(p.source)
+            a = cohorts[k]
+            if a.diffusive:
+                self.terms.append((k, l, a.tau_m * p.weight ** 2 * p.in_degree * HZ_TO_PER_MS, math.sqrt(p.tau_syn)))
+        self.memo: dict = {}
+
+    def __call__(self, rates: np.ndarray) -> np.ndarray:
+        c = self.circuit
+        r = np.maximum(rates, 0.0)
+        mu = self.ext_mu + self.wm @ r
+        sg = np.where(self.diffusive, np.sqrt(np.maximum(self.ext_var + self.wv @ r, 0.0)), np.nan)
+        num, den = self.ext_fw.copy(), self.ext_var_f.copy()
+        for k, l, coeff, root_tau in self.terms:
+            var = coeff * max(float(r[l]), 0.0)
+            num[k] += var * root_tau
+            den[k] += var
+        tau = np.where(den > 0.0, (num / np.where(den > 0.0, den, 1.0)) ** 2, 0.0)
+        out = np.empty(c.n)
+        for k in range(c.n):
+            if self.diffusive[k] and not sg[k] > 0:
+                raise ValueError(f"cohort {c.names[k]!r}: noise amplitude {sg[k]!r} mV at rates {rates} Hz; "
+                                 "white-noise populations need sigma > 0")
+            key = (c.cohorts[k].population, float(sg[k]) if self.diffusive[k] else 0.0, float(tau[k]), float(mu[k]))
+            try:
+                out[k] = self.memo[key]
+            except KeyError:
+                out[k] = self.memo[key] = float(self.gain(c.population_at(k, sg[k], tau[k]), float(mu[k])))
+            except TypeError:  # pragma: no cover - unhashable custom parameters
+                out[k] = float(self.gain(c.population_at(k, sg[k], tau[k]), float(mu[k])))
+        return out
+
+
 def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Callable | None = None,
                  starts_per_dim: int = STARTS_PER_DIM, scan_points: int = SCAN_POINTS) -> list[FixedPoint]:
     """All self-consistent stationary states with rates in ``rate_range``.
@@ -173,8 +227,10 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     n = circuit.n
     found: list[np.ndarray] = []
 
+    rate_map = _RateMap(circuit, gain)
+
     def resid(r):
-        return r - _rates_of(circuit, gain, r)
+        return r - rate_map(r)
 
     def add(r):
         r = np.asarray(r, dtype=float)
