@@ -89,7 +89,8 @@ def spectral_matrix(circuit: Circuit, state: FixedPoint, freqs, *, transfer: Cal
     m = characteristic_matrix(circuit, state, lam, transfer)
     d = np.zeros((flat.size, n, n), dtype=complex)
     for k in range(n):
-        pop = circuit.population_at(k, state.sigma[k])
+        tau_k = float(state.tau_syn[k]) if state.tau_syn is not None else 0.0  # filtered input: coloured noise
+        pop = circuit.population_at(k, state.sigma[k], tau_k)
         d[:, k, k] = spike_train_spectrum(pop, float(state.mu[k]), flat) / float(sz[k])
     g = np.linalg.inv(np.eye(n) - m)
     c = g @ d @ np.conj(np.swapaxes(g, -1, -2))
