@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 
 from ..exceptions import ConvergenceError
-from .params import POSITIVE, UNITS, ParameterSet
+from .params import ParameterSet, is_positive, unit_of
 
 __all__ = ["FitResult", "maximise"]
 
@@ -147,7 +147,7 @@ class _Objective:
             return f0, g
         for i in range(z.size):
             e = np.zeros(z.size)
-            e[i] = GRADIENT_STEP if self.params.names[i] in POSITIVE else GRADIENT_STEP * max(1.0, abs(z[i]))
+            e[i] = GRADIENT_STEP if is_positive(self.params.names[i]) else GRADIENT_STEP * max(1.0, abs(z[i]))
             fp = self(z + e)
             if fp >= 1e299:
                 fp = 2.0 * f0 - self(z - e)
@@ -251,7 +251,7 @@ def _newton_polish(obj, z, hess_hint=None, max_iter=12):
         g = _gradient(f, z, steps * (GRADIENT_STEP_SE / HESSIAN_STEP_SE))
         fresh = False
     else:
-        steps = np.array([1e-3 if n in POSITIVE else 1e-3 * max(abs(zi), 1e-2) for n, zi in zip(names, z)])
+        steps = np.array([1e-3 if is_positive(n) else 1e-3 * max(abs(zi), 1e-2) for n, zi in zip(names, z)])
         f0, g, hm = stencil(z, steps)
         fresh = True
     for _ in range(max_iter):
@@ -263,7 +263,7 @@ def _newton_polish(obj, z, hess_hint=None, max_iter=12):
         if np.all(np.abs(step) <= 0.02 * se):
             if fresh and good_steps:
                 x = params.from_z(z)
-                jac = np.array([xi if n in POSITIVE else 1.0 for n, xi in zip(names, x)])
+                jac = np.array([xi if is_positive(n) else 1.0 for n, xi in zip(names, x)])
                 return x, f0, cov * np.outer(jac, jac)
             if not good_steps:
                 steps = HESSIAN_STEP_SE * se
@@ -307,7 +307,7 @@ def _profile_interval(obj, x_hat, ll_hat, cov, i, limits):
     info = np.linalg.inv(cov)
     info_oo = info[np.ix_(others, others)] if others.size else None
     se_o = np.sqrt(np.diag(np.linalg.inv(info_oo))) if others.size else None
-    positive = np.isin(obj.params.names, list(POSITIVE))
+    positive = np.array([is_positive(n) for n in obj.params.names])
 
     def at(x):
         if np.any(positive & (x <= 0.0)):
@@ -412,7 +412,7 @@ def maximise(loglik, params: ParameterSet, *, kind: str, n_observations: int, pr
             val = warm_obj.at_x(params.from_z(zz))
             return val if math.isfinite(val) else -1e300
 
-        z_steps = np.array([1e-3 if n in POSITIVE else 1e-3 * max(abs(zi), 1e-2) for n, zi in zip(params.names, res.x)])
+        z_steps = np.array([1e-3 if is_positive(n) else 1e-3 * max(abs(zi), 1e-2) for n, zi in zip(params.names, res.x)])
         hint = _stencil(f_warm, res.x, z_steps)[2] / warm_fraction
         obj.calls += warm_obj.calls
     else:
@@ -448,7 +448,7 @@ def maximise(loglik, params: ParameterSet, *, kind: str, n_observations: int, pr
         prof = {}
         for i, n in enumerate(params.names):
             lo, hi = params.bounds[i]
-            if n in POSITIVE:
+            if is_positive(n):
                 lo = max(lo, 0.0)
             prof[n] = _profile_interval(obj, x_hat, ll_hat, cov, i,
                                         (lo if math.isfinite(lo) else None, hi if math.isfinite(hi) else None))
@@ -458,7 +458,7 @@ def maximise(loglik, params: ParameterSet, *, kind: str, n_observations: int, pr
         kind=kind, names=params.names, estimates=dict(zip(params.names, x_hat.tolist())),
         se=dict(zip(params.names, se.tolist())), covariance=cov, loglik=ll_hat, aic=2.0 * k - 2.0 * ll_hat,
         n_observations=int(n_observations), population=pop, drive_values=drives,
-        units={n: UNITS[n] for n in params.names}, profile=prof,
+        units={n: unit_of(n) for n in params.names}, profile=prof,
         diagnostics={"evaluations": obj.calls,
                      "optimiser": "Newton steps from the start" if res is None else str(res.message),
                      "wall_time_s": time.perf_counter() - wall0,

@@ -34,7 +34,10 @@ def fit_gain(population, curve: GainCurve, free, *, scale=1.0, offset=0.0, profi
     Parameters
     ----------
     population : Population
-        The model (either noise); fixed values and start values.
+        The model (escape, white, coloured or shot noise, with the gain
+        function :func:`popdens.gain` computes for it: coloured noise by the
+        boundary shift, an approximation); fixed values and start values.
+        Noise parameters can be free (``sigma``, ``tau_syn``, ``exc_rate``...).
     curve : GainCurve
         Drive (mV, or any stimulus unit mapped by ``scale``), rate (Hz), SE (Hz).
     free : sequence of str or mapping

@@ -172,8 +172,10 @@ def fit_isi(population, data, free, *, mu, profile=False) -> FitResult:
     mu = v.as_finite_float("mu", mu)
     refuse(population, "the ISI fit (adapting neurons are not renewal processes; fit their spike trains with fit_psth)")
     white = isinstance(population.noise, WhiteNoise)
-    if not white and not isinstance(population.noise, EscapeNoise):  # pragma: no cover - Population checks
-        raise ValueError("unsupported noise model")
+    if not white and not isinstance(population.noise, EscapeNoise):
+        raise ValueError(f"`population`: the ISI fit takes escape or white noise, got {type(population.noise).__name__}; "
+                         "its exact ISI density is not available for filtered (coloured), shot-noise or conductance input "
+                         "(fit_gain takes them, with their gain functions)")
     if white and isinstance(free, (list, tuple)) and {"mu", "sigma"} <= set(free):
         start = _start_mu_sigma(population, isis)
         if start is not None:

@@ -58,6 +58,9 @@ def _history_steps(population, history, dt: float, duration: float) -> int:
     if history is None:
         history = HISTORY_TAUS * max(a.tau for a in nrn.adaptation) if nrn.adaptation else 0.0
     history = v.non_negative("history", history)
+    if history > 0.0 and not nrn.adaptation:
+        raise ValueError(f"`history` is for adapting neurons (it sets their adaptation), got {history:g} ms; "
+                         "without adaptation every trial starts exactly at its first spike")
     if history >= duration:
         raise ValueError(f"`history` ({history:g} ms) must be shorter than the recording ({duration:g} ms): "
                          "the likelihood counts the spikes after it")
@@ -145,7 +148,10 @@ def fit_psth(population, spikes: SpikeTrains, stimulus, free, *, dt=DEFAULT_DT, 
         stimulus + offset`` (mV).
     free : sequence of str or mapping
         Parameters to fit (see :class:`popdens.fitting.params.ParameterSet`),
-        e.g. ``["rate", "width", "refractory"]`` or ``{"offset": (0, 20)}``.
+        e.g. ``["rate", "width", "refractory"]`` or ``{"offset": (0, 20)}``;
+        for adapting neurons also ``"adaptation[k].jump"`` (mV),
+        ``"adaptation[k].tau"`` (ms) or ``"adaptation[k].coupling"`` of the
+        neuron's ``k``-th adaptation component (from 0).
     dt : float
         Likelihood time step (ms); must divide the trial duration and leave
         at most one spike per step of each trial.
@@ -167,6 +173,8 @@ def fit_psth(population, spikes: SpikeTrains, stimulus, free, *, dt=DEFAULT_DT, 
         The adaptation left by spikes before the recording decays as
         ``exp(-history / tau)``; ``history`` = 0 assumes none (each trial
         starts at its first spike with that spike's adaptation alone).
+        When an adaptation ``tau`` is free the default is set from its
+        start value.
 
     Returns
     -------

@@ -21,6 +21,11 @@ Keys
     Time unit of the spike file (``"ms"`` or ``"s"``) and trial length.
 ``dt``, ``profile``
     Likelihood step (ms, psth) and profile-likelihood intervals (true/false).
+``history`` (psth, adapting neurons)
+    The first ``history`` ms of every trial only set the adaptation; the
+    log-likelihood counts what follows (ms, >= 0 and shorter than a trial;
+    default five times the slowest adaptation time constant, see
+    :func:`popdens.fit_psth`).
 
 Outputs: ``fit.csv`` (one row per free parameter: estimate, SE, Wald and
 profile intervals, with the log-likelihood, AIC and goodness of fit in the
@@ -38,7 +43,7 @@ from .analyses import _err, _finite, _unknown, describe_population, write_table
 __all__ = ["FitTable", "parse_fit"]
 
 KEYS = {"kind", "data", "free", "stimulus", "stimulus_name", "mu", "scale", "offset", "unit", "duration", "dt",
-        "profile"}
+        "profile", "history"}
 KINDS = ("psth", "isi", "gain")
 
 
@@ -67,6 +72,7 @@ class FitTable:
     duration: float | None
     dt: float
     profile: bool
+    history: float | None = None
 
     def run(self, population):
         import popdens.fitting as fitting
@@ -79,7 +85,7 @@ class FitTable:
             return fitting.fit_isi(population, spikes, self.free, mu=self.mu, profile=self.profile)
         stim = fitting.load_stimulus(self.stimulus, name=self.stimulus_name)
         return fitting.fit_psth(population, spikes, stim, self.free, dt=self.dt, scale=self.scale,
-                                offset=self.offset, profile=self.profile)
+                                offset=self.offset, profile=self.profile, history=self.history)
 
     def write(self, population, folder: Path, header: dict) -> dict:
         from ..plotting import save_figure
@@ -150,4 +156,11 @@ def parse_fit(src, data) -> FitTable:
         raise _err(src, "fit", "stimulus_name", name, "the name of an NWB acquisition")
     scale = _finite(src, "fit", "scale", data.get("scale", 1.0))
     offset = _finite(src, "fit", "offset", data.get("offset", 0.0))
-    return FitTable(kind, path, parsed, stim, name, mu, scale, offset, unit, duration, dt, profile)
+    history = None
+    if "history" in data:
+        if kind != "psth":
+            raise _err(src, "fit", "history", data["history"], "no history (only kind = 'psth' has one)")
+        history = _finite(src, "fit", "history", data["history"])
+        if history < 0.0 or (duration is not None and history >= duration):
+            raise _err(src, "fit", "history", history, "a number of ms >= 0 and shorter than `duration`")
+    return FitTable(kind, path, parsed, stim, name, mu, scale, offset, unit, duration, dt, profile, history)

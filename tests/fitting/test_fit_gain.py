@@ -53,3 +53,81 @@ def test_gain_fit_needs_more_points_than_parameters():
     pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(3.0))
     with pytest.raises(ValueError, match="more points"):
         popdens.fit_gain(pop, GainCurve([15.0, 20.0], [2.0, 8.0], [0.5, 0.5]), ["sigma", "offset"])
+
+
+def test_gain_fit_of_coloured_noise_keeps_the_synapse_and_matches_scipy_curve_fit():
+    # a curve of a LIF with synaptically filtered noise (tau_syn 2 ms): the boundary-shift gain is the
+    # Siegert formula with threshold and reset moved up by sigma alpha/2 sqrt(tau_syn/tau_m), alpha =
+    # sqrt(2)|zeta(1/2)| (Brunel & Sergi 1998; Fourcaud & Brunel 2002), written here with scipy
+    # quadrature and zeta from scipy; the fit keeps the synapse (it was rebuilt as white noise) and
+    # agrees with scipy's curve_fit (absolute_sigma) on the same data
+    from scipy.special import zeta
+
+    alpha = np.sqrt(2.0) * abs(zeta(0.5))
+
+    def coloured_hz(mu, sigma, tau_syn):
+        shift = 0.5 * sigma * alpha * np.sqrt(tau_syn / 20.0)
+        return _siegert_hz(mu, sigma, theta=20.0 + shift, reset=10.0 + shift)
+
+    rng = np.random.default_rng(11)
+    drive = np.linspace(12.0, 30.0, 16)
+    true = np.array([coloured_hz(m, 4.0, 2.0) for m in drive])
+    se = 0.05 * true + 0.2
+    rates = np.abs(true + se * rng.standard_normal(drive.size))
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.ColouredNoise(3.0, 2.0))
+    fit = popdens.fit_gain(pop, GainCurve(drive, rates, se), ["sigma"])
+    assert isinstance(fit.population.noise, popdens.ColouredNoise) and fit.population.noise.tau_syn == 2.0
+    popt, pcov = curve_fit(lambda m, s: np.array([coloured_hz(x, s, 2.0) for x in m]), drive, rates,
+                           p0=[3.5], sigma=se, absolute_sigma=True)
+    # the Newton steps stop within 2 % of a standard error of the maximum; SEs as curve_fit's
+    assert abs(fit.estimates["sigma"] - popt[0]) < 0.03 * fit.se["sigma"]
+    assert fit.se["sigma"] == pytest.approx(np.sqrt(pcov[0, 0]), rel=0.02)
+    # the white-noise model of the same data lands elsewhere: the synapse matters here
+    white = popdens.fit_gain(popdens.Population(pop.neuron, popdens.WhiteNoise(3.0)), GainCurve(drive, rates, se),
+                             ["sigma"])
+    assert abs(white.estimates["sigma"] - fit.estimates["sigma"]) > 3 * fit.se["sigma"]
+
+
+def test_gain_fit_of_shot_noise_frees_an_input_rate():
+    # Poisson input with exponentially distributed PSPs: the input rate recovered from a curve made by
+    # the exact gain (Richardson & Swarbrick 2010) plus noise of known SE, and the same estimate and SE
+    # as scipy's curve_fit (absolute_sigma) with the same gain function
+    noise = popdens.ShotNoise(exc_rate=800.0, exc_psp=0.5, amplitudes="exponential")
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), noise)
+    drive = np.linspace(6.0, 16.0, 8)
+    true = popdens.gain(pop, drive)
+    se = 0.05 * true + 0.2
+    rates = np.abs(true + se * np.random.default_rng(3).standard_normal(drive.size))
+    start = popdens.Population(pop.neuron, popdens.ShotNoise(exc_rate=600.0, exc_psp=0.5, amplitudes="exponential"))
+    fit = popdens.fit_gain(start, GainCurve(drive, rates, se), ["exc_rate"])
+    assert isinstance(fit.population.noise, popdens.ShotNoise) and fit.population.noise.exponential
+    assert abs(fit.estimates["exc_rate"] - 800.0) < 3 * fit.se["exc_rate"]  # recovery, 3 SE
+    popt, pcov = curve_fit(lambda m, r: popdens.gain(popdens.Population(pop.neuron, popdens.ShotNoise(
+        exc_rate=r, exc_psp=0.5, amplitudes="exponential")), m), drive, rates, p0=[700.0], sigma=se,
+        absolute_sigma=True)
+    assert abs(fit.estimates["exc_rate"] - popt[0]) < 0.03 * fit.se["exc_rate"]
+    assert fit.se["exc_rate"] == pytest.approx(np.sqrt(pcov[0, 0]), rel=0.02)
+
+
+NOISES = [popdens.ColouredNoise(4.0, 2.0), popdens.ShotNoise(exc_rate=800.0, exc_psp=0.5),
+          popdens.ConductanceNoise(exc_rate=20000.0, exc_weight=0.02, exc_tau=2.0, exc_reversal=70.0)]
+
+
+@pytest.mark.parametrize("noise", NOISES)
+def test_a_fit_keeps_the_noise_model(noise):
+    # the population a fit builds keeps the noise model and its fixed settings (it was rebuilt as white noise)
+    from popdens.fitting.params import ParameterSet
+
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), noise)
+    free = ["exc_rate"] if hasattr(noise, "exc_rate") else ["sigma"]
+    params = ParameterSet.make(pop, free, {"scale": 1.0, "offset": 0.0})
+    assert params.build(params.start)[0] == pop
+    assert type(params.build(params.start * 1.1)[0].noise) is type(noise)
+
+
+@pytest.mark.parametrize("noise", NOISES)
+def test_isi_fit_refuses_filtered_and_shot_noise(noise):
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), noise)
+    isis = np.random.default_rng(0).exponential(50.0, 100) + 2.0
+    with pytest.raises(ValueError, match="`population`.*" + type(noise).__name__):
+        popdens.fit_isi(pop, isis, ["sigma"] if isinstance(noise, popdens.ColouredNoise) else ["exc_rate"], mu=18.0)

@@ -107,6 +107,60 @@ def test_adapting_fit_recovers_the_hazard_and_the_model_without_adaptation_fails
     assert wrong.goodness["p_value"] < 1e-3, wrong.goodness["p_value"]
 
 
+def _adaptation_recovery(n_sets, n=30, t_end=3000.0, seed0=300):
+    """Estimates and SEs of rate, width, scale and the adaptation current's jump and tau over twin data sets."""
+    pop = _adapting_pop()
+    cell = popdens.LIF(tau_m=10.0, threshold=20.0, reset=14.0, refractory=3.0,
+                       adaptation=[popdens.Adaptation(tau=150.0, jump=2.0)])
+    start = popdens.Population(cell, popdens.EscapeNoise(hazard.Exponential(rate=30.0, width=1.5)))
+    free = ["rate", "width", "scale", "adaptation[0].jump", "adaptation[0].tau"]
+    est, se = [], []
+    for k in range(n_sets):
+        fit = popdens.fit_psth(start, _twin_trains(pop, n, t_end, seed=seed0 + k), STIM, free, scale=2.5,
+                               offset=25.0, predict=False)
+        est.append([fit.estimates[x] for x in free])
+        se.append([fit.se[x] for x in free])
+    truth = {"rate": 20.0, "width": 2.0, "scale": 3.0, "adaptation[0].jump": 3.0, "adaptation[0].tau": 100.0}
+    return truth, np.array(est), np.array(se), fit
+
+
+def test_adapting_fit_frees_the_jump_and_time_constant_of_the_adaptation():
+    # the adaptation current's jump (3 mV) and time constant (100 ms) fitted with the hazard and the drive
+    # scale from one data set of the adapting twin (30 neurons x 3 s): within 3 SE of the truth
+    truth, est, se, fit = _adaptation_recovery(1)
+    for i, (name, value) in enumerate(truth.items()):
+        assert abs(est[0, i] - value) < 3.0 * se[0, i], (name, est[0, i], se[0, i])
+    assert fit.units["adaptation[0].jump"] == "mV" and fit.units["adaptation[0].tau"] == "ms"
+    term = fit.population.neuron.adaptation[0]
+    assert isinstance(term, popdens.Adaptation)
+    assert (term.jump, term.tau) == (fit.estimates["adaptation[0].jump"], fit.estimates["adaptation[0].tau"])
+
+
+def test_adaptation_parameter_names_are_checked():
+    pop = _adapting_pop()
+    sp = SpikeTrains(TRAINS, duration=300.0)
+    with pytest.raises(ValueError, match=r"adaptation\[1\]\.jump"):
+        popdens.fit_psth(pop, sp, STIM, ["adaptation[1].jump"], offset=19.0, history=10.0)
+    with pytest.raises(ValueError, match=r"start value must be > 0"):
+        popdens.fit_psth(pop, sp, STIM, {"adaptation[0].jump": 0.0}, offset=19.0, history=10.0)
+
+
+@pytest.mark.slow
+def test_adaptation_parameters_recovered_without_bias_over_20_data_sets():
+    # 20 data sets of the adapting twin (30 neurons x 3 s, ~1550 spikes each): the 95 % Wald intervals of
+    # every free parameter cover the truth in >= 16 of 20 (P(<= 15 | binomial(20, 0.95)) = 0.3 %) and the
+    # mean estimate lies within 3 standard errors of that mean (SE / sqrt(20)) of the truth (normal theory)
+    n_sets = 20
+    truth, est, se, _ = _adaptation_recovery(n_sets, seed0=40000)
+    for i, (name, value) in enumerate(truth.items()):
+        covered = int(np.sum(np.abs(est[:, i] - value) <= 1.959964 * se[:, i]))
+        bias = est[:, i].mean() - value
+        print(f"adaptation fit {name}: covered {covered}/{n_sets}, bias/SE {bias / se[:, i].mean():+.3f}, "
+              f"SD / mean SE {est[:, i].std(ddof=1) / se[:, i].mean():.3f}", flush=True)
+        assert covered >= 16, (name, covered)
+        assert abs(bias) < 3.0 * se[:, i].mean() / np.sqrt(n_sets), (name, bias)
+
+
 def test_history_errors():
     pop = _adapting_pop()
     plain = popdens.Population(popdens.LIF(tau_m=10.0, threshold=20.0, reset=14.0, refractory=3.0),
