@@ -36,7 +36,12 @@ Methods (``method`` of :func:`popdens.gain` for conductance input):
   comparison: it ignores the shorter time constant).
 
 All are approximations; their errors against the Monte Carlo twin are
-tabulated in the contributor guide.  Units: mV, ms; rates in Hz.
+tabulated in the contributor guide.
+
+Linear response (:func:`conductance_transfer`, used by :func:`popdens.transfer`): the
+``"filtered"`` equation at complex frequency, by the threshold integration of
+:mod:`popdens.theory._modulated_threshold` with ``H = 1/D(u)`` per step; mean-drive modulation only.
+Units: mV, ms; rates in Hz.
 """
 
 from __future__ import annotations
@@ -48,12 +53,15 @@ import numpy as np
 
 from ..exceptions import ConvergenceError
 from ..model._kernels import NO_REFCOUNT, drift_value
+from ..model.effective import conductance_carrier
 from ..model.neurons import CODE_LIF
 from ..model.noise import Population, WhiteNoise
+from ._modulated_threshold import DEPTH_SIGMAS, NODES_PER_SIGMA, Sweep
 from ._scales import kernel_neuron, length_scale, scratch
 from ._threshold import LOG_DECAY, MAX_CELLS_BELOW, RESCALE_ABOVE, _phi, _psi, fill_grid
 
-__all__ = ["CONDUCTANCE_METHODS", "conductance_rates", "current_based_equivalent"]
+__all__ = ["CONDUCTANCE_METHODS", "conductance_rates", "current_based_equivalent", "ConductanceSweep",
+           "conductance_transfer"]
 
 CONDUCTANCE_METHODS = ("auto", "filtered", "diffusion", "current-based")
 #: Cells per local voltage scale ``sqrt(D(threshold) tau_eff)`` (or per model length scale, if
@@ -214,3 +222,76 @@ def conductance_rates(population, mus: np.ndarray, method: str, white_gain) -> n
     fine = _voltage_rates(population, mus, shift, CELLS_PER_SCALE)
     coarse = _voltage_rates(population, mus, shift, CELLS_PER_SCALE // 2)
     return (4.0 * fine - coarse) / 3.0
+
+
+# ---------------------------------------------------------------------------- linear response
+class ConductanceSweep(Sweep):
+    """Threshold-integration grid and stationary state of a conductance population, for its linear response.
+
+    The equation of the module docstring in the form of :mod:`popdens.theory._modulated_threshold`
+    (``dP/du = G P - H J + S``): ``G = (A - D'/2)/D`` and ``H = 1/D`` per step, threshold and reset
+    moved as for ``"filtered"`` (:func:`popdens.model.effective.conductance_carrier`).  Only the mean
+    drive is modulated: ``S = P0 / (tau_m D)``.
+
+    Parameters
+    ----------
+    population : Population
+        Neuron model with :class:`~popdens.ConductanceNoise`.
+    mu : float
+        Stationary drive (mV).
+    nodes_per_scale : float
+        Grid nodes per local voltage scale ``sqrt(2 tau_eff D(threshold))`` (mV).
+    """
+
+    def __init__(self, population, mu: float, nodes_per_scale: float = NODES_PER_SIGMA):
+        carrier, sigma_ref = conductance_carrier(population)
+        nrn, noise = carrier.neuron, population.noise
+        self.neuron = nrn
+        self.mu = float(mu)
+        self.sigma = sigma_ref
+        tau_m = float(nrn.tau_m)
+        gsum, grev = _means(noise)
+        d0, d1, d2 = noise.diffusion_coefficients(tau_m)
+        self._dcoef = (d0, d1, d2)
+        scale = math.sqrt(2.0 * noise.effective_time_constant(tau_m)) * sigma_ref / math.sqrt(2.0 * tau_m)
+
+        def coefficients(mid, nodes):
+            def g_and_d(u):
+                a = (np.asarray(nrn.drift(u), dtype=float) + self.mu + grev - gsum * u) / tau_m
+                d = np.maximum(d0 + u * (d1 + d2 * u), D_FLOOR)
+                return (a - 0.5 * (d1 + 2.0 * d2 * u)) / d, d
+            g_mid, d_mid = g_and_d(mid)
+            return g_mid, g_and_d(nodes)[0], 1.0 / d_mid
+
+        self.h = float("nan")  # H varies per step (``h_step``)
+        self._label = f"`mu` = {self.mu!r} mV (conductance input)"
+        anchor = min(float(nrn.reset), (float(nrn.rest) + self.mu + grev) / (1.0 + gsum))
+        self._build(anchor, DEPTH_SIGMAS * scale, nodes_per_scale / scale, coefficients)
+
+    def sources(self, modulate: str) -> np.ndarray:
+        """Source of problem E (mean modulation) at the two ends of every step, per unit flux."""
+        if modulate != "mean":
+            raise ValueError(f"`modulate` must be 'mean' for conductance input, got {modulate!r}")
+        d0, d1, d2 = self._dcoef
+        u = self.u
+        node = self.p0_unit / (float(self.neuron.tau_m) * np.maximum(d0 + u * (d1 + d2 * u), D_FLOOR))
+        src = np.empty((node.size - 1, 2))
+        src[:, 0] = node[:-1]
+        src[:, 1] = node[1:]
+        return src
+
+
+def conductance_transfer(population, mu: float, s) -> tuple[np.ndarray, np.ndarray]:
+    """Rate response (Hz/mV) to the mean drive at Laplace variables ``s`` (1/ms), and its error estimate.
+
+    Threshold integration at complex frequency (Richardson 2007) of the ``"filtered"`` equation,
+    Richardson-extrapolated from two grids (second order); the estimate is the difference between
+    the extrapolated and the finer values.  Like the effective-boundary result for coloured noise it
+    holds for ``2 pi f tau_syn`` well below 1.
+    """
+    _check(population)
+    s = np.asarray(s, dtype=complex)
+    coarse = ConductanceSweep(population, mu).solve(s)[0]
+    fine = ConductanceSweep(population, mu, 2 * NODES_PER_SIGMA).solve(s)[0]
+    out = (4.0 * fine - coarse) / 3.0
+    return out, np.abs(out - fine)

@@ -11,7 +11,8 @@ sqrt(tau) dW`` the flux is ``J = [(F + mu) P - (sigma^2/2) dP/du] / tau``, so
     \\frac{dP}{du} = G(u) P - H J + S(u), \\qquad
     \\frac{dJ}{du} = -s P + \\text{injection at reset},
 
-with ``G = 2 (F + mu) / sigma^2`` (1/mV), ``H = 2 tau / sigma^2`` (ms/mV^2),
+with ``G = 2 (F + mu) / sigma^2`` (1/mV), ``H = 2 tau / sigma^2`` (ms/mV^2; per step, so that
+voltage-dependent noise, :class:`ConductanceSweep`, uses the same sweeps with ``H = 1/D(u)``),
 ``s = 2 pi i f`` the Laplace variable (1/ms) and a source ``S`` that carries
 the modulation.  Three problems are swept together, all with ``P(u_th) = 0``:
 
@@ -64,8 +65,8 @@ SERIES_BELOW = 1e-3
 
 
 @numba.njit(cache=True, nogil=True)
-def _stationary_sweep(g_mid, g_node, du, h, k_reset, floor, e_out, wup_out, wlo_out, p0_out):  # pragma: no cover
-    """Backward sweep of the stationary problem per unit flux; fills step weights.
+def _stationary_sweep(g_mid, g_node, du, h_step, k_reset, floor, e_out, wup_out, wlo_out, p0_out):  # pragma: no cover
+    """Backward sweep of the stationary problem per unit flux; fills step weights (``h_step``: H per step).
 
     Returns the index of the last node used, or -1 if the density did not decay.
     """
@@ -87,7 +88,7 @@ def _stationary_sweep(g_mid, g_node, du, h, k_reset, floor, e_out, wup_out, wlo_
         e_out[k] = e
         wup_out[k] = wup
         wlo_out[k] = phi0 - wup
-        p = e * p + h * phi0 * j
+        p = e * p + h_step[k] * phi0 * j
         p0_out[k + 1] = p
         if p > pmax:
             pmax = p
@@ -104,8 +105,8 @@ GROWTH_CHECK_EVERY = 8
 
 
 @numba.njit(cache=True, nogil=True, error_model="numpy")
-def _modulated_sweep(s_arr, tau_ref, e_w, wup, wlo, src, du, h, k_reset, n_nodes, out):  # pragma: no cover
-    """Sweep problems A, B, E for every Laplace variable in ``s_arr`` (1/ms).
+def _modulated_sweep(s_arr, tau_ref, e_w, wup, wlo, src, du, h_step, k_reset, n_nodes, out):  # pragma: no cover
+    """Sweep problems A, B, E for every Laplace variable in ``s_arr`` (1/ms); ``h_step``: H per step.
 
     ``src[k, 0]`` / ``src[k, 1]``: source of problem E at the upper / lower end of
     step ``k``.  ``out[i]`` = (J_A, J_B, J_E, trapz P_E) at the lowest node reached.
@@ -129,6 +130,7 @@ def _modulated_sweep(s_arr, tau_ref, e_w, wup, wlo, src, du, h, k_reset, n_nodes
     left = m
     half_du = 0.5 * du
     for k in range(n_nodes - 1):
+        h = h_step[k]
         hl = h * wlo[k]
         ew = e_w[k]
         hsum = h * (wup[k] + wlo[k])
@@ -218,29 +220,43 @@ class Sweep:
         self.neuron = neuron
         self.mu = float(mu)
         self.sigma = float(sigma)
-        uth, ur = float(neuron.boundary), float(neuron.reset)
-        n_rt = max(MIN_NODES_RESET_TO_BOUNDARY, int(math.ceil((uth - ur) * nodes_per_sigma / self.sigma)))
-        du = (uth - ur) / n_rt
-        anchor = min(ur, float(neuron.rest) + self.mu)
         depth = DEPTH_SIGMAS * self.sigma
         if neuron.code == 3 and self.mu > 0:  # PIF: density decays on sigma^2 / (2 mu) below reset
             depth = max(depth, 40.0 * self.sigma ** 2 / (2.0 * self.mu))
         self.h = 2.0 * neuron.tau_m / self.sigma ** 2
+        self._label = f"`mu` = {self.mu!r} mV, `sigma` = {self.sigma!r} mV"
+
+        def coefficients(mid, nodes):
+            g_mid = 2.0 * (np.asarray(neuron.drift(mid), dtype=float) + self.mu) / self.sigma ** 2
+            g_node = 2.0 * (np.asarray(neuron.drift(nodes), dtype=float) + self.mu) / self.sigma ** 2
+            return g_mid, g_node, np.full(mid.size, self.h)
+
+        self._build(min(float(neuron.reset), float(neuron.rest) + self.mu), depth, nodes_per_sigma / self.sigma,
+                    coefficients)
+
+    def _build(self, anchor: float, depth: float, nodes_per_mv: float, coefficients) -> None:
+        """The grid (boundary and reset on nodes, ``nodes_per_mv`` resolution, down to ``depth`` mV
+        below ``anchor`` or further until the density has decayed) and the stationary sweep on it;
+        ``coefficients(mid, nodes)`` gives G at the step midpoints and nodes and H per step."""
+        neuron = self.neuron
+        uth, ur = float(neuron.boundary), float(neuron.reset)
+        n_rt = max(MIN_NODES_RESET_TO_BOUNDARY, int(math.ceil((uth - ur) * nodes_per_mv)))
+        du = (uth - ur) / n_rt
         while True:
             n_nodes = n_rt + int(math.ceil((ur - (anchor - depth)) / du)) + 1
             if n_nodes > MAX_NODES:
                 raise ValueError(
-                    f"no stationary state at `mu` = {self.mu!r} mV, `sigma` = {self.sigma!r} mV: the density "
+                    f"no stationary state at {self._label}: the density "
                     f"does not decay below the reset within {MAX_NODES} grid nodes")
             u = uth - du * np.arange(n_nodes)
             mid = u[:-1] - 0.5 * du
-            g_mid = 2.0 * (np.asarray(neuron.drift(mid), dtype=float) + self.mu) / self.sigma ** 2
-            g_node = 2.0 * (np.asarray(neuron.drift(u), dtype=float) + self.mu) / self.sigma ** 2
-            if not (np.all(np.isfinite(g_mid)) and np.all(np.isfinite(g_node))):
+            g_mid, g_node, h_step = coefficients(mid, u)
+            if not (np.all(np.isfinite(g_mid)) and np.all(np.isfinite(g_node)) and np.all(np.isfinite(h_step))):
                 raise ValueError("the drift is not finite on the threshold-integration grid")
             e_w, wup, wlo = np.empty(n_nodes - 1), np.empty(n_nodes - 1), np.empty(n_nodes - 1)
             p0 = np.empty(n_nodes)
-            last = _stationary_sweep(g_mid, g_node, du, self.h, n_rt, DENSITY_FLOOR, e_w, wup, wlo, p0)
+            last = _stationary_sweep(g_mid, g_node, du, np.ascontiguousarray(h_step), n_rt, DENSITY_FLOOR, e_w, wup,
+                                     wlo, p0)
             if last > 0:
                 break
             depth *= 2.0
@@ -249,6 +265,7 @@ class Sweep:
         self.k_reset = n_rt
         self.u = u[:n]
         self.g_node = g_node[:n]
+        self.h_step = np.ascontiguousarray(h_step[:n - 1])
         self.e_w, self.wup, self.wlo = e_w[:n - 1], wup[:n - 1], wlo[:n - 1]
         p0 = p0[:n]
         if not np.all(np.isfinite(p0)) or np.any(p0 < 0):
@@ -289,7 +306,7 @@ class Sweep:
         s = np.ascontiguousarray(np.asarray(s, dtype=complex).ravel())
         out = np.empty((s.size, 4), dtype=complex)
         _modulated_sweep(s, float(self.neuron.refractory), self.e_w, self.wup, self.wlo,
-                         np.ascontiguousarray(self.sources(modulate)), self.du, self.h, self.k_reset,
+                         np.ascontiguousarray(self.sources(modulate)), self.du, self.h_step, self.k_reset,
                          self.u.size, out)
         ja, jb, je, ipe = out.T
         delay = np.exp(-s * float(self.neuron.refractory))

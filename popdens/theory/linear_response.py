@@ -552,7 +552,10 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
         Escape noise (hazard depending on ``u`` only), white or coloured noise
         with a constant ``sigma``, or shot noise (finite PSPs; ``modulate =
         "mean"``: the linear response of the jump-density operator, exact in
-        the PSP size up to its grid, extrapolated over three grids).
+        the PSP size up to its grid, extrapolated over three grids), or
+        conductance input (``modulate = "mean"``: threshold integration of the
+        voltage-dependent equation with moved boundaries, valid for
+        ``2 pi f tau_syn`` well below 1).
     mu : float
         Stationary drive (mV).
     freqs : array_like of float or complex
@@ -608,6 +611,9 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
     """
     if isinstance(population, Population) and isinstance(population.noise, ShotNoise):
         out, err = _shot_transfer(population, mu, freqs, modulate, method, progress)
+        return (out, err) if return_error else out
+    if isinstance(population, Population) and isinstance(population.noise, ConductanceNoise):
+        out, err = _conductance_transfer(population, mu, freqs, modulate, method)
         return (out, err) if return_error else out
     population = _check_population(population)
     mu = v.as_finite_float("mu", mu)
@@ -674,6 +680,21 @@ def _shot_transfer(population, mu, freqs, modulate, method, progress):
         raise ValueError("the linear response of shot noise does not support `adaptation` yet; remove it from "
                          "the neuron")
     out, err = shot_transfer(population, mu, (2j * math.pi * 1e-3) * f.ravel(), progress)
+    return out.reshape(f.shape), err.reshape(f.shape)
+
+
+def _conductance_transfer(population, mu, freqs, modulate, method):
+    """Conductance input: threshold integration at complex frequency (:mod:`._conductance`)."""
+    from ._conductance import conductance_transfer
+
+    mu = v.as_finite_float("mu", mu)
+    f = _check_freqs(freqs)
+    if modulate != "mean":
+        raise ValueError(f"`modulate` must be 'mean' for conductance input (its fluctuations follow from the "
+                         f"input rates), got {modulate!r}")
+    if method not in (None, "threshold-integration"):
+        raise ValueError(f"`method` must be 'threshold-integration' for conductance input, got {method!r}")
+    out, err = conductance_transfer(population, mu, (2j * math.pi * 1e-3) * f.ravel())
     return out.reshape(f.shape), err.reshape(f.shape)
 
 

@@ -127,3 +127,22 @@ def test_rate_against_the_twin_over_synaptic_time_constants(regime):
               + ", ".join(f"{m} {100 * (v - r) / r:+.1f} %" for m, v in rates.items()))
         if ratio <= 0.25:
             assert abs(rates["filtered"] - r) < 0.03 * r  # twin (SE <= 0.6 %): 3 % target
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("f", [10.0, 100.0])
+def test_transfer_against_the_twin(f):
+    """The 'filtered' transfer function (tau_eff = 6.6 ms, synapses 0.5 / 1 ms) against a twin of 20000
+    neurons driven by mu + 0.5 sin(2 pi f t) (SE of the fitted coefficients sqrt(2/M) x residual s.d.): within
+    4 SE at 10 Hz (2 pi f tau_i = 0.06; measured 2.8 SE in amplitude, 1.1 SE in phase); at 100 Hz (0.63) the
+    first-order theory is reported, not required (measured 19 % low and 0.3 rad late)."""
+    from test_montecarlo_coloured import sine_response
+
+    pop = popdens.Population(LIF, noise_for(0.8, 1.25, 0.5, 1.0))
+    amp, ph, se_a, se_p = sine_response(pop, 10.0, f, 0.5, 20000, 0.02, 0.5, 5)
+    chi = popdens.transfer(pop, 10.0, [f])[0]
+    print(f"{f:g} Hz: twin {amp:.4f} +- {se_a:.4f} Hz/mV, {ph:.3f} +- {se_p:.3f} rad; theory {abs(chi):.4f}, "
+          f"{np.angle(chi):.3f}")
+    if f <= 10.0:
+        assert abs(amp - abs(chi)) < 4 * se_a  # twin, 4 SE
+        assert abs(ph - np.angle(chi)) < 4 * se_p  # twin, 4 SE
