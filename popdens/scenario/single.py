@@ -225,9 +225,6 @@ def parse_single_scenario(data: dict, source: str | Path = "<scenario>") -> Scen
     if isinstance(noise, ShotNoise) and "stationary" in data:
         raise ScenarioError(f"{src}: [stationary] is not available for shot noise ([noise] kind = 'shot') yet; "
                             "[gain] gives its stationary rates, [transfer] its linear response")
-    if isinstance(noise, ConductanceNoise) and "stationary" in data:
-        raise ScenarioError(f"{src}: [stationary] is not available for conductance input ([noise] kind = "
-                            "'conductance') yet; [gain] gives its stationary rates, [transfer] its linear response")
     if "fit" in data:
         analyses = (*analyses, ("fit", parse_fit(src, data["fit"])))
     digest = hashlib.sha256(repr(sorted(flatten(data))).encode()).hexdigest()[:16]

@@ -36,7 +36,7 @@ from ..model._kernels import NO_REFCOUNT
 from ._scales import kernel_neuron, length_scale, scratch
 from ._threshold import fill_grid, lower_end
 
-__all__ = ["laplace_passage", "passage_time_density"]
+__all__ = ["laplace_passage", "passage_time_density", "density_from_transform"]
 
 #: Stop refining the frequency grid when |F| at the highest frequency is below this.
 SPECTRUM_FLOOR = 1e-13
@@ -129,17 +129,27 @@ def passage_time_density(population, mu, sigma, t, mean_passage, std_passage):
     Returns ``(density, survivor, residual)`` with ``residual`` = |F| at the
     highest frequency used (below ``SPECTRUM_FLOOR`` unless the cap was hit).
     """
-    t = np.asarray(t, dtype=float)
     g, widths, k_r, d = _cells(population, mu, sigma)
+
+    def transform(s):
+        out = np.empty(s.size, dtype=complex)
+        laplace_passage(g, widths, k_r, d, s, out)
+        return out
+
+    return density_from_transform(transform, t, mean_passage, std_passage)
+
+
+def density_from_transform(transform, t, mean_passage, std_passage):
+    """Density (1/ms) and survivor function at times ``t`` (ms) of a passage time whose Laplace transform
+    ``transform(s)`` (``s`` an array in 1/ms) is given; as :func:`passage_time_density`, which uses it."""
+    t = np.asarray(t, dtype=float)
     span = max(float(np.max(t, initial=0.0)), mean_passage + 14.0 * std_passage)
     period = 2.0 * span
     # the frequency spacing is fixed by the period: doubling the count only adds new, higher ones
     n_f = MIN_FREQS
-    f_hat = np.empty(n_f + 1, dtype=complex)
-    laplace_passage(g, widths, k_r, d, 1j * 2.0 * math.pi * np.arange(n_f + 1) / period, f_hat)
+    f_hat = transform(1j * 2.0 * math.pi * np.arange(n_f + 1) / period)
     while abs(f_hat[-1]) >= SPECTRUM_FLOOR and n_f < MAX_FREQS:
-        new = np.empty(n_f, dtype=complex)
-        laplace_passage(g, widths, k_r, d, 1j * 2.0 * math.pi * np.arange(n_f + 1, 2 * n_f + 1) / period, new)
+        new = transform(1j * 2.0 * math.pi * np.arange(n_f + 1, 2 * n_f + 1) / period)
         f_hat = np.concatenate([f_hat, new])
         n_f *= 2
     n_t = 2 * n_f

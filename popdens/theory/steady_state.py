@@ -33,11 +33,13 @@ Methods
   of the LIF with exponentially distributed PSPs (Richardson & Swarbrick
   2010), else the stationary state of the jump-density operator
   (:mod:`popdens.theory._stationary_shot`).
-* Conductance input (:class:`~popdens.ConductanceNoise`, :func:`gain` only):
-  threshold integration with voltage-dependent drift and diffusion (the
+* Conductance input (:class:`~popdens.ConductanceNoise`): threshold
+  integration with voltage-dependent drift and diffusion (the
   effective-time-constant approximation with the fluctuations' driving
   force), threshold and reset moved for the synaptic filtering
-  (:mod:`popdens.theory._conductance`).
+  (:mod:`popdens.theory._conductance`); :func:`stationary` takes the ISI
+  moments and density from the transform of the same equation (renewal:
+  the conductances' memory across spikes is ignored).
 
 The ISI CV of white-noise populations comes from the first two moments of
 the passage time from reset to the boundary; the ISI density from the
@@ -69,8 +71,8 @@ from ..model.conductance import ConductanceNoise
 from ..model.synaptic import ColouredNoise
 from ._adapted import escape_adapted, white_adapted
 from ._stationary_shot import shot_rates
-from ._conductance import conductance_rates
-from ._isi_diffusive import passage_time_density
+from ._conductance import conductance_rates, conductance_stationary
+from ._isi_diffusive import density_from_transform, passage_time_density
 from ._isi_markov import isi_chain
 from ._renewal import STATUS_OK as _RENEWAL_OK
 from ._renewal import RENEWAL_TOL, reaches_cutoff, renewal_moments
@@ -527,6 +529,34 @@ def _diffusive_stationary(population, mu: float, sigma: float, isi_t, method: st
     )
 
 
+def _conductance_stationary(population, mu: float, isi_t, method: str) -> SteadyState:
+    """Stationary state of conductance input (:func:`popdens.theory._conductance.conductance_stationary`)."""
+    if method not in ("auto", "filtered"):
+        raise ValueError(f"`method` must be 'auto' or 'filtered' for `stationary` with conductance input, "
+                         f"got {method!r}")
+    nrn = population.neuron
+    st = conductance_stationary(population, mu)
+    m1, rate = st["m1"], st["rate"]
+    var = st["m2"] - m1 * m1
+    std = math.sqrt(max(var, 0.0))
+    if isi_t is None:
+        isi_t = _default_isi_grid(m1 + 14.0 * std)
+    else:
+        isi_t = v.finite_array("isi_t", isi_t)
+        if np.any(isi_t < 0.0):
+            raise ValueError("`isi_t` must be >= 0 (ms)")
+    dens, surv, residual = density_from_transform(st["transform"], isi_t - nrn.refractory, m1 - nrn.refractory, std)
+    u, density = st["u"], st["density"]
+    mean_u = float(np.sum(0.5 * (u[1:] * density[1:] + u[:-1] * density[:-1]) * np.diff(u))) \
+        + rate * 1e-3 * nrn.refractory * nrn.reset
+    return SteadyState(
+        population=population, mu=mu, sigma=None, rate=rate, cv=std / m1, mean_isi=m1, mean_u=mean_u,
+        refractory_fraction=float(rate * 1e-3 * nrn.refractory), isi_t=isi_t, isi_density=dens, survivor=surv,
+        method="filtered", u=u, density=density, flux=st["flux"],
+        diagnostics={"nodes": st["nodes"], "rate_error_hz": st["rate_error_hz"], "isi_spectrum_residual": residual},
+    )
+
+
 def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> SteadyState:
     """Stationary state at the constant drive ``mu`` (mV).
 
@@ -543,7 +573,8 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         default 2001 points up to where the survivor function falls to
         ``ISI_GRID_SURVIVOR`` (escape) or well past the mean ISI (white noise).
     method : str
-        As in :func:`gain`.
+        As in :func:`gain` (conductance input: ``"auto"`` or ``"filtered"``,
+        the renewal problem of the effective equation).
 
     Returns
     -------
@@ -553,9 +584,11 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         noise), mean potential (mV).
     """
     _check_population(population)
-    if isinstance(population.noise, (ShotNoise, ConductanceNoise)):
-        raise ValueError(f"`stationary` (ISI statistics, densities) is not available for "
-                         f"{type(population.noise).__name__} yet; popdens.gain gives its stationary rate")
+    if isinstance(population.noise, ShotNoise):
+        raise ValueError("`stationary` (ISI statistics, densities) is not available for ShotNoise yet; "
+                         "popdens.gain gives its stationary rate")
+    if _conductance(population, sigma):
+        return _conductance_stationary(population, v.as_finite_float("mu", mu), isi_t, method)
     original = population
     population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)

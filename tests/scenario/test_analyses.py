@@ -263,7 +263,6 @@ CONDUCTANCE = POPULATION.replace('kind = "escape"', 'kind = "conductance"\nexc_r
     ("[approximations]\nmu = 5.0\ntau_syn = [1.0]\n", "`tau_syn` does not apply"),
     ("[approximations]\nmu = 5.0\ntau_factor = [-1.0]\n", "positive values"),
     ("[transfer]\nmu = 5.0\nfrequencies = [1.0]\nmodulate = 'noise'\n", "needs [noise] kind = 'white'"),
-    ("[stationary]\nmu = 5.0\n", "not available for conductance input"),
     ("[gain]\nmu = [5.0]\nsigma = [1.0]\n", "`sigma` applies to white noise only"),
 ])
 def test_conductance_tables_reject_bad_input(tmp_path, extra, fragment):
@@ -305,7 +304,8 @@ def test_conductance_scenario_runs_the_approximation_table(tmp_path):
     """Twin (400 neurons x 500 ms) against the default (filtered) rate: within 4 SE (SE from the spread of
     per-neuron counts) where the theory holds (tau_m 10 ms here, tau_eff 3.3 ms: inhibitory time constants
     0.25 and 0.5 ms are 0.08 and 0.15 of it); the white-conductance rate is the same at every factor."""
-    p = write(tmp_path, CONDUCTANCE + "[gain]\nmu = [0.0, 10.0]\n[transfer]\nmu = 10.0\nfrequencies = [1.0, 10.0]\n"
+    p = write(tmp_path, CONDUCTANCE + "[gain]\nmu = [0.0, 10.0]\n[stationary]\nmu = 10.0\n[transfer]\nmu = 10.0\n"
+                                      "frequencies = [1.0, 10.0]\n"
                                       "[approximations]\nmu = 10.0\n"
                                       "tau_factor = [0.25, 0.5]\nneurons = 400\nt_end = 500.0\n")
     sc = load_scenario(p)

@@ -113,8 +113,8 @@ def test_unavailable_analyses_say_so():
         popdens.gain(POP, 0.0, method="siegert")
     with pytest.raises(ValueError, match="`sigma` does not apply to ConductanceNoise"):
         popdens.gain(POP, 0.0, sigma=2.0)
-    with pytest.raises(ValueError, match="not available for ConductanceNoise"):
-        popdens.stationary(POP, 0.0)
+    with pytest.raises(ValueError, match="`sigma` does not apply to ConductanceNoise"):
+        popdens.stationary(POP, 0.0, sigma=1.0)
     with pytest.raises(ValueError, match="`method` 'jump-density' solves ShotNoise"):
         popdens.simulate(POP, 0.0, t_end=10.0, dt=0.1, method="jump-density")
 
@@ -154,3 +154,21 @@ def test_transfer_matches_a_small_sinusoid_through_the_fokker_planck_solver(f):
 def test_transfer_refuses_noise_modulation():
     with pytest.raises(ValueError, match="`modulate` must be 'mean' for conductance input"):
         popdens.transfer(POP, 10.0, [10.0], "noise")
+
+
+# ---------------------------------------------------------------------------- stationary state
+def test_stationary_state_is_consistent():
+    """Rate as gain (a separate sweep, 1e-4); the potential density integrates to 1 - rate tau_ref; the ISI
+    density from the inverted transform integrates to 1 and has the mean 1000/rate (renewal identity)."""
+    st = popdens.stationary(POP, 10.0)
+    assert st.rate == pytest.approx(float(popdens.gain(POP, 10.0)), rel=1e-4)  # threshold integration, Q = D P
+    mass = np.sum(0.5 * (st.density[1:] + st.density[:-1]) * np.diff(st.u))
+    assert mass == pytest.approx(1.0 - st.rate * 1e-3 * 2.0, abs=1e-4)  # normalisation, refractory mass apart
+    t, p = st.isi_t, st.isi_density
+    w = np.diff(t)
+    assert np.sum(0.5 * (p[1:] + p[:-1]) * w) == pytest.approx(1.0, abs=2e-3)  # a density
+    mean = np.sum(0.5 * (t[1:] * p[1:] + t[:-1] * p[:-1]) * w)
+    assert mean == pytest.approx(1000.0 / st.rate, rel=3e-3)  # mean ISI = 1 / rate (renewal)
+    assert 0.0 < st.cv < 1.0 and st.sigma is None and st.method == "filtered"
+    with pytest.raises(ValueError, match="`method` must be 'auto' or 'filtered'"):
+        popdens.stationary(POP, 10.0, method="diffusion")
