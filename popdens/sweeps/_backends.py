@@ -16,6 +16,7 @@ resumed sweep computes them again.
 
 from __future__ import annotations
 
+import gc
 import math
 import multiprocessing
 import os
@@ -326,6 +327,7 @@ def dask_connect(workers: int, scheduler: str | None):
         # checked here: distributed's own reaction to a malformed address differs between its versions
         raise ConnectionError(f"cannot reach the Dask scheduler at {scheduler!r}: invalid address "
                               "(expected host:port, e.g. tcp://10.0.0.5:8786)")
+    failure = None
     try:
         client = distributed.Client(scheduler, timeout=CONNECT_TIMEOUT)
     except Exception as exc:  # OSError (no answer), ValueError (scheme), TypeError (tls without a context)
@@ -333,8 +335,14 @@ def dask_connect(workers: int, scheduler: str | None):
         if scheduler.startswith("tls://"):
             hint = ("; a tls:// scheduler needs certificates in the Dask configuration (distributed.comm.tls); "
                     "popdens uses the configuration as it is")
-        raise ConnectionError(f"cannot reach the Dask scheduler at {scheduler!r}: {type(exc).__name__}: "
-                              f"{exc}{hint}") from None
+        failure = f"cannot reach the Dask scheduler at {scheduler!r}: {type(exc).__name__}: {exc}{hint}"
+    if failure is not None:
+        # The half-made Client (kept alive by the exception's traceback) is closed here, with nothing else
+        # of Dask starting: left to a later garbage collection, its __del__ ran inside the start-up of the
+        # next cluster and deadlocked there (seen in the test suite, 1 run in ~15).  The error is raised
+        # outside the except block so that it does not keep the traceback alive.
+        gc.collect()
+        raise ConnectionError(failure)
     return client, None
 
 
