@@ -178,7 +178,7 @@ class Result(Displayable):
         return "Result", rows, f"status {self.status}: {self.message}"
 
     def to_dataframe(self):
-        """The time courses as a pandas DataFrame, one row per output time, units in the column names."""
+        """The rates over time as a pandas DataFrame, one row per output time, units in the column names."""
         return dataframe({"t_ms": self.t, "rate_Hz": self.rate, "mean_u_mV": self.mean_u,
                           "refractory_fraction": self.refractory_fraction, "drive_mV": self.drive})
 

@@ -53,7 +53,7 @@ from ..sweeps.engine import Curve, SweepResult, sweep
 __all__ = ["ANALYSES", "ScenarioPoint", "SweepPlan", "plan_sweep", "run_sweep_scenario"]
 
 #: Settings of the [sweep] table; every other key must be a dotted parameter key.
-SETTINGS = {"analysis", "mode", "seed", "retries", "frequencies", "drives", "time_courses"}
+SETTINGS = {"analysis", "mode", "seed", "retries", "frequencies", "drives", "rates_over_time"}
 MODES = ("grid", "list")
 #: Tables whose values may be swept.
 SWEEPABLE = ("neuron", "noise", "input", "run")
@@ -94,7 +94,7 @@ def summary_analysis(sc: Scenario, seed: np.random.SeedSequence, options: dict) 
     out = {"mean_rate_Hz": float(np.sum(pred.rate[1:] * width) / np.sum(width)),
            "peak_rate_Hz": float(pred.rate[k]), "peak_time_ms": float(pred.t[k]),
            "final_rate_Hz": float(pred.rate[-1]), "final_mean_u_mV": float(pred.mean_u[-1])}
-    if options.get("time_courses"):
+    if options.get("rates_over_time"):
         out["rate_Hz"] = Curve("t_ms", pred.t[1:], pred.rate[1:])
     if sc.montecarlo_neurons:
         from ..twins.agreement import agreement
@@ -112,7 +112,7 @@ def summary_analysis(sc: Scenario, seed: np.random.SeedSequence, options: dict) 
         if check.modulation is not None:
             out["montecarlo_modulation_Hz"] = float(check.modulation.amplitude_hz)
             out["predicted_modulation_Hz"] = float(check.modulation.predicted_amplitude_hz)
-        if options.get("time_courses"):
+        if options.get("rates_over_time"):
             out["montecarlo_rate_Hz"] = Curve("t_ms", mc.t[1:], mc.rate[1:])
     return out
 
@@ -158,7 +158,7 @@ def _check_transfer(sc, options):
 
 #: name -> (analysis, check run once on the base scenario, options it accepts)
 ANALYSES = {
-    "summary": (summary_analysis, _check_summary, {"time_courses"}),
+    "summary": (summary_analysis, _check_summary, {"rates_over_time"}),
     "gain": (gain_analysis, _check_gain, {"drives"}),
     "transfer": (transfer_analysis, _check_transfer, {"frequencies"}),
 }
@@ -302,13 +302,13 @@ def plan_sweep(sc: Scenario, *, validate_points: bool = True) -> SweepPlan:
         raise ScenarioError(f"{src}: [sweep] key `retries` = {retries!r}: expected an integer from 0 to 100")
     _, check, accepted = ANALYSES[analysis]
     options = {}
-    if "time_courses" in settings:
-        if "time_courses" not in accepted:
-            raise ScenarioError(f"{src}: [sweep] key `time_courses` is used by analysis `summary` only")
-        if not isinstance(settings["time_courses"], bool):
-            raise ScenarioError(f"{src}: [sweep] key `time_courses` = {settings['time_courses']!r}: expected "
+    if "rates_over_time" in settings:
+        if "rates_over_time" not in accepted:
+            raise ScenarioError(f"{src}: [sweep] key `rates_over_time` is used by analysis `summary` only")
+        if not isinstance(settings["rates_over_time"], bool):
+            raise ScenarioError(f"{src}: [sweep] key `rates_over_time` = {settings['rates_over_time']!r}: expected "
                                 "true or false")
-        options["time_courses"] = settings["time_courses"]
+        options["rates_over_time"] = settings["rates_over_time"]
     for k in ("frequencies", "drives"):
         if k in settings:
             if k not in accepted:

@@ -1,5 +1,5 @@
 """What a sweep writes: tables readable by numpy and pandas, figures labelled with units, coloured by
-the swept value and identical byte for byte between runs, an HTML report, time courses on request."""
+the swept value and identical byte for byte between runs, an HTML report, rates over time on request."""
 
 from __future__ import annotations
 
@@ -23,11 +23,11 @@ dt = 0.1
 record_interval = 1.0
 [sweep]
 analysis = "summary"
-time_courses = true
+rates_over_time = true
 "input.mu" = [15.0, 17.0, 19.0]
 """
 
-TRANSFER = SCENARIO.replace('analysis = "summary"\ntime_courses = true', 'analysis = "transfer"\n'
+TRANSFER = SCENARIO.replace('analysis = "summary"\nrates_over_time = true', 'analysis = "transfer"\n'
                             'frequencies = [0.0, 3.0, 10.0, 30.0, 100.0]')
 
 
@@ -45,7 +45,7 @@ def test_sweep_outputs_are_readable_labelled_and_reproducible(tmp_path):
     src.write_text(SCENARIO)
     res = run_sweep_scenario(src, tmp_path / "a", backend="serial", progress=False)
     run_sweep_scenario(src, tmp_path / "b", backend="serial", progress=False)
-    # time courses kept on request: one rate curve per point, over time (ms)
+    # rates over time kept on request: one rate curve per point, over time (ms)
     t, rates = res.curves("rate_Hz")
     assert rates.shape == (3, 20) and t[0] == 1.0 and np.all(np.diff(rates.mean(axis=1)) > 0)
     # tables: names first, metadata as comments (numpy and pandas read them as documented)
