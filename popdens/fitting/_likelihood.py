@@ -55,6 +55,21 @@ from ..solvers._refractory_adapting import adapt_end, adapt_start, adapt_sums
 
 
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def _trial_starts(bins, first, nxt, n_steps):  # pragma: no cover - compiled
+    """Point ``nxt[i]`` at trial ``i``'s first spike (-1 for a trial without spikes); returns the
+    earliest first-spike step (``n_steps`` when no trial has a spike)."""
+    k_min = n_steps
+    for i in range(first.shape[0] - 1):
+        if first[i + 1] > first[i]:
+            nxt[i] = first[i]
+            if bins[first[i]] < k_min:
+                k_min = bins[first[i]]
+        else:
+            nxt[i] = -1
+    return k_min
+
+
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
 def escape_train_loglik(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cutoff,
                         hcode, hpar, hops, hargs, theta, uses_slope, tau_ref, dt,
                         mu, bins, first, u, h, age, lam, nxt, rescaled, uniforms, record,
@@ -74,14 +89,7 @@ def escape_train_loglik(ncode, npar, nops, nargs, tau_m, reset, boundary, has_cu
     n_steps = mu.shape[0] - 1
     e_dt = math.exp(-dt / tau_m)
     ll = 0.0
-    k_min = n_steps
-    for i in range(n_tr):
-        if first[i + 1] > first[i]:
-            nxt[i] = first[i]
-            if bins[first[i]] < k_min:
-                k_min = bins[first[i]]
-        else:
-            nxt[i] = -1
+    k_min = _trial_starts(bins, first, nxt, n_steps)
     for k in range(k_min, n_steps):
         mu0 = mu[k]
         mu1 = mu[k + 1]
@@ -154,14 +162,7 @@ def escape_train_loglik_adapting(ncode, npar, nops, nargs, tau_m, reset, boundar
     n_comp = kinds.shape[0]
     e_dt = math.exp(-dt / tau_m)
     ll = 0.0
-    k_min = n_steps
-    for i in range(n_tr):
-        if first[i + 1] > first[i]:
-            nxt[i] = first[i]
-            if bins[first[i]] < k_min:
-                k_min = bins[first[i]]
-        else:
-            nxt[i] = -1
+    k_min = _trial_starts(bins, first, nxt, n_steps)
     for k in range(k_min, n_steps):
         mu0 = mu[k]
         mu1 = mu[k + 1]
