@@ -13,35 +13,13 @@ from pathlib import Path
 import pytest
 
 from popdens._files import stale_temporaries
+from popdens.benchmarks.responsiveness import SCENARIO
 from popdens.cli import EXIT_INTERRUPTED, EXIT_TERMINATED, main
 
 ROOT = Path(__file__).resolve().parents[2]
 
-LONG = """
-[scenario]
-title = "long"
-output = "out"
-[neuron]
-model = "LIF"
-tau_m = 10.0
-threshold = 20.0
-reset = 0.0
-refractory = 2.0
-[noise]
-kind = "escape"
-[noise.hazard]
-shape = "exponential"
-rate = 20.0
-width = 2.0
-[input]
-shape = "constant"
-mu = 15.0
-[run]
-t_end = 2000.0
-dt = 0.1
-montecarlo_neurons = 1000000
-seed = 1
-"""
+# the responsiveness benchmark's long run (escape-noise LIF, 2 s, a Monte Carlo twin of 10^6 neurons)
+LONG = SCENARIO.replace('title = "responsiveness"', 'title = "long"').format(n=1000000)
 
 pytestmark = pytest.mark.skipif(sys.platform == "win32", reason="POSIX signals")
 
