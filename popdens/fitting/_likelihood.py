@@ -54,7 +54,7 @@ from ..solvers._age_step import _bin_step, _newborn, _refire_survival
 from ..solvers._refractory_adapting import adapt_end, adapt_start, adapt_sums
 
 
-@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
 def _trial_starts(bins, first, nxt, n_steps):  # pragma: no cover - compiled
     """Point ``nxt[i]`` at trial ``i``'s first spike (-1 for a trial without spikes); returns the
     earliest first-spike step (``n_steps`` when no trial has a spike)."""
