@@ -47,6 +47,24 @@ is an approximation of ours, chosen by measurement against the spiking twin
 (LIF, 4 mV of noise, tau_syn/tau_m = 0.1, a quarter to three quarters of the
 variance white: rate errors -2.8 % to +1.1 %, where weighting ``tau_i``
 itself by the variance gave -7 % to -9 %; contributor guide).
+
+Synapse kinds
+-------------
+A :class:`Pathway` (and a :class:`PoissonBackground`) states its synapse
+with ``synapse``:
+
+* ``"current"`` (default): a current PSP of integral ``weight`` (mV),
+  instantaneous or filtered with ``tau_syn``, analysed in the diffusion
+  approximation above;
+* ``"shot"``: an instantaneous jump of ``weight`` (mV) per input spike,
+  analysed as finite PSPs (shot noise, :class:`~popdens.ShotNoise`);
+* ``"conductance"``: a conductance jump of ``weight`` (leak units, > 0)
+  decaying with ``tau_syn`` (ms, > 0) towards the ``reversal`` potential
+  (mV), analysed in the effective-time-constant approximation
+  (:class:`~popdens.ConductanceNoise`).
+
+All synaptic input of one cohort (its pathways and its background) is of
+one kind.
 """
 
 from __future__ import annotations
@@ -79,6 +97,32 @@ def _name(kind: str, value) -> str:
     return value
 
 
+#: Synapse kinds of a pathway or background (module docstring).
+SYNAPSE_KINDS = ("current", "shot", "conductance")
+
+
+def _synapse(owner: str, synapse, weight: float, tau_syn: float, reversal):
+    """Validated ``(synapse, reversal)`` of a pathway or background; ``owner`` names it in errors."""
+    if synapse not in SYNAPSE_KINDS:
+        raise ValueError(f"{owner}: `synapse` must be one of {list(SYNAPSE_KINDS)}, got {synapse!r}")
+    if synapse == "conductance":
+        if reversal is None:
+            raise ValueError(f"{owner}: `reversal` (mV) is required for a conductance synapse")
+        reversal = v.as_finite_float("reversal", reversal)
+        if not weight > 0.0:
+            raise ValueError(f"{owner}: `weight` of a conductance synapse is a conductance jump in leak units "
+                             f"and must be > 0 (the reversal potential sets its sign), got {weight!r}")
+        if not tau_syn > 0.0:
+            raise ValueError(f"{owner}: `tau_syn` of a conductance synapse must be > 0 ms, got {tau_syn!r}")
+        return synapse, reversal
+    if reversal is not None:
+        raise ValueError(f"{owner}: `reversal` applies to conductance synapses; this one is {synapse!r}")
+    if synapse == "shot" and tau_syn != 0.0:
+        raise ValueError(f"{owner}: a shot-noise synapse is an instantaneous jump, so `tau_syn` must be 0 ms, "
+                         f"got {tau_syn!r}")
+    return synapse, None
+
+
 def _count(name: str, value) -> int:
     if isinstance(value, bool) or not isinstance(value, (numbers.Integral, np.integer)):
         if isinstance(value, (float, np.floating)) and float(value).is_integer():
@@ -105,6 +149,10 @@ class PoissonBackground:
     tau_syn : float
         Synaptic time constant (ms): 0 (default) for instantaneous jumps,
         > 0 for an exponential current of unit area, as for :class:`Pathway`.
+    synapse : {"current", "shot", "conductance"}
+        Synapse kind, as for :class:`Pathway` (default ``"current"``).
+    reversal : float, optional
+        Reversal potential (mV) of a conductance synapse; only then.
 
     Notes
     -----
@@ -117,12 +165,16 @@ class PoissonBackground:
     weight: float
     count: int
     tau_syn: float = 0.0
+    synapse: str = "current"
+    reversal: float | None = None
 
     def __post_init__(self):
         object.__setattr__(self, "rate", v.non_negative("rate", self.rate))
         object.__setattr__(self, "weight", v.as_finite_float("weight", self.weight))
         object.__setattr__(self, "count", _count("count", self.count))
         object.__setattr__(self, "tau_syn", v.non_negative("tau_syn", self.tau_syn))
+        _, rev = _synapse("background", self.synapse, self.weight, self.tau_syn, self.reversal)
+        object.__setattr__(self, "reversal", rev)
 
     def mean(self, tau_m: float) -> float:
         """Drive contribution (mV)."""
@@ -252,6 +304,13 @@ class Pathway:
         Synaptic time constant (ms): 0 for instantaneous synapses, > 0 for an
         exponential kernel ``exp(-t/tau_syn)/tau_syn`` (unit area, so the PSP
         integral is the same as for the jump).
+    synapse : {"current", "shot", "conductance"}
+        Synapse kind (module docstring, "Synapse kinds"; default
+        ``"current"``).  For ``"conductance"``, ``weight`` is the
+        conductance jump in units of the target's leak conductance (> 0) and
+        ``tau_syn`` (> 0) its decay time.
+    reversal : float, optional
+        Reversal potential (mV) of a conductance synapse; only then.
     """
 
     source: str
@@ -260,6 +319,8 @@ class Pathway:
     in_degree: int
     delay: float = 1.0
     tau_syn: float = 0.0
+    synapse: str = "current"
+    reversal: float | None = None
 
     def __post_init__(self):
         _name("source", self.source)
@@ -268,6 +329,9 @@ class Pathway:
         object.__setattr__(self, "in_degree", _count("in_degree", self.in_degree))
         object.__setattr__(self, "delay", v.non_negative("delay", self.delay))
         object.__setattr__(self, "tau_syn", v.non_negative("tau_syn", self.tau_syn))
+        _, rev = _synapse(f"pathway {self.source}->{self.target}", self.synapse, self.weight, self.tau_syn,
+                             self.reversal)
+        object.__setattr__(self, "reversal", rev)
 
     @property
     def label(self) -> str:
@@ -343,6 +407,37 @@ class Circuit:
                     + (", no self-connections)" if p.source == p.target else ")"))
         object.__setattr__(self, "cohorts", asm)
         object.__setattr__(self, "pathways", pw)
+        for a in asm:
+            self._input_kind(a.name)
+
+    def _input_kind(self, name: str) -> str:
+        kinds = {}
+        for p in self.pathways:
+            if p.target == name:
+                kinds.setdefault(p.synapse, []).append(f"pathway {p.label}")
+        a = self.cohorts[self.index(name)]
+        if a.background is not None:
+            kinds.setdefault(a.background.synapse, []).append("its background")
+        if len(kinds) > 1:
+            detail = "; ".join(f"{k}: {', '.join(w)}" for k, w in kinds.items())
+            raise ValueError(f"cohort {name!r}: all its synaptic input must be of one `synapse` kind, got {detail}")
+        kind = next(iter(kinds), "current")
+        if kind != "current" and not a.diffusive:
+            raise ValueError(f"cohort {name!r}: {kind} synapses need a white- or coloured-noise population "
+                             "(its noise amplitude is then the external part only); this one has escape noise")
+        return kind
+
+    def synapse_kind(self, k: int) -> str:
+        """Synapse kind (``"current"``, ``"shot"`` or ``"conductance"``) of all input of cohort ``k``."""
+        return self._input_kind(self.names[k])
+
+    def require_current(self, where: str) -> None:
+        """Raise NotImplementedError when any input is not a current synapse (``where``: the caller's name)."""
+        for k in range(self.n):
+            kind = self.synapse_kind(k)
+            if kind != "current":
+                raise NotImplementedError(f"{where}: cohort {self.names[k]!r} receives {kind} synapses, "
+                                          "which this analysis does not support yet")
 
     # ---------------------------------------------------------- structure
     @property

@@ -104,6 +104,7 @@ def characteristic_matrix(circuit: Circuit, state: FixedPoint, lam, transfer: Ca
     -------
     ndarray of complex, shape ``lam.shape + (n, n)``
     """
+    circuit.require_current("characteristic_matrix")
     transfer = _default_transfer() if transfer is None else transfer
     lam = np.asarray(lam, dtype=complex)
     f = _freq_of(lam).ravel()

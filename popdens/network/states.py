@@ -221,6 +221,7 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     """
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
+    circuit.require_current("fixed_points")
     lo, hi = (v.non_negative("rate_range[0]", rate_range[0]), v.positive("rate_range[1]", rate_range[1]))
     v.less_than("rate_range[0]", lo, "rate_range[1]", hi)
     gain = _default_gain() if gain is None else gain

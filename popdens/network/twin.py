@@ -157,6 +157,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
 
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
+    circuit.require_current("montecarlo_network")
     dt = DEFAULT_DT if dt is None else dt
     grid = make_grid(t_end, dt, record_interval, None)
     dt = grid.dt

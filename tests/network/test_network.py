@@ -315,3 +315,21 @@ def test_mixed_models_and_noise_in_one_network():
     assert np.all(ref > 2.0)  # every cohort fires
     for k in range(3):
         assert abs(mc.mean_rate()[k] - ref[k]) < 4 * math.sqrt(ref[k] / 500) + 0.03 * ref[k], c.names[k]
+
+
+def test_synapse_kinds_are_validated_and_unsupported_analyses_say_so():
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(3.0))
+    with pytest.raises(ValueError, match="`synapse`"):
+        Pathway("E", "E", 0.1, 10, synapse="chemical")
+    with pytest.raises(ValueError, match="`reversal`"):
+        Pathway("E", "E", 0.1, 10, tau_syn=2.0, synapse="conductance")
+    with pytest.raises(ValueError, match="`reversal` applies"):
+        Pathway("E", "E", 0.1, 10, reversal=70.0)
+    with pytest.raises(ValueError, match="`tau_syn`"):
+        Pathway("E", "E", 0.1, 10, tau_syn=2.0, synapse="shot")
+    with pytest.raises(ValueError, match="`weight`"):
+        Pathway("E", "E", -0.1, 10, tau_syn=2.0, synapse="conductance", reversal=-10.0)
+    with pytest.raises(ValueError, match="one `synapse` kind"):
+        Circuit([Cohort("E", pop, size=50)], [Pathway("E", "E", 0.1, 10), Pathway("E", "E", 0.2, 10, synapse="shot")])
+    c = Circuit([Cohort("E", pop, size=50)], [Pathway("E", "E", 0.1, 10, synapse="shot")])
+    assert c.synapse_kind(0) == "shot"
