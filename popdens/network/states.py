@@ -26,6 +26,7 @@ from .. import _validation as v
 from .._display import Displayable
 from ..model.noise import WhiteNoise
 from ..model.synaptic import ColouredNoise
+from ._conductance_input import conductance_population
 from .circuit import HZ_TO_PER_MS, Circuit
 
 __all__ = ["FixedPoint", "fixed_points", "solver_gain"]
@@ -84,9 +85,11 @@ class FixedPoint(Displayable):
     rates : ndarray
         Rates (Hz).
     mu : ndarray
-        Total drive (mV).
+        Total drive (mV); for a cohort with conductance synapses its own external drive (the
+        synaptic input is its :class:`~popdens.ConductanceNoise`).
     sigma : ndarray
-        Total noise amplitude (mV; NaN for escape noise).
+        Total noise amplitude (mV; NaN for escape noise and for conductance input, whose
+        fluctuations depend on the potential).
     residual : float
         ``max |A - Phi(A)|`` (Hz).
     tau_syn : ndarray or None
@@ -118,6 +121,9 @@ def _rates_of(circuit: Circuit, gain: Callable, rates: np.ndarray) -> np.ndarray
     tau = circuit.noise_time_constant(np.maximum(rates, 0.0))
     out = np.empty(circuit.n)
     for k in range(circuit.n):
+        if circuit.synapse_kind(k) == "conductance":
+            out[k] = float(gain(conductance_population(circuit, k, rates), float(mu[k])))
+            continue
         if circuit.cohorts[k].diffusive and not sg[k] > 0:
             raise ValueError(f"cohort {circuit.names[k]!r}: noise amplitude {sg[k]!r} mV at rates {rates} Hz; "
                              "white-noise populations need sigma > 0")
@@ -144,11 +150,12 @@ class _RateMap:
         self.ext_fw = np.array([float(a.external_filter_weight(0.0)) for a in cohorts])
         self.ext_var_f = np.array([float(a.external_variance(0.0)) for a in cohorts])
         self.diffusive = [a.diffusive for a in cohorts]
+        self.conductance = [circuit.synapse_kind(k) == "conductance" for k in range(circuit.n)]
         self.terms = []  # (target, source, variance per Hz, sqrt(tau_syn)) of each pathway into a white-noise cohort
         for p in circuit.pathways:
             k, l = circuit.index(p.target), circuit.index(p.source)
             a = cohorts[k]
-            if a.diffusive:
+            if a.diffusive and p.synapse != "conductance":
                 self.terms.append((k, l, a.tau_m * p.weight ** 2 * p.in_degree * HZ_TO_PER_MS, math.sqrt(p.tau_syn)))
         self.memo: dict = {}
 
@@ -165,6 +172,13 @@ class _RateMap:
         tau = np.where(den > 0.0, (num / np.where(den > 0.0, den, 1.0)) ** 2, 0.0)
         out = np.empty(c.n)
         for k in range(c.n):
+            if self.conductance[k]:
+                pop = conductance_population(c, k, r)
+                key = (pop, float(mu[k]))
+                if key not in self.memo:
+                    self.memo[key] = float(self.gain(pop, float(mu[k])))
+                out[k] = self.memo[key]
+                continue
             if self.diffusive[k] and not sg[k] > 0:
                 raise ValueError(f"cohort {c.names[k]!r}: noise amplitude {sg[k]!r} mV at rates {rates} Hz; "
                                  "white-noise populations need sigma > 0")
@@ -191,7 +205,9 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     gain : callable, optional
         ``gain(population, mu) -> rate (Hz)``; white-noise populations carry
         their total ``sigma``, filtered input makes them coloured-noise
-        populations with the effective ``tau_syn``.  Default: ``popdens.gain`` when
+        populations with the effective ``tau_syn``, conductance synapses make them
+        :class:`~popdens.ConductanceNoise` populations driven by the cohort's own ``drive``
+        (:mod:`popdens.network._conductance_input`).  Default: ``popdens.gain`` when
         available, else :func:`solver_gain`.
     starts_per_dim : int
         Starting points per cohort (several cohorts).
@@ -221,7 +237,7 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     """
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
-    circuit.require_current("fixed_points")
+    circuit.require_current("fixed_points", allow=("conductance",))
     lo, hi = (v.non_negative("rate_range[0]", rate_range[0]), v.positive("rate_range[1]", rate_range[1]))
     v.less_than("rate_range[0]", lo, "rate_range[1]", hi)
     gain = _default_gain() if gain is None else gain
@@ -267,6 +283,7 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     out = []
     for r in sorted(found, key=lambda x: tuple(x)):
         mu, sg = circuit.stationary_input(r)
+        sg = np.where(rate_map.conductance, np.nan, sg)  # conductance input: no single noise amplitude
         out.append(FixedPoint(circuit.names, r, mu, sg, float(np.max(np.abs(resid(r)))),
                               circuit.noise_time_constant(r)))
     return out
