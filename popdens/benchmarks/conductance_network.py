@@ -20,12 +20,12 @@ Run:  popdens bench conductance_network
 from __future__ import annotations
 
 import math
-import time
 
 import numba
 import numpy as np
 
 import popdens
+from popdens.benchmarks.conductance import _best
 from popdens.network import Circuit, Cohort, Pathway, PoissonBackground, montecarlo_network
 
 T_END = 200.0  # ms
@@ -115,16 +115,6 @@ def _connectivity(rng):
     flat = [e for x in lists for e in x]
     return (ptr, np.array([e[0] for e in flat], dtype=np.int64), np.array([e[1] for e in flat]),
             np.array([e[2] for e in flat], dtype=np.int64))
-
-
-def _best(fn, repeats=3):
-    wall, cpu, out = math.inf, math.inf, None
-    for _ in range(repeats):
-        w0, c0 = time.perf_counter(), time.process_time()
-        out = fn()
-        wall = min(wall, time.perf_counter() - w0)
-        cpu = min(cpu, time.process_time() - c0)
-    return wall, cpu, out
 
 
 def main() -> None:
