@@ -13,12 +13,13 @@ Run:  popdens bench shot_noise
 from __future__ import annotations
 
 import math
-import time
 
 import numba
 import numpy as np
 
 import popdens
+
+from ._timing import best_of as _best
 
 T_END = 500.0  # ms
 N = 2000
@@ -55,16 +56,6 @@ def _minimal(n, t_end, tau, e, th, re, tref, nu_e, nu_i, a):  # pragma: no cover
                 u -= a
                 ti += np.random.exponential(1.0 / nu_i)
     return spikes
-
-
-def _best(fn, repeats=3):
-    wall, cpu, out = math.inf, math.inf, None
-    for _ in range(repeats):
-        w0, c0 = time.perf_counter(), time.process_time()
-        out = fn()
-        wall = min(wall, time.perf_counter() - w0)
-        cpu = min(cpu, time.process_time() - c0)
-    return wall, cpu, out
 
 
 def main() -> None:
