@@ -25,7 +25,7 @@ import numba
 import numpy as np
 
 import popdens
-from popdens.benchmarks.conductance import _best
+from popdens.benchmarks._timing import best_of as _best
 from popdens.network import Circuit, Cohort, Pathway, PoissonBackground, montecarlo_network
 
 T_END = 200.0  # ms
