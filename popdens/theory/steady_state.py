@@ -34,10 +34,11 @@ Methods
   two-dimensional (potential, current) density (``method="plane"``, the
   default for them; any model may ask for it),
   :mod:`popdens.theory._filtered_plane`.
-* Shot noise (:class:`~popdens.ShotNoise`, :func:`gain` only): the exact rate
-  of the LIF with exponentially distributed PSPs (Richardson & Swarbrick
-  2010), else the stationary state of the jump-density operator
-  (:mod:`popdens.theory._stationary_shot`).
+* Shot noise (:class:`~popdens.ShotNoise`): the exact rate of the LIF with
+  exponentially distributed PSPs (Richardson & Swarbrick 2010), else the
+  stationary state of the jump-density operator; :func:`stationary` takes
+  the ISI moments, the ISI density and the potential density from the
+  same operator (:mod:`popdens.theory._stationary_shot`).
 * Conductance input (:class:`~popdens.ConductanceNoise`): threshold
   integration with voltage-dependent drift and diffusion (the
   effective-time-constant approximation with the fluctuations' driving
@@ -77,7 +78,8 @@ from ..model.synaptic import ColouredNoise
 from ._adapted import escape_adapted, white_adapted
 from ._filtered_plane import (PLANE_CELLS_PER_LENGTH, PLANE_FLOOR_RATIO, correlation_length, filtered_rates,
                               plane_state)
-from ._stationary_shot import shot_rates
+from ._shot_exact import exact_rate_applies
+from ._stationary_shot import shot_passage_density, shot_passage_moments, shot_potential_density, shot_rates
 from ._conductance import conductance_rates, conductance_stationary
 from ._isi_diffusive import density_from_transform, passage_time_density
 from ._isi_markov import isi_chain
@@ -607,6 +609,43 @@ def _conductance_stationary(population, mu: float, isi_t, method: str) -> Steady
     )
 
 
+def _shot_stationary(population, mu: float, isi_t, method: str) -> SteadyState:
+    """Stationary state of shot noise: the rate as :func:`gain`, the ISI moments, density and the
+    potential density from the jump-density operator (:mod:`popdens.theory._stationary_shot`)."""
+    if method == "diffusion":
+        raise ValueError("`method` 'diffusion' is not available for `stationary` with shot noise; call "
+                         "`stationary` on the diffusion approximation's white-noise population instead")
+    nrn = population.neuron
+    rate = float(shot_rates(population, np.array([mu]), method, _white_rates)[0])
+    t1, t2 = shot_passage_moments(population, mu)
+    if not rate > 0.0:
+        raise ValueError(f"the population is silent at `mu` = {mu:g} mV: no ISI statistics")
+    mean_isi = 1000.0 / rate
+    std = math.sqrt(max(t2 - t1 * t1, 0.0))
+    if isi_t is None:
+        isi_t = _default_isi_grid(nrn.refractory + t1 + 14.0 * std)
+    else:
+        isi_t = v.finite_array("isi_t", isi_t)
+        if np.any(isi_t < 0.0):
+            raise ValueError("`isi_t` must be >= 0 (ms)")
+    after = np.maximum(isi_t - nrn.refractory, 0.0)
+    dens, surv = shot_passage_density(population, mu, after)
+    before = isi_t < nrn.refractory
+    dens[before], surv[before] = 0.0, 1.0
+    u, density = shot_potential_density(population, mu)
+    refr = rate * 1e-3 * nrn.refractory
+    mean_u = float(np.sum(u * density) * (u[1] - u[0])) + refr * nrn.reset
+    used = "exponential-psp" if (method in ("auto", "exponential-psp") and nrn.code == CODE_LIF
+                                 and exact_rate_applies(nrn, population.noise, mu)) else "jump-density"
+    return SteadyState(
+        population=population, mu=mu, sigma=None, rate=rate, cv=std / mean_isi, mean_isi=mean_isi, mean_u=mean_u,
+        refractory_fraction=float(refr), isi_t=isi_t, isi_density=dens, survivor=surv, method=used,
+        u=u, density=density, flux=None,
+        diagnostics={"cells": int(u.size), "operator_mean_isi_ms": nrn.refractory + t1,
+                     "passage_second_moment_ms2": t2},
+    )
+
+
 def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> SteadyState:
     """Stationary state at the constant drive ``mu`` (mV).
 
@@ -628,7 +667,9 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         ``"plane"``, the default for models with a spike cut-off: rate,
         potential density, flux and mean potential from the (potential,
         current) plane, CV and ISI density from the effective renewal
-        problem, named in ``diagnostics["isi_statistics"]``).
+        problem, named in ``diagnostics["isi_statistics"]``; shot noise: the
+        rate's method, ``"diffusion"`` excepted, with the ISI statistics and
+        densities from the jump-density operator).
 
     Returns
     -------
@@ -638,9 +679,8 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         noise), mean potential (mV).
     """
     _check_population(population)
-    if isinstance(population.noise, ShotNoise):
-        raise ValueError("`stationary` (ISI statistics, densities) is not available for ShotNoise yet; "
-                         "popdens.gain gives its stationary rate")
+    if _shot(population, sigma):
+        return _shot_stationary(population, v.as_finite_float("mu", mu), isi_t, method)
     if _conductance(population, sigma):
         return _conductance_stationary(population, v.as_finite_float("mu", mu), isi_t, method)
     if _on_plane(population, method):
