@@ -81,6 +81,7 @@ from ..model.drive import Constant, Drive, as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..model.shot import ShotNoise
 from ..model.synaptic import ColouredNoise
+from ._shot_input import check_shot_cohort
 
 __all__ = ["Cohort", "Pathway", "PoissonBackground", "Circuit"]
 
@@ -425,17 +426,20 @@ class Circuit:
         if kind != "current" and not a.diffusive:
             raise ValueError(f"cohort {name!r}: {kind} synapses need a white- or coloured-noise population "
                              "(its noise amplitude is then the external part only); this one has escape noise")
+        if kind == "shot":
+            check_shot_cohort(a, [p for p in self.pathways if p.target == name])
         return kind
 
     def synapse_kind(self, k: int) -> str:
         """Synapse kind (``"current"``, ``"shot"`` or ``"conductance"``) of all input of cohort ``k``."""
         return self._input_kind(self.names[k])
 
-    def require_current(self, where: str) -> None:
-        """Raise NotImplementedError when any input is not a current synapse (``where``: the caller's name)."""
+    def require_current(self, where: str, allow: tuple = ()) -> None:
+        """Raise NotImplementedError when any input is neither a current synapse nor of a kind in ``allow``
+        (``where``: the caller's name)."""
         for k in range(self.n):
             kind = self.synapse_kind(k)
-            if kind != "current":
+            if kind != "current" and kind not in allow:
                 raise NotImplementedError(f"{where}: cohort {self.names[k]!r} receives {kind} synapses, "
                                           "which this analysis does not support yet")
 

@@ -11,6 +11,7 @@ populations instead of a single population::
     neuron = { model = "LIF", tau_m = 20.0, threshold = 20.0, reset = 10.0, refractory = 2.0 }
     noise = { kind = "white", sigma = 5.0 }
     # background = { rate = 10.0, weight = 0.1, count = 100 }   # Poisson input: Hz, mV, sources
+    #   (optional keys tau_syn, synapse, reversal as in [[pathway]])
 
     [[pathway]]
     source = "E"
@@ -19,6 +20,9 @@ populations instead of a single population::
     in_degree = 200                  # C
     delay = 1.5                      # ms
     tau_syn = 0.0                    # ms; 0: instantaneous, > 0: exponential kernel
+    synapse = "current"              # "current" (diffusion approximation), "shot" (finite PSPs:
+                                     # jumps of `weight`, tau_syn 0, the cohort's sigma_ext 0) or
+                                     # "conductance" (with `reversal`, mV)
 
     [network]
     t_end = 200.0                    # ms (0: no time-domain run)
@@ -56,7 +60,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ..exceptions import ScenarioError
-from ..network.circuit import Cohort, Circuit, Pathway, PoissonBackground
+from ..network.circuit import SYNAPSE_KINDS, Cohort, Circuit, Pathway, PoissonBackground
 from ._schema import build, check_keys, err, flatten, number, parse_meta
 from .single import parse_population
 
@@ -64,8 +68,8 @@ __all__ = ["NetworkScenario", "parse_network_scenario", "NETWORK_TOP_LEVEL"]
 
 NETWORK_TOP_LEVEL = {"scenario", "cohort", "pathway", "network"}
 COHORT_KEYS = {"name", "size", "drive", "sigma_ext", "neuron", "noise", "background"}
-PATHWAY_KEYS = {"source", "target", "weight", "in_degree", "delay", "tau_syn"}
-BACKGROUND_KEYS = {"rate", "weight", "count"}
+PATHWAY_KEYS = {"source", "target", "weight", "in_degree", "delay", "tau_syn", "synapse", "reversal"}
+BACKGROUND_KEYS = {"rate", "weight", "count", "tau_syn", "synapse", "reversal"}
 NETWORK_KEYS = {"t_end", "dt", "record_interval", "montecarlo", "seed", "fixed_points", "stability",
                 "rate_range", "stability_map", "bifurcation", "finite_size"}
 MAP_KEYS = {"inhibition", "drive", "curves"}
@@ -142,6 +146,20 @@ def _array_of_tables(src, data, key, required: bool):
     return items
 
 
+def _synapse_keys(src, table, t: dict) -> dict:
+    """The optional ``tau_syn`` (ms), ``synapse`` (a kind of :data:`SYNAPSE_KINDS`) and ``reversal`` (mV) keys of a
+    pathway or background table."""
+    out = {}
+    for key in ("tau_syn", "reversal"):
+        if key in t:
+            out[key] = number(src, table, key, t[key])
+    if "synapse" in t:
+        if t["synapse"] not in SYNAPSE_KINDS:
+            raise err(src, table, "synapse", t["synapse"], f"one of {', '.join(map(repr, SYNAPSE_KINDS))}")
+        out["synapse"] = t["synapse"]
+    return out
+
+
 def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> NetworkScenario:
     """Validate a network scenario given as a dict (as read from TOML)."""
     src = str(source)
@@ -164,11 +182,12 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
         if "background" in a:
             b = a["background"]
             bt = f"{table}.background"
-            check_keys(src, bt, b, BACKGROUND_KEYS, BACKGROUND_KEYS)
+            check_keys(src, bt, b, BACKGROUND_KEYS, {"rate", "weight", "count"})
             params["background"] = build(src, bt, PoissonBackground,
                                           {"rate": number(src, bt, "rate", b["rate"]),
                                            "weight": number(src, bt, "weight", b["weight"]),
-                                           "count": _integer(src, bt, "count", b["count"], 1, MAX_SIZE)})
+                                           "count": _integer(src, bt, "count", b["count"], 1, MAX_SIZE),
+                                           **_synapse_keys(src, bt, b)})
         cohorts.append(build(src, table, Cohort, params))
 
     pathways = []
@@ -181,9 +200,9 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
         params = {"source": p["source"], "target": p["target"],
                   "weight": number(src, table, "weight", p["weight"]),
                   "in_degree": _integer(src, table, "in_degree", p["in_degree"], 0, MAX_SIZE)}
-        for key in ("delay", "tau_syn"):
-            if key in p:
-                params[key] = number(src, table, key, p[key])
+        if "delay" in p:
+            params["delay"] = number(src, table, "delay", p["delay"])
+        params.update(_synapse_keys(src, table, p))
         pathways.append(build(src, table, Pathway, params))
     circuit = build(src, "pathway", Circuit, {"cohorts": cohorts, "pathways": pathways})
 
@@ -192,6 +211,9 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
     t_end = number(src, "network", "t_end", net.get("t_end", 0.0))
     if t_end < 0:
         raise err(src, "network", "t_end", t_end, "a duration >= 0 (ms; 0: no time-domain run)")
+    if t_end > 0 and any(circuit.synapse_kind(k) == "shot" for k in range(circuit.n)):
+        raise err(src, "network", "t_end", t_end, "0 with shot-noise synapses (the mean-field time integration "
+                                                  "does not support them yet; fixed points and stability do)")
     dt = number(src, "network", "dt", net["dt"]) if "dt" in net else None
     rec = number(src, "network", "record_interval", net["record_interval"]) if "record_interval" in net else None
     seed = _integer(src, "network", "seed", net.get("seed", 0), 0, 2**63 - 1)

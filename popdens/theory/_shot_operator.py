@@ -111,9 +111,11 @@ def _amplitudes(noise):
     return [a for a in (noise.exc_psp, noise.inh_psp if noise.inhibited else None) if a]
 
 
-def shot_grid(neuron, noise, mus, n_cells: int | None = None) -> ShotGrid:
+def shot_grid(neuron, noise, mus, n_cells: int | None = None, cell: float | None = None) -> ShotGrid:
     """The coarse grid for drives ``mus`` (mV): lower edge from the diffusion estimate of the spread,
-    width aligned with the fixed amplitudes (their common divisor when they are commensurate)."""
+    width aligned with the fixed amplitudes (their common divisor when they are commensurate), at most
+    ``cell`` mV (default :data:`TARGET_CELL_MV`, :data:`TARGET_CELL_EXPONENTIAL_MV` for exponential
+    amplitudes)."""
     tau = float(neuron.tau_m)
     mus = np.atleast_1d(np.asarray(mus, dtype=float))
     rest = float(neuron.rest)
@@ -125,7 +127,8 @@ def shot_grid(neuron, noise, mus, n_cells: int | None = None) -> ShotGrid:
     span = upper - lower
     if n_cells is not None:
         return ShotGrid(lower, upper, int(n_cells))
-    h = TARGET_CELL_EXPONENTIAL_MV if noise.exponential else TARGET_CELL_MV
+    target = cell if cell is not None else TARGET_CELL_EXPONENTIAL_MV if noise.exponential else TARGET_CELL_MV
+    h = target
     if not noise.exponential:
         amps = _amplitudes(noise)
         base = amps[0]
@@ -134,7 +137,7 @@ def shot_grid(neuron, noise, mus, n_cells: int | None = None) -> ShotGrid:
             q = [round(a * 1000.0) for a in amps]
             if all(abs(a * 1000.0 - qi) < 1e-6 for a, qi in zip(amps, q)):
                 base = math.gcd(*q) / 1000.0
-        h = base / max(1, math.ceil(base / TARGET_CELL_MV - 1e-9))
+        h = base / max(1, math.ceil(base / target - 1e-9))
     n = int(math.ceil(span / h - 1e-9))
     n = min(MAX_CELLS, max(MIN_CELLS, n))
     # lower edge moved down so that the width is exactly h (alignment kept)
