@@ -45,7 +45,7 @@ import numpy as np
 from scipy import linalg, sparse
 from scipy.sparse import linalg as sparse_linalg
 
-__all__ = ["ShotGrid", "shot_grid", "jump_fractions", "generator", "stationary_masses", "jump_density_rates"]
+__all__ = ["ShotGrid", "shot_grid", "jump_fractions", "generator", "dense_jumps", "stationary_masses", "jump_density_rates"]
 
 #: Default target cell width (mV) of the coarsest grid before alignment with fixed PSP amplitudes
 #: (exponential amplitudes: dense jump matrices, so a coarser start); with the Richardson steps over
@@ -235,6 +235,16 @@ def generator(neuron, noise, mu: float, grid: ShotGrid):
     return L, out
 
 
+def dense_jumps(noise, h: float) -> bool:
+    """True when the jump matrix on cells of width ``h`` is better solved dense: exponential amplitudes
+    (every cell feeds every cell above it) wider than :data:`DENSE_BAND` cells.  Fixed amplitudes move
+    each cell's content to two cells only, so their matrix stays sparse at any width (a dense solve of
+    20 000 cells needed 3 GB)."""
+    if not noise.exponential:
+        return False
+    return max(jump_fractions(noise.amplitudes, a, h)[1] for a in _amplitudes(noise)) > DENSE_BAND
+
+
 def stationary_masses(neuron, noise, mu: float, grid: ShotGrid) -> tuple[np.ndarray, float]:
     """Stationary cell masses of the non-refractory neurons and the rate (Hz), normalised with the
     refractory mass ``rate * refractory``.
@@ -248,8 +258,7 @@ def stationary_masses(neuron, noise, mu: float, grid: ShotGrid) -> tuple[np.ndar
     b = np.zeros(n)
     b[k] += 1.0 - w
     b[min(k + 1, n - 1)] += w
-    band = max(jump_fractions(noise.amplitudes, a, grid.h)[1] for a in _amplitudes(noise))
-    if band > DENSE_BAND:
+    if dense_jumps(noise, grid.h):
         m = linalg.solve(L.toarray(), -b)
     else:
         m = sparse_linalg.splu(L.tocsc()).solve(-b)

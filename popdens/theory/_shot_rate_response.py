@@ -44,7 +44,7 @@ from scipy import linalg, sparse
 from scipy.sparse import linalg as sparse_linalg
 
 from ..model.shot import ShotNoise
-from ._shot_operator import DENSE_BAND, ShotGrid, generator, jump_fractions, shot_grid, stationary_masses
+from ._shot_operator import ShotGrid, dense_jumps, generator, shot_grid, stationary_masses
 
 __all__ = ["RateResponse", "RESPONSE_CELL_MV"]
 
@@ -83,8 +83,7 @@ class _Level:
         self.direct = np.array(direct)
         self.out = out
         self.tau_ref = float(neuron.refractory)
-        amps = [a for a in (noise.exc_psp, noise.inh_psp if noise.inhibited else None) if a]
-        self.dense = max(jump_fractions(noise.amplitudes, a, grid.h)[1] for a in amps) > DENSE_BAND
+        self.dense = dense_jumps(noise, grid.h)
         self.L = L.toarray() if self.dense else L.tocsc()
         self.eye = np.eye(n) if self.dense else sparse.identity(n, format="csc")
 
