@@ -125,6 +125,13 @@ def _network():
     net = popdens.Circuit(cohorts, paths)
     popdens.simulate_network(net, t_end=2.0, dt=0.1, progress=False)
     popdens.montecarlo_network(net, t_end=2.0, dt=0.1, seed=1, progress=False)
+    bg = popdens.PoissonBackground(rate=10.0, weight=0.02, count=100, tau_syn=1.0, synapse="conductance",
+                                   reversal=70.0)
+    cond = popdens.Circuit([popdens.Cohort("C", popdens.Population(cell, white.noise), size=20, drive=10.0,
+                                           sigma_ext=0.0, background=bg)],
+                           [popdens.Pathway("C", "C", weight=0.05, in_degree=2, delay=1.0, tau_syn=1.0,
+                                            synapse="conductance", reversal=70.0)])
+    popdens.montecarlo_network(cond, t_end=2.0, dt=0.1, seed=1, progress=False)
 
 
 def _finite_size():

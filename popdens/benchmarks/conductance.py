@@ -14,12 +14,13 @@ Run:  popdens bench conductance
 from __future__ import annotations
 
 import math
-import time
 
 import numba
 import numpy as np
 
 import popdens
+
+from ._timing import best_of as _best
 
 T_END = 200.0  # ms
 N = 2000
@@ -65,16 +66,6 @@ def _minimal(n, steps, h, tau, rest, mu, th, re, tref, ee, ei):  # pragma: no co
                 u = re
                 ref = tref - 0.5 * h
     return spikes
-
-
-def _best(fn, repeats=3):
-    wall, cpu, out = math.inf, math.inf, None
-    for _ in range(repeats):
-        w0, c0 = time.perf_counter(), time.process_time()
-        out = fn()
-        wall = min(wall, time.perf_counter() - w0)
-        cpu = min(cpu, time.process_time() - c0)
-    return wall, cpu, out
 
 
 def main() -> None:

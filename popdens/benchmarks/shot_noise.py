@@ -5,7 +5,8 @@ Poisson arrival to the next (exact exponential waiting times, exact LIF decay, f
 reference is the smallest compiled loop doing the same for the same neurons and time (one
 function, no drive sampling, no recording); both are timed in this run, best of 3, CPU time beside
 wall time.  Then the cost of one stationary rate: the exact formula (exponential PSPs) and the
-jump-density operator (three grids), and of one step of the jump-density solver.
+jump-density operator (three grids), of one step of the jump-density solver, of ``transfer`` per
+frequency and of ``stationary`` (ISI statistics and densities).
 
 Run:  popdens bench shot_noise
 """
@@ -13,12 +14,13 @@ Run:  popdens bench shot_noise
 from __future__ import annotations
 
 import math
-import time
 
 import numba
 import numpy as np
 
 import popdens
+
+from ._timing import best_of as _best
 
 T_END = 500.0  # ms
 N = 2000
@@ -57,16 +59,6 @@ def _minimal(n, t_end, tau, e, th, re, tref, nu_e, nu_i, a):  # pragma: no cover
     return spikes
 
 
-def _best(fn, repeats=3):
-    wall, cpu, out = math.inf, math.inf, None
-    for _ in range(repeats):
-        w0, c0 = time.perf_counter(), time.process_time()
-        out = fn()
-        wall = min(wall, time.perf_counter() - w0)
-        cpu = min(cpu, time.process_time() - c0)
-    return wall, cpu, out
-
-
 def main() -> None:
     nrn = popdens.LIF(20.0, 20.0, 10.0, 2.0)
     pop = popdens.Population(nrn, popdens.ShotNoise(RATES[0], PSP, RATES[1], PSP))
@@ -95,6 +87,12 @@ def main() -> None:
     w, c, res = _best(lambda: popdens.simulate(pop, 0.0, 50.0, dt=0.1, error_control="off", progress=False), 1)
     print(f"  jump-density solver: {1e3 * c / 500:.2f} ms CPU per step (two grids of "
           f"{res.diagnostics['n_cells']} and {2 * res.diagnostics['n_cells']} cells; wall {1e3 * w / 500:.2f} ms)")
+    for name, p in (("fixed", pop), ("exponential", expo)):
+        w, c, _ = _best(lambda p=p: popdens.transfer(p, 0.0, [10.0, 100.0]), 1)
+        print(f"  transfer ({name} PSPs, 3 grids): CPU {c / 2:.2f} s per frequency (wall {w / 2:.2f} s)")
+        w, c, st = _best(lambda p=p: popdens.stationary(p, 0.0), 1)
+        print(f"  stationary ({name} PSPs: ISI CV {st.cv:.3f}, density on {st.isi_t.size} times): CPU {c:.2f} s "
+              f"(wall {w:.2f} s)")
 
 
 if __name__ == "__main__":

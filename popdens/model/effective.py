@@ -17,10 +17,14 @@ set by the drift, not by the noise: there is no boundary layer, and the
 upstroke lasts long against ``tau_syn``, so the current a neuron carries
 into its reset is no longer biased.  Nothing moves; the first correction is
 of order ``tau_syn/tau_m``, not its square root (Fourcaud-Trocme, Hansel,
-van Vreeswijk & Brunel 2003, J. Neurosci. 23:11628), and is not applied.
-Measured against the Monte Carlo twin (EIF, contributor guide): the white-
-noise rate is 0.7 % too high at ``tau_syn/tau_m = 0.01`` and 3.5 % at 0.05,
-while moving the reset would make it 3 % and 9 % too high.
+van Vreeswijk & Brunel 2003, J. Neurosci. 23:11628), and no boundary shift
+captures it.  Measured against the Monte Carlo twin (EIF, contributor
+guide): the white-noise rate is 0.7 % too high at ``tau_syn/tau_m = 0.01``
+and 3.5 % at 0.05, while moving the reset would make it 3 % and 9 % too
+high.  The steady-state front ends therefore solve these models on the
+(potential, current) plane (:mod:`popdens.theory._filtered_plane`); the
+white-noise equivalent returned here stays what the linear response and
+the Fokker--Planck solver use for them.
 """
 
 from __future__ import annotations

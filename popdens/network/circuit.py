@@ -61,7 +61,10 @@ with ``synapse``:
 * ``"conductance"``: a conductance jump of ``weight`` (leak units, > 0)
   decaying with ``tau_syn`` (ms, > 0) towards the ``reversal`` potential
   (mV), analysed in the effective-time-constant approximation
-  (:class:`~popdens.ConductanceNoise`).
+  (:class:`~popdens.ConductanceNoise`; :mod:`popdens.network._conductance_input`).
+  The target cohort needs ``sigma_ext = 0``: the conductance theory carries
+  no extra white current noise.  Such pathways and backgrounds add nothing
+  to :meth:`Circuit.coupling` and the external mean and variance.
 
 All synaptic input of one cohort (its pathways and its background) is of
 one kind.
@@ -257,10 +260,15 @@ class Cohort:
     def tau_m(self) -> float:
         return float(self.population.neuron.tau_m)
 
+    @property
+    def _current_background(self) -> bool:
+        # a conductance background enters through popdens.network._conductance_input instead
+        return self.background is not None and self.background.synapse != "conductance"
+
     def external_mean(self, t) -> np.ndarray | float:
         """External drive (mV) at times ``t`` (ms), Poisson background included."""
         m = self.drive(t)
-        if self.background is not None:
+        if self._current_background:
             m = m + self.background.mean(self.tau_m)
         return m
 
@@ -270,7 +278,7 @@ class Cohort:
             return 0.0 * np.asarray(t, dtype=float) if np.ndim(t) else 0.0
         s = self.sigma_ext(t)
         var = s * s
-        if self.background is not None:
+        if self._current_background:
             var = var + self.background.variance(self.tau_m)
         return var
 
@@ -281,7 +289,7 @@ class Cohort:
             return 0.0 * np.asarray(t, dtype=float) if np.ndim(t) else 0.0
         s = self.sigma_ext(t)
         out = s * s * math.sqrt(self.ext_tau_syn)
-        if self.background is not None:
+        if self._current_background:
             out = out + self.background.variance(self.tau_m) * math.sqrt(self.background.tau_syn)
         return out
 
@@ -426,6 +434,10 @@ class Circuit:
         if kind != "current" and not a.diffusive:
             raise ValueError(f"cohort {name!r}: {kind} synapses need a white- or coloured-noise population "
                              "(its noise amplitude is then the external part only); this one has escape noise")
+        if kind == "conductance" and not (isinstance(a.sigma_ext, Constant) and a.sigma_ext.mu == 0.0):
+            raise ValueError(f"cohort {name!r}: `sigma_ext` must be 0 mV for conductance synapses (the "
+                             f"conductance theory carries no extra white current noise; all fluctuations come "
+                             f"from the input spikes), got {a.sigma_ext!r}; pass sigma_ext=0")
         if kind == "shot":
             check_shot_cohort(a, [p for p in self.pathways if p.target == name])
         return kind
@@ -486,6 +498,8 @@ class Circuit:
         wm = np.zeros((self.n, self.n))
         wv = np.zeros((self.n, self.n))
         for p in self.pathways:
+            if p.synapse == "conductance":  # popdens.network._conductance_input
+                continue
             k, l = self.index(p.target), self.index(p.source)
             a = self.cohorts[k]
             wm[k, l] += a.tau_m * p.weight * p.in_degree * HZ_TO_PER_MS
@@ -532,7 +546,7 @@ class Circuit:
         for p in self.pathways:
             k, l = self.index(p.target), self.index(p.source)
             a = self.cohorts[k]
-            if a.diffusive:
+            if a.diffusive and p.synapse != "conductance":
                 var = a.tau_m * p.weight ** 2 * p.in_degree * HZ_TO_PER_MS * max(float(r[l]), 0.0)
                 num[k] += var * math.sqrt(p.tau_syn)
                 den[k] += var

@@ -26,6 +26,7 @@ from .. import _validation as v
 from .._display import Displayable
 from ..model.noise import WhiteNoise
 from ..model.synaptic import ColouredNoise
+from ._conductance_input import conductance_population
 from ._shot_input import diffusion_circuit, shot_population, shot_rate
 from .circuit import HZ_TO_PER_MS, Circuit
 
@@ -85,10 +86,13 @@ class FixedPoint(Displayable):
     rates : ndarray
         Rates (Hz).
     mu : ndarray
-        Total drive (mV); for a cohort with shot-noise synapses that of the diffusion-equivalent input
-        (its rate comes from the jump-density theory, :mod:`popdens.network._shot_input`).
+        Total drive (mV); for a cohort with conductance synapses its own external drive (the
+        synaptic input is its :class:`~popdens.ConductanceNoise`); for one with shot-noise synapses
+        that of the diffusion-equivalent input (its rate comes from the jump-density theory,
+        :mod:`popdens.network._shot_input`).
     sigma : ndarray
-        Total noise amplitude (mV; NaN for escape noise; shot-noise synapses: diffusion-equivalent).
+        Total noise amplitude (mV; NaN for escape noise and for conductance input, whose
+        fluctuations depend on the potential; shot-noise synapses: diffusion-equivalent).
     residual : float
         ``max |A - Phi(A)|`` (Hz).
     tau_syn : ndarray or None
@@ -124,6 +128,9 @@ def _rates_of(circuit: Circuit, gain: Callable, rates: np.ndarray) -> np.ndarray
             pop, m = shot_population(circuit, k, rates)
             out[k] = shot_rate(gain, pop, circuit.cohorts[k].population.neuron, m)
             continue
+        if circuit.synapse_kind(k) == "conductance":
+            out[k] = float(gain(conductance_population(circuit, k, rates), float(mu[k])))
+            continue
         if circuit.cohorts[k].diffusive and not sg[k] > 0:
             raise ValueError(f"cohort {circuit.names[k]!r}: noise amplitude {sg[k]!r} mV at rates {rates} Hz; "
                              "white-noise populations need sigma > 0")
@@ -150,12 +157,13 @@ class _RateMap:
         self.ext_fw = np.array([float(a.external_filter_weight(0.0)) for a in cohorts])
         self.ext_var_f = np.array([float(a.external_variance(0.0)) for a in cohorts])
         self.diffusive = [a.diffusive for a in cohorts]
+        self.conductance = [circuit.synapse_kind(k) == "conductance" for k in range(circuit.n)]
         self.shot = [circuit.synapse_kind(k) == "shot" for k in range(circuit.n)]
         self.terms = []  # (target, source, variance per Hz, sqrt(tau_syn)) of each pathway into a white-noise cohort
         for p in circuit.pathways:
             k, l = circuit.index(p.target), circuit.index(p.source)
             a = cohorts[k]
-            if a.diffusive:
+            if a.diffusive and p.synapse != "conductance":
                 self.terms.append((k, l, a.tau_m * p.weight ** 2 * p.in_degree * HZ_TO_PER_MS, math.sqrt(p.tau_syn)))
         self.memo: dict = {}
 
@@ -177,6 +185,13 @@ class _RateMap:
                 key = (pop, m, c.cohorts[k].population.neuron)
                 if key not in self.memo:
                     self.memo[key] = shot_rate(self.gain, pop, key[2], m)
+                out[k] = self.memo[key]
+                continue
+            if self.conductance[k]:
+                pop = conductance_population(c, k, r)
+                key = (pop, float(mu[k]))
+                if key not in self.memo:
+                    self.memo[key] = float(self.gain(pop, float(mu[k])))
                 out[k] = self.memo[key]
                 continue
             if self.diffusive[k] and not sg[k] > 0:
@@ -205,9 +220,10 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     gain : callable, optional
         ``gain(population, mu) -> rate (Hz)``; white-noise populations carry
         their total ``sigma``, filtered input makes them coloured-noise
-        populations with the effective ``tau_syn``; shot-noise synapses make them
-        :class:`~popdens.ShotNoise` populations driven by the cohort's own ``drive``
-        (:mod:`popdens.network._shot_input`).  Default: ``popdens.gain`` when
+        populations with the effective ``tau_syn``, conductance synapses make them
+        :class:`~popdens.ConductanceNoise` populations and shot-noise synapses
+        :class:`~popdens.ShotNoise` populations, driven by the cohort's own ``drive``
+        (:mod:`popdens.network._conductance_input`, :mod:`popdens.network._shot_input`).  Default: ``popdens.gain`` when
         available, else :func:`solver_gain`.
     starts_per_dim : int
         Starting points per cohort (several cohorts).
@@ -243,7 +259,7 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     """
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
-    circuit.require_current("fixed_points", allow=("shot",))
+    circuit.require_current("fixed_points", allow=("conductance", "shot"))
     lo, hi = (v.non_negative("rate_range[0]", rate_range[0]), v.positive("rate_range[1]", rate_range[1]))
     v.less_than("rate_range[0]", lo, "rate_range[1]", hi)
     gain = _default_gain() if gain is None else gain
@@ -295,6 +311,7 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     out = []
     for r in sorted(found, key=lambda x: tuple(x)):
         mu, sg = circuit.stationary_input(r)
+        sg = np.where(rate_map.conductance, np.nan, sg)  # conductance input: no single noise amplitude
         out.append(FixedPoint(circuit.names, r, mu, sg, float(np.max(np.abs(resid(r)))),
                               circuit.noise_time_constant(r)))
     return out

@@ -19,6 +19,7 @@ from ..twins.population import BURN_IN_ADAPTATION_TAUS
 from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers._recording import BoundarySamples, make_grid, split_at_jumps, steps_per_call
+from ._conductance_twin import conductance_kernel
 from .circuit import DEFAULT_DT, STEP_TOL, Circuit, Pathway
 from .result import CircuitResult
 
@@ -157,7 +158,8 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
 
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
-    circuit.require_current("montecarlo_network", allow=("shot",))
+    circuit.require_current("montecarlo_network", allow=("conductance", "shot"))
+    builder = conductance_kernel(circuit)  # None unless the cohorts receive conductance synapses
     dt = DEFAULT_DT if dt is None else dt
     grid = make_grid(t_end, dt, record_interval, None)
     dt = grid.dt
@@ -260,6 +262,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     if out_list.size == 0:
         out_list = np.zeros(1, np.int64)
     n_synapses = int(sum(p.in_degree * sizes[q_tgt[q]] for q, p in enumerate(pws)))
+    kernel = run_network if builder is None else builder(feeds, dt)
 
     # -- neuron state
     u = np.empty(n_total)
@@ -288,7 +291,9 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
 
     fixed = (start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref, hcode, theta, uses_slope,
              npar_flat, npar_ptr, nops_flat, nargs_flat, nprog_ptr, hpar_flat, hpar_ptr, hops_flat, hargs_flat,
-             hprog_ptr, bg_lam, bg_drive, ad_ptr, ad_kinds, ad_decay, ad_coup, ad_kick, ad_rest, st, shot)
+             hprog_ptr, bg_lam, bg_drive, ad_ptr, ad_kinds, ad_decay, ad_coup, ad_kick, ad_rest, st)
+    if builder is None:  # the current kernel also takes the cohorts' shot-noise flags
+        fixed = fixed + (shot,)
     net = (q_src, q_tgt, q_m, q_head, q_buf_off, q_x_off, q_drive, q_decay, q_ptr_off, q_idx_off,
            in_ptr, in_list, out_ptr, out_list, buf, xs, ptr_flat, idx_flat, u, ref, age, lam, thr, hz)
     no_spk = (np.zeros(1), np.zeros(1, dtype=np.int64))
@@ -304,7 +309,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
         cnt = np.zeros((b1 - b0, npop), dtype=np.int64)
         mu_out = np.zeros((b1 - b0, npop))
         feeds.fill(buf, q_head, q_buf_off, n_real, sizes, b1 - b0, 0.0, rng)
-        run_network(*fixed, m_, s_, dt, bool(bridge), *net, 0.0, False, *no_spk, 0, cnt, mu_out, stack, xbuf)
+        kernel(*fixed, m_, s_, dt, bool(bridge), *net, 0.0, False, *no_spk, 0, cnt, mu_out, stack, xbuf)
         n_burn_spikes += int(cnt.sum())
 
     n = grid.n_steps
@@ -322,8 +327,8 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
             while k < end:
                 m_, s_ = ext(k, end)
                 feeds.fill(buf, q_head, q_buf_off, n_real, sizes, end - k, k * dt, rng)
-                done, n_spk, full = run_network(*fixed, m_, s_, dt, bool(bridge), *net, k * dt, bool(record_spikes),
-                                                spk_t, spk_i, n_spk, counts[k:end], mean_u[k:end], stack, xbuf)
+                done, n_spk, full = kernel(*fixed, m_, s_, dt, bool(bridge), *net, k * dt, bool(record_spikes),
+                                           spk_t, spk_i, n_spk, counts[k:end], mean_u[k:end], stack, xbuf)
                 k += done
                 if full:
                     grow = max(cap, n_spk + n_total)

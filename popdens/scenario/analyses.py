@@ -418,7 +418,9 @@ class ApproximationCheck:
         taus = self.tau_syns or (noise.tau_syn,)
         sigma = noise.constant_sigma()
         white = float(gain(Population(population.neuron, WhiteNoise(sigma)), self.mu))
-        out = {k: [] for k in ("tau_syn_ms", "twin_Hz", "twin_se_Hz", "white_noise_Hz", "boundary_shift_Hz")}
+        out = {k: [] for k in ("tau_syn_ms", "twin_Hz", "twin_se_Hz", "white_noise_Hz", "boundary_shift_Hz",
+                               "plane_Hz")}
+        one_d = "siegert" if type(population.neuron).__name__ == "LIF" else "threshold-integration"
         for i, tau in enumerate(taus):
             pop = Population(population.neuron, ColouredNoise(sigma, float(tau)))
             r, se = self._twin(pop, i)
@@ -426,7 +428,8 @@ class ApproximationCheck:
             out["twin_Hz"].append(r)
             out["twin_se_Hz"].append(se)
             out["white_noise_Hz"].append(white)
-            out["boundary_shift_Hz"].append(float(gain(pop, self.mu)))
+            out["boundary_shift_Hz"].append(float(gain(pop, self.mu, method=one_d)))
+            out["plane_Hz"].append(float(gain(pop, self.mu, method="plane")))
         return {k: np.array(v) for k, v in out.items()}
 
     def write(self, population, folder: Path, header: dict) -> dict:
@@ -462,14 +465,17 @@ class ApproximationCheck:
                                       "PSP amplitude (mV)",
                                       title=f"shot noise ({population.noise.amplitudes} PSPs) at mu = {self.mu:g} mV")
         else:
-            names = {"white_noise": "white_noise_Hz", "boundary_shift": "boundary_shift_Hz"}
+            names = {"white_noise": "white_noise_Hz", "boundary_shift": "boundary_shift_Hz", "plane": "plane_Hz"}
             tau_m = float(population.neuron.tau_m)
             write_table(folder / "approximations.csv", cols,
                         {**header, "population": describe_population(population), "units": "tau_syn ms, rates Hz",
                          "drive_mV": f"{self.mu:g}", "twin": twin})
             fig = plot_approximations(cols["tau_syn_ms"] / tau_m, cols["twin_Hz"], cols["twin_se_Hz"],
                                       {"white noise (diffusion approximation)": cols["white_noise_Hz"],
-                                       "effective boundary shift": cols["boundary_shift_Hz"]},
+                                       "effective boundary shift" + (" (none: spike cut-off)" if
+                                                                     population.neuron.has_cutoff else ""):
+                                           cols["boundary_shift_Hz"],
+                                       "two-dimensional density (potential, current)": cols["plane_Hz"]},
                                       "tau_syn / tau_m", title=f"coloured noise at mu = {self.mu:g} mV")
         figs = _save(fig, folder, "approximations")
         err = {name: [float(x) for x in 100.0 * (cols[col] / cols["twin_Hz"] - 1.0)] for name, col in names.items()}

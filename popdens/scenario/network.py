@@ -11,7 +11,7 @@ populations instead of a single population::
     neuron = { model = "LIF", tau_m = 20.0, threshold = 20.0, reset = 10.0, refractory = 2.0 }
     noise = { kind = "white", sigma = 5.0 }
     # background = { rate = 10.0, weight = 0.1, count = 100 }   # Poisson input: Hz, mV, sources
-    #   (optional keys tau_syn, synapse, reversal as in [[pathway]])
+    #   (optional tau_syn, synapse and reversal as for a pathway)
 
     [[pathway]]
     source = "E"
@@ -20,9 +20,10 @@ populations instead of a single population::
     in_degree = 200                  # C
     delay = 1.5                      # ms
     tau_syn = 0.0                    # ms; 0: instantaneous, > 0: exponential kernel
-    synapse = "current"              # "current" (diffusion approximation), "shot" (finite PSPs:
-                                     # jumps of `weight`, tau_syn 0, the cohort's sigma_ext 0) or
-                                     # "conductance" (with `reversal`, mV)
+    synapse = "current"              # "current" (default; diffusion approximation), "shot" (finite
+                                     # PSPs: jumps of `weight`, tau_syn 0, the target's sigma_ext 0)
+    # reversal = 70.0                # or "conductance": `weight` is a conductance jump (leak units)
+                                     # towards `reversal` (mV); the target cohort needs sigma_ext = 0
 
     [network]
     t_end = 200.0                    # ms (0: no time-domain run)
@@ -60,7 +61,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from ..exceptions import ScenarioError
-from ..network.circuit import SYNAPSE_KINDS, Cohort, Circuit, Pathway, PoissonBackground
+from ..network.circuit import Cohort, Circuit, Pathway, PoissonBackground
 from ._schema import build, check_keys, err, flatten, number, parse_meta
 from .single import parse_population
 
@@ -69,7 +70,8 @@ __all__ = ["NetworkScenario", "parse_network_scenario", "NETWORK_TOP_LEVEL"]
 NETWORK_TOP_LEVEL = {"scenario", "cohort", "pathway", "network"}
 COHORT_KEYS = {"name", "size", "drive", "sigma_ext", "neuron", "noise", "background"}
 PATHWAY_KEYS = {"source", "target", "weight", "in_degree", "delay", "tau_syn", "synapse", "reversal"}
-BACKGROUND_KEYS = {"rate", "weight", "count", "tau_syn", "synapse", "reversal"}
+BACKGROUND_REQUIRED = {"rate", "weight", "count"}
+BACKGROUND_KEYS = BACKGROUND_REQUIRED | {"tau_syn", "synapse", "reversal"}
 NETWORK_KEYS = {"t_end", "dt", "record_interval", "montecarlo", "seed", "fixed_points", "stability",
                 "rate_range", "stability_map", "bifurcation", "finite_size"}
 MAP_KEYS = {"inhibition", "drive", "curves"}
@@ -147,15 +149,14 @@ def _array_of_tables(src, data, key, required: bool):
 
 
 def _synapse_keys(src, table, t: dict) -> dict:
-    """The optional ``tau_syn`` (ms), ``synapse`` (a kind of :data:`SYNAPSE_KINDS`) and ``reversal`` (mV) keys of a
-    pathway or background table."""
+    """The optional ``tau_syn`` (ms), ``synapse`` (kind) and ``reversal`` (mV) of a pathway or background."""
     out = {}
     for key in ("tau_syn", "reversal"):
         if key in t:
             out[key] = number(src, table, key, t[key])
     if "synapse" in t:
-        if t["synapse"] not in SYNAPSE_KINDS:
-            raise err(src, table, "synapse", t["synapse"], f"one of {', '.join(map(repr, SYNAPSE_KINDS))}")
+        if not isinstance(t["synapse"], str):
+            raise err(src, table, "synapse", t["synapse"], "'current', 'shot' or 'conductance'")
         out["synapse"] = t["synapse"]
     return out
 
@@ -182,7 +183,7 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
         if "background" in a:
             b = a["background"]
             bt = f"{table}.background"
-            check_keys(src, bt, b, BACKGROUND_KEYS, {"rate", "weight", "count"})
+            check_keys(src, bt, b, BACKGROUND_KEYS, BACKGROUND_REQUIRED)
             params["background"] = build(src, bt, PoissonBackground,
                                           {"rate": number(src, bt, "rate", b["rate"]),
                                            "weight": number(src, bt, "weight", b["weight"]),
@@ -211,9 +212,14 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
     t_end = number(src, "network", "t_end", net.get("t_end", 0.0))
     if t_end < 0:
         raise err(src, "network", "t_end", t_end, "a duration >= 0 (ms; 0: no time-domain run)")
-    if t_end > 0 and any(circuit.synapse_kind(k) == "shot" for k in range(circuit.n)):
-        raise err(src, "network", "t_end", t_end, "0 with shot-noise synapses (the mean-field time integration "
-                                                  "does not support them yet; fixed points and stability do)")
+    unsupported = []
+    for kind, label in (("conductance", "conductance"), ("shot", "shot-noise")):
+        names = [nm for k, nm in enumerate(circuit.names) if circuit.synapse_kind(k) == kind]
+        if names:
+            unsupported.append(f"{label} synapses ({', '.join(names)})")
+    if t_end > 0 and unsupported:
+        raise err(src, "network", "t_end", t_end, f"0: the mean-field time integration of cohorts with "
+                  f"{' or '.join(unsupported)} is not available yet (fixed points and stability are)")
     dt = number(src, "network", "dt", net["dt"]) if "dt" in net else None
     rec = number(src, "network", "record_interval", net["record_interval"]) if "record_interval" in net else None
     seed = _integer(src, "network", "seed", net.get("seed", 0), 0, 2**63 - 1)

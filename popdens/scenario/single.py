@@ -222,9 +222,6 @@ def parse_single_scenario(data: dict, source: str | Path = "<scenario>") -> Scen
     analyses = parse_analyses(src, data, white=isinstance(noise, (WhiteNoise, ColouredNoise)))
     if "approximations" in data:
         check_approximations(src, data["approximations"], noise)
-    if isinstance(noise, ShotNoise) and "stationary" in data:
-        raise ScenarioError(f"{src}: [stationary] is not available for shot noise ([noise] kind = 'shot') yet; "
-                            "[gain] gives its stationary rates, [transfer] its linear response")
     if "fit" in data:
         analyses = (*analyses, ("fit", parse_fit(src, data["fit"])))
     digest = hashlib.sha256(repr(sorted(flatten(data))).encode()).hexdigest()[:16]

@@ -19,13 +19,17 @@ Methods (``method`` of :func:`popdens.gain`):
 from __future__ import annotations
 
 import numpy as np
+from scipy import linalg, sparse
+from scipy.sparse import linalg as sparse_linalg
 
 from ..model.neurons import CODE_LIF
 from ..model.noise import Population, WhiteNoise
 from ._shot_exact import exact_rate_applies, exact_shot_rate
-from ._shot_operator import jump_density_rates
+from ._shot_operator import (DENSE_BAND, generator, jump_density_rates, jump_fractions, richardson, shot_grid,
+                             stationary_masses)
 
-__all__ = ["SHOT_METHODS", "shot_rates", "diffusion_equivalent"]
+__all__ = ["SHOT_METHODS", "shot_rates", "diffusion_equivalent", "shot_passage_moments", "shot_passage_density",
+           "shot_potential_density"]
 
 SHOT_METHODS = ("auto", "exponential-psp", "jump-density", "diffusion")
 
@@ -77,3 +81,121 @@ def shot_rates(population, mus: np.ndarray, method: str, white_gain) -> np.ndarr
             raise ValueError("shot noise without input: `exc_rate` or `inh_rate` must be > 0 Hz")
         out[rest] = jump_density_rates(population, flat[rest])
     return out.reshape(np.shape(mus))
+
+
+#: Grids (h, h/2, ..., each halving the cell width) for the ISI moments, extrapolated as the rates are.
+MOMENT_LEVELS = 3
+#: Time steps of the ISI density (uniform, then interpolated by cubic splines): backward Euler with
+#: steps T/n, T/2n, T/4n, Richardson-extrapolated, for banded generators (fixed amplitudes); the dense
+#: generators of exponential amplitudes use the exact one-step propagator at fewer points (each
+#: costs a dense product).
+ISI_STEPS = 2000
+ISI_PROPAGATOR_POINTS_DENSE = 401
+
+
+def _first_passage(neuron, noise, mu: float, grid):
+    """Generator without reinjection, its factorisation, the output per cell and the reset vector."""
+    L, out = generator(neuron, noise, mu, grid)
+    n = grid.n
+    k, w = grid.reset_weights(float(neuron.reset))
+    b = np.zeros(n)
+    b[k] += 1.0 - w
+    b[min(k + 1, n - 1)] += w
+    band = max(jump_fractions(noise.amplitudes, a, grid.h)[1] for a in (noise.exc_psp, noise.inh_psp) if a)
+    if band > DENSE_BAND:
+        lu = linalg.lu_factor(L.toarray())
+        solve = lambda rhs: linalg.lu_solve(lu, rhs)  # noqa: E731 - local one-liner
+    else:
+        solve = sparse_linalg.splu(L.tocsc()).solve
+    return L, out, b, solve
+
+
+def shot_passage_moments(population, mu: float) -> tuple[float, float]:
+    """First and second moments (ms, ms^2) of the passage time from reset to the boundary (the ISI
+    without the refractory period), Richardson-extrapolated over ``MOMENT_LEVELS`` grids.
+
+    On cell masses, a neuron started at reset occupies ``(-L)^-1 b`` in expectation (``L`` the generator
+    without reinjection, ``b`` the reset weights), so ``E[T] = 1.(-L)^-1 b`` and
+    ``E[T^2] = 2 * 1.(-L)^-2 b`` (moments of a phase-type distribution; Neuts 1981, Matrix-geometric
+    solutions in stochastic models, ch. 2).
+    """
+    nrn, noise = population.neuron, population.noise
+    grid = shot_grid(nrn, noise, [mu])
+    t1, t2 = [], []
+    for _ in range(MOMENT_LEVELS):
+        _, _, b, solve = _first_passage(nrn, noise, mu, grid)
+        m1 = np.maximum(solve(-b), 0.0)
+        m2 = np.maximum(solve(-m1), 0.0)
+        t1.append(float(m1.sum()))
+        t2.append(2.0 * float(m2.sum()))
+        grid = grid.halved()
+    return richardson(t1), richardson(t2)
+
+
+def _implicit_passage(L, out, b, t_max: float, n: int) -> tuple[np.ndarray, np.ndarray]:
+    """Output flux and survivor at ``n + 1`` uniform times on ``[0, t_max]``: backward Euler (an
+    M-matrix solve per step, so positive and L-stable: the stiff drift modes of the upwind operator are
+    damped, not stepped through) with steps ``t_max/n``, ``/2``, ``/4``, Richardson-extrapolated to
+    third order in the step."""
+    levels = []
+    for sub in (1, 2, 4):
+        dt = t_max / (n * sub)
+        solve = sparse_linalg.splu((sparse.identity(L.shape[0], format="csc") - dt * L).tocsc()).solve
+        p = b.copy()
+        flux, surv = [float(out @ p)], [float(p.sum())]
+        for i in range(n * sub):
+            p = solve(p)
+            if (i + 1) % sub == 0:
+                flux.append(float(out @ p))
+                surv.append(float(p.sum()))
+        levels.append((np.array(flux), np.array(surv)))
+    (f1, s1), (f2, s2), (f4, s4) = levels
+    return (8.0 * f4 - 6.0 * f2 + f1) / 3.0, (8.0 * s4 - 6.0 * s2 + s1) / 3.0
+
+
+def shot_passage_density(population, mu: float, t) -> tuple[np.ndarray, np.ndarray]:
+    """Density (1/ms) and survivor of the passage time from reset at times ``t`` (ms, >= 0).
+
+    The generator without reinjection propagates the reset mass on grids h and h/2 (extrapolated, first
+    order in h): by backward Euler extrapolated in the step (:func:`_implicit_passage`) for banded
+    generators (fixed amplitudes), by repeated products with the dense ``expm`` of one step for the
+    dense generators of exponential amplitudes; cubic-spline interpolation to ``t``, clipped."""
+    from scipy.interpolate import CubicSpline
+
+    nrn, noise = population.neuron, population.noise
+    t = np.asarray(t, dtype=float)
+    t_max = float(np.max(t, initial=0.0))
+    grid = shot_grid(nrn, noise, [mu])
+    if not t_max > 0.0:
+        return np.zeros(t.shape), np.ones(t.shape)
+    dense = noise.exponential
+    num = ISI_PROPAGATOR_POINTS_DENSE if dense else ISI_STEPS + 1
+    ts = np.linspace(0.0, t_max, num)
+    dens, surv = [], []
+    for _ in range(2):
+        L, out, b, _ = _first_passage(nrn, noise, mu, grid)
+        if dense:
+            step = linalg.expm(L.toarray() * (ts[1] - ts[0]))
+            p = np.empty((num, grid.n))
+            p[0] = b
+            for i in range(1, num):
+                p[i] = step @ p[i - 1]
+            dens.append(p @ out)
+            surv.append(p.sum(axis=1))
+        else:
+            f, sv = _implicit_passage(L, out, b, t_max, ISI_STEPS)
+            dens.append(f)
+            surv.append(sv)
+        grid = grid.halved()
+    d = CubicSpline(ts, 2.0 * dens[1] - dens[0])(t)
+    s = CubicSpline(ts, 2.0 * surv[1] - surv[0])(t)
+    return np.maximum(d, 0.0), np.clip(s, 0.0, 1.0)
+
+
+def shot_potential_density(population, mu: float) -> tuple[np.ndarray, np.ndarray]:
+    """Cell centres (mV) and stationary potential density (1/mV) of the non-refractory neurons on the
+    finest of the rate's grids (h/4), normalised with the refractory mass."""
+    nrn, noise = population.neuron, population.noise
+    grid = shot_grid(nrn, noise, [mu]).halved().halved()
+    m, _ = stationary_masses(nrn, noise, mu, grid)
+    return grid.centres, m / grid.h

@@ -24,15 +24,21 @@ Methods
   Richardson-extrapolated from two widths.
 * Escape noise: renewal theory along the free trajectory after reset
   (:mod:`popdens.theory._stationary_escape`).
-* Coloured noise (:class:`~popdens.ColouredNoise`): every white-noise method
-  above, applied to the white-noise population with threshold and reset
-  moved up by ``sigma alpha/2 sqrt(tau_syn/tau_m)`` (Brunel & Sergi 1998;
-  Fourcaud & Brunel 2002; only the reset for models with a spike cut-off):
+* Coloured noise (:class:`~popdens.ColouredNoise`), hard threshold (LIF,
+  PIF): every white-noise method above, applied to the white-noise
+  population with threshold and reset moved up by ``sigma alpha/2
+  sqrt(tau_syn/tau_m)`` (Brunel & Sergi 1998; Fourcaud & Brunel 2002):
   first order in ``sqrt(tau_syn/tau_m)``, see :mod:`popdens.model.effective`.
-* Shot noise (:class:`~popdens.ShotNoise`, :func:`gain` only): the exact rate
-  of the LIF with exponentially distributed PSPs (Richardson & Swarbrick
-  2010), else the stationary state of the jump-density operator
-  (:mod:`popdens.theory._stationary_shot`).
+  Models with a spike cut-off (EIF, QIF), whose correction is of order
+  ``tau_syn/tau_m`` and not captured by a boundary shift: the stationary
+  two-dimensional (potential, current) density (``method="plane"``, the
+  default for them; any model may ask for it),
+  :mod:`popdens.theory._filtered_plane`.
+* Shot noise (:class:`~popdens.ShotNoise`): the exact rate of the LIF with
+  exponentially distributed PSPs (Richardson & Swarbrick 2010), else the
+  stationary state of the jump-density operator; :func:`stationary` takes
+  the ISI moments, the ISI density and the potential density from the
+  same operator (:mod:`popdens.theory._stationary_shot`).
 * Conductance input (:class:`~popdens.ConductanceNoise`): threshold
   integration with voltage-dependent drift and diffusion (the
   effective-time-constant approximation with the fluctuations' driving
@@ -70,7 +76,10 @@ from ..model.shot import ShotNoise
 from ..model.conductance import ConductanceNoise
 from ..model.synaptic import ColouredNoise
 from ._adapted import escape_adapted, white_adapted
-from ._stationary_shot import shot_rates
+from ._filtered_plane import (PLANE_CELLS_PER_LENGTH, PLANE_FLOOR_RATIO, correlation_length, filtered_rates,
+                              plane_state)
+from ._shot_exact import exact_rate_applies
+from ._stationary_shot import shot_passage_density, shot_passage_moments, shot_potential_density, shot_rates
 from ._conductance import conductance_rates, conductance_stationary
 from ._isi_diffusive import density_from_transform, passage_time_density
 from ._isi_markov import isi_chain
@@ -95,7 +104,7 @@ ISI_GRID_POINTS = 2001
 #: Largest |drive| (mV) tried when bracketing an inverse problem.
 MAX_DRIVE_MV = 1e6
 
-METHODS = ("auto", "siegert", "inverse-gaussian", "threshold-integration", "renewal")
+METHODS = ("auto", "siegert", "inverse-gaussian", "threshold-integration", "renewal", "plane")
 
 
 # ---------------------------------------------------------------- helpers
@@ -166,6 +175,41 @@ def _as_white(population, sigma):
     return population, sigma
 
 
+def _on_plane(population, method) -> bool:
+    """True where the rate comes from the (potential, current) plane: coloured noise on a renewal
+    neuron with a spike cut-off (``method="auto"``), or any coloured-noise renewal neuron with
+    ``method="plane"``."""
+    noise = population.noise
+    if method == "plane" and not isinstance(noise, ColouredNoise):
+        raise ValueError(f"`method` 'plane' is for ColouredNoise populations, not {type(noise).__name__}")
+    if not isinstance(noise, ColouredNoise) or population.neuron.adapting:
+        if method == "plane":
+            raise ValueError("`method` 'plane' does not support `adaptation` yet; use method='auto'")
+        return False
+    return method == "plane" or (method == "auto" and population.neuron.has_cutoff)
+
+
+def _plane_sigma(population, sigma) -> float:
+    if sigma is not None:
+        return v.positive("sigma", sigma)
+    s = population.noise.constant_sigma()
+    if s is None:
+        raise ValueError("the steady state of coloured noise needs a constant `sigma` (mV): pass `sigma=` or use "
+                         "a number / popdens.drive.Constant")
+    return s
+
+
+def _plane_rates(population, mus, sigma) -> np.ndarray:
+    """Coloured-noise rates (Hz) from the (potential, current) plane (see :mod:`._filtered_plane`)."""
+    nrn, sg = population.neuron, _plane_sigma(population, sigma)
+
+    def effective(tau, drives):  # the one-dimensional effective-boundary theory at time constant tau
+        pop = white_equivalent(Population(nrn, ColouredNoise(sg, tau)), sg)
+        return gain(pop, drives)
+
+    return filtered_rates(nrn, mus, sg, float(population.noise.tau_syn), effective)
+
+
 def _drives(mu) -> np.ndarray:
     arr = np.asarray(mu, dtype=float)
     if not np.all(np.isfinite(arr)):
@@ -183,6 +227,8 @@ def _resolve_method(population, method) -> str:
             return "renewal"
         code = population.neuron.code
         return {CODE_LIF: "siegert", CODE_PIF: "inverse-gaussian"}.get(code, "threshold-integration")
+    if method == "plane":
+        raise ValueError("`method` 'plane' is for ColouredNoise populations")
     if escape and method != "renewal":
         raise ValueError(f"`method` {method!r} is for white noise; escape noise uses 'renewal'")
     if not escape and method == "renewal":
@@ -224,11 +270,15 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         White-noise amplitude (mV) overriding the population's (for sweeps
         over the noise); a list gives one gain curve per level, as a scenario's
         ``[gain] sigma = [...]`` does.  Not allowed for escape noise.
-    method : {"auto", "siegert", "inverse-gaussian", "threshold-integration", "renewal"}
+    method : {"auto", "siegert", "inverse-gaussian", "threshold-integration", "renewal", "plane"}
         ``"auto"``: Siegert formula for the white-noise LIF, the
         inverse-Gaussian closed form for the white-noise PIF, threshold
         integration for other white-noise models, renewal theory for escape
-        noise.  Shot noise (:class:`~popdens.ShotNoise`) takes ``"auto"``,
+        noise.  Coloured noise: ``"auto"`` is the effective boundary shift
+        (one of the white-noise methods above) for hard thresholds and
+        ``"plane"``, the stationary (potential, current) density, for models
+        with a spike cut-off; a white-noise method name gives the effective
+        boundary-shift result for any model (for comparison).  Shot noise (:class:`~popdens.ShotNoise`) takes ``"auto"``,
         ``"exponential-psp"`` (exact, LIF with exponential PSPs),
         ``"jump-density"`` or ``"diffusion"`` (the diffusion approximation),
         see :mod:`popdens.theory._stationary_shot`.  Conductance input
@@ -276,6 +326,8 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         if levels.size == 0:
             raise ValueError("`sigma` must hold at least one noise level (mV), got an empty list")
         return np.stack([gain(population, mu, sigma=float(s), method=method) for s in levels])
+    if _on_plane(population, method):
+        return _plane_rates(population, _drives(mu), sigma)
     population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
@@ -314,10 +366,10 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         As in :func:`gain`.
     """
     _check_population(population)
-    if _shot(population, sigma) or _conductance(population, sigma):
+    if _shot(population, sigma) or _conductance(population, sigma) or _on_plane(population, method):
         h = SLOPE_STEP_MV
         mus = _drives(mu)
-        r = gain(population, np.stack([mus - 2 * h, mus - h, mus + h, mus + 2 * h]), method=method)
+        r = gain(population, np.stack([mus - 2 * h, mus - h, mus + h, mus + 2 * h]), sigma=sigma, method=method)
         return (8.0 * (r[2] - r[1]) - (r[3] - r[0])) / (12.0 * h)
     population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
@@ -557,6 +609,43 @@ def _conductance_stationary(population, mu: float, isi_t, method: str) -> Steady
     )
 
 
+def _shot_stationary(population, mu: float, isi_t, method: str) -> SteadyState:
+    """Stationary state of shot noise: the rate as :func:`gain`, the ISI moments, density and the
+    potential density from the jump-density operator (:mod:`popdens.theory._stationary_shot`)."""
+    if method == "diffusion":
+        raise ValueError("`method` 'diffusion' is not available for `stationary` with shot noise; call "
+                         "`stationary` on the diffusion approximation's white-noise population instead")
+    nrn = population.neuron
+    rate = float(shot_rates(population, np.array([mu]), method, _white_rates)[0])
+    t1, t2 = shot_passage_moments(population, mu)
+    if not rate > 0.0:
+        raise ValueError(f"the population is silent at `mu` = {mu:g} mV: no ISI statistics")
+    mean_isi = 1000.0 / rate
+    std = math.sqrt(max(t2 - t1 * t1, 0.0))
+    if isi_t is None:
+        isi_t = _default_isi_grid(nrn.refractory + t1 + 14.0 * std)
+    else:
+        isi_t = v.finite_array("isi_t", isi_t)
+        if np.any(isi_t < 0.0):
+            raise ValueError("`isi_t` must be >= 0 (ms)")
+    after = np.maximum(isi_t - nrn.refractory, 0.0)
+    dens, surv = shot_passage_density(population, mu, after)
+    before = isi_t < nrn.refractory
+    dens[before], surv[before] = 0.0, 1.0
+    u, density = shot_potential_density(population, mu)
+    refr = rate * 1e-3 * nrn.refractory
+    mean_u = float(np.sum(u * density) * (u[1] - u[0])) + refr * nrn.reset
+    used = "exponential-psp" if (method in ("auto", "exponential-psp") and nrn.code == CODE_LIF
+                                 and exact_rate_applies(nrn, population.noise, mu)) else "jump-density"
+    return SteadyState(
+        population=population, mu=mu, sigma=None, rate=rate, cv=std / mean_isi, mean_isi=mean_isi, mean_u=mean_u,
+        refractory_fraction=float(refr), isi_t=isi_t, isi_density=dens, survivor=surv, method=used,
+        u=u, density=density, flux=None,
+        diagnostics={"cells": int(u.size), "operator_mean_isi_ms": nrn.refractory + t1,
+                     "passage_second_moment_ms2": t2},
+    )
+
+
 def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> SteadyState:
     """Stationary state at the constant drive ``mu`` (mV).
 
@@ -574,7 +663,13 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         ``ISI_GRID_SURVIVOR`` (escape) or well past the mean ISI (white noise).
     method : str
         As in :func:`gain` (conductance input: ``"auto"`` or ``"filtered"``,
-        the renewal problem of the effective equation).
+        the renewal problem of the effective equation; coloured noise with
+        ``"plane"``, the default for models with a spike cut-off: rate,
+        potential density, flux and mean potential from the (potential,
+        current) plane, CV and ISI density from the effective renewal
+        problem, named in ``diagnostics["isi_statistics"]``; shot noise: the
+        rate's method, ``"diffusion"`` excepted, with the ISI statistics and
+        densities from the jump-density operator).
 
     Returns
     -------
@@ -584,11 +679,12 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         noise), mean potential (mV).
     """
     _check_population(population)
-    if isinstance(population.noise, ShotNoise):
-        raise ValueError("`stationary` (ISI statistics, densities) is not available for ShotNoise yet; "
-                         "popdens.gain gives its stationary rate")
+    if _shot(population, sigma):
+        return _shot_stationary(population, v.as_finite_float("mu", mu), isi_t, method)
     if _conductance(population, sigma):
         return _conductance_stationary(population, v.as_finite_float("mu", mu), isi_t, method)
+    if _on_plane(population, method):
+        return _plane_stationary(population, v.as_finite_float("mu", mu), sigma, isi_t)
     original = population
     population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
@@ -604,6 +700,36 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
     shift = float(population.neuron.reset - original.neuron.reset)
     return replace(out, population=original, method=f"{m} (boundary shift)",
                    diagnostics={**out.diagnostics, "boundary_shift_mV": shift})
+
+
+def _plane_stationary(population, mu: float, sigma, isi_t) -> SteadyState:
+    """Coloured noise on the (potential, current) plane: rate (extrapolated over two grids), and at
+    ``tau_syn >= PLANE_FLOOR_RATIO tau_m`` the marginal potential density, flux and mean potential of
+    the fine grid; the CV and the ISI density are those of the effective renewal problem (the
+    white-noise population with the boundary shift; the current's memory across spikes ignored)."""
+    nrn, noise = population.neuron, population.noise
+    sg = _plane_sigma(population, sigma)
+    rate = float(_plane_rates(population, np.array(mu), sg))
+    renewal = stationary(population, mu, sigma=sg, isi_t=isi_t, method="auto" if not nrn.has_cutoff
+                         else "threshold-integration")
+    frac = rate * 1e-3 * nrn.refractory
+    out = replace(renewal, population=population, rate=rate, mean_isi=1000.0 / rate, refractory_fraction=frac,
+                  method="plane", diagnostics={**renewal.diagnostics,
+                                               "isi_statistics": f"effective renewal problem ({renewal.method})"})
+    tau_syn = float(noise.tau_syn)
+    if tau_syn < PLANE_FLOOR_RATIO * nrn.tau_m:
+        return out
+    st = plane_state(nrn, mu, sg, tau_syn, 0.5 * correlation_length(nrn, sg, tau_syn) / PLANE_CELLS_PER_LENGTH)
+    h = np.diff(st.faces)
+    vel = ((np.asarray(nrn.drift(st.faces), dtype=float) + mu)[:, None] + st.current_sd * st.z[None, :]) / nrn.tau_m
+    below = np.vstack([np.zeros((1, st.z.size)), st.mass])  # the cell under each face (none under the lowest)
+    above = np.vstack([st.mass, np.zeros((1, st.z.size))])
+    hz = np.concatenate([h[:1], h])
+    flux = (np.maximum(vel, 0.0) * below / hz[:, None] - np.maximum(-vel, 0.0) * above / hz[:, None]).sum(axis=1)
+    flux = 0.5 * (flux[1:] + flux[:-1]) * 1000.0  # Hz, at the cell centres
+    mean_u = float(st.u @ st.mass.sum(axis=1)) + (1.0 - float(st.mass.sum())) * nrn.reset
+    return replace(out, u=st.u, density=st.density, flux=flux, mean_u=mean_u,
+                   diagnostics={**out.diagnostics, "plane_cells": st.mass.shape, "plane_rate_fine_grid_hz": st.rate})
 
 
 def _adapted_isi(population, mu: float, z0: np.ndarray, isi_t: np.ndarray):

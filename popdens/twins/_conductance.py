@@ -36,7 +36,7 @@ from ..model._kernels import NO_REFCOUNT, drift_value
 from ..model.neurons import CODE_LIF
 from ._diffusive import REF_TOL
 
-__all__ = ["ConductanceEnsemble"]
+__all__ = ["ConductanceEnsemble", "neuron_step", "potential_step"]
 
 
 @numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
@@ -50,6 +50,50 @@ def _arrivals(lam, w, tau, h):  # pragma: no cover - compiled
         add += w * e
         integ += w * tau * (1.0 - e)
     return add, integ
+
+
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def potential_step(lif, ncode, npar, nops, nargs, rest, tau_m, boundary, ui, hs, m, gsum, grev,
+                   stack, xbuf):  # pragma: no cover - compiled
+    """Potential after ``hs`` ms at constant conductances: ``gsum = sum_x g_x``, ``grev = sum_x g_x E_x``.
+
+    ``tau_m du/dt = F(u) + m + grev - gsum u``: the exact exponential step for the LIF, Heun's step
+    otherwise (Euler's when the predictor crosses ``boundary``).
+    """
+    if lif:
+        gt = 1.0 + gsum
+        u_inf = (rest + m + grev) / gt
+        return u_inf + (ui - u_inf) * math.exp(-hs * gt / tau_m)
+    f0 = (drift_value(ncode, npar, nops, nargs, ui, stack, xbuf) + m + grev - gsum * ui) / tau_m
+    up = ui + hs * f0
+    if up < boundary:
+        f1 = (drift_value(ncode, npar, nops, nargs, up, stack, xbuf) + m + grev - gsum * up) / tau_m
+        return ui + 0.5 * hs * (f0 + f1)
+    return up
+
+
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def neuron_step(ref, i, ui, h, tol, reset, lif, ncode, npar, nops, nargs, rest, tau_m, boundary, m, gsum, grev,
+                stack, xbuf):  # pragma: no cover - compiled
+    """Potential of neuron ``i`` at the end of a step of ``h`` ms, and True when it was refractory throughout.
+
+    ``ref[i]`` (refractory time left, ms) is updated; a neuron whose refractory time ends within the
+    step integrates the rest of it from ``reset`` (:func:`potential_step`).
+    """
+    hs = h
+    r = ref[i]
+    if r > 0.0:
+        r -= h
+        if r > tol:
+            ref[i] = r
+            return reset, True
+        ref[i] = 0.0
+        hs = -r if r < 0.0 else 0.0
+        ui = reset
+        if hs <= tol:
+            return reset, False
+    return potential_step(lif, ncode, npar, nops, nargs, rest, tau_m, boundary, ui, hs, m, gsum, grev,
+                          stack, xbuf), False
 
 
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
@@ -89,37 +133,12 @@ def run_conductance(ncode, npar, nops, nargs, tau_m, reset, boundary, tau_ref, d
             g_i[i] = gi0 * di + add_i
             ge = (ge0 * ie + int_e) / h  # step averages
             gi = (gi0 * ii + int_i) / h
-            r = ref[i]
-            hs = h  # the part of the step the neuron integrates
-            ui = u[i]
-            if r > 0.0:
-                r -= h
-                if r > tol:
-                    ref[i] = r
-                    refr += 1
-                    su += reset
-                    continue
-                ref[i] = 0.0
-                hs = -r if r < 0.0 else 0.0
-                ui = reset
-                if hs <= tol:
-                    u[i] = reset
-                    su += reset
-                    continue
-            if lif:
-                gt = 1.0 + ge + gi
-                u_inf = (rest + m + ge * rev_e + gi * rev_i) / gt
-                ui = u_inf + (ui - u_inf) * math.exp(-hs * gt / tau_m)
-            else:
-                f0 = (drift_value(ncode, npar, nops, nargs, ui, stack, xbuf) + m + ge * (rev_e - ui)
-                      + gi * (rev_i - ui)) / tau_m
-                up = ui + hs * f0
-                if up < boundary:
-                    f1 = (drift_value(ncode, npar, nops, nargs, up, stack, xbuf) + m + ge * (rev_e - up)
-                          + gi * (rev_i - up)) / tau_m
-                    ui = ui + 0.5 * hs * (f0 + f1)
-                else:
-                    ui = up
+            ui, held = neuron_step(ref, i, u[i], h, tol, reset, lif, ncode, npar, nops, nargs, rest, tau_m, boundary,
+                                   m, ge + gi, ge * rev_e + gi * rev_i, stack, xbuf)
+            if held:
+                refr += 1
+                su += reset
+                continue
             if ui >= boundary or not math.isfinite(ui):
                 count += 1
                 if record:

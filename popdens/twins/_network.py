@@ -89,6 +89,26 @@ def csr_by_source(sources, c, n_source):  # pragma: no cover - compiled
     return counts, tg
 
 
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def deliver(p, li, n_fire, start, q_tgt, q_m, q_head, q_buf_off, q_ptr_off, q_idx_off, out_ptr, out_list, buf,
+            ptr_flat, idx_flat):  # pragma: no cover - compiled
+    """Write ``n_fire`` spikes of neuron ``li`` of cohort ``p`` into the ring buffers of its outgoing
+    pathways, ``q_m[q]`` slots ahead of the head (the step they arrive in)."""
+    for jq in range(out_ptr[p], out_ptr[p + 1]):
+        q = out_list[jq]
+        tg = q_tgt[q]
+        n_t = start[tg + 1] - start[tg]
+        slot = q_head[q] + q_m[q]
+        if slot > q_m[q]:
+            slot -= q_m[q] + 1
+        base = q_buf_off[q] + slot * n_t
+        p0 = q_ptr_off[q] + li
+        j0 = q_idx_off[q] + ptr_flat[p0]
+        j1 = q_idx_off[q] + ptr_flat[p0 + 1]
+        for j in range(j0, j1):
+            buf[base + idx_flat[j]] += n_fire
+
+
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
 def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref,
                 hcode, theta, uses_slope, npar_flat, npar_ptr, nops_flat, nargs_flat, nprog_ptr,
@@ -304,19 +324,8 @@ def run_network(start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref
                                 spk_t[n_spk] = t0 + (k + 0.5) * dt
                                 spk_i[n_spk] = i
                                 n_spk += 1
-                    for jq in range(out_ptr[p], out_ptr[p + 1]):
-                        q = out_list[jq]
-                        tg = q_tgt[q]
-                        n_t = start[tg + 1] - start[tg]
-                        slot = q_head[q] + q_m[q]
-                        if slot > q_m[q]:
-                            slot -= q_m[q] + 1
-                        base = q_buf_off[q] + slot * n_t
-                        p0 = q_ptr_off[q] + li
-                        j0 = q_idx_off[q] + ptr_flat[p0]
-                        j1 = q_idx_off[q] + ptr_flat[p0 + 1]
-                        for j in range(j0, j1):
-                            buf[base + idx_flat[j]] += n_fire
+                    deliver(p, li, n_fire, start, q_tgt, q_m, q_head, q_buf_off, q_ptr_off, q_idx_off, out_ptr,
+                            out_list, buf, ptr_flat, idx_flat)
             out_count[k, p] = count
             out_mean_u[k, p] = su / n_p
         for q in range(q_head.shape[0]):

@@ -196,7 +196,7 @@ SHOT = POPULATION.replace('kind = "escape"', 'kind = "shot"\nexc_rate = 2000.0\n
     ("[approximations]\nmu = 5.0\ntau_syn = [1.0]\n", "`tau_syn` does not apply"),
     ("[approximations]\nmu = 5.0\npsp = [-0.5]\n", "positive values"),
     ("[transfer]\nmu = 5.0\nfrequencies = [1.0]\nmodulate = 'sigma'\n", "needs [noise] kind = 'white'"),
-    ("[stationary]\nmu = 5.0\n", "not available for shot noise"),
+    ("[stationary]\nmu = 'x'\n", "`mu`"),
 ])
 def test_shot_noise_tables_reject_bad_input(tmp_path, extra, fragment):
     with pytest.raises(ScenarioError) as exc:

@@ -260,3 +260,33 @@ def test_bifurcation_and_map_curves_are_written_and_reported(tmp_path, monkeypat
     report = (out / "report.html").read_text()
     assert "oscillation onset at" in report and "Fixed points against pathway.I-&gt;I.weight" in report
     assert summary["stability_map"]["curves"][0]["kind"] == "onset"
+
+
+COND = NET.replace('sigma_ext = 4.0', 'sigma_ext = 0.0\nbackground = { rate = 10.0, weight = 0.04, count = 2000, '
+                   'tau_syn = 1.0, synapse = "conductance", reversal = 70.0 }').replace(
+    "delay = 1.0", 'delay = 1.0\ntau_syn = 1.2\nsynapse = "conductance"\nreversal = -10.0').replace(
+    "drive = 22.0", "drive = -10.0").replace("weight = 0.1", "weight = 0.05")
+
+
+def test_conductance_synapses_in_a_network_scenario(tmp_path):
+    """`synapse` and `reversal` in [[pathway]] and the background build the same circuit as the Python API;
+    its fixed point is that of popdens.network.fixed_points (the API is checked against the single-population
+    theory in tests/network/test_network_conductance.py)."""
+    from popdens.network import Circuit, Cohort, Pathway, PoissonBackground, fixed_points
+
+    sc = load_scenario(write(tmp_path, COND))
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.WhiteNoise(4.0))
+    bg = PoissonBackground(10.0, 0.04, 2000, 1.0, "conductance", 70.0)
+    ref = Circuit([Cohort("E", pop, size=400, drive=-10.0, sigma_ext=0.0, background=bg)],
+                  [Pathway("E", "E", 0.05, 50, 1.0, 1.2, "conductance", -10.0)])
+    assert sc.circuit == ref
+    rates = [fp.rates[0] for fp in fixed_points(sc.circuit, (0.1, 200.0))]
+    assert rates and rates == [fp.rates[0] for fp in fixed_points(ref, (0.1, 200.0))]
+    with pytest.raises(ScenarioError, match=r"\[network\] key `t_end`.*conductance synapses \(E\)"):
+        load_scenario(write(tmp_path, COND.replace("t_end = 0.0", "t_end = 10.0")))
+    with pytest.raises(ScenarioError, match="`sigma_ext` must be 0"):
+        load_scenario(write(tmp_path, COND.replace("sigma_ext = 0.0", "sigma_ext = 1.0")))
+    with pytest.raises(ScenarioError, match="`synapse`"):
+        load_scenario(write(tmp_path, COND.replace('synapse = "conductance"\nrev', 'synapse = 3\nrev')))
+    with pytest.raises(ScenarioError, match="`reversal` applies"):
+        load_scenario(write(tmp_path, COND.replace('tau_syn = 1.2\nsynapse = "conductance"\n', '')))

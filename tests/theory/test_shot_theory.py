@@ -4,6 +4,8 @@ a transform of the master equation, and a finite-volume discretisation of it).""
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 from scipy import integrate
@@ -113,8 +115,8 @@ def test_shot_noise_front_end_errors():
         popdens.gain(pop, 0.0, method="siegert")
     with pytest.raises(ValueError, match="`mu`"):
         popdens.gain(pop, 25.0, method="exponential-psp")
-    with pytest.raises(ValueError, match="ShotNoise"):
-        popdens.stationary(pop, 0.0)
+    with pytest.raises(ValueError, match="`method` 'diffusion'"):
+        popdens.stationary(pop, 0.0, method="diffusion")
     with pytest.raises(ValueError, match="ShotNoise"):
         popdens.spike_train_spectrum(pop, 0.0, [10.0])
     with pytest.raises(ValueError, match="ShotNoise"):
@@ -180,3 +182,45 @@ def test_transfer_high_frequency_limits():
     down = popdens.transfer(pop, 5.0, [1e4, 2e4])
     assert abs(abs(down[1]) * 2e4 / (abs(down[0]) * 1e4) - 1.0) < 5e-3
     assert np.all(np.abs(np.angle(down) + np.pi / 2) < 0.05)
+
+
+# ------------------------------------------------------------------ stationary (ISI statistics)
+def test_stationary_counting_jumps_gives_the_erlang_interval():
+    """PIF without drive, fixed PSPs a, threshold k a above reset: an interval is t_ref plus the sum of k
+    exponential waits of rate nu (an Erlang distribution; Cox 1962, Renewal theory): CV
+    sqrt(k)/nu / (t_ref + k/nu), density the gamma density (scipy).  The grid aligns with a, so the
+    operator's shifts are exact; what remains is the linear interpolation from the propagator's 2001 time
+    points (measured 1.1e-5 of the peak with 2001 points, 4.4e-5 expected with 1001)."""
+    from scipy import stats
+
+    a, nu, tref, k = 0.5, 0.8, 2.0, 4
+    pop = popdens.Population(popdens.PIF(10.0, k * a, 0.0, tref), popdens.ShotNoise(nu * 1e3, a))
+    st = popdens.stationary(pop, 0.0, isi_t=np.linspace(0.0, 30.0, 301))
+    assert st.cv == pytest.approx(math.sqrt(k) / nu / (tref + k / nu), rel=1e-8)  # Erlang closed form
+    ref = stats.gamma.pdf(st.isi_t - tref, k, scale=1.0 / nu)
+    assert np.max(np.abs(st.isi_density - ref)) < 1e-4 * ref.max()  # scipy gamma density
+    assert np.max(np.abs(st.survivor - stats.gamma.sf(st.isi_t - tref, k, scale=1.0 / nu))) < 1e-4
+
+
+def test_stationary_with_exponential_jumps_matches_the_compound_count():
+    """PIF without drive, exponential PSPs of mean a, gap D: N = 1 + Poisson(D/a) inputs end an interval
+    (the jump sums are a Poisson process of rate 1/a in potential), so the passage time is a Poisson
+    mixture of Erlang(n, nu): mean (1 + D/a)/nu, variance (1 + 2 D/a)/nu^2 (compound sums; Feller 1968,
+    vol. 1).  The exponential jumps are not aligned with the grid: first order in h, extrapolated."""
+    from scipy import stats
+
+    a, nu, tref, gap = 0.5, 0.8, 2.0, 3.0
+    pop = popdens.Population(popdens.PIF(10.0, gap, 0.0, tref),
+                             popdens.ShotNoise(nu * 1e3, a, amplitudes="exponential"))
+    st = popdens.stationary(pop, 0.0, isi_t=np.linspace(0.0, 40.0, 201))
+    mean = tref + (1 + gap / a) / nu
+    assert st.cv == pytest.approx(math.sqrt(1 + 2 * gap / a) / nu / mean, rel=1e-3)  # compound Poisson
+    n = np.arange(1, 60)
+    w = stats.poisson.pmf(n - 1, gap / a)
+    ref = np.array([np.sum(w * stats.gamma.pdf(t - tref, n, scale=1.0 / nu)) for t in st.isi_t])
+    assert np.max(np.abs(st.isi_density - ref)) < 2e-3 * ref.max()  # Poisson mixture of gamma densities
+    # potential density: each interval visits the levels of a Poisson process of rate 1/a in potential
+    # and stays Exp(nu) at each, so between reset and threshold the density is rate / (a nu) (renewal
+    # reward argument; Cox 1962); the finest grid (h = 0.025 mV) is first order: measured +0.29 %
+    inside = (st.u > 0.3) & (st.u < gap - 0.3)
+    assert np.allclose(st.density[inside], st.rate * 1e-3 / (a * nu), rtol=5e-3)

@@ -1,0 +1,47 @@
+"""Benchmark: the cost of one coloured-noise stationary rate on the (potential, current) plane.
+
+For the EIF of the contributor guide's coloured-noise table (tau_m 20 ms, mu 14 mV, sigma 4 mV) at
+tau_syn/tau_m = 0.05 ... 0.5, one ``popdens.gain`` evaluation (two plane grids, each a banded
+sparse LU and one closure solve), timed in this run beside the one-dimensional threshold
+integration of the same neuron (the effective-boundary rate, two grids) and the Monte Carlo twin's
+cost for the same rate to 1 % (Poisson SE: 1e4 spikes); best of 3, CPU time beside wall time.
+
+Run:  popdens bench coloured
+"""
+
+from __future__ import annotations
+
+import popdens
+from popdens.theory._filtered_plane import correlation_length, plane_state
+
+from ._timing import best_of as _best
+
+RATIOS = (0.05, 0.1, 0.25, 0.5)
+MU, SIGMA = 14.0, 4.0  # mV
+TWIN_N, TWIN_T = 400, 500.0  # neurons, ms
+
+
+def main() -> None:
+    nrn = popdens.EIF(20.0, 15.0, 2.0, 30.0, 10.0, 2.0)
+    white = popdens.Population(nrn, popdens.WhiteNoise(SIGMA))
+    popdens.gain(white, MU)  # compile / load the caches
+    w1, c1, r1 = _best(lambda: popdens.gain(white, MU))
+    print(f"coloured noise, EIF at mu = {MU:g} mV, sigma = {SIGMA:g} mV")
+    print(f"  one-dimensional threshold integration (2 grids): {float(r1):.4f} Hz, wall {1e3 * w1:.1f} ms, "
+          f"CPU {1e3 * c1:.1f} ms")
+    for ratio in RATIOS:
+        pop = popdens.Population(nrn, popdens.ColouredNoise(SIGMA, ratio * nrn.tau_m))
+        popdens.montecarlo(pop, MU, 1.0, n=4, progress=False)  # compile / load
+        w, c, r = _best(lambda: popdens.gain(pop, MU))
+        cells = plane_state(nrn, MU, SIGMA, ratio * nrn.tau_m,
+                            0.5 * correlation_length(nrn, SIGMA, ratio * nrn.tau_m) / 3).mass.shape
+        wt, ct, _ = _best(lambda: popdens.montecarlo(pop, MU, TWIN_T, n=TWIN_N, seed=1, progress=False), 1)
+        twin_1pc = ct * (1e4 / (float(r) * 1e-3)) / (TWIN_N * TWIN_T)
+        print(f"  tau_syn/tau_m {ratio:g}: plane {float(r):.4f} Hz (fine grid {cells[0]} x {cells[1]} cells), "
+              f"wall {1e3 * w:.0f} ms, CPU {1e3 * c:.0f} ms; ratio to threshold integration {c / c1:.0f} (CPU); "
+              f"the twin for 1 %: about {twin_1pc:.2g} s CPU (ratio twin/plane {twin_1pc / c:.2g}; "
+              f"wall of {TWIN_N} x {TWIN_T:g} ms: {wt:.2f} s)")
+
+
+if __name__ == "__main__":
+    main()
