@@ -33,7 +33,6 @@ from __future__ import annotations
 import dataclasses
 
 import numpy as np
-from scipy.integrate import quad
 
 from ..model.drive import Constant
 from ..model.noise import Population
@@ -100,6 +99,8 @@ def shot_population(circuit, k: int, rates) -> tuple[Population | None, float]:
 
 def _drift_rate(neuron, mu: float) -> float:
     """Rate (Hz) of a neuron without input spikes: the deterministic period from reset to the boundary."""
+    from scipy.integrate import quad  # noqa: PLC0415 - scipy-heavy, loaded on first use
+
     lo, hi = float(neuron.reset), float(neuron.boundary)
     u = np.linspace(lo, hi, 201)
     if np.any(np.asarray(neuron.drift(u), dtype=float) + mu <= 0.0):

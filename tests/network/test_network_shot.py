@@ -105,6 +105,15 @@ def test_feed_forward_shot_cohort_has_the_single_population_rate():
     assert fp.rates[1] > 1.0
 
 
+def test_a_shot_cohort_without_input_spikes_fires_at_its_deterministic_rate():
+    from popdens.network._shot_input import shot_rate
+
+    # LIF period from reset to threshold at constant drive, T = tau_ref + tau ln((mu - reset)/(mu - theta))
+    # (closed form of the linear ODE; from memory)
+    assert shot_rate(None, None, LIF, 25.0) == pytest.approx(1000.0 / (2.0 + 20.0 * math.log(15.0 / 5.0)), rel=1e-9)
+    assert shot_rate(None, None, LIF, 15.0) == 0.0  # below threshold: silent
+
+
 def test_small_psps_approach_the_diffusion_fixed_point():
     # as the jumps j shrink at fixed input mean and variance (4 mV of noise from the background, the recurrent
     # inhibition's mean fixed), the shot-noise fixed point tends to the diffusion approximation's (Stein 1965;
