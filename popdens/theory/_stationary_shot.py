@@ -29,7 +29,7 @@ from ._shot_operator import (DENSE_BAND, generator, jump_density_rates, jump_fra
                              stationary_masses)
 
 __all__ = ["SHOT_METHODS", "shot_rates", "diffusion_equivalent", "shot_passage_moments", "shot_passage_density",
-           "shot_potential_density"]
+           "shot_potential_density", "shot_passage_transform"]
 
 SHOT_METHODS = ("auto", "exponential-psp", "jump-density", "diffusion")
 
@@ -83,6 +83,10 @@ def shot_rates(population, mus: np.ndarray, method: str, white_gain) -> np.ndarr
     return out.reshape(np.shape(mus))
 
 
+#: Column ordering of the sparse LU of the banded generators: minimum degree on the symmetric
+#: structure keeps the band (measured on 3848 cells: 0.013 s and 9.4e4 factor entries, against 0.35 s
+#: and 2.4e5 for the default column ordering).
+BANDED_ORDERING = "MMD_AT_PLUS_A"
 #: Grids (h, h/2, ..., each halving the cell width) for the ISI moments, extrapolated as the rates are.
 MOMENT_LEVELS = 3
 #: Time steps of the ISI density (uniform, then interpolated by cubic splines): backward Euler with
@@ -106,7 +110,7 @@ def _first_passage(neuron, noise, mu: float, grid):
         lu = linalg.lu_factor(L.toarray())
         solve = lambda rhs: linalg.lu_solve(lu, rhs)  # noqa: E731 - local one-liner
     else:
-        solve = sparse_linalg.splu(L.tocsc()).solve
+        solve = sparse_linalg.splu(L.tocsc(), permc_spec=BANDED_ORDERING).solve
     return L, out, b, solve
 
 
@@ -140,7 +144,8 @@ def _implicit_passage(L, out, b, t_max: float, n: int) -> tuple[np.ndarray, np.n
     levels = []
     for sub in (1, 2, 4):
         dt = t_max / (n * sub)
-        solve = sparse_linalg.splu((sparse.identity(L.shape[0], format="csc") - dt * L).tocsc()).solve
+        solve = sparse_linalg.splu((sparse.identity(L.shape[0], format="csc") - dt * L).tocsc(),
+                                   permc_spec=BANDED_ORDERING).solve
         p = b.copy()
         flux, surv = [float(out @ p)], [float(p.sum())]
         for i in range(n * sub):
@@ -199,3 +204,38 @@ def shot_potential_density(population, mu: float) -> tuple[np.ndarray, np.ndarra
     grid = shot_grid(nrn, noise, [mu]).halved().halved()
     m, _ = stationary_masses(nrn, noise, mu, grid)
     return grid.centres, m / grid.h
+
+
+def shot_passage_transform(population, mu: float, s) -> np.ndarray:
+    """``E[exp(-s T)]`` of the passage time ``T`` from reset to the boundary (the ISI without the
+    refractory period) at Laplace variables ``s`` (complex, 1/ms): ``out.(s - L)^-1 b`` on the cells.
+
+    Banded generators (fixed amplitudes): one sparse complex factorisation per ``s`` on grids h, h/2,
+    h/4, Richardson-extrapolated.  Dense ones (exponential amplitudes): a complex Schur form
+    ``L = Z T Z*`` per grid (backward stable), then one triangular solve per ``s``, on grids h and h/2.
+    """
+    nrn, noise = population.neuron, population.noise
+    s = np.asarray(s, dtype=complex).ravel()
+    grid = shot_grid(nrn, noise, [mu])
+    dense = noise.exponential
+    values = []
+    for _ in range(2 if dense else MOMENT_LEVELS):
+        L, out, b, _ = _first_passage(nrn, noise, mu, grid)
+        vals = np.empty(s.size, dtype=complex)
+        if dense:
+            t_mat, z = linalg.schur(L.toarray().astype(complex), output="complex")
+            zb, zo = z.conj().T @ b, z.T @ out  # out.(sI - L)^-1 b = (Z^T out).(sI - T)^-1 (Z* b)
+            eye = np.eye(grid.n)
+            for i, si in enumerate(s):
+                vals[i] = zo @ linalg.solve_triangular(si * eye - t_mat, zb)
+        else:
+            eye = sparse.identity(grid.n, dtype=complex, format="csc")
+            lc = L.astype(complex).tocsc()
+            for i, si in enumerate(s):
+                lu = sparse_linalg.splu((si * eye - lc).tocsc(), permc_spec=BANDED_ORDERING)
+                vals[i] = out @ lu.solve(b.astype(complex))
+        values.append(vals)
+        grid = grid.halved()
+    if dense:
+        return 2.0 * values[1] - values[0]
+    return (8.0 * values[2] - 6.0 * values[1] + values[0]) / 3.0

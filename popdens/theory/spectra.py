@@ -18,7 +18,9 @@ in Hz (spikes^2 / s^2 per Hz).  The population rate ``A = (1/N) sum_i x_i`` of
 ``P_hat`` comes from the same sweeps as the transfer function: the age
 integrals of the renewal equation (escape noise) and threshold integration
 of the first-passage problem (white noise; Richardson 2008, Biol. Cybern.
-99:381).  For white noise the ISI moments needed at ``f = 0`` are the
+99:381).  Shot noise is exactly renewal (input during refractoriness is
+lost, arrivals are memoryless): ``P_hat`` is the passage-time transform of
+the jump-density operator (:func:`popdens.theory._stationary_shot.shot_passage_transform`).  For white noise the ISI moments needed at ``f = 0`` are the
 Taylor coefficients of ``P_hat(s)``, taken by the trapezoidal rule on a
 circle in the complex ``s`` plane (Cauchy's formula; exponentially
 convergent).
@@ -35,7 +37,9 @@ from ._modulated_threshold import NODES_PER_SIGMA, Sweep
 from ..model.adaptation import refuse
 from .linear_response import FREQ_BLOCK, _AgeGrid, _check_population, _sigma_of
 from ..model.effective import white_equivalent
-from ..model.noise import EscapeNoise
+from ..model.noise import EscapeNoise, Population
+from ..model.shot import ShotNoise
+from ._stationary_shot import shot_passage_moments, shot_passage_transform
 
 __all__ = ["isi_transform", "spike_train_spectrum", "population_rate_spectrum"]
 
@@ -62,10 +66,18 @@ class _Renewal:
     """ISI transform, rate and ISI moments of one stationary population."""
 
     def __init__(self, population, mu):
-        self.population = _check_population(population)
+        shot = isinstance(population, Population) and isinstance(population.noise, ShotNoise)
+        self.population = population if shot else _check_population(population)
         refuse(population, "the renewal spectra (ISI transform, spike-train and population-rate spectra)")
         self.mu = v.as_finite_float("mu", mu)
-        if isinstance(population.noise, EscapeNoise):
+        if shot:
+            # input arriving during refractoriness is lost and Poisson arrivals are memoryless, so
+            # the spike train is exactly a renewal process
+            t_ref = float(population.neuron.refractory)
+            t1, t2 = shot_passage_moments(population, self.mu)
+            self.rate = 1000.0 / (t_ref + t1)
+            self.cv2 = (t_ref * t_ref + 2.0 * t_ref * t1 + t2) / (t_ref + t1) ** 2 - 1.0
+        elif isinstance(population.noise, EscapeNoise):
             self.grid = _AgeGrid(population, self.mu)
             g = self.grid
             mass = float(np.sum(g.weights * g.h0 * g.surv)) + (g.surv[-1] if g.tail else 0.0)
@@ -93,6 +105,9 @@ class _Renewal:
     def _laplace(self, s):
         """E[exp(-s T)] at Laplace variables ``s`` (1/ms)."""
         s = np.asarray(s, dtype=complex).ravel()
+        if isinstance(self.population.noise, ShotNoise):
+            t_ref = float(self.population.neuron.refractory)
+            return np.exp(-s * t_ref) * shot_passage_transform(self.population, self.mu, s)
         if isinstance(self.population.noise, EscapeNoise):
             out = np.empty(s.shape, dtype=complex)
             for i0 in range(0, s.size, FREQ_BLOCK):

@@ -168,6 +168,22 @@ def test_network_twin_delivers_shot_synapses_as_jumps():
     assert ref > 5.0
 
 
+def test_shot_network_scenario_run_holds_the_fixed_point_beside_the_twin(tmp_path):
+    import json
+
+    from popdens.cli import main
+
+    # no time integration of shot synapses: the stable fixed point is held beside the spiking twin
+    text = SCENARIO.replace("t_end = 0.0", "t_end = 20.0\nmontecarlo = true")
+    path = tmp_path / "net.toml"
+    path.write_text(text, encoding="utf-8")
+    assert main(["run", str(path), "--quiet"]) == 0
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert summary["prediction"]["method"] == "fixed point"
+    assert summary["prediction"]["final_rates_hz"]["E"] == summary["fixed_points"][0]["rates_hz"]["E"]
+    assert summary["montecarlo"]["status"] == 0
+
+
 @pytest.mark.slow
 def test_sparse_ei_network_with_finite_psps_agrees_with_its_twin():
     # E-I network (Brunel 2000 type, J = 0.5 mV, g = 5, D = 1.5 ms) whose neurons take most of their input from

@@ -290,3 +290,19 @@ def test_conductance_synapses_in_a_network_scenario(tmp_path):
         load_scenario(write(tmp_path, COND.replace('synapse = "conductance"\nrev', 'synapse = 3\nrev')))
     with pytest.raises(ScenarioError, match="`reversal` applies"):
         load_scenario(write(tmp_path, COND.replace('tau_syn = 1.2\nsynapse = "conductance"\n', '')))
+
+
+def test_conductance_network_run_holds_the_fixed_point_beside_the_twin(tmp_path):
+    """With t_end > 0 a conductance network runs the spiking twin against its stable fixed point held over
+    time (no time integration yet); without the twin a time-domain run is refused."""
+    text = COND.replace("t_end = 0.0", "t_end = 20.0\ndt = 0.05\nmontecarlo = true").replace("stability = false",
+                                                                                              "stability = true")
+    p = write(tmp_path, text)
+    assert main(["run", str(p), "--quiet"]) == 0
+    summary = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert summary["prediction"]["method"] == "fixed point"
+    fp = summary["fixed_points"][0]["rates_hz"]["E"]
+    assert summary["prediction"]["final_rates_hz"]["E"] == fp  # held, exactly
+    assert summary["montecarlo"]["status"] == 0
+    with pytest.raises(ScenarioError, match="`montecarlo` and `fixed_points` true"):
+        load_scenario(write(tmp_path, text.replace("montecarlo = true", "montecarlo = false")))

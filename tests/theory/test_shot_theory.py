@@ -118,8 +118,6 @@ def test_shot_noise_front_end_errors():
     with pytest.raises(ValueError, match="`method` 'diffusion'"):
         popdens.stationary(pop, 0.0, method="diffusion")
     with pytest.raises(ValueError, match="ShotNoise"):
-        popdens.spike_train_spectrum(pop, 0.0, [10.0])
-    with pytest.raises(ValueError, match="ShotNoise"):
         popdens.Cohort("E", pop, size=100, drive=0.0)
     fixed = popdens.Population(LIF, popdens.ShotNoise(1000.0, 0.5))
     with pytest.raises(ValueError, match="exponential-psp"):

@@ -122,3 +122,66 @@ def test_binned_rate_spectrum_integrates_to_the_bernoulli_count_variance():
     assert abs(var / ((r0 / b - r0 ** 2) / n) - 1.0) < 1e-3
     with pytest.raises(ValueError, match="Nyquist"):
         population_rate_spectrum(pop, 0.0, [600.0], n, bin_width=1.0)
+
+
+# ------------------------------------------------------------------ shot noise (exactly renewal)
+def _counting_pif(law):
+    a, nu, tref, gap = 0.5, 0.8, 2.0, 2.0  # mV, 1/ms, ms, mV (gap = 4 fixed jumps)
+    pop = popdens.Population(popdens.PIF(10.0, gap, 0.0, tref), popdens.ShotNoise(nu * 1e3, a, amplitudes=law))
+    return pop, a, nu, tref, gap
+
+
+def test_shot_noise_spectrum_of_a_counting_integrator_is_the_erlang_renewal_spectrum():
+    """PIF without drive, fixed PSPs: each ISI is t_ref plus 4 exponential waits, so
+    P_hat(s) = exp(-s t_ref) (nu/(nu + s))^4 and S = r Re[(1 + P_hat)/(1 - P_hat)] (Cox 1962); the grid
+    aligns with the jumps, so the operator is exact up to round-off."""
+    pop, a, nu, tref, gap = _counting_pif("fixed")
+    f = np.array([0.0, 10.0, 100.0, 300.0, 1000.0])
+    spec, (rate, cv2) = spike_train_spectrum(pop, 0.0, f, with_moments=True)
+    k = round(gap / a)
+    s = 2j * math.pi * f * 1e-3
+    p_hat = np.exp(-s * tref) * (nu / (nu + s)) ** k
+    r0 = 1e3 / (tref + k / nu)
+    ref = np.empty(f.size)
+    ref[1:] = r0 * ((1 + p_hat[1:]) / (1 - p_hat[1:])).real
+    ref[0] = r0 * (k / nu ** 2) / (tref + k / nu) ** 2  # r0 CV^2, Erlang variance k/nu^2
+    assert np.allclose(spec, ref, rtol=1e-9)  # closed form above
+    assert rate == pytest.approx(r0, rel=1e-12)
+
+
+def test_shot_noise_spectrum_with_exponential_jumps_matches_the_compound_count():
+    """PIF without drive, exponential PSPs of mean a: 1 + Poisson(D/a) inputs end an interval, so
+    P_hat(s) = exp(-s t_ref) nu/(nu + s) exp(-(D/a) s/(nu + s)) (the generating function of the compound
+    count; Feller 1968).  The jumps are not aligned with the grid: first order in h, extrapolated from
+    two grids; P_hat within 5e-4, which (1 + P)/(1 - P) amplifies near P = 1: measured -0.23 %, +0.04 %,
+    -0.01 % at 10, 100, 300 Hz."""
+    pop, a, nu, tref, gap = _counting_pif("exponential")
+    f = np.array([0.0, 10.0, 100.0, 300.0])
+    spec, (rate, cv2) = spike_train_spectrum(pop, 0.0, f, with_moments=True)
+    s = 2j * math.pi * f[1:] * 1e-3
+    p_hat = np.exp(-s * tref) * nu / (nu + s) * np.exp(-(gap / a) * s / (nu + s))
+    mean = tref + (1 + gap / a) / nu
+    r0 = 1e3 / mean
+    assert spec[1:] == pytest.approx(r0 * ((1 + p_hat) / (1 - p_hat)).real, rel=5e-3)  # closed form above
+    assert spec[0] == pytest.approx(r0 * (1 + 2 * gap / a) / nu ** 2 / mean ** 2, rel=2e-3)  # r0 CV^2
+
+
+@pytest.mark.slow
+def test_shot_noise_population_spectrum_matches_the_twin_periodogram():
+    """LIF with fixed 0.5 mV PSPs (2000 + 500 Hz input, mu 5 mV, 22.5 Hz, CV 0.52): 500 neurons over
+    40 s, rate in 1 ms bins, periodograms of 80 segments of 0.5 s averaged in 10 Hz bands (400 values,
+    relative SE 5 %); every band within 4 SE of the binned S(f)/N."""
+    pop = popdens.Population(popdens.LIF(20.0, 20.0, 10.0, 2.0), popdens.ShotNoise(2000.0, 0.5, 500.0, 0.5))
+    mu, n, b, seg = 5.0, 500, 1.0, 500
+    res = popdens.montecarlo(pop, mu, t_end=40000.0, n=n, seed=5, record_interval=b, progress=False)
+    a = res.rate[1:].reshape(-1, seg)
+    a = a - a.mean(axis=1, keepdims=True)
+    per = np.abs(np.fft.rfft(a, axis=1) * b * 1e-3) ** 2 / (seg * b * 1e-3)  # Hz
+    f = np.fft.rfftfreq(seg, b * 1e-3)
+    for lo, hi in [(10.0, 20.0), (30.0, 40.0), (80.0, 90.0), (300.0, 310.0)]:
+        sel = (f >= lo) & (f < hi)
+        est = per[:, sel].mean()
+        pred = population_rate_spectrum(pop, mu, f[sel], n, bin_width=b).mean()
+        se = pred / math.sqrt(per[:, sel].size)
+        print(f"{lo:g}-{hi:g} Hz: twin {est:.4g}, theory {pred:.4g} +- {se:.2g}")
+        assert abs(est - pred) < 4 * se, (lo, est, pred, se)  # twin, 4 SE
