@@ -227,7 +227,7 @@ def test_eif_transfer_on_the_plane_against_twin(f, eps):
     nrn, mu, sigma = EIF_TABLE
     pop = popdens.Population(nrn, popdens.ColouredNoise(sigma, 5.0))
     amp, ph, se_a, se_p = sine_response(pop, mu, f, eps, 20000, 0.1, 0.5, 8)
-    chi = popdens.transfer(pop, mu, [f])[0]
+    chi = popdens.transfer(pop, mu, [f], method="plane")[0]
     white = popdens.transfer(popdens.Population(nrn, popdens.WhiteNoise(sigma)), mu, [f])[0]
     print(f"EIF {f:g} Hz: twin {amp:.4f} +- {se_a:.4f} Hz/mV, {ph:.3f} +- {se_p:.3f} rad; plane {abs(chi):.4f}, "
           f"{np.angle(chi):.3f}; white {abs(white):.4f}, {np.angle(white):.3f}")
