@@ -57,7 +57,9 @@ with ``synapse``:
   instantaneous or filtered with ``tau_syn``, analysed in the diffusion
   approximation above;
 * ``"shot"``: an instantaneous jump of ``weight`` (mV) per input spike,
-  analysed as finite PSPs (shot noise, :class:`~popdens.ShotNoise`);
+  analysed as finite PSPs (shot noise, :class:`~popdens.ShotNoise`; one
+  weight per sign and ``sigma_ext = 0`` in the target cohort,
+  :mod:`popdens.network._shot_input`);
 * ``"conductance"``: a conductance jump of ``weight`` (leak units, > 0)
   decaying with ``tau_syn`` (ms, > 0) towards the ``reversal`` potential
   (mV), analysed in the effective-time-constant approximation
