@@ -25,8 +25,8 @@ from scipy.sparse import linalg as sparse_linalg
 from ..model.neurons import CODE_LIF
 from ..model.noise import Population, WhiteNoise
 from ._shot_exact import exact_rate_applies, exact_shot_rate
-from ._shot_operator import (DENSE_BAND, generator, jump_density_rates, jump_fractions, lu_ordering, richardson,
-                             shot_grid, stationary_masses)
+from ._shot_operator import (dense_jumps, generator, jump_density_rates, lu_ordering, richardson, shot_grid,
+                             stationary_masses)
 
 __all__ = ["SHOT_METHODS", "shot_rates", "diffusion_equivalent", "shot_passage_moments", "shot_passage_density",
            "shot_potential_density", "shot_passage_transform"]
@@ -101,8 +101,7 @@ def _first_passage(neuron, noise, mu: float, grid):
     b = np.zeros(n)
     b[k] += 1.0 - w
     b[min(k + 1, n - 1)] += w
-    band = max(jump_fractions(noise.amplitudes, a, grid.h)[1] for a in (noise.exc_psp, noise.inh_psp) if a)
-    if band > DENSE_BAND:
+    if dense_jumps(noise, grid.h):
         lu = linalg.lu_factor(L.toarray())
         solve = lambda rhs: linalg.lu_solve(lu, rhs)  # noqa: E731 - local one-liner
     else:
