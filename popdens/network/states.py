@@ -70,6 +70,27 @@ def solver_gain(population, mu: float) -> float:
     return float(s.instantaneous_rate(float(mu), sigma))
 
 
+def _one_dimensional(gain: Callable) -> Callable:
+    """``gain`` with coloured-noise populations of cut-off models (EIF, QIF) on the one-dimensional
+    effective problem instead of their default (potential, current) plane: 500-1400x cheaper, within
+    the white-noise result's error (a few %; contributor guide), so its fixed points are starting
+    points for the plane's."""
+
+    def coarse(population, mu):
+        if (isinstance(population.noise, ColouredNoise) and population.neuron.has_cutoff
+                and not population.neuron.adapting):
+            return gain(population, mu, method="threshold-integration")
+        return gain(population, mu)
+
+    return coarse
+
+
+def _on_plane(circuit: Circuit) -> bool:
+    """True when some cohort may reach the default gain as coloured noise of a cut-off model."""
+    return any(a.diffusive and a.population.neuron.has_cutoff and not a.population.neuron.adapting
+               for a in circuit.cohorts)
+
+
 def _default_gain() -> Callable:
     from ..theory.steady_state import gain  # noqa: PLC0415 - scipy-heavy, loaded on first use
 
@@ -247,6 +268,11 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     diffusion approximation (the same circuit with current synapses, found
     as above) and polishes each with Powell's method: a shot-noise fixed
     point with no diffusion-approximation fixed point in its basin is missed.
+    Likewise, with the default ``gain``, cohorts of cut-off models (EIF, QIF)
+    with coloured or filtered input take their rates from the (potential,
+    current) plane (about 0.1 s each): the search runs on their
+    one-dimensional effective rate and polishes what it finds on the plane
+    (an E-I pair: 4 s instead of 218 s CPU, the same fixed point).
 
     Examples
     --------
@@ -262,6 +288,7 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     circuit.require_current("fixed_points", allow=("conductance", "shot"))
     lo, hi = (v.non_negative("rate_range[0]", rate_range[0]), v.positive("rate_range[1]", rate_range[1]))
     v.less_than("rate_range[0]", lo, "rate_range[1]", hi)
+    polish = gain is None and _on_plane(circuit)
     gain = _default_gain() if gain is None else gain
     n = circuit.n
     found: list[np.ndarray] = []
@@ -282,8 +309,12 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
                 return
         found.append(r)
 
-    if any(rate_map.shot):
-        for fp in fixed_points(diffusion_circuit(circuit), (lo, hi), gain=gain, starts_per_dim=starts_per_dim,
+    if any(rate_map.shot) or polish:
+        # each rate costs a jump-density solve (shot noise) or a plane (coloured noise of cut-off
+        # models): search with the cheap approximation, polish its fixed points with the full theory
+        start_circuit = diffusion_circuit(circuit) if any(rate_map.shot) else circuit
+        start_gain = _one_dimensional(gain) if polish else gain
+        for fp in fixed_points(start_circuit, (lo, hi), gain=start_gain, starts_per_dim=starts_per_dim,
                                scan_points=scan_points):
             sol = root(resid, fp.rates, method="hybr", options={"xtol": 1e-12})
             if sol.success or np.max(np.abs(sol.fun)) < RESIDUAL_TOL:
