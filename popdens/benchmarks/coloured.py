@@ -4,7 +4,8 @@ For the EIF of the contributor guide's coloured-noise table (tau_m 20 ms, mu 14 
 tau_syn/tau_m = 0.05 ... 0.5, one ``popdens.gain`` evaluation (two plane grids, each a banded
 sparse LU and one closure solve), timed in this run beside the one-dimensional threshold
 integration of the same neuron (the effective-boundary rate, two grids) and the Monte Carlo twin's
-cost for the same rate to 1 % (Poisson SE: 1e4 spikes); best of 3, CPU time beside wall time.
+cost for the same rate to 1 % (Poisson SE: 1e4 spikes); best of 3, CPU time beside wall time.  Then
+the mean-drive transfer function on the plane at six frequencies against the white-noise one.
 
 Run:  popdens bench coloured
 """
@@ -41,6 +42,13 @@ def main() -> None:
               f"wall {1e3 * w:.0f} ms, CPU {1e3 * c:.0f} ms; ratio to threshold integration {c / c1:.0f} (CPU); "
               f"the twin for 1 %: about {twin_1pc:.2g} s CPU (ratio twin/plane {twin_1pc / c:.2g}; "
               f"wall of {TWIN_N} x {TWIN_T:g} ms: {wt:.2f} s)")
+    pop = popdens.Population(nrn, popdens.ColouredNoise(SIGMA, 0.25 * nrn.tau_m))
+    freqs = [1.0, 3.0, 10.0, 30.0, 100.0, 300.0]
+    w, c, _ = _best(lambda: popdens.transfer(pop, MU, freqs), 1)
+    w1, c1, _ = _best(lambda: popdens.transfer(white, MU, freqs), 1)
+    print(f"  transfer at {len(freqs)} frequencies, tau_syn/tau_m 0.25: plane wall {w:.2f} s, CPU {c:.2f} s "
+          f"({1e3 * c / len(freqs):.0f} ms per frequency); white-noise threshold integration CPU {c1:.3f} s "
+          f"(ratio {c / c1:.0f})")
 
 
 if __name__ == "__main__":

@@ -65,8 +65,8 @@ from scipy.special import ndtr
 from ..exceptions import ConvergenceError
 from ._scales import length_scale
 
-__all__ = ["PlaneState", "plane_state", "plane_rate", "filtered_rates", "correlation_length", "PLANE_FLOOR_RATIO",
-           "PLANE_CELLS_PER_LENGTH"]
+__all__ = ["PlaneState", "plane_state", "plane_pair", "plane_rate", "plane_transfer", "below_floor",
+           "filtered_rates", "correlation_length", "PLANE_FLOOR_RATIO", "PLANE_CELLS_PER_LENGTH"]
 
 #: Cells in z (current in units of its standard deviation): the rate is converged to ~0.05 % (EIF) with 40.
 PLANE_Z_CELLS = 40
@@ -100,6 +100,10 @@ class PlaneState:
         Stationary rate (Hz).
     current_sd : float
         Stationary standard deviation of the synaptic current, ``s_I`` (mV).
+    isi_moments : tuple of float
+        Mean (ms) and second moment (ms^2) of the ISI: refractory period plus the passage from the
+        reset, entered with the stationary distribution of the current (exact for the stationary
+        sequence of ISIs, which the current's memory makes correlated).
     """
 
     faces: np.ndarray
@@ -107,6 +111,13 @@ class PlaneState:
     mass: np.ndarray
     rate: float
     current_sd: float
+    isi_moments: tuple = (math.nan, math.nan)
+
+    @property
+    def cv(self) -> float:
+        """Coefficient of variation of the ISI (dimensionless)."""
+        m1, m2 = self.isi_moments
+        return math.sqrt(max(m2 - m1 * m1, 0.0)) / m1
 
     @property
     def u(self) -> np.ndarray:
@@ -156,30 +167,27 @@ def _lower_end(neuron, mu: float, sigma: float) -> float:
                            "(the drive cannot hold the potential up against the noise)")
 
 
-def plane_state(neuron, mu: float, sigma: float, tau_syn: float, width: float,
-                z_cells: int = PLANE_Z_CELLS) -> PlaneState:
-    """Stationary state on one (u, z) grid of u-cell ``width`` (mV; adjusted so that the reset is a face).
+@dataclass(frozen=True)
+class _Grid:
+    """The discretised plane: the generator without re-injection (``absorbing``, probability masses
+    in ``u``-major order), the entry columns at reset, the exit rates of the top cells (1/ms), the
+    current's transition over the refractory period, and the upwind velocities (mV/ms) at the faces."""
 
-    Parameters
-    ----------
-    neuron : NeuronBase
-        Renewal neuron (no adaptation); its boundary is the threshold or the spike cut-off.
-    mu : float
-        Constant drive (mV).
-    sigma : float
-        Noise amplitude (mV), as in :class:`~popdens.ColouredNoise`.
-    tau_syn : float
-        Synaptic time constant (ms).
-    width : float
-        Target u-cell width (mV).
-    z_cells : int
-        Number of z cells.
+    faces: np.ndarray
+    zbar: np.ndarray
+    current_sd: float
+    absorbing: sp.csc_matrix
+    entry: np.ndarray
+    exit_rate: np.ndarray
+    top_cells: np.ndarray
+    carry: np.ndarray
+    chain: np.ndarray
+    velocity: np.ndarray
+    width: float
+    t_ref: float
 
-    Returns
-    -------
-    PlaneState
-        Cell masses and the rate (Hz).
-    """
+
+def _grid(neuron, mu: float, sigma: float, tau_syn: float, width: float, z_cells: int) -> _Grid:
     tau_m = float(neuron.tau_m)
     s_i = sigma * math.sqrt(tau_m / (2.0 * tau_syn))
     top, reset, t_ref = float(neuron.boundary), float(neuron.reset), float(neuron.refractory)
@@ -219,24 +227,118 @@ def plane_state(neuron, mu: float, sigma: float, tau_syn: float, width: float,
     entry = np.zeros((n, nz))
     entry[cell[n_below - 1], np.arange(nz)] = 0.5
     entry[cell[n_below], np.arange(nz)] += 0.5
-    lu = sla.splu(absorbing, permc_spec="NATURAL")
-    occupancy = -lu.solve(entry)  # ms: time spent per cell per unit entry rate in each row
-    exits = exit_rate[:, None] * occupancy[top_cells]  # exit row j per entry row k (columns sum to 1)
     chain = np.diag(up, -1) + np.diag(down, 1)
     chain -= np.diag(chain.sum(axis=0))
     carry = expm(chain * (t_ref / tau_syn)) if t_ref > 0.0 else np.eye(nz)
-    closure = carry @ exits - np.eye(nz)
+    return _Grid(faces=faces, zbar=zbar, current_sd=s_i, absorbing=absorbing, entry=entry, exit_rate=exit_rate,
+                 top_cells=top_cells, carry=carry, chain=chain, velocity=vel, width=h, t_ref=t_ref)
+
+
+def _stationary(grid: _Grid, mu: float):
+    """Cell masses (normalised with the refractory mass), rate (1/ms), ISI moments (ms, ms^2), the LU."""
+    nz = grid.zbar.size
+    lu = sla.splu(grid.absorbing, permc_spec="NATURAL")
+    occupancy = -lu.solve(grid.entry)  # ms: time spent per cell per unit entry rate in each row
+    exits = grid.exit_rate[:, None] * occupancy[grid.top_cells]  # exit row j per entry row k (columns sum to 1)
+    closure = grid.carry @ exits - np.eye(nz)
     closure[-1] = 1.0
     rhs = np.zeros(nz)
     rhs[-1] = 1.0
     inflow = np.linalg.solve(closure, rhs)  # entry distribution at reset (1/ms per unit total)
     mass = occupancy @ inflow
-    total = mass.sum() + t_ref * inflow.sum()
+    total = mass.sum() + grid.t_ref * inflow.sum()
     if not (np.isfinite(total) and total > 0.0):
         raise ConvergenceError(f"the (u, z) density could not be normalised at `mu` = {mu!r} mV")
     rate = inflow.sum() / total
-    return PlaneState(faces=faces, z=zbar, mass=(mass / total).reshape(nu, nz), rate=float(rate) * 1000.0,
-                      current_sd=s_i)
+    # passage from reset: survival 1^T exp(B t) p0, so E T = -1^T B^-1 p0 and E T^2 = 2 1^T B^-2 p0
+    dwell = occupancy @ (inflow / inflow.sum())  # ms per cell: -B^-1 p0
+    t1 = float(dwell.sum())
+    t2 = 2.0 * float(-lu.solve(dwell).sum())
+    t_ref = grid.t_ref
+    moments = (t_ref + t1, t2 + 2.0 * t_ref * t1 + t_ref * t_ref)
+    return mass / total, float(rate), moments
+
+
+def plane_state(neuron, mu: float, sigma: float, tau_syn: float, width: float,
+                z_cells: int = PLANE_Z_CELLS) -> PlaneState:
+    """Stationary state on one (u, z) grid of u-cell ``width`` (mV; adjusted so that the reset is a face).
+
+    Parameters
+    ----------
+    neuron : NeuronBase
+        Renewal neuron (no adaptation); its boundary is the threshold or the spike cut-off.
+    mu : float
+        Constant drive (mV).
+    sigma : float
+        Noise amplitude (mV), as in :class:`~popdens.ColouredNoise`.
+    tau_syn : float
+        Synaptic time constant (ms).
+    width : float
+        Target u-cell width (mV).
+    z_cells : int
+        Number of z cells.
+
+    Returns
+    -------
+    PlaneState
+        Cell masses and the rate (Hz).
+    """
+    grid = _grid(neuron, mu, sigma, tau_syn, width, z_cells)
+    mass, rate, moments = _stationary(grid, mu)
+    return PlaneState(faces=grid.faces, z=grid.zbar, mass=mass.reshape(-1, z_cells), rate=rate * 1000.0,
+                      current_sd=grid.current_sd, isi_moments=moments)
+
+
+def _response(grid: _Grid, mu: float, lam: np.ndarray, tau_m: float) -> np.ndarray:
+    """Rate response (Hz/mV) to a modulation of the mean drive at Laplace variables ``lam`` (1/ms).
+
+    Linearising the fluxes: a drive ``mu + eps e^(lam t)`` adds ``eps/tau_m`` to every u-velocity, so the
+    flux across a face grows by ``eps/tau_m`` times the upwind cell's density (``d``, including the extra
+    exit at the top, ``e``).  With ``B`` the generator without re-injection and ``K`` the refractory
+    transition delayed by ``e^(-lam t_ref)``: ``(B - lam) dp = -d - S K dx`` and the exit flux
+    ``dx = diag(exit) dp_top + e``, closed on the 40 exit rows; at ``lam = 0`` the last row is replaced
+    by the normalisation ``sum dp + t_ref sum dx = 0``.
+    """
+    p0, _, _ = _stationary(grid, mu)
+    nz = grid.zbar.size
+    masses = p0.reshape(-1, nz)
+    inner = grid.velocity[1:-1]
+    upwind = np.where(inner > 0.0, masses[:-1], np.where(inner < 0.0, masses[1:], 0.0)) / (tau_m * grid.width)
+    d = np.zeros_like(masses)
+    d[1:] += upwind
+    d[:-1] -= upwind
+    extra = np.where(grid.velocity[-1] > 0.0, masses[-1], 0.0) / (tau_m * grid.width)
+    d[-1] -= extra
+    d = d.ravel()
+    n = d.size
+    eye_n = sp.identity(n, format="csc")
+    out = np.empty(lam.shape, dtype=complex)
+    for i, s in enumerate(lam.ravel()):
+        lu = sla.splu((grid.absorbing - s * eye_n).tocsc(), permc_spec="NATURAL")
+        y = lu.solve(d.astype(complex))
+        w = lu.solve(grid.entry.astype(complex))
+        k = np.exp(-s * grid.t_ref) * grid.carry
+        system = np.eye(nz) + (grid.exit_rate[:, None] * w[grid.top_cells]) @ k
+        rhs = extra - grid.exit_rate * y[grid.top_cells]
+        if s == 0:  # the closure is singular: fix the multiple of the stationary entry by normalisation
+            system[-1] = -(w.sum(axis=0) @ k) + grid.t_ref * k.sum(axis=0)
+            rhs[-1] = y.sum()
+        out.flat[i] = np.linalg.solve(system, rhs).sum() * 1000.0
+    return out
+
+
+def plane_transfer(neuron, mu: float, sigma: float, tau_syn: float, lam: np.ndarray,
+                   cells_per_length: int = PLANE_CELLS_PER_LENGTH) -> tuple[np.ndarray, np.ndarray]:
+    """Mean-drive transfer function (Hz/mV) at Laplace variables ``lam`` (1/ms) on the plane,
+    Richardson-extrapolated from two u-cell widths; returns it and the difference from the fine grid
+    (the error estimate)."""
+    h = correlation_length(neuron, sigma, tau_syn) / cells_per_length
+    tau_m = float(neuron.tau_m)
+    lam = np.asarray(lam, dtype=complex)
+    coarse = _response(_grid(neuron, mu, sigma, tau_syn, h, PLANE_Z_CELLS), mu, lam, tau_m)
+    fine = _response(_grid(neuron, mu, sigma, tau_syn, 0.5 * h, PLANE_Z_CELLS), mu, lam, tau_m)
+    out = 2.0 * fine - coarse
+    return out, np.abs(out - fine)
 
 
 def correlation_length(neuron, sigma: float, tau_syn: float) -> float:
@@ -245,14 +347,30 @@ def correlation_length(neuron, sigma: float, tau_syn: float) -> float:
     return min(sigma * math.sqrt(tau_syn / (2.0 * neuron.tau_m)), length_scale(neuron), sigma)
 
 
+def plane_pair(neuron, mu: float, sigma: float, tau_syn: float,
+               cells_per_length: int = PLANE_CELLS_PER_LENGTH) -> tuple[PlaneState, PlaneState]:
+    """The plane on the coarse and the fine grid (u cells of ``1/cells_per_length`` and half that
+    of :func:`correlation_length`)."""
+    h = correlation_length(neuron, sigma, tau_syn) / cells_per_length
+    return plane_state(neuron, mu, sigma, tau_syn, h), plane_state(neuron, mu, sigma, tau_syn, 0.5 * h)
+
+
 def plane_rate(neuron, mu: float, sigma: float, tau_syn: float,
                cells_per_length: int = PLANE_CELLS_PER_LENGTH) -> float:
     """Stationary rate (Hz) on the plane, Richardson-extrapolated from two u-cell widths (first-order
     upwinding: ``2 r(h/2) - r(h)``)."""
-    h = correlation_length(neuron, sigma, tau_syn) / cells_per_length
-    coarse = plane_state(neuron, mu, sigma, tau_syn, h).rate
-    fine = plane_state(neuron, mu, sigma, tau_syn, 0.5 * h).rate
-    return 2.0 * fine - coarse
+    coarse, fine = plane_pair(neuron, mu, sigma, tau_syn, cells_per_length)
+    return 2.0 * fine.rate - coarse.rate
+
+
+def below_floor(neuron, tau_syn: float, plane_at_floor, effective) -> np.ndarray:
+    """A plane quantity at ``tau_syn``: itself at or above the floor ``PLANE_FLOOR_RATIO tau_m``; below,
+    the one-dimensional ``effective(tau)`` plus the plane's correction to it at the floor
+    (``plane_at_floor``), scaled by ``tau_syn / tau_floor``."""
+    floor = PLANE_FLOOR_RATIO * float(neuron.tau_m)
+    if tau_syn >= floor:
+        return np.asarray(plane_at_floor)
+    return np.asarray(effective(tau_syn)) + (tau_syn / floor) * (np.asarray(plane_at_floor) - effective(floor))
 
 
 def filtered_rates(neuron, mus: np.ndarray, sigma: float, tau_syn: float, effective_rates) -> np.ndarray:
@@ -260,14 +378,12 @@ def filtered_rates(neuron, mus: np.ndarray, sigma: float, tau_syn: float, effect
 
     At ``tau_syn >= PLANE_FLOOR_RATIO tau_m`` the plane's extrapolated rate; below, the one-dimensional
     rate ``effective_rates(tau, mus)`` (the effective-boundary theory at synaptic time constant ``tau``)
-    plus the plane's correction to it at the floor, scaled by ``tau_syn / tau_floor``.
+    plus the plane's correction to it at the floor, scaled by ``tau_syn / tau_floor``
+    (:func:`below_floor`).
     """
     flat = np.asarray(mus, dtype=float).ravel()
-    floor = PLANE_FLOOR_RATIO * float(neuron.tau_m)
-    tau = max(float(tau_syn), floor)
+    tau = max(float(tau_syn), PLANE_FLOOR_RATIO * float(neuron.tau_m))
     plane = np.array([plane_rate(neuron, float(m), sigma, tau) for m in flat])
-    if tau_syn >= floor:
-        return plane.reshape(np.shape(mus))
-    near = np.asarray(effective_rates(tau_syn, flat), dtype=float)
-    at_floor = np.asarray(effective_rates(floor, flat), dtype=float)
-    return (near + (tau_syn / floor) * (plane - at_floor)).reshape(np.shape(mus))
+    out = below_floor(neuron, float(tau_syn), plane,
+                      lambda t: np.asarray(effective_rates(t, flat), dtype=float))
+    return out.reshape(np.shape(mus))

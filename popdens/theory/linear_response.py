@@ -33,7 +33,10 @@ Methods
   ``(F'(theta) - i omega tau_m) d(shift)`` (change of variable ``u -> u - shift(t)``;
   for nonlinear drifts ``F'`` is taken at the threshold, an approximation).
   At high frequencies the true response tends to a finite, lag-free limit
-  (Fourcaud & Brunel 2002): :func:`high_frequency_limit`.
+  (Fourcaud & Brunel 2002): :func:`high_frequency_limit`.  Models with a
+  spike cut-off (EIF, QIF), which no boundary shift serves, linearise the
+  stationary (potential, current) density instead (mean modulation,
+  :mod:`popdens.theory._filtered_plane`; ``method="plane"`` for any model).
 
 Complex frequencies
 -------------------
@@ -566,10 +569,15 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
         The modulated input: the mean drive ``mu`` (result in Hz/mV); the
         noise intensity ``sigma**2`` (``"noise"``, Hz/mV^2, white noise
         only); or the amplitude ``sigma`` (Hz/mV, white noise only).
-    method : {"renewal", "threshold-integration", "closed-form", "jump-density"}, optional
+    method : {"renewal", "threshold-integration", "closed-form", "jump-density", "plane"}, optional
         Default: ``"renewal"`` for escape noise, ``"threshold-integration"``
         for white noise, ``"jump-density"`` for shot noise.  ``"closed-form"``:
-        white-noise LIF only, needs mpmath, ~10 ms per frequency.
+        white-noise LIF only, needs mpmath, ~10 ms per frequency.  Coloured
+        noise, mean modulation: ``"plane"`` (the default for models with a
+        spike cut-off; any renewal model may ask for it) linearises the
+        stationary (potential, current) density, exact up to its grid and
+        consistent with :func:`popdens.gain` (its zero-frequency value is the
+        gain slope); about 0.07 s CPU per frequency.
     progress : bool, optional
         Progress line on stderr (default: on a terminal, for long runs).
     rtol : float, optional
@@ -700,9 +708,13 @@ def _conductance_transfer(population, mu, freqs, modulate, method):
 
 def _coloured_transfer(population, mu, f, modulate, method, progress, rtol):
     """Effective-boundary transfer function of a coloured-noise population (module notes), and the
-    numerical error estimate of the white-noise problem (not the error of the approximation)."""
+    numerical error estimate of the white-noise problem (not the error of the approximation); the
+    (potential, current) plane for mean modulation of models with a spike cut-off or on request."""
     if method == "renewal":
         raise ValueError("`method` = 'renewal' needs escape noise")
+    nrn = population.neuron
+    if method == "plane" or (method is None and nrn.has_cutoff and not nrn.adapting and modulate == "mean"):
+        return _plane_transfer(population, mu, f, modulate)
     white = white_equivalent(population)
     out, err = transfer(white, mu, f, modulate, method=method, progress=progress, rtol=rtol, return_error=True)
     nrn = population.neuron
@@ -716,6 +728,32 @@ def _coloured_transfer(population, mu, f, modulate, method, progress, rtol):
     leak = -float(nrn.drift_slope(nrn.threshold))  # exact for linear drifts (LIF, PIF)
     chi_mu, err_mu = transfer(white, mu, f, "mean", method=method, progress=progress, rtol=rtol, return_error=True)
     return out - chi_mu * (leak + lam_tau) * per, err + np.abs(err_mu * (leak + lam_tau) * per)
+
+
+def _plane_transfer(population, mu, f, modulate):
+    """Mean-drive transfer function on the (potential, current) plane (:mod:`._filtered_plane`); below
+    ``tau_syn = PLANE_FLOOR_RATIO tau_m`` the plane's correction to the effective-boundary response at
+    the floor, scaled by ``tau_syn`` over the floor (as for the rate)."""
+    from ._filtered_plane import PLANE_FLOOR_RATIO, below_floor, plane_transfer
+
+    nrn = population.neuron
+    if modulate != "mean":
+        raise ValueError(f"`method` 'plane' computes the response to the mean drive: `modulate` must be 'mean', "
+                         f"got {modulate!r}")
+    if nrn.adapting:
+        raise ValueError("`method` 'plane' does not support `adaptation` yet; use the default method")
+    sigma = _sigma_of(population)
+    tau_syn = float(population.noise.tau_syn)
+    floor = PLANE_FLOOR_RATIO * nrn.tau_m
+    lam = (2j * math.pi * 1e-3) * f.ravel()
+    chi, err = plane_transfer(nrn, mu, sigma, max(tau_syn, floor), lam)
+
+    def effective(tau):
+        white = white_equivalent(Population(nrn, ColouredNoise(sigma, tau)))
+        return transfer(white, mu, f.ravel(), "mean")
+
+    out = below_floor(nrn, tau_syn, chi, effective)
+    return out.reshape(f.shape), err.reshape(f.shape)
 
 
 #: Density at the wall of the half-space (Milne) problem of the kinetic boundary layer,

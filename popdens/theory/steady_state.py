@@ -76,8 +76,7 @@ from ..model.shot import ShotNoise
 from ..model.conductance import ConductanceNoise
 from ..model.synaptic import ColouredNoise
 from ._adapted import escape_adapted, white_adapted
-from ._filtered_plane import (PLANE_CELLS_PER_LENGTH, PLANE_FLOOR_RATIO, correlation_length, filtered_rates,
-                              plane_state)
+from ._filtered_plane import PLANE_FLOOR_RATIO, below_floor, filtered_rates, plane_pair
 from ._shot_exact import exact_rate_applies
 from ._stationary_shot import shot_passage_density, shot_passage_moments, shot_potential_density, shot_rates
 from ._conductance import conductance_rates, conductance_stationary
@@ -664,10 +663,10 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
     method : str
         As in :func:`gain` (conductance input: ``"auto"`` or ``"filtered"``,
         the renewal problem of the effective equation; coloured noise with
-        ``"plane"``, the default for models with a spike cut-off: rate,
-        potential density, flux and mean potential from the (potential,
-        current) plane, CV and ISI density from the effective renewal
-        problem, named in ``diagnostics["isi_statistics"]``; shot noise: the
+        ``"plane"``, the default for models with a spike cut-off: rate, ISI
+        CV, potential density, flux and mean potential from the (potential,
+        current) plane, the ISI density from the effective renewal problem,
+        named in ``diagnostics["isi_density_from"]``; shot noise: the
         rate's method, ``"diffusion"`` excepted, with the ISI statistics and
         densities from the jump-density operator).
 
@@ -703,23 +702,35 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
 
 
 def _plane_stationary(population, mu: float, sigma, isi_t) -> SteadyState:
-    """Coloured noise on the (potential, current) plane: rate (extrapolated over two grids), and at
-    ``tau_syn >= PLANE_FLOOR_RATIO tau_m`` the marginal potential density, flux and mean potential of
-    the fine grid; the CV and the ISI density are those of the effective renewal problem (the
-    white-noise population with the boundary shift; the current's memory across spikes ignored)."""
+    """Coloured noise on the (potential, current) plane: rate and ISI CV (exact for the stationary
+    sequence of ISIs; extrapolated over two grids, scaled below the floor as in
+    :func:`._filtered_plane.below_floor`), and at ``tau_syn >= PLANE_FLOOR_RATIO tau_m`` the marginal
+    potential density, flux and mean potential of the fine grid; the ISI density is that of the
+    effective renewal problem (the white-noise population with the boundary shift; the current's memory
+    across spikes ignored), named in ``diagnostics["isi_density_from"]``."""
     nrn, noise = population.neuron, population.noise
     sg = _plane_sigma(population, sigma)
-    rate = float(_plane_rates(population, np.array(mu), sg))
-    renewal = stationary(population, mu, sigma=sg, isi_t=isi_t, method="auto" if not nrn.has_cutoff
-                         else "threshold-integration")
-    frac = rate * 1e-3 * nrn.refractory
-    out = replace(renewal, population=population, rate=rate, mean_isi=1000.0 / rate, refractory_fraction=frac,
-                  method="plane", diagnostics={**renewal.diagnostics,
-                                               "isi_statistics": f"effective renewal problem ({renewal.method})"})
     tau_syn = float(noise.tau_syn)
-    if tau_syn < PLANE_FLOOR_RATIO * nrn.tau_m:
+    floor = PLANE_FLOOR_RATIO * nrn.tau_m
+    coarse, fine = plane_pair(nrn, mu, sg, max(tau_syn, floor))
+
+    def effective(tau):
+        return white_equivalent(Population(nrn, ColouredNoise(sg, tau)), sg)
+
+    rate = float(below_floor(nrn, tau_syn, 2.0 * fine.rate - coarse.rate,
+                             lambda t: float(gain(effective(t), mu))))
+    cv = float(below_floor(nrn, tau_syn, 2.0 * fine.cv - coarse.cv,
+                           lambda t: cv_diffusive(effective(t), mu, sg)))
+    renewal = stationary(effective(tau_syn), mu, isi_t=isi_t)
+    shift = float(renewal.population.neuron.reset - nrn.reset)
+    out = replace(renewal, population=population, rate=rate, cv=cv, mean_isi=1000.0 / rate,
+                  refractory_fraction=rate * 1e-3 * nrn.refractory, method="plane",
+                  diagnostics={**renewal.diagnostics, "boundary_shift_mV": shift,
+                               "isi_density_from": f"effective renewal problem ({renewal.method}, boundary shift "
+                                                   f"{shift:.4g} mV)"})
+    if tau_syn < floor:
         return out
-    st = plane_state(nrn, mu, sg, tau_syn, 0.5 * correlation_length(nrn, sg, tau_syn) / PLANE_CELLS_PER_LENGTH)
+    st = fine
     h = np.diff(st.faces)
     vel = ((np.asarray(nrn.drift(st.faces), dtype=float) + mu)[:, None] + st.current_sd * st.z[None, :]) / nrn.tau_m
     below = np.vstack([np.zeros((1, st.z.size)), st.mass])  # the cell under each face (none under the lowest)
