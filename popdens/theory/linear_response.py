@@ -34,9 +34,9 @@ Methods
   for nonlinear drifts ``F'`` is taken at the threshold, an approximation).
   At high frequencies the true response tends to a finite, lag-free limit
   (Fourcaud & Brunel 2002): :func:`high_frequency_limit`.  Models with a
-  spike cut-off (EIF, QIF), which no boundary shift serves, linearise the
-  stationary (potential, current) density instead (mean modulation,
-  :mod:`popdens.theory._filtered_plane`; ``method="plane"`` for any model).
+  spike cut-off (EIF, QIF) are not shifted (white-noise response);
+  ``method="plane"`` linearises the stationary (potential, current) density
+  instead (mean modulation, :mod:`popdens.theory._filtered_plane`).
 
 Complex frequencies
 -------------------
@@ -573,11 +573,12 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
         Default: ``"renewal"`` for escape noise, ``"threshold-integration"``
         for white noise, ``"jump-density"`` for shot noise.  ``"closed-form"``:
         white-noise LIF only, needs mpmath, ~10 ms per frequency.  Coloured
-        noise, mean modulation: ``"plane"`` (the default for models with a
-        spike cut-off; any renewal model may ask for it) linearises the
+        noise, mean modulation, renewal neurons: ``"plane"`` linearises the
         stationary (potential, current) density, exact up to its grid and
-        consistent with :func:`popdens.gain` (its zero-frequency value is the
-        gain slope); about 0.07 s CPU per frequency.
+        consistent with :func:`popdens.gain` of models with a spike cut-off
+        (its zero-frequency value is their gain slope); about 0.07 s CPU per
+        frequency, so it is not the default (network stability analyses call
+        the transfer function thousands of times).
     progress : bool, optional
         Progress line on stderr (default: on a terminal, for long runs).
     rtol : float, optional
@@ -712,8 +713,7 @@ def _coloured_transfer(population, mu, f, modulate, method, progress, rtol):
     (potential, current) plane for mean modulation of models with a spike cut-off or on request."""
     if method == "renewal":
         raise ValueError("`method` = 'renewal' needs escape noise")
-    nrn = population.neuron
-    if method == "plane" or (method is None and nrn.has_cutoff and not nrn.adapting and modulate == "mean"):
+    if method == "plane":
         return _plane_transfer(population, mu, f, modulate)
     white = white_equivalent(population)
     out, err = transfer(white, mu, f, modulate, method=method, progress=progress, rtol=rtol, return_error=True)
@@ -734,7 +734,7 @@ def _plane_transfer(population, mu, f, modulate):
     """Mean-drive transfer function on the (potential, current) plane (:mod:`._filtered_plane`); below
     ``tau_syn = PLANE_FLOOR_RATIO tau_m`` the plane's correction to the effective-boundary response at
     the floor, scaled by ``tau_syn`` over the floor (as for the rate)."""
-    from ._filtered_plane import PLANE_FLOOR_RATIO, below_floor, plane_transfer
+    from ._filtered_plane import PLANE_FLOOR_RATIO, PLANE_MIN_RATE_HZ, below_floor, plane_transfer
 
     nrn = population.neuron
     if modulate != "mean":
@@ -746,11 +746,14 @@ def _plane_transfer(population, mu, f, modulate):
     tau_syn = float(population.noise.tau_syn)
     floor = PLANE_FLOOR_RATIO * nrn.tau_m
     lam = (2j * math.pi * 1e-3) * f.ravel()
-    chi, err = plane_transfer(nrn, mu, sigma, max(tau_syn, floor), lam)
 
     def effective(tau):
         white = white_equivalent(Population(nrn, ColouredNoise(sigma, tau)))
         return transfer(white, mu, f.ravel(), "mean")
+
+    if stationary_rate(white_equivalent(population), mu) < PLANE_MIN_RATE_HZ:  # too rare to solve on the plane
+        return transfer(white_equivalent(population), mu, f, "mean", return_error=True)
+    chi, err = plane_transfer(nrn, mu, sigma, max(tau_syn, floor), lam)
 
     out = below_floor(nrn, tau_syn, chi, effective)
     return out.reshape(f.shape), err.reshape(f.shape)

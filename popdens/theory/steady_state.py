@@ -76,7 +76,8 @@ from ..model.shot import ShotNoise
 from ..model.conductance import ConductanceNoise
 from ..model.synaptic import ColouredNoise
 from ._adapted import escape_adapted, white_adapted
-from ._filtered_plane import PLANE_FLOOR_RATIO, below_floor, filtered_rates, plane_pair
+from ._filtered_plane import (PLANE_FLOOR_RATIO, PLANE_MIN_RATE_HZ, below_floor, extrapolated, filtered_rates,
+                              plane_pair)
 from ._shot_exact import exact_rate_applies
 from ._stationary_shot import shot_passage_density, shot_passage_moments, shot_potential_density, shot_rates
 from ._conductance import conductance_rates, conductance_stationary
@@ -712,17 +713,21 @@ def _plane_stationary(population, mu: float, sigma, isi_t) -> SteadyState:
     sg = _plane_sigma(population, sigma)
     tau_syn = float(noise.tau_syn)
     floor = PLANE_FLOOR_RATIO * nrn.tau_m
-    coarse, fine = plane_pair(nrn, mu, sg, max(tau_syn, floor))
 
     def effective(tau):
         return white_equivalent(Population(nrn, ColouredNoise(sg, tau)), sg)
 
-    rate = float(below_floor(nrn, tau_syn, 2.0 * fine.rate - coarse.rate,
-                             lambda t: float(gain(effective(t), mu))))
-    cv = float(below_floor(nrn, tau_syn, 2.0 * fine.cv - coarse.cv,
-                           lambda t: cv_diffusive(effective(t), mu, sg)))
     renewal = stationary(effective(tau_syn), mu, isi_t=isi_t)
     shift = float(renewal.population.neuron.reset - nrn.reset)
+    if renewal.rate < PLANE_MIN_RATE_HZ:  # firing too rare to solve on the plane (see _filtered_plane)
+        return replace(renewal, population=population, method=f"{renewal.method} (boundary shift; rate below "
+                       f"{PLANE_MIN_RATE_HZ:g} Hz, not solved on the plane)",
+                       diagnostics={**renewal.diagnostics, "boundary_shift_mV": shift})
+    coarse, fine = plane_pair(nrn, mu, sg, max(tau_syn, floor))
+    rate = float(below_floor(nrn, tau_syn, extrapolated(coarse.rate, fine.rate),
+                             lambda t: float(gain(effective(t), mu))))
+    cv = float(below_floor(nrn, tau_syn, extrapolated(coarse.cv, fine.cv),
+                           lambda t: cv_diffusive(effective(t), mu, sg)))
     out = replace(renewal, population=population, rate=rate, cv=cv, mean_isi=1000.0 / rate,
                   refractory_fraction=rate * 1e-3 * nrn.refractory, method="plane",
                   diagnostics={**renewal.diagnostics, "boundary_shift_mV": shift,
