@@ -57,7 +57,9 @@ with ``synapse``:
   instantaneous or filtered with ``tau_syn``, analysed in the diffusion
   approximation above;
 * ``"shot"``: an instantaneous jump of ``weight`` (mV) per input spike,
-  analysed as finite PSPs (shot noise, :class:`~popdens.ShotNoise`);
+  analysed as finite PSPs (shot noise, :class:`~popdens.ShotNoise`; one
+  weight per sign and ``sigma_ext = 0`` in the target cohort,
+  :mod:`popdens.network._shot_input`);
 * ``"conductance"``: a conductance jump of ``weight`` (leak units, > 0)
   decaying with ``tau_syn`` (ms, > 0) towards the ``reversal`` potential
   (mV), analysed in the effective-time-constant approximation
@@ -84,6 +86,7 @@ from ..model.drive import Constant, Drive, as_drive
 from ..model.noise import EscapeNoise, Population, WhiteNoise
 from ..model.shot import ShotNoise
 from ..model.synaptic import ColouredNoise
+from ._shot_input import check_shot_cohort
 
 __all__ = ["Cohort", "Pathway", "PoissonBackground", "Circuit"]
 
@@ -437,6 +440,8 @@ class Circuit:
             raise ValueError(f"cohort {name!r}: `sigma_ext` must be 0 mV for conductance synapses (the "
                              f"conductance theory carries no extra white current noise; all fluctuations come "
                              f"from the input spikes), got {a.sigma_ext!r}; pass sigma_ext=0")
+        if kind == "shot":
+            check_shot_cohort(a, [p for p in self.pathways if p.target == name])
         return kind
 
     def synapse_kind(self, k: int) -> str:

@@ -36,6 +36,7 @@ from .. import _validation as v
 from .._display import Displayable, fmt
 from ..exceptions import ConvergenceError
 from ._conductance_input import add_conductance_terms
+from ._shot_input import add_shot_terms
 from .circuit import HZ_TO_PER_MS, Circuit
 from .states import FixedPoint
 
@@ -101,13 +102,15 @@ def characteristic_matrix(circuit: Circuit, state: FixedPoint, lam, transfer: Ca
         ``modulate="mean"`` and Hz/mV^2 (per unit variance ``sigma**2``) for
         ``modulate="noise"``.  Default: ``popdens.transfer``.  Cohorts with conductance
         synapses use its mean response and the stationary rate of ``popdens.gain``
-        (:mod:`popdens.network._conductance_input`).
+        (:mod:`popdens.network._conductance_input`); cohorts with shot-noise synapses the
+        response of their rate to their input spike rates (jump-density theory,
+        :mod:`popdens.network._shot_input`).
 
     Returns
     -------
     ndarray of complex, shape ``lam.shape + (n, n)``
     """
-    circuit.require_current("characteristic_matrix", allow=("conductance",))
+    circuit.require_current("characteristic_matrix", allow=("conductance", "shot"))
     transfer = _default_transfer() if transfer is None else transfer
     lam = np.asarray(lam, dtype=complex)
     f = _freq_of(lam).ravel()
@@ -120,8 +123,11 @@ def characteristic_matrix(circuit: Circuit, state: FixedPoint, lam, transfer: Ca
         from ..theory.steady_state import gain  # noqa: PLC0415 - scipy-heavy, loaded on first use
 
         add_conductance_terms(out, circuit, state, lam.ravel(), transfer, gain, conductance)
+    shot = [k for k in range(n) if circuit.synapse_kind(k) == "shot"]
+    if shot:
+        add_shot_terms(out, circuit, state, lam.ravel(), shot)
     for p in circuit.pathways:
-        if p.synapse == "conductance":
+        if p.synapse in ("conductance", "shot"):
             continue
         k, l = circuit.index(p.target), circuit.index(p.source)
         a = circuit.cohorts[k]

@@ -90,6 +90,8 @@ def spectral_matrix(circuit: Circuit, state: FixedPoint, freqs, *, transfer: Cal
         raise NotImplementedError("spectral_matrix: not offered for conductance synapses: the conductance "
                                   "theory's response to fast input is too weak (measured: predicted spectra 2-7x "
                                   "below the spiking twin's at 150-500 Hz; contributor guide)")
+    if any(circuit.synapse_kind(k) == "shot" for k in range(n)):
+        raise NotImplementedError("spectral_matrix: the spike-train spectra of shot input are not available yet")
     m = characteristic_matrix(circuit, state, lam, transfer)
     d = np.zeros((flat.size, n, n), dtype=complex)
     for k in range(n):

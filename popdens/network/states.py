@@ -27,6 +27,7 @@ from .._display import Displayable
 from ..model.noise import WhiteNoise
 from ..model.synaptic import ColouredNoise
 from ._conductance_input import conductance_population
+from ._shot_input import diffusion_circuit, shot_population, shot_rate
 from .circuit import HZ_TO_PER_MS, Circuit
 
 __all__ = ["FixedPoint", "fixed_points", "solver_gain"]
@@ -86,10 +87,12 @@ class FixedPoint(Displayable):
         Rates (Hz).
     mu : ndarray
         Total drive (mV); for a cohort with conductance synapses its own external drive (the
-        synaptic input is its :class:`~popdens.ConductanceNoise`).
+        synaptic input is its :class:`~popdens.ConductanceNoise`); for one with shot-noise synapses
+        that of the diffusion-equivalent input (its rate comes from the jump-density theory,
+        :mod:`popdens.network._shot_input`).
     sigma : ndarray
         Total noise amplitude (mV; NaN for escape noise and for conductance input, whose
-        fluctuations depend on the potential).
+        fluctuations depend on the potential; shot-noise synapses: diffusion-equivalent).
     residual : float
         ``max |A - Phi(A)|`` (Hz).
     tau_syn : ndarray or None
@@ -121,6 +124,10 @@ def _rates_of(circuit: Circuit, gain: Callable, rates: np.ndarray) -> np.ndarray
     tau = circuit.noise_time_constant(np.maximum(rates, 0.0))
     out = np.empty(circuit.n)
     for k in range(circuit.n):
+        if circuit.synapse_kind(k) == "shot":
+            pop, m = shot_population(circuit, k, rates)
+            out[k] = shot_rate(gain, pop, circuit.cohorts[k].population.neuron, m)
+            continue
         if circuit.synapse_kind(k) == "conductance":
             out[k] = float(gain(conductance_population(circuit, k, rates), float(mu[k])))
             continue
@@ -151,6 +158,7 @@ class _RateMap:
         self.ext_var_f = np.array([float(a.external_variance(0.0)) for a in cohorts])
         self.diffusive = [a.diffusive for a in cohorts]
         self.conductance = [circuit.synapse_kind(k) == "conductance" for k in range(circuit.n)]
+        self.shot = [circuit.synapse_kind(k) == "shot" for k in range(circuit.n)]
         self.terms = []  # (target, source, variance per Hz, sqrt(tau_syn)) of each pathway into a white-noise cohort
         for p in circuit.pathways:
             k, l = circuit.index(p.target), circuit.index(p.source)
@@ -172,6 +180,13 @@ class _RateMap:
         tau = np.where(den > 0.0, (num / np.where(den > 0.0, den, 1.0)) ** 2, 0.0)
         out = np.empty(c.n)
         for k in range(c.n):
+            if self.shot[k]:
+                pop, m = shot_population(c, k, r)
+                key = (pop, m, c.cohorts[k].population.neuron)
+                if key not in self.memo:
+                    self.memo[key] = shot_rate(self.gain, pop, key[2], m)
+                out[k] = self.memo[key]
+                continue
             if self.conductance[k]:
                 pop = conductance_population(c, k, r)
                 key = (pop, float(mu[k]))
@@ -206,8 +221,9 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
         ``gain(population, mu) -> rate (Hz)``; white-noise populations carry
         their total ``sigma``, filtered input makes them coloured-noise
         populations with the effective ``tau_syn``, conductance synapses make them
-        :class:`~popdens.ConductanceNoise` populations driven by the cohort's own ``drive``
-        (:mod:`popdens.network._conductance_input`).  Default: ``popdens.gain`` when
+        :class:`~popdens.ConductanceNoise` populations and shot-noise synapses
+        :class:`~popdens.ShotNoise` populations, driven by the cohort's own ``drive``
+        (:mod:`popdens.network._conductance_input`, :mod:`popdens.network._shot_input`).  Default: ``popdens.gain`` when
         available, else :func:`solver_gain`.
     starts_per_dim : int
         Starting points per cohort (several cohorts).
@@ -226,6 +242,12 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     of the ``starts_per_dim ** n`` starts are missed; raise
     ``starts_per_dim`` when in doubt.
 
+    With shot-noise synapses each stationary rate is a jump-density solve
+    (0.05-0.5 s), so the search starts from the fixed points of the
+    diffusion approximation (the same circuit with current synapses, found
+    as above) and polishes each with Powell's method: a shot-noise fixed
+    point with no diffusion-approximation fixed point in its basin is missed.
+
     Examples
     --------
     >>> import popdens
@@ -237,7 +259,7 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     """
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
-    circuit.require_current("fixed_points", allow=("conductance",))
+    circuit.require_current("fixed_points", allow=("conductance", "shot"))
     lo, hi = (v.non_negative("rate_range[0]", rate_range[0]), v.positive("rate_range[1]", rate_range[1]))
     v.less_than("rate_range[0]", lo, "rate_range[1]", hi)
     gain = _default_gain() if gain is None else gain
@@ -260,7 +282,13 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
                 return
         found.append(r)
 
-    if n == 1:
+    if any(rate_map.shot):
+        for fp in fixed_points(diffusion_circuit(circuit), (lo, hi), gain=gain, starts_per_dim=starts_per_dim,
+                               scan_points=scan_points):
+            sol = root(resid, fp.rates, method="hybr", options={"xtol": 1e-12})
+            if sol.success or np.max(np.abs(sol.fun)) < RESIDUAL_TOL:
+                add(sol.x)
+    elif n == 1:
         grid = np.linspace(lo, hi, v.positive_int("scan_points", scan_points))
         vals = np.array([resid(np.array([x]))[0] for x in grid])
         for i in range(grid.size - 1):

@@ -158,7 +158,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
 
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
-    circuit.require_current("montecarlo_network", allow=("conductance",))
+    circuit.require_current("montecarlo_network", allow=("conductance", "shot"))
     builder = conductance_kernel(circuit)  # None unless the cohorts receive conductance synapses
     dt = DEFAULT_DT if dt is None else dt
     grid = make_grid(t_end, dt, record_interval, None)
@@ -206,7 +206,10 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     # external noise: pseudo-pathways whose ring buffers the front end fills (see _Feeds)
     bg_lam = np.array([a.background.count * a.background.rate * dt * 1e-3
                        if a.background and a.background.tau_syn == 0.0 else 0.0 for a in asm])
-    bg_drive = np.array([a.tau_m * a.background.weight / dt if a.background else 0.0 for a in asm])
+    # shot-noise synapses deliver their jumps (mV) at once (popdens.twins._network)
+    shot = np.array([circuit.synapse_kind(k) == "shot" for k in range(npop)])
+    bg_drive = np.array([(a.background.weight if shot[k] else a.tau_m * a.background.weight / dt)
+                         if a.background else 0.0 for k, a in enumerate(asm)])
     feeds = _Feeds(circuit, dt)
     # adaptation: per-cohort components, flattened; every neuron carries its own state
     ad = [step_args(n_, dt) for n_ in nrns]
@@ -227,6 +230,7 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     q_head = np.zeros(nq, dtype=np.int64)
     q_decay = np.array([math.exp(-dt / p.tau_syn) if p.tau_syn > 0 else 0.0 for p in pws] + feeds.decay)
     q_drive = np.array([
+        p.weight if shot[q_tgt[q]] else
         asm[q_tgt[q]].tau_m * p.weight * ((-math.expm1(-dt / p.tau_syn)) if p.tau_syn > 0 else 1.0) / dt
         for q, p in enumerate(pws)] + feeds.drive)
     buf_len = [(q_m[q] + 1) * sizes[q_tgt[q]] for q in range(nq)]
@@ -288,6 +292,8 @@ def montecarlo_network(circuit: Circuit, t_end: float, dt: float | None = None, 
     fixed = (start, noise, ncode, tau_m, reset, boundary, has_cutoff, tau_ref, hcode, theta, uses_slope,
              npar_flat, npar_ptr, nops_flat, nargs_flat, nprog_ptr, hpar_flat, hpar_ptr, hops_flat, hargs_flat,
              hprog_ptr, bg_lam, bg_drive, ad_ptr, ad_kinds, ad_decay, ad_coup, ad_kick, ad_rest, st)
+    if builder is None:  # the current kernel also takes the cohorts' shot-noise flags
+        fixed = fixed + (shot,)
     net = (q_src, q_tgt, q_m, q_head, q_buf_off, q_x_off, q_drive, q_decay, q_ptr_off, q_idx_off,
            in_ptr, in_list, out_ptr, out_list, buf, xs, ptr_flat, idx_flat, u, ref, age, lam, thr, hz)
     no_spk = (np.zeros(1), np.zeros(1, dtype=np.int64))

@@ -20,9 +20,10 @@ populations instead of a single population::
     in_degree = 200                  # C
     delay = 1.5                      # ms
     tau_syn = 0.0                    # ms; 0: instantaneous, > 0: exponential kernel
-    # synapse = "conductance"        # "current" (default) or "conductance": then `weight` is a
-    # reversal = 70.0                # conductance jump (leak units) towards `reversal` (mV), and
-                                     # the target cohort needs sigma_ext = 0
+    synapse = "current"              # "current" (default; diffusion approximation), "shot" (finite
+                                     # PSPs: jumps of `weight`, tau_syn 0, the target's sigma_ext 0)
+    # reversal = 70.0                # or "conductance": `weight` is a conductance jump (leak units)
+                                     # towards `reversal` (mV); the target cohort needs sigma_ext = 0
 
     [network]
     t_end = 200.0                    # ms (0: no time-domain run)
@@ -224,10 +225,14 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
         raise err(src, "network", "stability", True, "false when `fixed_points` is false (stability is "
                    "analysed at the fixed points)")
     montecarlo = _flag(src, "network", "montecarlo", net.get("montecarlo", False))
-    conductance = [nm for k, nm in enumerate(circuit.names) if circuit.synapse_kind(k) == "conductance"]
-    if t_end > 0 and conductance and not (montecarlo and want_fp):
+    unsupported = []
+    for kind, label in (("conductance", "conductance"), ("shot", "shot-noise")):
+        names = [nm for k, nm in enumerate(circuit.names) if circuit.synapse_kind(k) == kind]
+        if names:
+            unsupported.append(f"{label} synapses ({', '.join(names)})")
+    if t_end > 0 and unsupported and not (montecarlo and want_fp):
         raise err(src, "network", "t_end", t_end, f"0, or `montecarlo` and `fixed_points` true: the mean-field "
-                  f"time integration of cohorts with conductance synapses ({', '.join(conductance)}) is not "
+                  f"time integration of cohorts with {' or '.join(unsupported)} is not "
                   "available yet, so a time-domain run is the spiking twin against the stable fixed point")
     if montecarlo and t_end == 0:
         raise err(src, "network", "montecarlo", True, "false, or a `t_end` > 0 for the spiking twin to run")

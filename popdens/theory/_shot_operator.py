@@ -45,7 +45,7 @@ import numpy as np
 from scipy import linalg, sparse
 from scipy.sparse import linalg as sparse_linalg
 
-__all__ = ["ShotGrid", "shot_grid", "jump_fractions", "generator", "stationary_masses", "jump_density_rates"]
+__all__ = ["ShotGrid", "shot_grid", "jump_fractions", "generator", "dense_jumps", "stationary_masses", "jump_density_rates"]
 
 #: Default target cell width (mV) of the coarsest grid before alignment with fixed PSP amplitudes
 #: (exponential amplitudes: dense jump matrices, so a coarser start); with the Richardson steps over
@@ -111,9 +111,11 @@ def _amplitudes(noise):
     return [a for a in (noise.exc_psp, noise.inh_psp if noise.inhibited else None) if a]
 
 
-def shot_grid(neuron, noise, mus, n_cells: int | None = None) -> ShotGrid:
+def shot_grid(neuron, noise, mus, n_cells: int | None = None, cell: float | None = None) -> ShotGrid:
     """The coarse grid for drives ``mus`` (mV): lower edge from the diffusion estimate of the spread,
-    width aligned with the fixed amplitudes (their common divisor when they are commensurate)."""
+    width aligned with the fixed amplitudes (their common divisor when they are commensurate), at most
+    ``cell`` mV (default :data:`TARGET_CELL_MV`, :data:`TARGET_CELL_EXPONENTIAL_MV` for exponential
+    amplitudes)."""
     tau = float(neuron.tau_m)
     mus = np.atleast_1d(np.asarray(mus, dtype=float))
     rest = float(neuron.rest)
@@ -125,7 +127,8 @@ def shot_grid(neuron, noise, mus, n_cells: int | None = None) -> ShotGrid:
     span = upper - lower
     if n_cells is not None:
         return ShotGrid(lower, upper, int(n_cells))
-    h = TARGET_CELL_EXPONENTIAL_MV if noise.exponential else TARGET_CELL_MV
+    target = cell if cell is not None else TARGET_CELL_EXPONENTIAL_MV if noise.exponential else TARGET_CELL_MV
+    h = target
     if not noise.exponential:
         amps = _amplitudes(noise)
         base = amps[0]
@@ -134,7 +137,7 @@ def shot_grid(neuron, noise, mus, n_cells: int | None = None) -> ShotGrid:
             q = [round(a * 1000.0) for a in amps]
             if all(abs(a * 1000.0 - qi) < 1e-6 for a, qi in zip(amps, q)):
                 base = math.gcd(*q) / 1000.0
-        h = base / max(1, math.ceil(base / TARGET_CELL_MV - 1e-9))
+        h = base / max(1, math.ceil(base / target - 1e-9))
     n = int(math.ceil(span / h - 1e-9))
     n = min(MAX_CELLS, max(MIN_CELLS, n))
     # lower edge moved down so that the width is exactly h (alignment kept)
@@ -232,6 +235,16 @@ def generator(neuron, noise, mu: float, grid: ShotGrid):
     return L, out
 
 
+def dense_jumps(noise, h: float) -> bool:
+    """True when the jump matrix on cells of width ``h`` is better solved dense: exponential amplitudes
+    (every cell feeds every cell above it) wider than :data:`DENSE_BAND` cells.  Fixed amplitudes move
+    each cell's content to two cells only, so their matrix stays sparse at any width (a dense solve of
+    20 000 cells needed 3 GB)."""
+    if not noise.exponential:
+        return False
+    return max(jump_fractions(noise.amplitudes, a, h)[1] for a in _amplitudes(noise)) > DENSE_BAND
+
+
 def stationary_masses(neuron, noise, mu: float, grid: ShotGrid) -> tuple[np.ndarray, float]:
     """Stationary cell masses of the non-refractory neurons and the rate (Hz), normalised with the
     refractory mass ``rate * refractory``.
@@ -245,8 +258,7 @@ def stationary_masses(neuron, noise, mu: float, grid: ShotGrid) -> tuple[np.ndar
     b = np.zeros(n)
     b[k] += 1.0 - w
     b[min(k + 1, n - 1)] += w
-    band = max(jump_fractions(noise.amplitudes, a, grid.h)[1] for a in _amplitudes(noise))
-    if band > DENSE_BAND:
+    if dense_jumps(noise, grid.h):
         m = linalg.solve(L.toarray(), -b)
     else:
         m = sparse_linalg.splu(L.tocsc()).solve(-b)

@@ -331,5 +331,5 @@ def test_synapse_kinds_are_validated_and_unsupported_analyses_say_so():
         Pathway("E", "E", -0.1, 10, tau_syn=2.0, synapse="conductance", reversal=-10.0)
     with pytest.raises(ValueError, match="one `synapse` kind"):
         Circuit([Cohort("E", pop, size=50)], [Pathway("E", "E", 0.1, 10), Pathway("E", "E", 0.2, 10, synapse="shot")])
-    c = Circuit([Cohort("E", pop, size=50)], [Pathway("E", "E", 0.1, 10, synapse="shot")])
+    c = Circuit([Cohort("E", pop, size=50, sigma_ext=0.0)], [Pathway("E", "E", 0.1, 10, synapse="shot")])
     assert c.synapse_kind(0) == "shot"

@@ -144,7 +144,7 @@ def isi_cv_and_se(mc, groups=20):
 def test_eif_isi_cv_against_twin(ratio):
     """ISI CV of the EIF of the table on the plane (passage-time moments from the stationary entry
     distribution of the current) against the twin (3000 neurons, 3 s after burn-in; SE from 20 batches
-    of neurons).  Measured +1.1 / +1.2 / +1.2 % (3-4 SE, unexplained; the twin's CV is converged in dt:
+    of neurons).  Measured +1.1 / +1.2 / +1.3 % (3-4 SE, unexplained; the twin's CV is converged in dt:
     0.7265 at dt 0.05 ms against 0.7261 at the default 0.5 ms for 0.5), where the effective renewal
     problem's CV (white noise for a spike cut-off) is +0.3 / -3.5 / -7.8 %; bound 1.5 % + 2 SE."""
     nrn, mu, sigma = EIF_TABLE
