@@ -35,7 +35,8 @@ from scipy.sparse import linalg as sparse_linalg
 
 from .. import _validation as v
 from ..model.shot import ShotNoise
-from ..theory._shot_operator import DENSE_BAND, ShotGrid, generator, jump_fractions, shot_grid, stationary_masses
+from ..theory._shot_operator import (DENSE_BAND, ShotGrid, generator, jump_fractions, lu_ordering, shot_grid,
+                                     stationary_masses)
 from ._base import SolverBase
 
 __all__ = ["JumpDensitySolver"]
@@ -77,7 +78,7 @@ class _Level:
             lu = linalg.lu_factor(a.toarray())
             hit = (lambda rhs, lu=lu: linalg.lu_solve(lu, rhs), out)
         else:
-            hit = (sparse_linalg.splu(a.tocsc()).solve, out)
+            hit = (sparse_linalg.splu(a.tocsc(), permc_spec=lu_ordering(self.noise)).solve, out)
         self._lu[key] = hit
         if len(self._lu) > CACHE_SIZE:
             self._lu.popitem(last=False)

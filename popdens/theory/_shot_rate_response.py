@@ -44,7 +44,7 @@ from scipy import linalg, sparse
 from scipy.sparse import linalg as sparse_linalg
 
 from ..model.shot import ShotNoise
-from ._shot_operator import ShotGrid, dense_jumps, generator, shot_grid, stationary_masses
+from ._shot_operator import ShotGrid, dense_jumps, generator, lu_ordering, shot_grid, stationary_masses
 
 __all__ = ["RateResponse", "RESPONSE_CELL_MV"]
 
@@ -84,13 +84,17 @@ class _Level:
         self.out = out
         self.tau_ref = float(neuron.refractory)
         self.dense = dense_jumps(noise, grid.h)
+        self.ordering = lu_ordering(noise)
         self.L = L.toarray() if self.dense else L.tocsc()
         self.eye = np.eye(n) if self.dense else sparse.identity(n, format="csc")
 
     def at(self, s: complex) -> np.ndarray:
         """``(chi_e, chi_i)`` (per ms per Hz) at one nonzero ``s`` (1/ms)."""
         a = s * self.eye - self.L
-        x = linalg.solve(a, self.rhs) if self.dense else sparse_linalg.splu(a.astype(complex)).solve(self.rhs)
+        if self.dense:
+            x = linalg.solve(a, self.rhs)
+        else:
+            x = sparse_linalg.splu(a.astype(complex), permc_spec=self.ordering).solve(self.rhs)
         num = self.direct + self.out @ x[:, :2]
         den = 1.0 - np.exp(-s * self.tau_ref) * (self.out @ x[:, 2])
         return num / den

@@ -43,7 +43,8 @@ from scipy import linalg, sparse
 from scipy.sparse import linalg as sparse_linalg
 
 from ..progress import Progress
-from ._shot_operator import DENSE_BAND, generator, jump_fractions, richardson, shot_grid, stationary_masses
+from ._shot_operator import (DENSE_BAND, generator, jump_fractions, lu_ordering, richardson, shot_grid,
+                             stationary_masses)
 
 __all__ = ["shot_transfer"]
 
@@ -87,7 +88,7 @@ def _level(neuron, noise, mu: float, grid, lam: np.ndarray, bar=None, offset: in
             chi[i] = (r_up - r_down) / (2.0 * MU_STEP) * 1e-3
             continue
         a = s * eye - Ld
-        x = linalg.solve(a, rhs) if dense else sparse_linalg.splu(a.astype(complex)).solve(rhs)
+        x = linalg.solve(a, rhs) if dense else sparse_linalg.splu(a.astype(complex), permc_spec=lu_ordering(noise)).solve(rhs)
         num = direct + out @ x[:, 0]
         den = 1.0 - np.exp(-s * tau_ref) * (out @ x[:, 1])
         chi[i] = num / den

@@ -25,7 +25,7 @@ from scipy.sparse import linalg as sparse_linalg
 from ..model.neurons import CODE_LIF
 from ..model.noise import Population, WhiteNoise
 from ._shot_exact import exact_rate_applies, exact_shot_rate
-from ._shot_operator import (DENSE_BAND, generator, jump_density_rates, jump_fractions, richardson, shot_grid,
+from ._shot_operator import (dense_jumps, generator, jump_density_rates, lu_ordering, richardson, shot_grid,
                              stationary_masses)
 
 __all__ = ["SHOT_METHODS", "shot_rates", "diffusion_equivalent", "shot_passage_moments", "shot_passage_density",
@@ -83,10 +83,6 @@ def shot_rates(population, mus: np.ndarray, method: str, white_gain) -> np.ndarr
     return out.reshape(np.shape(mus))
 
 
-#: Column ordering of the sparse LU of the banded generators: minimum degree on the symmetric
-#: structure keeps the band (measured on 3848 cells: 0.013 s and 9.4e4 factor entries, against 0.35 s
-#: and 2.4e5 for the default column ordering).
-BANDED_ORDERING = "MMD_AT_PLUS_A"
 #: Grids (h, h/2, ..., each halving the cell width) for the ISI moments, extrapolated as the rates are.
 MOMENT_LEVELS = 3
 #: Time steps of the ISI density (uniform, then interpolated by cubic splines): backward Euler with
@@ -105,12 +101,11 @@ def _first_passage(neuron, noise, mu: float, grid):
     b = np.zeros(n)
     b[k] += 1.0 - w
     b[min(k + 1, n - 1)] += w
-    band = max(jump_fractions(noise.amplitudes, a, grid.h)[1] for a in (noise.exc_psp, noise.inh_psp) if a)
-    if band > DENSE_BAND:
+    if dense_jumps(noise, grid.h):
         lu = linalg.lu_factor(L.toarray())
         solve = lambda rhs: linalg.lu_solve(lu, rhs)  # noqa: E731 - local one-liner
     else:
-        solve = sparse_linalg.splu(L.tocsc(), permc_spec=BANDED_ORDERING).solve
+        solve = sparse_linalg.splu(L.tocsc(), permc_spec=lu_ordering(noise)).solve
     return L, out, b, solve
 
 
@@ -136,7 +131,7 @@ def shot_passage_moments(population, mu: float) -> tuple[float, float]:
     return richardson(t1), richardson(t2)
 
 
-def _implicit_passage(L, out, b, t_max: float, n: int) -> tuple[np.ndarray, np.ndarray]:
+def _implicit_passage(L, out, b, t_max: float, n: int, ordering: str) -> tuple[np.ndarray, np.ndarray]:
     """Output flux and survivor at ``n + 1`` uniform times on ``[0, t_max]``: backward Euler (an
     M-matrix solve per step, so positive and L-stable: the stiff drift modes of the upwind operator are
     damped, not stepped through) with steps ``t_max/n``, ``/2``, ``/4``, Richardson-extrapolated to
@@ -145,7 +140,7 @@ def _implicit_passage(L, out, b, t_max: float, n: int) -> tuple[np.ndarray, np.n
     for sub in (1, 2, 4):
         dt = t_max / (n * sub)
         solve = sparse_linalg.splu((sparse.identity(L.shape[0], format="csc") - dt * L).tocsc(),
-                                   permc_spec=BANDED_ORDERING).solve
+                                   permc_spec=ordering).solve
         p = b.copy()
         flux, surv = [float(out @ p)], [float(p.sum())]
         for i in range(n * sub):
@@ -188,7 +183,7 @@ def shot_passage_density(population, mu: float, t) -> tuple[np.ndarray, np.ndarr
             dens.append(p @ out)
             surv.append(p.sum(axis=1))
         else:
-            f, sv = _implicit_passage(L, out, b, t_max, ISI_STEPS)
+            f, sv = _implicit_passage(L, out, b, t_max, ISI_STEPS, lu_ordering(noise))
             dens.append(f)
             surv.append(sv)
         grid = grid.halved()
@@ -232,7 +227,7 @@ def shot_passage_transform(population, mu: float, s) -> np.ndarray:
             eye = sparse.identity(grid.n, dtype=complex, format="csc")
             lc = L.astype(complex).tocsc()
             for i, si in enumerate(s):
-                lu = sparse_linalg.splu((si * eye - lc).tocsc(), permc_spec=BANDED_ORDERING)
+                lu = sparse_linalg.splu((si * eye - lc).tocsc(), permc_spec=lu_ordering(noise))
                 vals[i] = out @ lu.solve(b.astype(complex))
         values.append(vals)
         grid = grid.halved()
