@@ -20,7 +20,8 @@ integrals of the renewal equation (escape noise) and threshold integration
 of the first-passage problem (white noise; Richardson 2008, Biol. Cybern.
 99:381).  Shot noise is exactly renewal (input during refractoriness is
 lost, arrivals are memoryless): ``P_hat`` is the passage-time transform of
-the jump-density operator (:func:`popdens.theory._stationary_shot.shot_passage_transform`).  For white noise the ISI moments needed at ``f = 0`` are the
+the jump-density operator (:func:`popdens.theory._stationary_shot.shot_passage_transform`).  Conductance input uses the ISI transform of its effective equation
+(:class:`popdens.theory._conductance.ConductanceSweep`; a renewal approximation).  For white noise the ISI moments needed at ``f = 0`` are the
 Taylor coefficients of ``P_hat(s)``, taken by the trapezoidal rule on a
 circle in the complex ``s`` plane (Cauchy's formula; exponentially
 convergent).
@@ -38,7 +39,9 @@ from ..model.adaptation import refuse
 from .linear_response import FREQ_BLOCK, _AgeGrid, _check_population, _sigma_of
 from ..model.effective import white_equivalent
 from ..model.noise import EscapeNoise, Population
+from ..model.conductance import ConductanceNoise
 from ..model.shot import ShotNoise
+from ._conductance import ConductanceSweep
 from ._stationary_shot import shot_passage_moments, shot_passage_transform
 
 __all__ = ["isi_transform", "spike_train_spectrum", "population_rate_spectrum"]
@@ -67,7 +70,8 @@ class _Renewal:
 
     def __init__(self, population, mu):
         shot = isinstance(population, Population) and isinstance(population.noise, ShotNoise)
-        self.population = population if shot else _check_population(population)
+        conductance = isinstance(population, Population) and isinstance(population.noise, ConductanceNoise)
+        self.population = population if shot or conductance else _check_population(population)
         refuse(population, "the renewal spectra (ISI transform, spike-train and population-rate spectra)")
         self.mu = v.as_finite_float("mu", mu)
         if shot:
@@ -86,12 +90,18 @@ class _Renewal:
             self.rate = 1000.0 / m1
             self.cv2 = m2 / m1 ** 2 - 1.0
         else:
-            # coloured noise: the effective white-noise problem (a renewal approximation: the
-            # synaptic current carries memory across spikes, ignored here)
-            white = white_equivalent(population)
-            sigma = _sigma_of(white)
-            self.sweeps = (Sweep(white.neuron, self.mu, sigma, NODES_PER_SIGMA),
-                           Sweep(white.neuron, self.mu, sigma, 2 * NODES_PER_SIGMA))
+            if conductance:
+                # the effective equation of conductance input (a renewal approximation: the conductances
+                # carry memory across spikes, ignored here; popdens.theory._conductance)
+                self.sweeps = (ConductanceSweep(population, self.mu),
+                               ConductanceSweep(population, self.mu, 2 * NODES_PER_SIGMA))
+            else:
+                # coloured noise: the effective white-noise problem (a renewal approximation: the
+                # synaptic current carries memory across spikes, ignored here)
+                white = white_equivalent(population)
+                sigma = _sigma_of(white)
+                self.sweeps = (Sweep(white.neuron, self.mu, sigma, NODES_PER_SIGMA),
+                               Sweep(white.neuron, self.mu, sigma, 2 * NODES_PER_SIGMA))
             self.rate = (4.0 * self.sweeps[1].rate - self.sweeps[0].rate) / 3.0
             rho = CAUCHY_RADIUS * self.rate * 1e-3  # 1/ms
             theta = 2.0 * math.pi * np.arange(CAUCHY_POINTS) / CAUCHY_POINTS

@@ -129,7 +129,7 @@ def test_conductance_inputs_are_validated():
     with pytest.raises(NotImplementedError, match="simulate_network"):
         simulate_network(c, 1.0)
     (fp,) = fixed_points(c, (0.0, 100.0))
-    with pytest.raises(NotImplementedError, match="spectra of conductance"):
+    with pytest.raises(NotImplementedError, match="not offered for conductance synapses"):
         spectral_matrix(c, fp, [10.0])
 
 

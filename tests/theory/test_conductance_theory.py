@@ -172,3 +172,15 @@ def test_stationary_state_is_consistent():
     assert 0.0 < st.cv < 1.0 and st.sigma is None and st.method == "filtered"
     with pytest.raises(ValueError, match="`method` must be 'auto' or 'filtered'"):
         popdens.stationary(POP, 10.0, method="diffusion")
+
+
+def test_spike_train_spectrum_has_the_renewal_limits():
+    """Renewal spectrum of the effective equation (Cox 1962): S(0) = r CV^2 with the CV of
+    popdens.stationary (ISI moments from the transform near s = 0, another route than the spectrum's
+    Cauchy contour), S -> r at high frequency, and the rate of popdens.gain."""
+    st = popdens.stationary(POP, 10.0)
+    spec, (rate, cv2) = popdens.spike_train_spectrum(POP, 10.0, [0.0, 1e-3, 2e4], with_moments=True)
+    assert rate == pytest.approx(float(popdens.gain(POP, 10.0)), rel=1e-6)  # the same extrapolated sweeps
+    assert cv2 == pytest.approx(st.cv ** 2, rel=1e-4)  # renewal moments, two routes
+    assert spec[0] == pytest.approx(rate * cv2, rel=1e-12) and spec[1] == pytest.approx(spec[0], rel=1e-4)
+    assert spec[2] == pytest.approx(rate, rel=1e-3)  # S -> r0 at high frequency (Poisson-like)
