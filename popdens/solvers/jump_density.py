@@ -55,10 +55,7 @@ class _Level:
     def __init__(self, neuron, noise, grid: ShotGrid, dt: float, n_delay: int, frac: float):
         self.neuron, self.noise, self.grid, self.dt = neuron, noise, grid, dt
         self.m = np.zeros(grid.n)
-        k, w = grid.reset_weights(float(neuron.reset))
-        self.b = np.zeros(grid.n)
-        self.b[k] += 1.0 - w
-        self.b[min(k + 1, grid.n - 1)] += w
+        self.b = grid.reset_vector(float(neuron.reset))
         self.n_delay, self.frac = n_delay, frac
         self.buf = np.zeros(n_delay + 2)
         self.head = 0

@@ -95,6 +95,14 @@ class ShotGrid:
     def edges(self) -> np.ndarray:
         return self.lower + np.arange(self.n + 1) * self.h
 
+    def reset_vector(self, reset: float) -> np.ndarray:
+        """Unit reinjection at ``reset`` on the cells (:meth:`reset_weights`): the reset vector ``b``."""
+        k, w = self.reset_weights(reset)
+        b = np.zeros(self.n)
+        b[k] += 1.0 - w
+        b[min(k + 1, self.n - 1)] += w
+        return b
+
     def halved(self) -> "ShotGrid":
         return ShotGrid(self.lower, self.upper, 2 * self.n)
 
@@ -264,11 +272,7 @@ def stationary_masses(neuron, noise, mu: float, grid: ShotGrid) -> tuple[np.ndar
     nonsingular: every neuron eventually leaves); the output ``out . m`` is then 1 by conservation.
     """
     L, out = generator(neuron, noise, mu, grid)
-    n = grid.n
-    k, w = grid.reset_weights(float(neuron.reset))
-    b = np.zeros(n)
-    b[k] += 1.0 - w
-    b[min(k + 1, n - 1)] += w
+    b = grid.reset_vector(float(neuron.reset))
     if dense_jumps(noise, grid.h):
         m = linalg.solve(L.toarray(), -b)
     else:

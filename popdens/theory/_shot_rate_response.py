@@ -62,10 +62,7 @@ class _Level:
         L, out = generator(neuron, noise, mu, grid)
         self.m0, self.rate = stationary_masses(neuron, noise, mu, grid)
         n = grid.n
-        k, w = grid.reset_weights(float(neuron.reset))
-        b = np.zeros(n)
-        b[k] += 1.0 - w
-        b[min(k + 1, n - 1)] += w
+        b = grid.reset_vector(float(neuron.reset))
         quiet = ShotNoise(0.0, noise.exc_psp, 0.0, noise.inh_psp, noise.amplitudes)
         l0, o0 = generator(neuron, quiet, mu, grid)
         cols, direct = [], []

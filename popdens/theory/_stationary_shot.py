@@ -96,11 +96,7 @@ ISI_PROPAGATOR_POINTS_DENSE = 401
 def _first_passage(neuron, noise, mu: float, grid):
     """Generator without reinjection, its factorisation, the output per cell and the reset vector."""
     L, out = generator(neuron, noise, mu, grid)
-    n = grid.n
-    k, w = grid.reset_weights(float(neuron.reset))
-    b = np.zeros(n)
-    b[k] += 1.0 - w
-    b[min(k + 1, n - 1)] += w
+    b = grid.reset_vector(float(neuron.reset))
     if dense_jumps(noise, grid.h):
         lu = linalg.lu_factor(L.toarray())
         solve = lambda rhs: linalg.lu_solve(lu, rhs)  # noqa: E731 - local one-liner
