@@ -18,8 +18,10 @@ path                                meaning                                     
 ``cohort.*.drive``                  the drive of every cohort, set to the same value      mV
 ``pathway.I->*.weight``             every pathway from ``I``                              mV
 ``drive``                           shorthand for ``cohort.*.drive``                      mV
-``inhibition``                      factor on every negative (inhibitory) weight of the   --
-                                    circuit given (1: unchanged)
+``inhibition``                      factor on every inhibitory weight of the circuit      --
+                                    given (1: unchanged): negative weights, and the
+                                    conductance jumps of synapses reversing below their
+                                    target's threshold
 ==================================  ====================================================  =====
 
 ``drive`` and ``inhibition`` are the axes of the scenario stability map.  Counts
@@ -43,6 +45,14 @@ _COUNTS = {"size", "in_degree", "count"}
 _UNITS = {"drive": "mV", "sigma_ext": "mV", "rate": "Hz", "weight": "mV", "delay": "ms", "tau_syn": "ms",
           "tau_m": "ms", "refractory": "ms", "threshold": "mV", "reset": "mV", "rest": "mV",
           "soft_threshold": "mV", "slope_factor": "mV", "cutoff": "mV", "critical": "mV", "width": "mV"}
+
+
+def _inhibitory(circuit: Circuit, p) -> bool:
+    """True for a negative weight, or a conductance synapse whose reversal potential lies below the
+    target neuron's threshold (its boundary for models with a spike cut-off)."""
+    if p.synapse == "conductance":
+        return p.reversal < float(circuit.cohorts[circuit.index(p.target)].population.neuron.boundary)
+    return p.weight < 0
 
 
 def _bad(path, why):
@@ -170,9 +180,12 @@ class CircuitParameter:
         parts = self._parts()
         cohorts, pathways = list(circuit.cohorts), list(circuit.pathways)
         if parts[0] == "inhibition":
-            pathways = [dataclasses.replace(p, weight=p.weight * x) if p.weight < 0 else p for p in pathways]
-            if not any(p.weight < 0 for p in circuit.pathways):
-                raise _bad(self.path, "the circuit has no inhibitory (negative-weight) pathway to scale")
+            inhibitory = [_inhibitory(circuit, p) for p in circuit.pathways]
+            pathways = [dataclasses.replace(p, weight=p.weight * x) if inh else p
+                        for p, inh in zip(pathways, inhibitory)]
+            if not any(inhibitory):
+                raise _bad(self.path, "the circuit has no inhibitory pathway to scale (a negative weight, or a "
+                                      "conductance synapse reversing below its target's threshold)")
             return Circuit(cohorts, pathways)
         if parts[0] == "drive":
             parts = ("cohort", "*", ("drive",))

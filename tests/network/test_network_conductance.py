@@ -185,3 +185,16 @@ def test_stability_verdict_agrees_with_the_twin(delay):
     else:
         assert not st.stable and 50.0 < st.frequency < 100.0
         assert x.mean() > 1.5 * fp.rates[0] and x.std() > x.mean()  # twin oscillates (common practice)
+
+
+def test_inhibition_factor_scales_conductances_that_reverse_below_threshold():
+    # the stability map's `inhibition` axis: inhibitory conductance synapses are those reversing below
+    # the target's threshold (E_INH; here the only weights to scale, all conductance jumps being > 0)
+    from popdens.network.parameters import CircuitParameter
+
+    c = ei_circuit()
+    scaled = CircuitParameter("inhibition").apply(c, 2.0)
+    for before, after in zip(c.pathways, scaled.pathways):
+        factor = 2.0 if before.reversal < LIF.threshold else 1.0
+        assert after.weight == pytest.approx(factor * before.weight, rel=1e-15)
+    assert sum(p.reversal < LIF.threshold for p in c.pathways) == 2
