@@ -31,6 +31,6 @@ def test_diffusion_moments_follow_campbells_theorem(law, m2):
     n = popdens.ShotNoise(2000.0, 0.3, 500.0, 0.8, law)
     tau = 15.0
     # Campbell's theorem (Campbell 1909; Tuckwell 1988, vol. 2), rates 2 and 0.5 per ms
-    assert n.mean_input(tau) == pytest.approx(tau * (2.0 * 0.3 - 0.5 * 0.8), rel=1e-14)  # Campbell: mean
-    assert n.diffusion_sigma(tau) == pytest.approx(  # Campbell: variance, sigma^2 = tau_m nu <a^2>
-        math.sqrt(tau * m2 * (2.0 * 0.09 + 0.5 * 0.64)), rel=1e-14)
+    assert n.mean_input(tau) == pytest.approx(tau * (2.0 * 0.3 - 0.5 * 0.8), rel=1e-14)  # Campbell (1909): mean
+    sigma = math.sqrt(tau * m2 * (2.0 * 0.09 + 0.5 * 0.64))  # Campbell (1909): sigma^2 = tau_m nu <a^2>
+    assert n.diffusion_sigma(tau) == pytest.approx(sigma, rel=1e-14)  # Campbell's theorem (Campbell 1909)
