@@ -50,13 +50,14 @@ def combine(ext_mu, ext_var, ext_fw, col, s, tgt, cmean, cvar, root_tau, filtere
 @numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
 def block_inputs(j, nb, dt, rate, src, tgt, delay, tau, decay, r0, s, a_prev, cmean, cvar, root_tau,
                  ext_mu, ext_var, ext_fw, filtered, root_tau_m, half_alpha, slope, tau_m, shift0,
-                 mus, sgs, shifts, mus_eff, mu, sg, shift):  # pragma: no cover - compiled
+                 mus, sgs, shifts, mus_eff, s_rec, mu, sg, shift):  # pragma: no cover - compiled
     """Inputs at the boundaries ``j + 1 .. j + nb`` from the rates (Hz) of the ``j`` completed steps.
 
     Updates the filter states ``s`` and the last delayed rates ``a_prev`` (1/ms) in place and writes
-    columns ``j + 1 .. j + nb`` of ``mus``, ``sgs``, ``shifts`` (mV) and ``mus_eff`` (mV, the drive
-    with the moving-boundary term ``slope (shift - shift0) - tau_m d shift/dt``); ``mu``, ``sg``,
-    ``shift`` are scratch of one value per cohort.
+    columns ``j + 1 .. j + nb`` of ``mus``, ``sgs``, ``shifts`` (mV), ``mus_eff`` (mV, the drive
+    with the moving-boundary term ``slope (shift - shift0) - tau_m d shift/dt``) and ``s_rec``
+    (1/ms, every pathway's filtered delayed rate, for inputs that are not current synapses);
+    ``mu``, ``sg``, ``shift`` are scratch of one value per cohort.
     """
     nk = mu.shape[0]
     last = j - 1
@@ -81,6 +82,7 @@ def block_inputs(j, nb, dt, rate, src, tgt, delay, tau, decay, r0, s, a_prev, cm
                 sl = (a1 - a0) / dt
                 s[q] = a1 - tau[q] * sl + (s[q] - a0 + tau[q] * sl) * decay[q]
             a_prev[q] = a1
+            s_rec[q, j + b + 1] = s[q]
         i1 = j + b + 1
         combine(ext_mu, ext_var, ext_fw, i1, s, tgt, cmean, cvar, root_tau, filtered, root_tau_m, half_alpha,
                 mu, sg, shift)

@@ -302,6 +302,8 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     shifts = np.empty((nk, n + 1))
     mus[:, 0], sgs[:, 0], shifts[:, 0] = mu0, sg0, shift0
     mus_eff = mus.copy()  # the drive seen by the solvers: with the moving-boundary term
+    s_rec = np.empty((len(pw), n + 1))  # every pathway's filtered delayed rate (1/ms) at each boundary
+    s_rec[:, 0] = s_filt
     rate_init = np.array([s.instantaneous_rate(float(mu0[k]), float(sg0[k]) if diffusive[k] else None)
                           for k, s in enumerate(solvers)])
     # the delayed rate at t = 0 (before it, every source had its initial rate)
@@ -332,7 +334,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
                 nb = min(nb, later[0] - j)  # a block ends at each external jump
             block_inputs(j, nb, dt, rate, src_a, tgt_a, delay_a, tau_a, decay_a, r0_q, s_filt, a_prev,
                          cmean_a, cvar_a, root_tau, ext_mu, ext_var, ext_fw, filtered, root_tau_m, half_alpha,
-                         slope_at_threshold, tau_ms, shift0, mus, sgs, shifts, mus_eff, *scratch)
+                         slope_at_threshold, tau_ms, shift0, mus, sgs, shifts, mus_eff, s_rec, *scratch)
             mu_blk, sg_blk = mus_eff[:, j:j + nb + 1].copy(), sgs[:, j:j + nb + 1].copy()
             if j + nb in ext_left:
                 mu_l, sg_blk[:, -1], sh_l = inputs_left(j + nb)
