@@ -1,7 +1,5 @@
 """``python -m popdens ...``: the ``popdens`` command run by this interpreter on this copy of the package."""
 
-import sys
+from .cli import run
 
-from .cli import main
-
-sys.exit(main())
+run()

@@ -89,7 +89,10 @@ def test_a_signal_during_first_use_compilation_ends_the_run_promptly(tmp_path, s
     out, err = finish(proc)
     latency = time.monotonic() - t0
     assert proc.returncode == code, err
-    assert "while compiling; no partial output was kept" in err and "Traceback" not in err, err
+    assert "no partial output was kept" in err and "Traceback" not in err, err
+    if "compiled refractory._advance in" not in err:  # the signal came inside that compilation
+        assert "while compiling; no partial output was kept" in err, err
+    # else it compiled within the 0.1 s (seen once in CI): the ordinary interrupted path, checked above
     assert latency < 10.0  # measured: 0.1 s (DEVELOPERS.md, "Responsive long runs")
     assert not (tmp_path / "out").exists() and hidden(tmp_path) == []
 
