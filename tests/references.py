@@ -138,3 +138,32 @@ def milne_layer(ds=0.01, dz=0.05, length=9.0, z_max=6.0):
     mid = (s > 3.0) & (s < length - 3.0)
     a, b = np.polyfit(s[mid], dens[mid], 1)
     return float(dens[0] / flux_wall), float(b / a)
+
+
+def window_isi_cv(spike_ids, spike_times, t_end, n_neurons, groups=20):
+    """ISI CV of a stationary spiking ensemble observed on ``[0, t_end]`` (ms), and its SE.
+
+    Only intervals with both spikes inside the window are seen, and an interval of length ``L`` is
+    complete with probability ``(T - L)/T``: the pooled intervals under-represent long ones (measured
+    -0.55 % in the CV with windows of ~37 mean intervals, -2 % with ~12).  Each interval is weighted by
+    ``1/(T - L)``, which undoes this exactly for any stationary point process: the expected number of
+    complete intervals in ``[L, L + dL]`` is ``rate (T - L) f(L) dL`` (Palm calculus; from memory: the
+    edge correction of interval sampling, Cox & Lewis 1966, "The Statistical Analysis of Series of
+    Events").  SE from batch means over ``groups`` groups of neurons (independent neurons; the
+    intervals of one neuron may be correlated).
+    """
+    import numpy as np  # noqa: PLC0415 - local: the module's other helpers need none
+
+    order = np.lexsort((spike_times, spike_ids))
+    ids, ts = np.asarray(spike_ids)[order], np.asarray(spike_times)[order]
+    same = ids[1:] == ids[:-1]
+    isi, owner = np.diff(ts)[same], ids[1:][same]
+    weight = 1.0 / (float(t_end) - isi)
+
+    def cv(x, w):
+        m1 = np.sum(w * x) / np.sum(w)
+        return math.sqrt(max(np.sum(w * x * x) / np.sum(w) - m1 * m1, 0.0)) / m1
+
+    batch = np.array_split(np.arange(n_neurons), groups)
+    cvs = np.array([cv(isi[np.isin(owner, g)], weight[np.isin(owner, g)]) for g in batch])
+    return cv(isi, weight), float(cvs.std(ddof=1) / math.sqrt(groups))

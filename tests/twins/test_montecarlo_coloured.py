@@ -11,6 +11,7 @@ from scipy.integrate import dblquad, quad
 
 import popdens
 from popdens.twins._coloured import ColouredEnsemble, ou_step_moments
+from references import window_isi_cv
 
 
 def rate_and_se(mc, t_end):
@@ -127,37 +128,26 @@ def test_rate_against_twin_over_tau_ratio(model, ratio):
         assert abs(err["default"]) < abs(err["white"])  # EIF: the plane buys accuracy where white noise is off
 
 
-def isi_cv_and_se(mc, groups=20):
-    """ISI CV of the pooled intervals of every neuron and its SE from batch means over groups of neurons
-    (independent neurons; the intervals of one neuron are correlated through the current)."""
-    order = np.lexsort((mc.spike_times, mc.spike_ids))
-    ids, ts = mc.spike_ids[order], mc.spike_times[order]
-    same = ids[1:] == ids[:-1]
-    isi, owner = np.diff(ts)[same], ids[1:][same]
-    batch = [isi[np.isin(owner, g)] for g in np.array_split(np.arange(mc.n_neurons), groups)]
-    cvs = np.array([x.std() / x.mean() for x in batch])
-    return isi.std() / isi.mean(), cvs.std(ddof=1) / math.sqrt(groups)
-
-
 @pytest.mark.slow
 @pytest.mark.parametrize("ratio", [0.05, 0.25, 0.5])
 def test_eif_isi_cv_against_twin(ratio):
     """ISI CV of the EIF of the table on the plane (passage-time moments from the stationary entry
-    distribution of the current) against the twin (3000 neurons, 3 s after burn-in; SE from 20 batches
-    of neurons).  Measured +1.1 / +1.2 / +1.3 % (3-4 SE, unexplained; the twin's CV is converged in dt:
-    0.7265 at dt 0.05 ms against 0.7261 at the default 0.5 ms for 0.5), where the effective renewal
-    problem's CV (white noise for a spike cut-off) is +0.3 / -3.5 / -7.8 %; bound 1.5 % + 2 SE."""
+    distribution of the current) against the twin (3000 neurons, 3 s after burn-in; intervals weighted
+    for the window, SE from 20 batches of neurons).  Measured +0.62 / +0.59 / +0.58 % (2.0 / 2.1 / 1.7
+    SE), where the effective renewal problem's CV (white noise for a spike cut-off) is -0.2 / -4.0 /
+    -8.4 %.  Unweighted, the pooled intervals gave +1.1 / +1.2 / +1.3 % (3-4 SE): the window's bias
+    against long intervals (``window_isi_cv``)."""
     nrn, mu, sigma = EIF_TABLE
     pop = popdens.Population(nrn, popdens.ColouredNoise(sigma, ratio * nrn.tau_m))
     t_end = 3000.0
     mc = popdens.montecarlo(pop, mu, t_end=t_end, n=3000, seed=11, record_spikes=True, record_interval=t_end,
                             burn_in=300.0)
-    cv, se = isi_cv_and_se(mc)
+    cv, se = window_isi_cv(mc.spike_ids, mc.spike_times, t_end, mc.n_neurons)
     plane = popdens.stationary(pop, mu).cv
     renewal = popdens.stationary(pop, mu, method="threshold-integration").cv
     print(f"EIF tau_s/tau_m={ratio}: twin CV {cv:.4f} +- {se:.4f}; plane {100 * (plane / cv - 1):+.2f} %, "
           f"effective renewal {100 * (renewal / cv - 1):+.2f} %")
-    assert abs(plane - cv) <= 0.015 * cv + 2.0 * se
+    assert abs(plane - cv) <= 4.0 * se  # twin, 4 SE
     if ratio >= 0.25:
         assert abs(plane - cv) < abs(renewal - cv)
 
