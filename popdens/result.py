@@ -109,6 +109,34 @@ class Result(Displayable):
         same = ids[1:] == ids[:-1]
         return np.diff(ts)[same]
 
+    def isi_weights(self) -> np.ndarray:
+        """Weights (summing to 1) of :meth:`isis` that undo the recording window's bias against long intervals.
+
+        Of the intervals of a record of length ``T`` (ms), only those with both spikes inside are seen,
+        and an interval of length ``L`` is complete with probability ``(T - L)/T``: the pooled intervals
+        under-represent long ones (by -2 % in the CV with about 12 mean intervals per record, -0.5 %
+        with 40).  Weighting each by ``1/(T - L)`` undoes this exactly for a stationary process (Palm
+        calculus) for intervals shorter than the record; longer ones are never seen, so make the record
+        long against the longest intervals of interest.  Use them for histograms and moments to compare with
+        the stationary ISI density.
+        """
+        isi = self.isis()
+        span = float(self.t[-1] - self.t[0])
+        if isi.size == 0:
+            return isi
+        w = 1.0 / np.maximum(span - isi, np.finfo(float).tiny)
+        return w / w.sum()
+
+    def isi_cv(self) -> float:
+        """Coefficient of variation of the inter-spike intervals, weighted for the recording window
+        (:meth:`isi_weights`); NaN with fewer than two intervals."""
+        isi = self.isis()
+        if isi.size < 2:
+            return float("nan")
+        w = self.isi_weights()
+        m1 = float(w @ isi)
+        return float(np.sqrt(max(float(w @ (isi * isi)) - m1 * m1, 0.0)) / m1)
+
     def rate_standard_error(self) -> np.ndarray:
         """Poisson standard error of a Monte Carlo rate per output bin (Hz).
 

@@ -146,7 +146,7 @@ def window_isi_cv(spike_ids, spike_times, t_end, n_neurons, groups=20):
     Only intervals with both spikes inside the window are seen, and an interval of length ``L`` is
     complete with probability ``(T - L)/T``: the pooled intervals under-represent long ones (measured
     -0.55 % in the CV with windows of ~37 mean intervals, -2 % with ~12).  Each interval is weighted by
-    ``1/(T - L)``, which undoes this exactly for any stationary point process: the expected number of
+    ``1/(T - L)``, which undoes this exactly, for intervals shorter than ``T``, for any stationary point process: the expected number of
     complete intervals in ``[L, L + dL]`` is ``rate (T - L) f(L) dL`` (Palm calculus; from memory: the
     edge correction of interval sampling, Cox & Lewis 1966, "The Statistical Analysis of Series of
     Events").  SE from batch means over ``groups`` groups of neurons (independent neurons; the

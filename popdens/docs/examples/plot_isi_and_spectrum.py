@@ -30,9 +30,10 @@ for k, (label, pop) in enumerate(models.items()):
     isis = twin.isis()
     rate = twin.spike_times.size / (1000 * 2.0)  # Hz: spikes per neuron per second
     print(f"{label}: theory rate {st.rate:.2f} Hz, CV {st.cv:.3f}; twin rate {rate:.2f} Hz "
-          f"(Poisson SE {np.sqrt(rate / 2000.0):.2f} Hz), CV of {isis.size} intervals {isis.std() / isis.mean():.3f}")
-    # normalised over all intervals (some are longer than the 150 ms shown), 2 ms bins
-    ax_isi.hist(isis, bins=np.arange(0.0, 150.0, 2.0), weights=np.full(isis.size, 1.0 / (2.0 * isis.size)),
+          f"(Poisson SE {np.sqrt(rate / 2000.0):.2f} Hz), CV of {isis.size} intervals {twin.isi_cv():.3f}")
+    # each interval weighted for the 2 s record (long intervals are less often complete), normalised
+    # over all intervals (some are longer than the 150 ms shown), 2 ms bins
+    ax_isi.hist(isis, bins=np.arange(0.0, 150.0, 2.0), weights=twin.isi_weights() / 2.0,
                 color=f"C{k}", alpha=0.3)
     ax_isi.plot(st.isi_t, st.isi_density, color=f"C{k}", label=label)
     ax_spec.plot(freqs, popdens.spike_train_spectrum(pop, mu, freqs), color=f"C{k}", label=label)
