@@ -16,6 +16,20 @@ model's stationary ISI density (1/ms):
   is interpolated at the intervals by a cubic spline, so the
   log-likelihood is a smooth function of the parameters.
 
+Spike trains recorded in trials (:class:`~popdens.fitting.SpikeTrains`)
+are fitted by the exact likelihood of a stationary renewal process seen
+through a window ``[0, T]`` (Cox & Lewis 1966, "The Statistical Analysis of
+Series of Events", ch. 4): per trial with spikes ``t_1 < ... < t_n`` it is
+``S(t_1)/m * prod p(t_{i+1} - t_i) * S(T - t_n)`` (the first spike from
+the forward recurrence time, the last interval censored), and a trial
+without spikes contributes ``1 - (1/m) int_0^T S``; ``S`` is the ISI
+survivor function and ``m`` the mean ISI (ms).  The product of the complete
+intervals' densities alone under-represents long intervals (an interval of
+length ``L`` is complete with probability ``(T - L)/T``): measured with
+trials of about 8 mean intervals, ``mu`` came out 0.27 mV (1.7 SE) high and
+its 95 % intervals covered 63 % (DEVELOPERS.md).  Intervals given as an
+array are fitted by the product of their densities (no window known).
+
 For white noise the start values of ``mu`` and ``sigma`` (when both are
 free and no start is given) match the observed rate and CV
 (:func:`popdens.drive_and_noise_for`).
@@ -96,6 +110,28 @@ class _WhiteGrid:
         half = n_t // 2 + 1
         return CubicSpline(grid[:half], dens[:half])(np.clip(t, 0.0, grid[half - 1]))
 
+    def passage(self, population, mu, sigma, t_density, t_survivor, horizon=None):
+        """Passage-time density at ``t_density``, survivor at ``t_survivor`` (times after the refractory
+        period, ms), mean passage time (ms) and, with ``horizon``, ``int_0^horizon S`` (ms), all from one
+        transform: the survivor by the trapezoid rule on the grid, the mean as the survivor's integral."""
+        from scipy.interpolate import CubicSpline
+
+        g, widths, k_r, d = _cells(population, mu, sigma)
+        laplace_passage(g, widths, k_r, d, self.s, self.out)
+        n_t = 2 * self.n_f
+        dens = np.fft.irfft(self.out, n=n_t) * (n_t / self.period)
+        half = n_t // 2 + 1
+        grid = np.arange(half) * (self.period / n_t)
+        p = CubicSpline(grid, dens[:half])(np.clip(t_density, 0.0, grid[-1]))
+        step = self.period / n_t
+        cum = np.concatenate([[0.0], np.cumsum(0.5 * (dens[1:half] + dens[:half - 1]) * step)])
+        surv_grid = np.clip(1.0 - cum, 0.0, 1.0)
+        surv = np.interp(t_survivor, grid, surv_grid, right=0.0)
+        area = np.concatenate([[0.0], np.cumsum(0.5 * (surv_grid[1:] + surv_grid[:-1]) * step)])
+        mean = float(area[-1])
+        within = None if horizon is None else float(np.interp(horizon, grid, area, right=mean))
+        return p, surv, mean, within
+
 
 def _survivor_white(grid, population, mu, sigma, t):
     """Survivor function of the passage time (trapezoid on the fixed grid), for the rescaling test."""
@@ -108,8 +144,72 @@ def _survivor_white(grid, population, mu, sigma, t):
     return np.clip(1.0 - np.interp(t, np.arange(n_t) * dt, cum), 0.0, 1.0)
 
 
+class _Windows:
+    """What the window likelihood needs of recorded trials: complete intervals, first-spike times,
+    censored end gaps (ms), the number of trials without spikes and the trial duration ``T`` (ms)."""
+
+    def __init__(self, trains: SpikeTrains):
+        self.isis = np.asarray(trains.isis(), dtype=float)
+        self.duration = float(trains.duration)
+        self.first = np.array([float(a[0]) for a in trains.trains if a.size])
+        self.gaps = np.array([self.duration - float(a[-1]) for a in trains.trains if a.size])
+        self.empty = sum(1 for a in trains.trains if a.size == 0)
+
+    @property
+    def longest(self) -> float:
+        return float(max(self.isis.max(initial=0.0), self.first.max(initial=0.0), self.gaps.max(initial=0.0)))
+
+
+def _window_loglik(population, win: _Windows, mu: float, grid) -> float:
+    """Exact log-likelihood of trials seen through ``[0, T]`` (module docstring)."""
+    ref = float(population.neuron.refractory)
+    if isinstance(population.noise, EscapeNoise):
+        from ..theory.steady_state import stationary
+
+        pts = np.concatenate([win.isis, win.first, win.gaps])
+        order = np.argsort(pts)
+        st = stationary(population, mu, isi_t=pts[order])
+        dens, surv = np.empty(pts.size), np.empty(pts.size)
+        dens[order], surv[order] = st.isi_density, st.survivor
+        mean = 1000.0 / float(st.rate)
+        within = None
+        if win.empty:
+            t = np.linspace(0.0, win.duration, 4001)
+            s = stationary(population, mu, isi_t=t).survivor
+            within = float(np.sum(0.5 * (s[1:] + s[:-1]) * np.diff(t)))
+        n_i = win.isis.size
+        p, s_first, s_gap = dens[:n_i], surv[n_i:n_i + win.first.size], surv[n_i + win.first.size:]
+    else:
+        sigma = float(population.noise.sigma)
+        times = np.concatenate([win.first, win.gaps]) - ref
+        p, s, mean_pass, within_pass = grid.passage(population, mu, sigma, win.isis - ref, np.maximum(times, 0.0),
+                                                    win.duration - ref if win.empty else None)
+        p = np.where(win.isis > ref, p, 0.0)
+        s = np.where(times > 0.0, s, 1.0)
+        s_first, s_gap = s[:win.first.size], s[win.first.size:]
+        mean = ref + mean_pass
+        within = None if within_pass is None else min(win.duration, ref) + max(within_pass, 0.0)
+    floor = DENSITY_FLOOR
+    total = float(np.sum(np.log(np.maximum(p, floor))))
+    total += float(np.sum(np.log(np.maximum(s_first, floor)))) - win.first.size * math.log(mean)
+    total += float(np.sum(np.log(np.maximum(s_gap, floor))))
+    if win.empty:
+        total += win.empty * math.log(max(1.0 - within / mean, floor))
+    return total
+
+
 def isi_loglik(population, isis, *, mu, grid=None) -> float:
-    """Log-likelihood ``sum log p(ISI_i)`` (p in 1/ms) of intervals at constant drive ``mu`` (mV)."""
+    """Log-likelihood (densities in 1/ms) of intervals at constant drive ``mu`` (mV).
+
+    For an array of intervals, ``sum log p(ISI_i)``; for :class:`~popdens.fitting.SpikeTrains`, the
+    exact likelihood of stationary renewal trials seen through their window (module docstring).
+    """
+    if isinstance(isis, SpikeTrains):
+        win = _Windows(isis)
+        mu = v.as_finite_float("mu", mu)
+        if grid is None and isinstance(population.noise, WhiteNoise):
+            grid = _WhiteGrid(np.array([win.longest]), population, mu, float(population.noise.sigma))
+        return _window_loglik(population, win, mu, grid)
     isis = _as_isis(isis)
     mu = v.as_finite_float("mu", mu)
     if isinstance(population.noise, EscapeNoise):
@@ -151,7 +251,8 @@ def fit_isi(population, data, free, *, mu, profile=False) -> FitResult:
         unless the intervals are long compared with ``tau_m``).  Its
         parameter values are the fixed ones and the start of the free ones.
     data : SpikeTrains or array_like
-        Spike trains (their ISIs are used) or the intervals themselves (ms).
+        Spike trains recorded in trials of length `duration` (exact window likelihood, module
+        docstring) or the intervals themselves (ms; product of their densities).
     free : sequence of str or mapping
         Parameters to fit (see :class:`popdens.fitting.params.ParameterSet`).
     mu : float
@@ -183,12 +284,15 @@ def fit_isi(population, data, free, *, mu, profile=False) -> FitResult:
             free = {n: current[n] for n in free}
             free["mu"], free["sigma"] = start
     params = ParameterSet.make(population, free, {"mu": mu})
+    win = _Windows(data) if isinstance(data, SpikeTrains) else None
     grid = None
     if white:
         pop0, d0 = params.build(params.start)
-        grid = _WhiteGrid(isis, pop0, d0["mu"], float(pop0.noise.sigma))
+        grid = _WhiteGrid(isis if win is None else np.array([win.longest]), pop0, d0["mu"], float(pop0.noise.sigma))
 
     def loglik(pop, drives):
+        if win is not None:
+            return _window_loglik(pop, win, float(drives["mu"]), grid)
         return isi_loglik(pop, isis, mu=drives["mu"], grid=grid)
 
     fit = maximise(loglik, params, kind="isi", n_observations=isis.size, profile=profile,
@@ -211,7 +315,9 @@ def fit_isi(population, data, free, *, mu, profile=False) -> FitResult:
     plot_data = {"isis": isis, "model_t": st.isi_t, "model_density": st.isi_density,
                  "z_sorted": goodness.pop("z_sorted"), "band_95": goodness["band_95"]}
     diag = dict(fit.diagnostics)
-    diag["loglik"] = "sum of log ISI densities (1/ms) at the recorded intervals"
+    diag["loglik"] = ("sum of log ISI densities (1/ms) at the recorded intervals" if win is None else
+                      "exact log-likelihood of stationary renewal trials seen through [0, duration]: complete "
+                      "intervals (densities, 1/ms), first spikes (forward recurrence), censored ends")
     if grid is not None:
         diag["fourier_grid"] = {"period_ms": grid.period, "frequencies": grid.n_f}
     return replace(fit, goodness=goodness, plot_data=plot_data, diagnostics=diag)
