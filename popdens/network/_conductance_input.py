@@ -49,6 +49,16 @@ of ours beyond (a conductance modulation acts on the drift with the
 driving force ``E - u``, which the mean-drive response weighs uniformly);
 its verdicts are compared with the spiking twin in the contributor guide.
 
+Time integration
+----------------
+In :func:`popdens.network.simulate_network` a channel's ``S_1`` and ``S_2``
+follow the pathways' exponentially filtered delayed rates (:class:`ConductanceFeed`):
+``S_1 tau`` is then the exact mean conductance for the delayed input rate,
+and the white-limit intensity and the boundary shifts are taken at the same
+filtered rates (quasi-static).  The cohort's Fokker--Planck solver combines
+drift and diffusion from them at every step
+(:meth:`~popdens.solvers.fokker_planck.FokkerPlanckSolver.advance_conductance`).
+
 Units: rates Hz, conductances in leak units, potentials mV, times ms.
 """
 
@@ -62,7 +72,8 @@ import numpy as np
 from ..model.conductance import ConductanceNoise
 from ..model.noise import Population
 
-__all__ = ["Channel", "conductance_channels", "conductance_population", "rate_slopes", "add_conductance_terms"]
+__all__ = ["Channel", "conductance_channels", "conductance_population", "rate_slopes", "add_conductance_terms",
+           "ConductanceFeed"]
 
 #: Relative step of the central differences of the stationary rate in a channel's S_1 and S_2
 #: (the rate is computed to ~1e-7 relative; truncation O(step^2) ~ 1e-6; common practice).
@@ -287,3 +298,52 @@ def add_conductance_terms(out, circuit, state, lam, transfer, gain, cohorts) -> 
             p = circuit.pathways[q]
             l = circuit.index(p.source)
             out[:, k, l] += slope * shape * p.in_degree * p.kernel_laplace(lam)
+
+
+class ConductanceFeed:
+    """The input of a conductance cohort in the mean-field time integration (:func:`popdens.network.simulate_network`).
+
+    Each channel's ``S1 = sum w n`` and ``S2 = sum w^2 n`` (Hz) follow the pathways' filtered delayed
+    rates ``s_q`` (1/ms, the integrator's ``s_rec``): pathway ``q`` of in-degree ``C`` adds ``w C s_q``
+    and ``w^2 C s_q`` (times 1000), the background its constant ``count * rate``.  The mean conductance
+    of a channel, ``S1 tau``, is then exactly the mean of the exponentially decaying conductances for
+    the delayed input rate; the diffusion takes the intensity ``S2 tau^2`` of the same filtered rate
+    (quasi-static: the effective-time-constant theory at the momentary mean input), and so do the
+    boundary shifts.  The cohort's Fokker--Planck solver is built at the input of ``t = 0`` and stepped by
+    :meth:`~popdens.solvers.fokker_planck.FokkerPlanckSolver.advance_conductance`.
+
+    Parameters
+    ----------
+    circuit : Circuit
+        The circuit; cohort ``k`` receives conductance synapses.
+    k : int
+        Cohort index.
+    """
+
+    def __init__(self, circuit, k: int):
+        self.name = circuit.names[k]
+        chans = conductance_channels(circuit, k, np.zeros(circuit.n))
+        self.channels = [(c.reversal, c.tau) for c in chans]
+        nq = len(circuit.pathways)
+        self.const = np.zeros((2, len(chans)))
+        self.coupling = np.zeros((2, len(chans), nq))  # Hz per (1/ms) of each pathway's filtered rate
+        for label, q, w, rev, tau in _inputs(circuit, k):
+            x = self.channels.index((rev, tau))
+            if q is None:
+                bg = circuit.cohorts[k].background
+                n = bg.count * bg.rate
+                self.const[:, x] += (w * n, w * w * n)
+            else:
+                c_in = circuit.pathways[q].in_degree * 1000.0  # input spikes per second per 1/ms of rate
+                self.coupling[:, x, q] += (w * c_in, w * w * c_in)
+        self.circuit, self.k = circuit, k
+
+    def inputs(self, s) -> tuple[np.ndarray, np.ndarray]:
+        """``(S1, S2)`` (Hz) of each channel for filtered rates ``s`` (1/ms), shape ``(pathways, columns)``."""
+        s = np.asarray(s, dtype=float)
+        return (self.const[0][:, None] + self.coupling[0] @ s, self.const[1][:, None] + self.coupling[1] @ s)
+
+    def advance(self, solver, mu, s):
+        """Advance ``solver`` over the boundaries of ``mu`` (mV) with the filtered rates ``s`` (1/ms)."""
+        first, second = self.inputs(s)
+        return solver.advance_conductance(mu, self.channels, first, second)

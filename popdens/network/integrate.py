@@ -31,11 +31,12 @@ from ..progress import Progress
 from ..result import STATUS_FAILED, STATUS_INTERRUPTED, STATUS_OK
 from ..solvers.registry import resolve_method
 from ..solvers._recording import BoundarySamples, make_grid
-from ..solvers.fokker_planck import LOWER_STDS
+from ..solvers.fokker_planck import LOWER_STDS, FokkerPlanckSolver
 from ..solvers.mesoscopic import MesoscopicSolver, seed_kernel_rng
-from ..model.effective import shifted_neuron
+from ..model.effective import conductance_carrier, shifted_neuron
 from ..model.noise import Population, WhiteNoise
 from ..model.synaptic import ALPHA
+from ._conductance_input import ConductanceFeed, conductance_population
 from ._inputs import block_inputs, combine
 from .circuit import DEFAULT_DT, HZ_TO_PER_MS, STEP_TOL, Circuit, Pathway
 from .result import CircuitResult
@@ -86,6 +87,31 @@ def _own_spike_drive(circuit: Circuit, k: int, ages: np.ndarray, dt: float) -> n
             trace = np.maximum(0.0, 1.0 - np.abs(a - p.delay) / dt) / dt
         out += scale * trace
     return out
+
+
+def _conductance_solver(circuit: Circuit, k: int, rates, mu0: float, dt: float, opts: dict):
+    """The Fokker--Planck solver of conductance cohort ``k``, built at the input of the rates ``rates`` (Hz)
+    and in its stationary state at drive ``mu0`` (mV); the default lower boundary as for white noise, with
+    the conductance noise's amplitude at threshold."""
+    a = circuit.cohorts[k]
+    pop = conductance_population(circuit, k, rates)
+    try:
+        _, sigma_ref = conductance_carrier(pop)
+    except ValueError:
+        raise ValueError(f"cohort {a.name!r}: its conductance input has no fluctuations at threshold at t = 0 "
+                         "(no background and zero `initial_rates` of its sources); give it a background or "
+                         "`initial_rates` > 0") from None
+    nrn = a.population.neuron
+    if "u_min" not in opts and "grid" not in opts:
+        base = min(float(nrn.reset), float(nrn.rest) + min(mu0, 0.0))
+        opts["u_min"] = (base - LOWER_STDS * sigma_ref / math.sqrt(2.0)
+                         - EXTRA_LOWER_SPANS * (float(nrn.boundary) - float(nrn.reset)))
+    try:
+        s = FokkerPlanckSolver(pop, dt, **opts)
+    except TypeError as exc:
+        raise ValueError(f"cohort {a.name!r}: bad solver option in {sorted(opts)}: {exc}") from None
+    s.initialize(mu0, None, "stationary")
+    return s
 
 
 def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *, initial_rates=None,
@@ -150,7 +176,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     """
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
-    circuit.require_current("simulate_network")
+    circuit.require_current("simulate_network", allow=("conductance",))
     dt = DEFAULT_DT if dt is None else dt
     grid = make_grid(t_end, dt, record_interval, None)
     dt = grid.dt
@@ -196,6 +222,11 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             cmean[q] *= size / (size - 1.0)
     cvar = [circuit.cohorts[k].tau_m * p.weight ** 2 * p.in_degree if circuit.cohorts[k].diffusive else 0.0
             for p, k in zip(circuit.pathways, tgt)]
+    # conductance cohorts: their input enters through their channels (ConductanceFeed), not as mu and sigma
+    feeds = {k: ConductanceFeed(circuit, k) for k in range(nk) if circuit.synapse_kind(k) == "conductance"}
+    for q, k in enumerate(tgt):
+        if k in feeds:
+            cmean[q] = cvar[q] = 0.0
     tq = grid.step_times(0, grid.n_steps)
     ext_mu = np.array([np.broadcast_to(a.external_mean(tq), tq.shape) for a in circuit.cohorts])
     ext_var = np.array([np.broadcast_to(a.external_variance(tq), tq.shape) for a in circuit.cohorts])
@@ -229,7 +260,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         raise ValueError("the external drive or noise of a cohort is not finite on [0, t_end]")
     diffusive = [a.diffusive for a in circuit.cohorts]
     # cohorts with filtered input and a hard threshold: moving effective boundary (module docstring)
-    filtered = [diffusive[k] and not a.population.neuron.has_cutoff
+    filtered = [diffusive[k] and not a.population.neuron.has_cutoff and k not in feeds
                 and (a.ext_tau_syn > 0 or (a.background is not None and a.background.tau_syn > 0)
                      or any(p.tau_syn > 0 for p, t_ in zip(circuit.pathways, tgt) if t_ == k))
                 for k, a in enumerate(circuit.cohorts)]
@@ -271,6 +302,10 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     for k, a in enumerate(circuit.cohorts):
         cls = resolve_method(a.population, None)
         opts = dict(solver_options.get(a.name, {}))
+        if k in feeds:
+            s = _conductance_solver(circuit, k, r0, float(mu0[k]), dt, opts)
+            solvers.append(s)
+            continue
         if diffusive[k]:
             if not sg0[k] > 0:
                 raise ValueError(f"cohort {a.name!r}: the noise amplitude at t = 0 is {sg0[k]!r} mV; "
@@ -305,7 +340,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     s_rec = np.empty((len(pw), n + 1))  # every pathway's filtered delayed rate (1/ms) at each boundary
     s_rec[:, 0] = s_filt
     rate_init = np.array([s.instantaneous_rate(float(mu0[k]), float(sg0[k]) if diffusive[k] else None)
-                          for k, s in enumerate(solvers)])
+                          for k, s in enumerate(solvers)])  # (conductance solvers set their own sigma)
     # the delayed rate at t = 0 (before it, every source had its initial rate)
     a_prev = np.empty(len(pw))
     for q in range(len(pw)):
@@ -340,7 +375,9 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
                 mu_l, sg_blk[:, -1], sh_l = inputs_left(j + nb)
                 mu_blk[:, -1] = moving(mu_l, sh_l, shifts[:, j + nb - 1])
             for k, s in enumerate(solvers):
-                if diffusive[k]:
+                if k in feeds:
+                    r, _, _ = feeds[k].advance(s, mu_blk[k], s_rec[:, j:j + nb + 1])
+                elif diffusive[k]:
                     r, _, _ = s.advance(mu_blk[k], sg_blk[k])
                 else:
                     r, _, _ = s.advance(mu_blk[k])
@@ -368,7 +405,8 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     body = rate[:, n_burn: n_burn + n_out * e].reshape(nk, n_out, e).mean(axis=2)
     r_out = np.concatenate([rate_init[:, None], body], axis=1)
     idx = np.arange(n_out + 1) * e
-    sg_out = np.where(np.array(diffusive)[:, None], sgs[:, n_burn + idx], np.nan)
+    sg_out = np.where(np.array([d and k not in feeds for k, d in enumerate(diffusive)])[:, None],
+                      sgs[:, n_burn + idx], np.nan)
     mass = [abs(s.mass() - 1.0) for s in solvers]
     return CircuitResult(
         names=circuit.names, t=idx * dt, rate=r_out, mu=mus[:, n_burn + idx], sigma=sg_out,

@@ -226,7 +226,7 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
                    "analysed at the fixed points)")
     montecarlo = _flag(src, "network", "montecarlo", net.get("montecarlo", False))
     unsupported = []
-    for kind, label in (("conductance", "conductance"), ("shot", "shot-noise")):
+    for kind, label in (("shot", "shot-noise"),):
         names = [nm for k, nm in enumerate(circuit.names) if circuit.synapse_kind(k) == kind]
         if names:
             unsupported.append(f"{label} synapses ({', '.join(names)})")

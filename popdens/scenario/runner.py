@@ -344,7 +344,7 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
     if scenario.bifurcation is not None:
         figures += _bifurcation(scenario, tmp, header, summary, timing, progress)
     if scenario.t_end > 0:
-        if any(c.synapse_kind(k) in ("conductance", "shot") for k in range(c.n)):
+        if any(c.synapse_kind(k) == "shot" for k in range(c.n)):
             mf = _held_fixed_point(c, scenario, start)
         else:
             mf = simulate_network(c, scenario.t_end, scenario.dt, record_interval=scenario.record_interval,
@@ -457,7 +457,7 @@ def _network_spectra(scenario, fin, mc, states, tmp: Path, summary: dict) -> lis
 
 
 def _held_fixed_point(c, scenario, start):
-    """The prediction for a circuit with conductance or shot-noise synapses, whose time integration is not
+    """The prediction for a circuit with shot-noise synapses, whose time integration is not
     available: the first stable fixed point held over the run (NaN, with a message, when none was found; the spiking twin
     still runs)."""
     from ..network.circuit import DEFAULT_DT
@@ -473,7 +473,7 @@ def _held_fixed_point(c, scenario, start):
         message = "no stable fixed point found: nothing to hold (rates NaN)"
     else:
         rates[:, 1:] = np.asarray(start.rates)[:, None]
-        message = "stable fixed point held (time integration of conductance or shot-noise synapses not available)"
+        message = "stable fixed point held (time integration of shot-noise synapses not available)"
     return CircuitResult(names=c.names, t=t, rate=rates, method="fixed point", status=STATUS_OK, message=message,
                          dt=grid.dt)
 

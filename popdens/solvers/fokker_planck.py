@@ -91,6 +91,7 @@ from ..model._kernels import MS_TO_S, NO_REFCOUNT
 from ..model.adaptation import step_args
 from ..model.conductance import ConductanceNoise
 from ..model.effective import conductance_carrier, white_equivalent
+from ..model.synaptic import ALPHA
 from .grids import Grid, refined_grid
 from ._base import SolverBase
 
@@ -171,11 +172,22 @@ def _coefficients(ff, dist, ds, mu, sigma, tau_m, alpha, beta):  # pragma: no co
             beta[i] = al - a
 
 
-@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
-def _solve(h, inv_delta, alpha, beta, rhs, r, phi, out, cp, z):  # pragma: no cover - compiled
-    """Solve (H/delta + K) p = rhs + e_r * phi * alpha_last * p_last into ``out``.
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def _reset_weight(i, r, rf):  # pragma: no cover - compiled
+    """Share of the reinjected mass in cell ``i``: ``1 - rf`` in the reset cell ``r``, ``rf`` in ``r + 1``."""
+    if i == r:
+        return 1.0 - rf
+    if i == r + 1:
+        return rf
+    return 0.0
 
-    Thomas algorithm; with ``phi > 0`` a second right-hand side e_r and a
+
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def _solve(h, inv_delta, alpha, beta, rhs, r, rf, phi, out, cp, z):  # pragma: no cover - compiled
+    """Solve (H/delta + K) p = rhs + e * phi * alpha_last * p_last into ``out``.
+
+    Thomas algorithm; with ``phi > 0`` a second right-hand side ``e`` (the
+    reset: ``1 - rf`` in cell ``r``, ``rf`` in cell ``r + 1``) and a
     Sherman--Morrison correction (same factorisation).
     """
     n = h.shape[0]
@@ -185,7 +197,7 @@ def _solve(h, inv_delta, alpha, beta, rhs, r, phi, out, cp, z):  # pragma: no co
     cp[0] = up / diag
     out[0] = rhs[0] / diag
     if phi > 0.0:
-        z[0] = (1.0 if r == 0 else 0.0) / diag
+        z[0] = _reset_weight(0, r, rf) / diag
     for i in range(1, n):
         low = -alpha[i - 1]
         diag = h[i] * inv_delta + alpha[i] + beta[i - 1] - low * cp[i - 1]
@@ -193,7 +205,7 @@ def _solve(h, inv_delta, alpha, beta, rhs, r, phi, out, cp, z):  # pragma: no co
             cp[i] = -beta[i] / diag
         out[i] = (rhs[i] - low * out[i - 1]) / diag
         if phi > 0.0:
-            z[i] = ((1.0 if i == r else 0.0) - low * z[i - 1]) / diag
+            z[i] = (_reset_weight(i, r, rf) - low * z[i - 1]) / diag
     for i in range(n - 2, -1, -1):
         out[i] -= cp[i] * out[i + 1]
         if phi > 0.0:
@@ -216,20 +228,34 @@ def _step(ff, dist, ds, h, tau_m, r, scheme, dt, phi, q, p, mu0, mu1, sg0, sg1,
     ``a0, b0`` (bit for bit: the stage drive ``mu0 + g (mu1 - mu0)`` is then ``mu0``), so they
     are not computed again: the flux-coefficient passes, one ``expm1`` per face, are most of a step.
     """
+    g = GAMMA
+    return _step_faces(ff, ds, ff, ds, dist, h, tau_m, r, 0.0, scheme, dt, phi, q, p,
+                       mu0 + g * (mu1 - mu0), sg0 + g * (sg1 - sg0), mu1, sg1, mu1 == mu0 and sg1 == sg0,
+                       a0, b0, a1, b1, rhs, pg, cp, z)
+
+
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def _step_faces(ffg, dsg, ff1, ds1, dist, h, tau_m, r, rf, scheme, dt, phi, q, p, mug, sgg, mu1, sg1, const,
+                a0, b0, a1, b1, rhs, pg, cp, z):  # pragma: no cover - compiled
+    """:func:`_step` with the face drifts and diffusion factors of the TR-BDF2 stage (``ffg``, ``dsg``,
+    drive ``mug``, noise ``sgg``) and of the step end (``ff1``, ``ds1``, ``mu1``, ``sg1``) given apart,
+    and the reinjection shared between cells ``r`` (``1 - rf``) and ``r + 1`` (``rf``); ``const``: the
+    coefficients in ``a0, b0`` hold over the whole step."""
     n = h.shape[0]
     g = GAMMA
-    const = mu1 == mu0 and sg1 == sg0
     if scheme == SCHEME_BE:
         if const:
             ae, be = a0, b0
         else:
-            _coefficients(ff, dist, ds, mu1, sg1, tau_m, a1, b1)
+            _coefficients(ff1, dist, ds1, mu1, sg1, tau_m, a1, b1)
             ae, be = a1, b1
         inv = 1.0 / dt
         for i in range(n):
             rhs[i] = h[i] * p[i] * inv
-        rhs[r] += q
-        _solve(h, inv, ae, be, rhs, r, phi, p, cp, z)
+        rhs[r] += (1.0 - rf) * q
+        if rf != 0.0:
+            rhs[r + 1] += rf * q
+        _solve(h, inv, ae, be, rhs, r, rf, phi, p, cp, z)
         outflow = dt * ae[n - 1] * p[n - 1]
     else:
         wa = 1.0 / (g * (2.0 - g))
@@ -238,7 +264,7 @@ def _step(ff, dist, ds, h, tau_m, r, scheme, dt, phi, q, p, mu0, mu1, sg0, sg1,
         if const:
             ae, be = a0, b0
         else:
-            _coefficients(ff, dist, ds, mu0 + g * (mu1 - mu0), sg0 + g * (sg1 - sg0), tau_m, a1, b1)
+            _coefficients(ffg, dist, dsg, mug, sgg, tau_m, a1, b1)
             ae, be = a1, b1
         d1 = 0.5 * g * dt
         inv = 1.0 / d1
@@ -251,16 +277,21 @@ def _step(ff, dist, ds, h, tau_m, r, scheme, dt, phi, q, p, mu0, mu1, sg0, sg1,
             if i > 0:
                 kp -= a0[i - 1] * p[i - 1] - b0[i - 1] * p[i]
             rhs[i] = h[i] * p[i] * inv - kp
-        rhs[r] += 2.0 * q + phi * j_n
-        _solve(h, inv, ae, be, rhs, r, phi, pg, cp, z)
+        src = 2.0 * q + phi * j_n
+        rhs[r] += (1.0 - rf) * src
+        if rf != 0.0:
+            rhs[r + 1] += rf * src
+        _solve(h, inv, ae, be, rhs, r, rf, phi, pg, cp, z)
         j_g = ae[n - 1] * pg[n - 1]
         if not const:
-            _coefficients(ff, dist, ds, mu1, sg1, tau_m, a1, b1)
+            _coefficients(ff1, dist, ds1, mu1, sg1, tau_m, a1, b1)
         inv = 1.0 / (wc * dt)
         for i in range(n):
             rhs[i] = h[i] * (wa * pg[i] - wb * p[i]) * inv
-        rhs[r] += q
-        _solve(h, inv, ae, be, rhs, r, phi, p, cp, z)
+        rhs[r] += (1.0 - rf) * q
+        if rf != 0.0:
+            rhs[r + 1] += rf * q
+        _solve(h, inv, ae, be, rhs, r, rf, phi, p, cp, z)
         outflow = dt * ((j_n + j_g) * (0.5 / (2.0 - g)) + wc * ae[n - 1] * p[n - 1])
     if not const:
         for i in range(n):
@@ -356,6 +387,65 @@ def _advance_adapting(ff, dist, ds, h, centres, tau_m, reset, r, scheme, dt, n_d
     return head, n_steps, True
 
 
+@numba.njit(cache=True, nogil=True, forceinline=True, _nrt=NO_REFCOUNT)
+def _mix(rows_f, rows_d, wf, wd, k0, k1, g, d_min, ff, ds):  # pragma: no cover - compiled
+    """Face drifts ``ff`` (mV) and diffusion coefficients ``ds`` (mV^2/ms, at least ``d_min``) at the
+    weights interpolated a fraction ``g`` of the way from boundary ``k0`` to ``k1``: ``ff = sum_j
+    wf_j rows_f[j]`` over the rows ``F, F', 1, v`` and ``ds = sum_j wd_j rows_d[j]`` over ``1, v, v^2``."""
+    f0 = wf[0, k0] + g * (wf[0, k1] - wf[0, k0])
+    f1 = wf[1, k0] + g * (wf[1, k1] - wf[1, k0])
+    f2 = wf[2, k0] + g * (wf[2, k1] - wf[2, k0])
+    f3 = wf[3, k0] + g * (wf[3, k1] - wf[3, k0])
+    e0 = wd[0, k0] + g * (wd[0, k1] - wd[0, k0])
+    e1 = wd[1, k0] + g * (wd[1, k1] - wd[1, k0])
+    e2 = wd[2, k0] + g * (wd[2, k1] - wd[2, k0])
+    for i in range(ff.shape[0]):
+        ff[i] = f0 * rows_f[0, i] + f1 * rows_f[1, i] + f2 + f3 * rows_f[3, i]
+        ds[i] = max(e0 + e1 * rows_d[1, i] + e2 * rows_d[2, i], d_min)
+
+
+@numba.njit(cache=True, nogil=True, _nrt=NO_REFCOUNT)
+def _advance_varying(rows_f, rows_d, wf, wd, d_min, unit_sigma, dist, h, centres, tau_m, scheme, dt, n_delay,
+                     frac, r_cell, r_frac, u_shift, u_reset, p, buf, head, out_rate, out_mean_u, out_refr,
+                     a0, b0, a1, b1, rhs, pg, cp, z, ffg, dsg, ff1, ds1):  # pragma: no cover - compiled
+    """Advance ``wf.shape[1] - 1`` steps with face drifts and diffusion coefficients that vary in time
+    (:func:`_mix` of the weights ``wf``, ``wd`` at each boundary, linear in between), the reinjection of
+    step ``k`` shared between cells ``r_cell[k]`` and ``r_cell[k] + 1`` (fraction ``r_frac[k]``), and the
+    grid displaced by ``u_shift[k]`` (mV) at the step end; returns (head, steps_done, ok)."""
+    n = h.shape[0]
+    n_steps = wf.shape[1] - 1
+    phi = (1.0 - frac) if n_delay == 0 else 0.0
+    _mix(rows_f, rows_d, wf, wd, 0, 0, 0.0, d_min, ff1, ds1)
+    _coefficients(ff1, dist, ds1, 0.0, unit_sigma, tau_m, a0, b0)
+    for k in range(n_steps):
+        const = True
+        for j in range(wf.shape[0]):
+            if wf[j, k] != wf[j, k + 1]:
+                const = False
+        for j in range(wd.shape[0]):
+            if wd[j, k] != wd[j, k + 1]:
+                const = False
+        if not const:
+            _mix(rows_f, rows_d, wf, wd, k, k + 1, GAMMA, d_min, ffg, dsg)
+            _mix(rows_f, rows_d, wf, wd, k + 1, k + 1, 0.0, d_min, ff1, ds1)
+        q = buf[head] / dt
+        buf[head] = 0.0
+        outflow = _step_faces(ffg, dsg, ff1, ds1, dist, h, tau_m, r_cell[k], r_frac[k], scheme, dt, phi, q, p,
+                              0.0, unit_sigma, 0.0, unit_sigma, const, a0, b0, a1, b1, rhs, pg, cp, z)
+        head, refr = _reinject(buf, head, n_delay, frac, outflow)
+        su = 0.0
+        mass = 0.0
+        for i in range(n):
+            su += h[i] * p[i] * centres[i]
+            mass += h[i] * p[i]
+        out_rate[k] = outflow / (dt * MS_TO_S)
+        out_mean_u[k] = su + u_shift[k] * mass + refr * u_reset[k]
+        out_refr[k] = refr
+        if not (math.isfinite(outflow) and math.isfinite(su)):
+            return head, k + 1, False
+    return head, n_steps, True
+
+
 @numba.njit(cache=True, nogil=True)
 def _stationary(alpha, beta, r, p):  # pragma: no cover - compiled
     """Stationary density of the discrete operator, up to a factor; returns the flux.
@@ -428,6 +518,11 @@ class FokkerPlanckSolver(SolverBase):
         if isinstance(getattr(population, "noise", None), ConductanceNoise):
             self._conductance = population.noise
             carrier, self._sigma_ref = conductance_carrier(population)
+            nrn0 = population.neuron
+            # the neuron as given, and the carrier's boundary shifts (mV) at the construction input
+            self._own_neuron = nrn0
+            self._shifts0 = (float(carrier.neuron.boundary) - float(nrn0.boundary),
+                             float(carrier.neuron.reset) - float(nrn0.reset))
             super().__init__(carrier, dt)
         else:
             super().__init__(white_equivalent(population), dt)
@@ -465,6 +560,8 @@ class FokkerPlanckSolver(SolverBase):
         self._adapt = step_args(nrn, self.dt)[1:] if nrn.adapting else None
         self.w = np.zeros(len(nrn.adaptation))
         self.aux = np.zeros(3)
+        self._varying = None  # the next block's time-varying conductance arrays (advance_conductance)
+        self._shift_before = None  # grid displacement (mV) one boundary before the next block
 
     # ----------------------------------------------------------------- grid
     @property
@@ -703,9 +800,112 @@ class FokkerPlanckSolver(SolverBase):
                 self.buf[(self.head + j) % self.buf.size] += w
 
     # ----------------------------------------------------------------- step
+    def advance_conductance(self, mu, channels, first, second):
+        """Advance ``len(mu) - 1`` steps with conductance input that varies in time.
+
+        For a solver built with :class:`~popdens.ConductanceNoise`: the input is given per channel by
+        ``S1 = sum w n`` and ``S2 = sum w^2 n`` (Hz; jumps ``w`` in leak units, ``n`` input spikes per
+        second) at every step boundary, which fixes the mean conductance ``S1 tau`` and the white-limit
+        intensity ``S2 tau^2`` (:mod:`popdens.network._conductance_input`); with one input type of jump
+        ``w`` at rate ``nu(t)``, ``S1 = w nu`` and ``S2 = w^2 nu``.  Drift and diffusion coefficient are
+        linear in them and are combined per step in compiled code; threshold and reset move with the
+        boundary shifts of the input at each boundary: the threshold by a change of variable (the grid
+        moves with it: the drift gains ``F'(u) Delta - e1 Delta - tau_m dDelta/dt`` and the diffusion is
+        taken at ``u + Delta``, exact for a linear ``F``, first order otherwise), the reset relative to it
+        by sharing the reinjection between the two nearest cells.  With the input of construction at
+        every boundary the step is the solver's own (to round-off).
+
+        Parameters
+        ----------
+        mu : array_like
+            Drive (mV) at the step boundaries, shape ``(n + 1,)``.
+        channels : sequence of (float, float)
+            ``(reversal mV, tau ms)`` of each channel.
+        first, second : array_like
+            ``S1`` and ``S2`` (Hz) of each channel at the boundaries, shape ``(len(channels), n + 1)``.
+
+        Returns
+        -------
+        tuple of ndarray
+            Rate (Hz), mean potential (mV) and refractory fraction per step, as :meth:`advance`.
+        """
+        if self._conductance is None:
+            raise ValueError("advance_conductance needs a solver built for ConductanceNoise input")
+        if self._adapt is not None:
+            raise ValueError("advance_conductance does not support adapting neurons")
+        if self.p is None:
+            raise RuntimeError("call initialize() first")
+        mu = np.ascontiguousarray(mu, dtype=float)
+        rev = np.array([float(c[0]) for c in channels])[:, None]
+        tau = np.array([float(c[1]) for c in channels])[:, None]
+        s1 = np.asarray(first, dtype=float).reshape(len(channels), mu.size) * 1e-3  # 1/ms
+        s2 = np.asarray(second, dtype=float).reshape(len(channels), mu.size) * 1e-3
+        nrn = self._own_neuron
+        tau_m = float(nrn.tau_m)
+        th0, re0 = float(nrn.boundary), float(nrn.reset)
+        q = s2 * tau * tau / (2.0 * tau_m * tau_m)  # D(u) = sum q (E - u)^2 (mV^2/ms per mV^2)
+        c = s1 * tau + tau_m * q  # drift sum c (E - u): mean conductance and the Stratonovich term
+        e0, e1 = np.sum(c * rev, axis=0), np.sum(c, axis=0)
+        d0, d1, d2 = np.sum(q * rev * rev, axis=0), -2.0 * np.sum(q * rev, axis=0), np.sum(q, axis=0)
+        if nrn.has_cutoff:
+            sh_th = sh_re = np.zeros(mu.size)
+        else:  # ConductanceNoise.boundary_shifts at each boundary
+            d_x = q * (rev - th0) ** 2
+            d_th = np.sum(d_x, axis=0)
+            part = ALPHA / math.sqrt(2.0) * d_x * np.sqrt(tau) / np.sqrt(np.where(d_th > 0.0, d_th, np.inf))
+            sh_th = np.sum(part, axis=0)
+            sh_re = np.sum(np.where(rev != th0, part * (rev - re0) / np.where(rev != th0, rev - th0, 1.0), 0.0),
+                           axis=0)
+        delta = sh_th - self._shifts0[0]  # the grid's displacement (mV)
+        before = delta[0] if self._shift_before is None else self._shift_before
+        slope = np.diff(np.concatenate([[before], delta])) / self.dt  # backward differences (mV/ms)
+        wf = np.array([np.ones(mu.size), delta, mu + e0 - e1 * delta - tau_m * slope, -e1])
+        wd = np.array([d0 + d1 * delta + d2 * delta * delta, d1 + 2.0 * d2 * delta, d2])
+        # the reset relative to the displaced grid, at each step's midpoint
+        eps = (sh_re - self._shifts0[1]) - delta
+        pos = self._c[self._r] + 0.5 * (eps[1:] + eps[:-1])
+        cell = np.clip(np.searchsorted(self._c, pos, side="right") - 1, 0, self._c.size - 2)
+        share = np.clip((pos - self._c[cell]) / (self._c[cell + 1] - self._c[cell]), 0.0, 1.0)
+        self._varying = (np.ascontiguousarray(wf), np.ascontiguousarray(wd), np.ascontiguousarray(cell, dtype=np.int64),
+                         np.ascontiguousarray(share), np.ascontiguousarray(delta[1:]),
+                         np.ascontiguousarray(re0 + sh_re[1:]))
+        if mu.size > 1:
+            self._shift_before = float(delta[-2])
+        try:
+            return self.advance(mu, None)
+        finally:
+            self._varying = None
+
+    def _varying_rows(self):
+        """Face rows ``F, F', 1, v`` of the drift and ``1, v, v^2`` of the diffusion (advance_conductance)."""
+        if getattr(self, "_rows", None) is None or self._rows[0] is not self.grid:
+            e, c = np.array(self.grid.edges), self._c
+            faces = np.append(e[1:-1], 0.5 * (c[-1] + e[-1]))
+            nrn = self._own_neuron
+            rows_f = np.array([nrn.drift(faces), nrn.drift_slope(faces), np.ones(faces.size), faces])
+            rows_d = np.array([np.ones(faces.size), faces, faces * faces])
+            self._rows = (self.grid, np.ascontiguousarray(rows_f, dtype=float), rows_d,
+                          [np.zeros(faces.size) for _ in range(4)])
+        return self._rows[1:]
+
     def _advance_impl(self, mu, sigma):
         if self.p is None:
             raise RuntimeError("call initialize() first")
+        if self._varying is not None:
+            n = mu.size - 1
+            rate, mean_u, refr = np.empty(n), np.empty(n), np.empty(n)
+            s = self._scratch
+            rows_f, rows_d, extra = self._varying_rows()
+            tau_m = float(self.population.neuron.tau_m)
+            d_min = MIN_DIFFUSION_FACTOR * self._sigma_ref ** 2 / (2.0 * tau_m)
+            head, done, ok = _advance_varying(rows_f, rows_d, self._varying[0], self._varying[1], d_min,
+                                              math.sqrt(2.0 * tau_m), self._dist, self._h, self._c, tau_m,
+                                              SCHEMES[self.scheme], self.dt, self.n_delay, self.frac,
+                                              *self._varying[2:], self.p, self.buf, self.head, rate, mean_u, refr,
+                                              s[0], s[1], s[2], s[3], s[4], s[5], s[6], s[7], *extra)
+            self.head = int(head)
+            msg = "" if ok else f"non-finite density at t = {self.t + done * self.dt:g} ms"
+            return rate[:done], mean_u[:done], refr[:done], (bool(ok), msg)
         sigma = self._noise(sigma, mu)
         if sigma is None or sigma.shape != mu.shape:
             raise ValueError("`sigma` (mV) must be given at the same step boundaries as `mu`")

@@ -125,9 +125,11 @@ def test_conductance_inputs_are_validated():
                      Cohort("W", POP, size=50, drive=10.0)], [Pathway("E", "W", 0.1, 5)])
     with pytest.raises(NotImplementedError, match="cohorts \\['W'\\] do not receive conductance"):
         montecarlo_network(mixed, 1.0, seed=1)
+    silent = Circuit([Cohort("E", POP, size=50, sigma_ext=0.0)],
+                     [Pathway("E", "E", 0.1, 5, tau_syn=2.0, synapse="conductance", reversal=E_EXC)])
+    with pytest.raises(ValueError, match="cohort 'E': its conductance input has no fluctuations at threshold"):
+        simulate_network(silent, 1.0)  # no background, sources silent at t = 0
     c = Circuit([Cohort("E", POP, size=50, drive=-20.0, sigma_ext=0.0, background=background(2000, 0.04))])
-    with pytest.raises(NotImplementedError, match="simulate_network"):
-        simulate_network(c, 1.0)
     (fp,) = fixed_points(c, (0.0, 100.0))
     with pytest.raises(NotImplementedError, match="not offered for conductance synapses"):
         spectral_matrix(c, fp, [10.0])
