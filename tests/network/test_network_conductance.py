@@ -4,6 +4,7 @@ twin, validation, and an E-I network in the high-conductance state against the s
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -133,6 +134,100 @@ def test_conductance_inputs_are_validated():
     (fp,) = fixed_points(c, (0.0, 100.0))
     with pytest.raises(NotImplementedError, match="not offered for conductance synapses"):
         spectral_matrix(c, fp, [10.0])
+
+
+# ------------------------------------------------------------------ time integration
+def feed_forward(size=1000, after=-15.0):
+    """S (background only; drive -20 -> ``after`` mV at 50 ms: 24 -> 51 Hz) inhibits T through conductances
+    (0.03 x 200, 1.2 ms, E_i = -10 mV) beside T's excitatory background (62 -> 36 Hz)."""
+    s = Cohort("S", POP, size=size, drive=popdens.drive.Step(50.0, -20.0, after), sigma_ext=0.0,
+               background=background(2000, 0.04))
+    t = Cohort("T", POP, size=size, drive=8.0, sigma_ext=0.0, background=background(2500, 0.02))
+    return Circuit([s, t], [Pathway("S", "T", 0.03, 200, delay=1.0, tau_syn=1.2, synapse="conductance",
+                                    reversal=E_INH)])
+
+
+def test_cohort_on_its_background_is_the_single_population_solver():
+    """A cohort driven only by its conductance background, through a drive step: simulate_network and
+    popdens.simulate of the ConductanceNoise population (same grid) give the same rates to round-off."""
+    drive = popdens.drive.Step(50.0, -20.0, -10.0)
+    c = Circuit([Cohort("E", POP, size=100, drive=drive, sigma_ext=0.0, background=background(2000, 0.04))])
+    res = simulate_network(c, 100.0, solver_options={"E": {"n_cells": 400, "u_min": -40.0}})
+    single = popdens.Population(LIF, popdens.ConductanceNoise(20000.0, 0.04, 1.0, E_EXC))
+    ref = popdens.simulate(single, drive, 100.0, 0.1, n_cells=400, u_min=-40.0, error_control="off", progress=False)
+    assert res.status == 0 and res.rate[0, -1] > 2 * res.rate[0, 0]
+    assert np.max(np.abs(res.rate[0] - ref.rate)) < 1e-9 * np.max(ref.rate)  # round-off (measured 8e-12 Hz)
+    assert np.all(res.mu[0] == drive(res.t)) and np.all(np.isnan(res.sigma))  # mu: the cohort's drive
+
+
+def test_integration_relaxes_to_the_fixed_point_from_any_start():
+    """Constant input: from three initial rates the E-I conductance network settles on its stable fixed point
+    (fixed_points: threshold integration of the rate) within 1e-3, the rate tolerance the Fokker--Planck
+    grid aims at (measured -6e-5), and the three end states agree within 2e-5 (measured 8e-6: the moving
+    threshold and the two-cell reset differ from a grid placed at the end state only by discretisation);
+    mass is conserved to round-off."""
+    c = ei_circuit()
+    (fp,) = fixed_points(c, (0.0, 60.0), starts_per_dim=2)
+    ends = []
+    for r0 in (fp.rates, [5.0, 5.0], [30.0, 30.0]):
+        res = simulate_network(c, 200.0, initial_rates=r0)
+        assert res.status == 0 and res.diagnostics["mass_error"] < 1e-10
+        ends.append(res.rate[:, -1])
+        assert np.allclose(res.rate[:, -1], fp.rates, rtol=1e-3, atol=0)  # the solver's rate tolerance
+    assert np.ptp(ends, axis=0).max() < 2e-5 * fp.rates.max()
+
+
+def test_mixed_circuit_relaxes_to_its_fixed_point():
+    """A conductance cohort E beside a white-noise current cohort W (E -> W current synapses, W -> E
+    inhibitory conductances): from rest and from another start the integration reaches the stable fixed
+    point within 1e-3 (the solvers' rate tolerance; measured 2e-4 to 4.5e-4 after 300 ms); W's mu and sigma
+    are its current input, E's mu its drive and sigma NaN."""
+    e = Cohort("E", POP, size=1000, drive=5.0, sigma_ext=0.0, background=background(2500, 0.02))
+    w = Cohort("W", popdens.Population(LIF, popdens.WhiteNoise(4.0)), size=1000, drive=12.0, sigma_ext=4.0)
+    c = Circuit([e, w], [Pathway("E", "W", 0.05, 100, delay=1.0),
+                         Pathway("W", "E", 0.05, 100, delay=1.0, tau_syn=1.2, synapse="conductance", reversal=E_INH)])
+    (fp,) = fixed_points(c, (0.0, 300.0), starts_per_dim=3)
+    assert stability(c, fp).stable
+    for r0 in ([0.0, 0.0], [30.0, 5.0]):
+        res = simulate_network(c, 300.0, initial_rates=r0)
+        assert res.status == 0 and res.diagnostics["mass_error"] < 1e-10
+        assert np.allclose(res.rate[:, -1], fp.rates, rtol=1e-3, atol=0)
+        assert res.mu[0, -1] == 5.0 and math.isnan(res.sigma[0, -1])
+        assert res.mu[1, -1] == pytest.approx(fp.mu[1], rel=1e-3) and res.sigma[1, -1] == pytest.approx(fp.sigma[1],
+                                                                                                         rel=1e-3)
+
+
+def twin_bins(c, t_end, bin_ms, seeds, size=None):
+    """Mean binned rates (Hz) of the spiking twin over independent seeds and their SE (spread over seeds)."""
+    runs = np.array([montecarlo_network(c, t_end, dt=0.05, seed=s, record_interval=bin_ms, progress=False).rate[:, 1:]
+                     for s in seeds])
+    return runs.mean(axis=0), runs.std(axis=0, ddof=1) / math.sqrt(len(seeds))
+
+
+def test_feed_forward_transient_against_the_twin():
+    """S's drive steps at 50 ms, and T's inhibitory conductance follows S's rate: the mean field's 2.5-ms
+    bins against the twin's (1000 + 1000 neurons, six seeds; SE from the spread over seeds).  Measured: 56
+    and 51 of 60 bins within 4 SE (S and T); the misses are the fast transient after the step (the
+    effective-time-constant theory's response to fast input is too weak, as the single population's), e.g.
+    T's trough 7.2 against 2.2 +- 0.4 Hz.  Asserted: 80 % of the bins, and the rates of the last 50 ms within
+    3 % or 4 SE of the fixed point after the step (the theory's error here, contributor guide)."""
+    c = feed_forward()
+    (fp0,) = fixed_points(c, (0.0, 200.0))
+    mf = simulate_network(c, 150.0, record_interval=2.5, initial_rates=fp0.rates)
+    m, se = twin_bins(c, 150.0, 2.5, range(6))
+    inside = np.abs(mf.rate[:, 1:] - m) < 4 * se
+    print("bins within 4 SE:", inside.sum(axis=1), "of", inside.shape[1])
+    assert np.all(inside.mean(axis=1) >= 0.8)  # twin, 4 SE
+    (fp1,) = fixed_points(Circuit([dataclasses.replace(c.cohorts[0], drive=-15.0), c.cohorts[1]], c.pathways),
+                          (0.0, 200.0))
+    late = slice(-20, None)
+    for k in range(2):
+        tw, tw_se = m[k, late].mean(), math.sqrt(np.sum(se[k, late] ** 2)) / 20
+        print(f"{c.names[k]}: last 50 ms mean field {mf.rate[k, late].mean():.3f}, twin {tw:.3f} +- {tw_se:.3f}, "
+              f"fixed point {fp1.rates[k]:.3f} Hz")
+        # settling on the fixed point: -0.3 % (S) and -0.5 % (T) over 100-150 ms, within 3e-4 after 400 ms
+        assert abs(mf.rate[k, late].mean() - fp1.rates[k]) < 5e-3 * fp1.rates[k]
+        assert abs(fp1.rates[k] - tw) < max(0.03 * tw, 4 * tw_se)  # twin, 3 % or 4 SE
 
 
 # ------------------------------------------------------------------ slow: E-I network against the twin
