@@ -295,3 +295,26 @@ def test_inhibition_factor_scales_conductances_that_reverse_below_threshold():
         factor = 2.0 if before.reversal < LIF.threshold else 1.0
         assert after.weight == pytest.approx(factor * before.weight, rel=1e-15)
     assert sum(p.reversal < LIF.threshold for p in c.pathways) == 2
+
+
+@pytest.mark.slow
+def test_ei_network_drive_step_against_the_twin():
+    """The E-I network in the high-conductance state (stable, delay 1 ms), drive 5 -> 8 mV at 100 ms: the mean
+    field's 5-ms bins against the twin's (4000 + 2000 neurons, ten seeds of 300 ms; SE from the spread over
+    seeds, which carries the network's own fluctuations), and the rates of the last 100 ms against the fixed
+    point after the step within 3 % or 4 SE (the fixed point's error against the twin, above)."""
+    c = ei_circuit(drive=popdens.drive.Step(100.0, 5.0, 8.0))
+    (fp0,) = fixed_points(ei_circuit(), (0.0, 60.0), starts_per_dim=2)
+    (fp1,) = fixed_points(ei_circuit(drive=8.0), (0.0, 60.0), starts_per_dim=2)
+    mf = simulate_network(c, 300.0, record_interval=5.0, initial_rates=fp0.rates)
+    m, se = twin_bins(c, 300.0, 5.0, range(10))
+    inside = np.abs(mf.rate[:, 1:] - m) < 4 * se
+    late = slice(-20, None)
+    for k in range(2):
+        print(f"{c.names[k]}: " + " ".join(f"{a:.1f}/{b:.1f}+-{e:.1f}" for a, b, e in zip(mf.rate[k, 1:], m[k], se[k])))
+        tw, tw_se = m[k, late].mean(), math.sqrt(np.sum(se[k, late] ** 2)) / 20
+        print(f"{c.names[k]}: {inside[k].sum()} of {inside.shape[1]} bins within 4 SE; last 100 ms mean field "
+              f"{mf.rate[k, late].mean():.3f}, twin {tw:.3f} +- {tw_se:.3f}, fixed point {fp1.rates[k]:.3f} Hz")
+        assert inside[k].mean() >= 0.8  # twin, 4 SE
+        assert abs(fp1.rates[k] - tw) < max(0.03 * tw, 4 * tw_se)  # twin, 3 % or 4 SE
+        assert abs(mf.rate[k, late].mean() - fp1.rates[k]) < 2e-3 * fp1.rates[k]  # settled on the fixed point
