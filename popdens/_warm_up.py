@@ -132,6 +132,7 @@ def _network():
                            [popdens.Pathway("C", "C", weight=0.05, in_degree=2, delay=1.0, tau_syn=1.0,
                                             synapse="conductance", reversal=70.0)])
     popdens.montecarlo_network(cond, t_end=2.0, dt=0.1, seed=1, progress=False)
+    popdens.simulate_network(cond, t_end=2.0, dt=0.1, progress=False)
 
 
 def _finite_size():

@@ -50,6 +50,7 @@ EXPECTED_SECONDS = {
     "_threshold.rates_for_drives": 1.1,
     "_network.run_network": 5.5,
     "fokker_planck._advance_adapting": 3.0,
+    "fokker_planck._advance_varying": 3.0,
     "_renewal_adapting.adapted_renewal": 6.0,
     "_isi_markov._density": 2.0,
     "_shot.run_shot": 2.5,

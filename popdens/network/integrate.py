@@ -15,6 +15,15 @@ filtered rates.  The grid is built at ``delta(0)``; later changes
 of ``delta`` enter as the mean input ``F'(theta) (delta - delta(0)) - tau_m
 d delta/dt`` (the change of variable ``u -> u - delta(t)``, exact for a
 linear drift, first order otherwise).
+
+Conductance cohorts (``synapse="conductance"``, :mod:`popdens.network._conductance_input`): the
+recurrent input enters through the cohort's conductance channels, whose ``S1 = sum w n`` and ``S2 =
+sum w^2 n`` follow the pathways' filtered delayed rates recorded in ``s_rec``
+(:class:`~popdens.network._conductance_input.ConductanceFeed`); the cohort's Fokker--Planck solver
+combines drift and diffusion from them at every step and moves threshold and reset with the
+boundary shifts of the momentary input
+(:meth:`~popdens.solvers.fokker_planck.FokkerPlanckSolver.advance_conductance`).  Their ``mu`` is
+the cohort's own drive, their ``sigma`` NaN.
 """
 
 from __future__ import annotations
@@ -121,8 +130,9 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     """Integrate the coupled population-density equations of a circuit.
 
     Every cohort is solved by its density solver (refractory density for
-    escape noise, Fokker--Planck for white noise); all are stepped together,
-    coupled through delayed, filtered rates (module docstring).  With
+    escape noise, Fokker--Planck for white noise and for conductance
+    synapses); all are stepped together, coupled through delayed, filtered
+    rates (module docstring).  With
     ``finite_size=True`` every escape-noise cohort is a population of its
     ``size`` neurons (mesoscopic equations, :mod:`popdens.solvers.mesoscopic`),
     and the cohorts are coupled through their *realised* activities.
@@ -160,7 +170,9 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     Returns
     -------
     CircuitResult
-        ``rate`` (Hz), ``mu`` (mV) and ``sigma`` (mV) per cohort; with
+        ``rate`` (Hz), ``mu`` (mV) and ``sigma`` (mV) per cohort (for a cohort
+        with conductance synapses ``mu`` is its own drive and ``sigma`` NaN: its
+        input is conductances, not a current of one amplitude); with
         ``finite_size`` the realised activities (``method`` "mesoscopic") and
         ``sizes``.
 

@@ -28,7 +28,9 @@ class CircuitResult(Displayable):
         the mean over ``(t[j-1], t[j]]``.
     mu, sigma : ndarray, shape (n_cohorts, n_times) or None
         Total drive (mV) and noise amplitude (mV, NaN for escape noise) at
-        ``t`` (mean-field integration only).
+        ``t`` (mean-field integration only).  Cohorts with conductance synapses:
+        their own drive (mV) and NaN (the conductances are not a current of
+        one amplitude).
     mean_u : ndarray, shape (n_cohorts, n_times) or None
         Monte Carlo: mean membrane potential (mV) at ``t``.
     method : str
