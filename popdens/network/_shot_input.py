@@ -26,6 +26,12 @@ output rate to the input rates (:class:`popdens.theory._shot_rate_response.RateR
 .. math:: M_{kl}(\\lambda) = \\chi_{e|i,k}(\\lambda)\\, C_{kl}\\, e^{-\\lambda d_{kl}},
 
 ``chi_e`` for ``J_kl > 0``, ``chi_i`` for ``J_kl < 0`` (Hz per Hz).
+
+Time integration (:class:`ShotStepper`): the cohort's jump-density solver
+(:class:`~popdens.solvers.jump_density.JumpDensitySolver`) is stepped with the
+input rates ``nu_e(t), nu_i(t)`` built from every pathway's delayed rate at
+the step boundaries (the network integrator's record ``s_rec``, 1/ms) plus the
+constant background, and the cohort's own ``drive(t)`` as its drive.
 """
 
 from __future__ import annotations
@@ -38,7 +44,7 @@ from ..model.drive import Constant
 from ..model.noise import Population
 from ..model.shot import ShotNoise
 
-__all__ = ["check_shot_cohort", "shot_population", "shot_rate", "diffusion_circuit", "add_shot_terms"]
+__all__ = ["check_shot_cohort", "shot_population", "shot_rate", "diffusion_circuit", "add_shot_terms", "ShotStepper"]
 
 #: Two shot weights of one sign within this relative distance are one amplitude.
 SAME_WEIGHT = 1e-12
@@ -149,3 +155,78 @@ def add_shot_terms(out, circuit, state, lam, cohorts) -> None:
             l = circuit.index(p.source)
             chi = chi_e if p.weight > 0 else chi_i
             out[:, k, l] += chi * p.in_degree * p.kernel_laplace(lam)
+
+
+#: Room below the solver's grid, in units of (boundary - reset), for input that pushes the potential
+#: below its initial range during a run (as the Fokker--Planck cohorts of the integrator).
+EXTRA_LOWER_SPANS = 1.0
+
+
+class ShotStepper:
+    """Cohort ``k``'s jump-density solver in the network integrator (module docstring).
+
+    ``weights`` map the pathways' delayed rates (1/ms, in ``circuit.pathways`` order) to the cohort's
+    excitatory and inhibitory input rates (Hz); ``s0`` are those delayed rates at t = 0, which set the
+    stationary initial state.
+    """
+
+    def __init__(self, circuit, k: int, dt: float, s0, mu0: float, options: dict | None = None):
+        from ..solvers.jump_density import JumpDensitySolver  # noqa: PLC0415 - scipy-heavy, loaded on first use
+
+        a = circuit.cohorts[k]
+        self.name = a.name
+        self.tau_m = a.tau_m
+        nq = len(circuit.pathways)
+        self.w_exc, self.w_inh = np.zeros(nq), np.zeros(nq)
+        amp = {1: 0.0, -1: 0.0}
+        for q, p in enumerate(circuit.pathways):
+            if circuit.index(p.target) == k and p.weight != 0.0:
+                (self.w_exc if p.weight > 0 else self.w_inh)[q] = p.in_degree * 1e3  # Hz per 1/ms
+                amp[1 if p.weight > 0 else -1] = abs(p.weight)
+        self.bg_exc = self.bg_inh = 0.0
+        bg = a.background
+        if bg is not None and bg.weight != 0.0:
+            if bg.weight > 0:
+                self.bg_exc = bg.count * bg.rate
+            else:
+                self.bg_inh = bg.count * bg.rate
+            amp[1 if bg.weight > 0 else -1] = abs(bg.weight)
+        if amp[1] == 0.0 and amp[-1] == 0.0:
+            raise ValueError(f"cohort {a.name!r}: shot-noise synapses with zero weight everywhere carry no input")
+        self.a_exc, self.a_inh = amp[1], amp[-1]
+        ne0, ni0 = self.rates(np.asarray(s0, dtype=float)[:, None])
+        if ne0[0] == 0.0 and ni0[0] == 0.0:
+            raise ValueError(f"cohort {a.name!r} receives no input spikes at t = 0 (its sources' `initial_rates` "
+                             "are 0 and it has no background): its initial state is not defined; give its sources "
+                             "initial rates > 0 or the cohort a background")
+        noise = ShotNoise(float(ne0[0]), self.a_exc if self.a_exc > 0 else self.a_inh, float(ni0[0]), self.a_inh)
+        opts = dict(options or {})
+        nrn = a.population.neuron
+        try:
+            self.solver = JumpDensitySolver(Population(nrn, noise), dt, **opts)
+        except TypeError as exc:
+            raise ValueError(f"cohort {a.name!r}: bad solver option in {sorted(opts)}: {exc}") from None
+        if "u_min" not in opts:
+            self.solver.plan([mu0, mu0 - EXTRA_LOWER_SPANS * (float(nrn.boundary) - float(nrn.reset))], None)
+        self.solver.initialize(float(mu0), None, "stationary")
+
+    def rates(self, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Excitatory and inhibitory input rates (Hz) from the pathways' delayed rates ``s`` (1/ms, shape
+        ``(n_pathways, m)``)."""
+        return self.bg_exc + self.w_exc @ s, self.bg_inh + self.w_inh @ s
+
+    def advance(self, mu: np.ndarray, s: np.ndarray) -> np.ndarray:
+        """Advance ``len(mu) - 1`` steps at drive ``mu`` (mV) and the delayed rates ``s`` (1/ms) at the same
+        boundaries; returns the step-mean rates (Hz)."""
+        ne, ni = self.rates(s)
+        rate, _, _ = self.solver.advance_rates(mu, np.maximum(ne, 0.0), np.maximum(ni, 0.0))
+        return rate
+
+    def equivalent(self, mu: np.ndarray, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Diffusion-equivalent total drive and noise amplitude (mV) of the input at drive ``mu`` (mV) and
+        delayed rates ``s`` (1/ms): ``mu + tau_m (nu_e a_e - nu_i a_i)`` and ``sqrt(tau_m (nu_e a_e^2 + nu_i
+        a_i^2))`` (rates in 1/ms; fixed amplitudes, Stein 1965)."""
+        ne, ni = self.rates(s)
+        t = self.tau_m * 1e-3
+        return (mu + t * (ne * self.a_exc - ni * self.a_inh),
+                np.sqrt(np.maximum(t * (ne * self.a_exc ** 2 + ni * self.a_inh ** 2), 0.0)))

@@ -47,6 +47,7 @@ from ..model.noise import Population, WhiteNoise
 from ..model.synaptic import ALPHA
 from ._conductance_input import ConductanceFeed, conductance_population
 from ._inputs import block_inputs, combine
+from ._shot_input import ShotStepper
 from .circuit import DEFAULT_DT, HZ_TO_PER_MS, STEP_TOL, Circuit, Pathway
 from .result import CircuitResult
 from .twin import DEFAULT_BURN_IN_MS  # finite cohorts burn in as long as the spiking twin
@@ -188,7 +189,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     """
     if not isinstance(circuit, Circuit):
         raise ValueError(f"`circuit` must be a popdens.network.Circuit, got {circuit!r}")
-    circuit.require_current("simulate_network", allow=("conductance",))
+    circuit.require_current("simulate_network", allow=("conductance", "shot"))
     dt = DEFAULT_DT if dt is None else dt
     grid = make_grid(t_end, dt, record_interval, None)
     dt = grid.dt
@@ -225,14 +226,18 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
 
     tgt = [circuit.index(p.target) for p in circuit.pathways]
     src = [circuit.index(p.source) for p in circuit.pathways]
-    cmean = [circuit.cohorts[k].tau_m * p.weight * p.in_degree for p, k in zip(circuit.pathways, tgt)]
+    # shot-noise cohorts take their input as rates of jumps (ShotStepper), not as drive and noise
+    shot = [circuit.synapse_kind(k) == "shot" for k in range(nk)]
+    cmean = [0.0 if shot[k] else circuit.cohorts[k].tau_m * p.weight * p.in_degree
+             for p, k in zip(circuit.pathways, tgt)]
     for q, p in enumerate(circuit.pathways):
         if finite[tgt[q]] and src[q] == tgt[q]:
             # no neuron synapses on itself: the population term counts all N neurons (C/(N-1) of each)
             # and each age bin loses its own last spike's share (set_own_input below)
             size = circuit.cohorts[tgt[q]].size
             cmean[q] *= size / (size - 1.0)
-    cvar = [circuit.cohorts[k].tau_m * p.weight ** 2 * p.in_degree if circuit.cohorts[k].diffusive else 0.0
+    cvar = [circuit.cohorts[k].tau_m * p.weight ** 2 * p.in_degree if circuit.cohorts[k].diffusive and not shot[k]
+            else 0.0
             for p, k in zip(circuit.pathways, tgt)]
     # conductance cohorts: their input enters through their channels (ConductanceFeed), not as mu and sigma
     feeds = {k: ConductanceFeed(circuit, k) for k in range(nk) if circuit.synapse_kind(k) == "conductance"}
@@ -240,8 +245,11 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         if k in feeds:
             cmean[q] = cvar[q] = 0.0
     tq = grid.step_times(0, grid.n_steps)
-    ext_mu = np.array([np.broadcast_to(a.external_mean(tq), tq.shape) for a in circuit.cohorts])
-    ext_var = np.array([np.broadcast_to(a.external_variance(tq), tq.shape) for a in circuit.cohorts])
+    # a shot cohort's solver sees its own drive only (its background is input spikes, ShotStepper)
+    ext_mu = np.array([np.broadcast_to(a.drive(tq) if shot[k] else a.external_mean(tq), tq.shape)
+                       for k, a in enumerate(circuit.cohorts)])
+    ext_var = np.array([np.broadcast_to(0.0 if shot[k] else a.external_variance(tq), tq.shape)
+                        for k, a in enumerate(circuit.cohorts)])
     ext_fw = np.array([np.broadcast_to(a.external_filter_weight(tq), tq.shape) for a in circuit.cohorts])
     # external jumps on step boundaries: the input after the jump at its boundary, the input before
     # it kept apart (`ext_left`) for the end of the block that leads up to it (no response precedes it)
@@ -272,7 +280,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         raise ValueError("the external drive or noise of a cohort is not finite on [0, t_end]")
     diffusive = [a.diffusive for a in circuit.cohorts]
     # cohorts with filtered input and a hard threshold: moving effective boundary (module docstring)
-    filtered = [diffusive[k] and not a.population.neuron.has_cutoff and k not in feeds
+    filtered = [diffusive[k] and not shot[k] and not a.population.neuron.has_cutoff and k not in feeds
                 and (a.ext_tau_syn > 0 or (a.background is not None and a.background.tau_syn > 0)
                      or any(p.tau_syn > 0 for p, t_ in zip(circuit.pathways, tgt) if t_ == k))
                 for k, a in enumerate(circuit.cohorts)]
@@ -311,7 +319,12 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
         # the drive seen by the solvers: the moving boundary as mean input (module docstring)
         return mu + slope_at_threshold * (shift - shift0) - tau_ms * (shift - shift_before) / dt
     solvers = []
+    steppers = {}  # shot-noise cohorts (popdens.network._shot_input)
     for k, a in enumerate(circuit.cohorts):
+        if shot[k]:
+            steppers[k] = ShotStepper(circuit, k, dt, r0_q, float(mu0[k]), solver_options.get(a.name))
+            solvers.append(steppers[k].solver)
+            continue
         cls = resolve_method(a.population, None)
         opts = dict(solver_options.get(a.name, {}))
         if k in feeds:
@@ -389,6 +402,8 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
             for k, s in enumerate(solvers):
                 if k in feeds:
                     r, _, _ = feeds[k].advance(s, mu_blk[k], s_rec[:, j:j + nb + 1])
+                elif k in steppers:
+                    r = steppers[k].advance(mu_blk[k], s_rec[:, j:j + nb + 1])
                 elif diffusive[k]:
                     r, _, _ = s.advance(mu_blk[k], sg_blk[k])
                 else:
@@ -419,9 +434,12 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     idx = np.arange(n_out + 1) * e
     sg_out = np.where(np.array([d and k not in feeds for k, d in enumerate(diffusive)])[:, None],
                       sgs[:, n_burn + idx], np.nan)
+    mu_out = mus[:, n_burn + idx]
+    for k, stp in steppers.items():  # the diffusion-equivalent input of the jumps (CircuitResult)
+        mu_out[k], sg_out[k] = stp.equivalent(mu_out[k], s_rec[:, n_burn + idx])
     mass = [abs(s.mass() - 1.0) for s in solvers]
     return CircuitResult(
-        names=circuit.names, t=idx * dt, rate=r_out, mu=mus[:, n_burn + idx], sigma=sg_out,
+        names=circuit.names, t=idx * dt, rate=r_out, mu=mu_out, sigma=sg_out,
         method="mesoscopic" if finite_size else "mean-field",
         status=status, message=message, dt=dt,
         sizes=tuple(a.size for a in circuit.cohorts) if finite_size else None,

@@ -225,15 +225,6 @@ def parse_network_scenario(data: dict, source: str | Path = "<scenario>") -> Net
         raise err(src, "network", "stability", True, "false when `fixed_points` is false (stability is "
                    "analysed at the fixed points)")
     montecarlo = _flag(src, "network", "montecarlo", net.get("montecarlo", False))
-    unsupported = []
-    for kind, label in (("shot", "shot-noise"),):
-        names = [nm for k, nm in enumerate(circuit.names) if circuit.synapse_kind(k) == kind]
-        if names:
-            unsupported.append(f"{label} synapses ({', '.join(names)})")
-    if t_end > 0 and unsupported and not (montecarlo and want_fp):
-        raise err(src, "network", "t_end", t_end, f"0, or `montecarlo` and `fixed_points` true: the mean-field "
-                  f"time integration of cohorts with {' or '.join(unsupported)} is not "
-                  "available yet, so a time-domain run is the spiking twin against the stable fixed point")
     if montecarlo and t_end == 0:
         raise err(src, "network", "montecarlo", True, "false, or a `t_end` > 0 for the spiking twin to run")
     finite = _flag(src, "network", "finite_size", net.get("finite_size", False))

@@ -344,11 +344,8 @@ def _network(scenario, tmp: Path, header: dict, summary: dict, timing: dict, pro
     if scenario.bifurcation is not None:
         figures += _bifurcation(scenario, tmp, header, summary, timing, progress)
     if scenario.t_end > 0:
-        if any(c.synapse_kind(k) == "shot" for k in range(c.n)):
-            mf = _held_fixed_point(c, scenario, start)
-        else:
-            mf = simulate_network(c, scenario.t_end, scenario.dt, record_interval=scenario.record_interval,
-                                  initial_rates=None if start is None else start.rates, progress=progress)
+        mf = simulate_network(c, scenario.t_end, scenario.dt, record_interval=scenario.record_interval,
+                              initial_rates=None if start is None else start.rates, progress=progress)
         _stop_if_interrupted(mf)
         timing["mean_field_s"] = mf.diagnostics.get("wall_time_s")
         cols = {"t_ms": mf.t, **{f"rate_Hz_{nm}": mf.rate[k] for k, nm in enumerate(names)}}
@@ -454,28 +451,6 @@ def _network_spectra(scenario, fin, mc, states, tmp: Path, summary: dict) -> lis
     return [("network_spectra.png", "Power spectra of the escape-noise cohorts' rates: finite cohorts"
              + (", spiking twin" if emc is not None else "") + (", linear-response prediction at the stable state"
                                                                 if predicted else ""))]
-
-
-def _held_fixed_point(c, scenario, start):
-    """The prediction for a circuit with shot-noise synapses, whose time integration is not
-    available: the first stable fixed point held over the run (NaN, with a message, when none was found; the spiking twin
-    still runs)."""
-    from ..network.circuit import DEFAULT_DT
-    from ..network.result import CircuitResult
-    from ..result import STATUS_FAILED, STATUS_OK
-    from ..solvers._recording import make_grid
-
-    grid = make_grid(scenario.t_end, scenario.dt if scenario.dt is not None else DEFAULT_DT,
-                     scenario.record_interval, None)
-    t = np.arange(grid.n_steps // grid.every + 1) * grid.every * grid.dt
-    rates = np.full((c.n, t.size), np.nan)
-    if start is None:
-        message = "no stable fixed point found: nothing to hold (rates NaN)"
-    else:
-        rates[:, 1:] = np.asarray(start.rates)[:, None]
-        message = "stable fixed point held (time integration of shot-noise synapses not available)"
-    return CircuitResult(names=c.names, t=t, rate=rates, method="fixed point", status=STATUS_OK, message=message,
-                         dt=grid.dt)
 
 
 def _root_marks(verdict) -> list:

@@ -17,6 +17,23 @@ factorisation of ``I - dt L`` is kept for the last few drives (one for a
 constant or piecewise-constant drive; a drive that changes every step
 refactorises every step).
 
+Time-varying input rates (:meth:`JumpDensitySolver.advance_rates`, used by
+the network integrator): the generator is linear in the rates, ``L = D(mu) +
+nu_e E + nu_i I``, so every step has its own matrix ``A = I - dt L``.  A
+sparse factorisation costs 50 to 150 solves with it (measured: 12 ms against
+0.23 ms for 3316 cells, 87 ms against 2.3 ms for 7402), so the step solves
+``A x = rhs`` by defect correction with the factorisation ``P`` of a nearby
+``A_ref`` as preconditioner, ``x <- x + P^-1 (rhs - A x)``, to a residual of
+:data:`SOLVE_TOL` of the right-hand side (1-norm, i.e. of the mass): the
+same backward-Euler step to round-off, so positivity and conservation hold
+as for the direct solve (the residual's mass, at most the tolerance, is
+removed by rescaling ``x``, which keeps it positive).  ``P^-1 (A - P)`` has norm at most ``2 dt
+(|nu_e - nu_e,ref| + |nu_i - nu_i,ref|)`` (``P^-1`` is nonnegative with
+column sums <= 1, the jump operators have column norms <= 2); when a step
+needs more than :data:`REFRESH_CORRECTIONS` corrections the next step
+refactorises at its own rates, and a step that does not converge in
+:data:`MAX_CORRECTIONS` is solved directly.
+
 The upwind drift makes the scheme first order in ``h``; the solver runs the
 same problem on grids of width ``h`` and ``h/2`` and reports the rate
 Richardson-extrapolated from the two (``2 r_{h/2} - r_h``); the density,
@@ -35,8 +52,8 @@ from scipy.sparse import linalg as sparse_linalg
 
 from .. import _validation as v
 from ..model.shot import ShotNoise
-from ..theory._shot_operator import (DENSE_BAND, ShotGrid, generator, jump_fractions, lu_ordering, shot_grid,
-                                     stationary_masses)
+from ..theory._shot_operator import (DENSE_BAND, ShotGrid, drift_part, generator, jump_fractions, jump_parts,
+                                     lu_ordering, shot_grid, stationary_masses)
 from ._base import SolverBase
 
 __all__ = ["JumpDensitySolver"]
@@ -47,6 +64,12 @@ CACHE_SIZE = 4
 DELAY_TOL = 1e-9
 #: Accuracy guard: largest probability in the lowest cell (the lower edge reflects).
 MAX_LOWEST_CELL_MASS = 1e-6
+#: Time-varying input rates: residual of the defect correction, relative to the right-hand side (1-norm).
+SOLVE_TOL = 1e-12
+#: Corrections after which the next step refactorises at its own rates.
+REFRESH_CORRECTIONS = 4
+#: Corrections after which the step is solved directly (a new factorisation at its rates).
+MAX_CORRECTIONS = 12
 
 
 class _Level:
@@ -61,7 +84,12 @@ class _Level:
         self.head = 0
         self._lu: OrderedDict = OrderedDict()
         self.dense = max(jump_fractions(noise.amplitudes, a, grid.h)[1] for a in
-                         [noise.exc_psp] + ([noise.inh_psp] if noise.inhibited else [])) > DENSE_BAND
+                         [noise.exc_psp] + ([noise.inh_psp] if noise.inh_psp > 0.0 else [])) > DENSE_BAND
+        # time-varying input rates: the operator's parts, the reference factorisation, counters
+        self._parts = None
+        self._ref = None
+        self.factorisations = 0
+        self.solves = 0
 
     def _factor(self, mu: float):
         key = float(mu)
@@ -70,16 +98,53 @@ class _Level:
             self._lu.move_to_end(key)
             return hit
         L, out = generator(self.neuron, self.noise, key, self.grid)
-        a = sparse.identity(self.grid.n, format="csc") - self.dt * L.tocsc()
-        if self.dense:  # exponential PSPs: the jumps couple every cell to every cell above it
-            lu = linalg.lu_factor(a.toarray())
-            hit = (lambda rhs, lu=lu: linalg.lu_solve(lu, rhs), out)
-        else:
-            hit = (sparse_linalg.splu(a.tocsc(), permc_spec=lu_ordering(self.noise)).solve, out)
+        hit = (self._solver_of(L), out)
         self._lu[key] = hit
         if len(self._lu) > CACHE_SIZE:
             self._lu.popitem(last=False)
         return hit
+
+    def _solver_of(self, L):
+        """The solve with ``I - dt L`` (``L`` sparse, 1/ms), factorised once."""
+        a = sparse.identity(self.grid.n, format="csc") - self.dt * L.tocsc()
+        self.factorisations += 1
+        if self.dense:  # exponential PSPs: the jumps couple every cell to every cell above it
+            lu = linalg.lu_factor(a.toarray())
+            return lambda rhs, lu=lu: linalg.lu_solve(lu, rhs)
+        return sparse_linalg.splu(a.tocsc(), permc_spec=lu_ordering(self.noise)).solve
+
+    def _solve_at_rates(self, mu: float, nu_e: float, nu_i: float, rhs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """``(I - dt L(mu, nu_e, nu_i))^-1 rhs`` and the output per unit mass (1/ms); rates in 1/ms (module
+        docstring: defect correction preconditioned by the reference factorisation)."""
+        if self._parts is None or self._parts[0] != mu:
+            (e_op, e_out), (i_op, i_out) = jump_parts(self.noise, self.grid)
+            self._parts = (mu, *drift_part(self.neuron, mu, self.grid), e_op, e_out, i_op, i_out)
+            self._ref = None
+        _, d_op, d_out, e_op, e_out, i_op, i_out = self._parts
+        out = d_out + nu_e * e_out + nu_i * i_out
+        ref = self._ref
+        if ref is not None and not ref[3]:
+            solve = ref[2]
+            x = solve(rhs)
+            self.solves += 1
+            scale = SOLVE_TOL * float(np.abs(rhs).sum())
+            for it in range(MAX_CORRECTIONS):
+                r = rhs - x + self.dt * (d_op @ x + nu_e * (e_op @ x) + nu_i * (i_op @ x))
+                if float(np.abs(r).sum()) <= scale:
+                    if it > REFRESH_CORRECTIONS:
+                        self._ref = (*ref[:3], True)  # stale: the next step refactorises
+                    # the residual's mass (<= the tolerance) rescaled away: exact conservation, as a direct solve
+                    kept = float(x.sum() + self.dt * (out @ x))
+                    if kept > 0.0:
+                        x *= float(rhs.sum()) / kept
+                    return x, out
+                x += solve(r)
+                self.solves += 1
+        # (re)factorise at these rates: they become the reference
+        solve = self._solver_of(d_op + nu_e * e_op + nu_i * i_op)
+        self._ref = (nu_e, nu_i, solve, False)
+        self.solves += 1
+        return solve(rhs), out
 
     def stationary(self, mu: float) -> None:
         m, rate_hz = stationary_masses(self.neuron, self.noise, mu, self.grid)
@@ -110,13 +175,18 @@ class _Level:
         self.buf[j0] += 1.0 - w1
         self.buf[j0 + 1] += w1
 
-    def step(self, mu_end: float) -> float:
-        """One backward-Euler step; returns the mass fired in it."""
+    def step(self, mu_end: float, rates=None) -> float:
+        """One backward-Euler step; returns the mass fired in it.  ``rates``: the input rates (Hz, at the
+        step's end) when they differ from the noise's."""
         q = self.buf[self.head]
         self.buf[self.head] = 0.0
-        solve, out = self._factor(mu_end)
         rhs = self.m + q * self.b
-        self.m[:] = solve(rhs)
+        if rates is None:
+            solve, out = self._factor(mu_end)
+            self.m[:] = solve(rhs)
+            self.solves += 1
+        else:
+            self.m[:], out = self._solve_at_rates(mu_end, rates[0] * 1e-3, rates[1] * 1e-3, rhs)
         np.maximum(self.m, 0.0, out=self.m)  # round-off only (M-matrix)
         fired = self.dt * float(out @ self.m)
         nb = self.buf.size
@@ -177,6 +247,7 @@ class JumpDensitySolver(SolverBase):
         self.n_delay, self.frac = n_delay, (frac if frac > DELAY_TOL else 0.0)
         self._planned = None
         self.levels = None
+        self._block_rates = None
 
     def resolution_options(self) -> dict:
         if not self.levels:
@@ -223,9 +294,11 @@ class JumpDensitySolver(SolverBase):
         fine = self.levels[1]
         c = fine.grid.centres
         reset = float(self.population.neuron.reset)
+        nus = self._block_rates
         for k in range(n):
-            f0 = self.levels[0].step(float(mu[k + 1]))
-            f1 = fine.step(float(mu[k + 1]))
+            nu = None if nus is None else (float(nus[0][k + 1]), float(nus[1][k + 1]))
+            f0 = self.levels[0].step(float(mu[k + 1]), nu)
+            f1 = fine.step(float(mu[k + 1]), nu)
             rate[k] = (2.0 * f1 - f0) / (self.dt * 1e-3)
             rf = fine.refractory()
             mean_u[k] = float(c @ fine.m) + rf * reset
@@ -233,6 +306,42 @@ class JumpDensitySolver(SolverBase):
             if not math.isfinite(rate[k]):
                 return rate[:k + 1], mean_u[:k + 1], refr[:k + 1], (False, "non-finite density")
         return rate, mean_u, refr, (True, "")
+
+    def advance_rates(self, mu, exc_rate, inh_rate):
+        """Advance ``len(mu) - 1`` steps with time-varying input rates (module docstring).
+
+        Parameters
+        ----------
+        mu : array_like
+            Drive (mV) at the step boundaries, as for :meth:`advance`.
+        exc_rate, inh_rate : array_like
+            Total excitatory and inhibitory input rates (Hz) at the same boundaries, >= 0; the
+            amplitudes are the population's.  Backward Euler uses each step's end values.
+
+        Returns
+        -------
+        rate, mean_u, refractory : numpy.ndarray
+            As :meth:`advance`.
+        """
+        mu = np.ascontiguousarray(mu, dtype=float)
+        nus = []
+        for name, x in (("exc_rate", exc_rate), ("inh_rate", inh_rate)):
+            x = np.ascontiguousarray(x, dtype=float)
+            if x.shape != mu.shape or not np.all(np.isfinite(x)) or np.any(x < 0):
+                raise ValueError(f"`{name}` must be {mu.size} finite rates >= 0 (Hz, one per step boundary), "
+                                 f"got shape {x.shape}")
+            nus.append(x)
+        if np.any(nus[1] > 0) and not self.population.noise.inh_psp > 0.0:
+            raise ValueError("`inh_rate` > 0 needs an inhibitory amplitude: the population's `inh_psp` is 0 mV")
+        self._block_rates = nus
+        try:
+            return self.advance(mu)
+        finally:
+            self._block_rates = None
+
+    def factorisations(self) -> int:
+        """Factorisations of the step matrix so far, over both grids."""
+        return sum(lv.factorisations for lv in self.levels or [])
 
     @property
     def axis(self) -> np.ndarray:
@@ -278,4 +387,5 @@ class JumpDensitySolver(SolverBase):
         if not self.levels:
             return {}
         g = self.levels[0].grid
-        return {"n_cells": int(g.n), "cell_mV": g.h, "u_min_mV": g.lower, "extrapolated_from": [g.n, 2 * g.n]}
+        return {"n_cells": int(g.n), "cell_mV": g.h, "u_min_mV": g.lower, "extrapolated_from": [g.n, 2 * g.n],
+                "factorisations": self.factorisations(), "solves": sum(lv.solves for lv in self.levels)}

@@ -45,7 +45,7 @@ import numpy as np
 from scipy import linalg, sparse
 from scipy.sparse import linalg as sparse_linalg
 
-__all__ = ["ShotGrid", "shot_grid", "jump_fractions", "generator", "dense_jumps", "stationary_masses", "jump_density_rates",
+__all__ = ["ShotGrid", "shot_grid", "jump_fractions", "generator", "drift_part", "jump_parts", "dense_jumps", "stationary_masses", "jump_density_rates",
            "lu_ordering"]
 
 #: Default target cell width (mV) of the coarsest grid before alignment with fixed PSP amplitudes
@@ -199,10 +199,20 @@ def generator(neuron, noise, mu: float, grid: ShotGrid):
     """The generator ``L`` (n x n, sparse CSC, 1/ms) on cell masses without the reinjection at reset,
     and the output rate per unit mass of each cell (1/ms): ``L + b out^T`` conserves mass, ``b`` the
     reset weights (:meth:`ShotGrid.reset_weights`)."""
+    L, out = drift_part(neuron, mu, grid)
+    for rate_hz, (jumps, jump_out) in zip((noise.exc_rate, noise.inh_rate), jump_parts(noise, grid)):
+        if rate_hz > 0.0:
+            L = L + (rate_hz * 1e-3) * jumps
+            out = out + (rate_hz * 1e-3) * jump_out
+    return L.tocsc(), out
+
+
+def drift_part(neuron, mu: float, grid: ShotGrid):
+    """The drift's part of the generator (sparse CSC, 1/ms) and its output per unit mass (1/ms): upwind
+    face fluxes at drive ``mu`` (mV); the generator is this plus the input rates times :func:`jump_parts`."""
     n, h = grid.n, grid.h
     tau = float(neuron.tau_m)
     edges = grid.edges
-    rows, cols, vals = [], [], []
     out = np.zeros(n)
     # drift: upwind at the interior faces and the top face
     a = (np.asarray(neuron.drift(edges[1:]), dtype=float) + float(mu)) / tau  # faces 1..n (mV/ms)
@@ -212,26 +222,31 @@ def generator(neuron, noise, mu: float, grid: ShotGrid):
     j = np.arange(n - 1)
     up = np.maximum(a[:-1], 0.0) / h
     down = np.maximum(-a[:-1], 0.0) / h
-    rows += [j + 1, j, j, j + 1]
-    cols += [j, j, j + 1, j + 1]
-    vals += [up, -up, down, -down]
     out[-1] += max(a[-1], 0.0) / h
     diag_top = np.zeros(n)
     diag_top[-1] = -max(a[-1], 0.0) / h
-    rows.append(np.arange(n))
-    cols.append(np.arange(n))
-    vals.append(diag_top)
-    # jumps
+    rows = [j + 1, j, j, j + 1, np.arange(n)]
+    cols = [j, j, j + 1, j + 1, np.arange(n)]
+    vals = [up, -up, down, -down, diag_top]
+    return sparse.csc_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n)), out
+
+
+def jump_parts(noise, grid: ShotGrid):
+    """The jump operators per unit input rate: ``[(E, out_e), (I, out_i)]``, each a sparse CSC matrix
+    (per 1/ms of input rate, loss on the diagonal) and its output per unit mass; the inhibitory pair is
+    zero without an inhibitory amplitude.  Every off-diagonal entry is >= 0 and every column of
+    ``E`` (``I``) plus ``out_e`` (``out_i``) sums to zero."""
+    n, h = grid.n, grid.h
     src = np.arange(n)
-    for rate_hz, amp, sign in ((noise.exc_rate, noise.exc_psp, 1), (noise.inh_rate, noise.inh_psp, -1)):
-        if rate_hz <= 0.0:
+    parts = []
+    for amp, sign in ((noise.exc_psp, 1), (noise.inh_psp, -1)):
+        out = np.zeros(n)
+        if not amp > 0.0:
+            parts.append((sparse.csc_matrix((n, n)), out))
             continue
-        nu = rate_hz * 1e-3
         f, d_max = jump_fractions(noise.amplitudes, amp, h)
         stay = f[0]
-        rows.append(src)
-        cols.append(src)
-        vals.append(np.full(n, -nu * (1.0 - stay)))
+        rows, cols, vals = [src], [src], [np.full(n, -(1.0 - stay))]
         for d in range(1, f.size):
             if f[d] == 0.0:
                 continue
@@ -240,18 +255,19 @@ def generator(neuron, noise, mu: float, grid: ShotGrid):
                 inside = tgt < n
                 rows.append(tgt[inside])
                 cols.append(src[inside])
-                vals.append(np.full(int(inside.sum()), nu * f[d]))
-                out[~inside] += nu * f[d]
+                vals.append(np.full(int(inside.sum()), f[d]))
+                out[~inside] += f[d]
             else:
                 rows.append(np.maximum(tgt, 0))
                 cols.append(src)
-                vals.append(np.where(src == 0, 0.0, np.full(n, nu * f[d])))
+                vals.append(np.where(src == 0, 0.0, np.full(n, f[d])))
         if sign < 0:  # the lowest cell's content stays where it is (reflecting lower edge)
             rows.append(np.array([0]))
             cols.append(np.array([0]))
-            vals.append(np.array([nu * (1.0 - stay)]))
-    L = sparse.csc_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n))
-    return L, out
+            vals.append(np.array([1.0 - stay]))
+        m = sparse.csc_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))), shape=(n, n))
+        parts.append((m, out))
+    return parts
 
 
 def dense_jumps(noise, h: float) -> bool:
