@@ -5,8 +5,9 @@ Poisson arrival to the next (exact exponential waiting times, exact LIF decay, f
 reference is the smallest compiled loop doing the same for the same neurons and time (one
 function, no drive sampling, no recording); both are timed in this run, best of 3, CPU time beside
 wall time.  Then the cost of one stationary rate: the exact formula (exponential PSPs) and the
-jump-density operator (three grids), of one step of the jump-density solver, of ``transfer`` per
-frequency and of ``stationary`` (ISI statistics and densities).
+jump-density operator (three grids), of one step of the jump-density solver (also with input rates
+that change every step, as in a network: defect correction against refactorising every step, ratio),
+of ``transfer`` per frequency and of ``stationary`` (ISI statistics and densities).
 
 Run:  popdens bench shot_noise
 """
@@ -87,12 +88,44 @@ def main() -> None:
     w, c, res = _best(lambda: popdens.simulate(pop, 0.0, 50.0, dt=0.1, error_control="off", progress=False), 1)
     print(f"  jump-density solver: {1e3 * c / 500:.2f} ms CPU per step (two grids of "
           f"{res.diagnostics['n_cells']} and {2 * res.diagnostics['n_cells']} cells; wall {1e3 * w / 500:.2f} ms)")
+    _varying_rates(pop)
     for name, p in (("fixed", pop), ("exponential", expo)):
         w, c, _ = _best(lambda p=p: popdens.transfer(p, 0.0, [10.0, 100.0]), 1)
         print(f"  transfer ({name} PSPs, 3 grids): CPU {c / 2:.2f} s per frequency (wall {w / 2:.2f} s)")
         w, c, st = _best(lambda p=p: popdens.stationary(p, 0.0), 1)
         print(f"  stationary ({name} PSPs: ISI CV {st.cv:.3f}, density on {st.isi_t.size} times): CPU {c:.2f} s "
               f"(wall {w:.2f} s)")
+
+
+def _varying_rates(pop, steps: int = 200) -> None:
+    """The solver with input rates that change every step (network cohorts): defect correction
+    preconditioned by a nearby factorisation against the straightforward refactorisation every step."""
+    from ..solvers import jump_density
+
+    t = np.arange(steps + 1) * 0.1
+    ne = RATES[0] * (1.0 + 0.1 * np.sin(2.0 * np.pi * t / 20.0))  # +-10 % at 50 Hz
+    ni = RATES[1] * (1.0 + 0.1 * np.cos(2.0 * np.pi * t / 20.0))
+    runs = {}
+    keep = jump_density.MAX_CORRECTIONS
+    for label, corrections in (("defect correction", keep), ("refactorise every step", 0)):
+        jump_density.MAX_CORRECTIONS = corrections
+        try:
+            def run():
+                s = jump_density.JumpDensitySolver(pop, 0.1)
+                s.initialize(0.0, None)
+                return s, s.advance_rates(np.zeros(steps + 1), ne, ni)[0]
+            runs[label] = _best(run, 1)
+        finally:
+            jump_density.MAX_CORRECTIONS = keep
+    (w1, c1, (s1, r1)), (w0, c0, (s0, r0)) = runs.values()
+    print(f"  time-varying input rates (+-10 % at 50 Hz, {steps} steps, grids of {s1.levels[0].grid.n} and "
+          f"{s1.levels[1].grid.n} cells):")
+    print(f"    defect correction     : {1e3 * c1 / steps:.2f} ms CPU per step (wall {1e3 * w1 / steps:.2f}), "
+          f"{s1.factorisations()} factorisations, {s1.diagnostics()['solves']} solves")
+    print(f"    refactorise every step: {1e3 * c0 / steps:.2f} ms CPU per step (wall {1e3 * w0 / steps:.2f}), "
+          f"{s0.factorisations()} factorisations")
+    print(f"    ratio refactorise/defect correction: {c0 / c1:.2f} (CPU), {w0 / w1:.2f} (wall); "
+          f"largest rate difference {float(np.max(np.abs(r1 - r0))):.1e} Hz")
 
 
 if __name__ == "__main__":

@@ -24,6 +24,13 @@ combines drift and diffusion from them at every step and moves threshold and res
 boundary shifts of the momentary input
 (:meth:`~popdens.solvers.fokker_planck.FokkerPlanckSolver.advance_conductance`).  Their ``mu`` is
 the cohort's own drive, their ``sigma`` NaN.
+
+Shot-noise cohorts (``synapse="shot"``, :mod:`popdens.network._shot_input`):
+the jump-density solver sees the cohort's own drive, and its input rates
+``nu_e(t), nu_i(t)`` (Hz) are built at every step boundary from the
+pathways' delayed rates (instantaneous synapses: linear between step
+midpoints, as above) plus the background; the solver steps with rates that
+change every step (:meth:`~popdens.solvers.jump_density.JumpDensitySolver.advance_rates`).
 """
 
 from __future__ import annotations
@@ -132,8 +139,8 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
 
     Every cohort is solved by its density solver (refractory density for
     escape noise, Fokker--Planck for white noise and for conductance
-    synapses); all are stepped together, coupled through delayed, filtered
-    rates (module docstring).  With
+    synapses, jump density for shot-noise synapses); all are stepped
+    together, coupled through delayed, filtered rates (module docstring).  With
     ``finite_size=True`` every escape-noise cohort is a population of its
     ``size`` neurons (mesoscopic equations, :mod:`popdens.solvers.mesoscopic`),
     and the cohorts are coupled through their *realised* activities.
@@ -173,7 +180,10 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     CircuitResult
         ``rate`` (Hz), ``mu`` (mV) and ``sigma`` (mV) per cohort (for a cohort
         with conductance synapses ``mu`` is its own drive and ``sigma`` NaN: its
-        input is conductances, not a current of one amplitude); with
+        input is conductances, not a current of one amplitude; for one with
+        shot-noise synapses the diffusion-equivalent input: its drive plus
+        ``tau_m (nu_e a_e - nu_i a_i)`` and ``sqrt(tau_m (nu_e a_e^2 + nu_i a_i^2))``,
+        as in its fixed point; its rate comes from the jump-density solver); with
         ``finite_size`` the realised activities (``method`` "mesoscopic") and
         ``sizes``.
 

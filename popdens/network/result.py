@@ -30,7 +30,9 @@ class CircuitResult(Displayable):
         Total drive (mV) and noise amplitude (mV, NaN for escape noise) at
         ``t`` (mean-field integration only).  Cohorts with conductance synapses:
         their own drive (mV) and NaN (the conductances are not a current of
-        one amplitude).
+        one amplitude).  Cohorts with shot-noise synapses: those of the
+        diffusion-equivalent input (the rate comes from the jump-density
+        solver, not from them).
     mean_u : ndarray, shape (n_cohorts, n_times) or None
         Monte Carlo: mean membrane potential (mV) at ``t``.
     method : str

@@ -30,9 +30,11 @@ as for the direct solve (the residual's mass, at most the tolerance, is
 removed by rescaling ``x``, which keeps it positive).  ``P^-1 (A - P)`` has norm at most ``2 dt
 (|nu_e - nu_e,ref| + |nu_i - nu_i,ref|)`` (``P^-1`` is nonnegative with
 column sums <= 1, the jump operators have column norms <= 2); when a step
-needs more than :data:`REFRESH_CORRECTIONS` corrections the next step
-refactorises at its own rates, and a step that does not converge in
-:data:`MAX_CORRECTIONS` is solved directly.
+needs more than :data:`REFRESH_CORRECTIONS` corrections, or the corrections
+since the last factorisation add up to more than a factorisation costs
+(:data:`FACTOR_COST_SOLVES`), the next step refactorises at its own rates;
+a step that does not converge in :data:`MAX_CORRECTIONS` is solved directly.
+The choice depends on counts only, so runs are reproducible bit for bit.
 
 The upwind drift makes the scheme first order in ``h``; the solver runs the
 same problem on grids of width ``h`` and ``h/2`` and reports the rate
@@ -70,6 +72,9 @@ SOLVE_TOL = 1e-12
 REFRESH_CORRECTIONS = 4
 #: Corrections after which the step is solved directly (a new factorisation at its rates).
 MAX_CORRECTIONS = 12
+#: A factorisation's cost in solves (measured 50-150 on 3316-7402 cells, fewer on small grids): after this
+#: many corrections since the last one, the next step refactorises at its own rates (slowly drifting rates).
+FACTOR_COST_SOLVES = 30
 
 
 class _Level:
@@ -88,6 +93,7 @@ class _Level:
         # time-varying input rates: the operator's parts, the reference factorisation, counters
         self._parts = None
         self._ref = None
+        self._corrections = 0
         self.factorisations = 0
         self.solves = 0
 
@@ -131,7 +137,8 @@ class _Level:
             for it in range(MAX_CORRECTIONS):
                 r = rhs - x + self.dt * (d_op @ x + nu_e * (e_op @ x) + nu_i * (i_op @ x))
                 if float(np.abs(r).sum()) <= scale:
-                    if it > REFRESH_CORRECTIONS:
+                    self._corrections += it
+                    if it > REFRESH_CORRECTIONS or self._corrections > FACTOR_COST_SOLVES:
                         self._ref = (*ref[:3], True)  # stale: the next step refactorises
                     # the residual's mass (<= the tolerance) rescaled away: exact conservation, as a direct solve
                     kept = float(x.sum() + self.dt * (out @ x))
@@ -143,6 +150,7 @@ class _Level:
         # (re)factorise at these rates: they become the reference
         solve = self._solver_of(d_op + nu_e * e_op + nu_i * i_op)
         self._ref = (nu_e, nu_i, solve, False)
+        self._corrections = 0
         self.solves += 1
         return solve(rhs), out
 

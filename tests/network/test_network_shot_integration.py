@@ -37,7 +37,7 @@ def test_mixed_circuit_relaxes_to_its_fixed_point():
     # inhibition; started away from it, the integration settles at the fixed point that fixed_points finds.
     # Tolerance: X's rate is the Fokker-Planck solver's stationary rate against Siegert's formula in the
     # fixed point (measured -6.5e-5); E's is the two-grid extrapolation of the solver against the three-grid
-    # one of the fixed point, plus what is left of the relaxation (measured +3e-4): 2e-3 (as for the
+    # one of the fixed point, plus what is left of the relaxation (measured -2.9e-4): 2e-3 (as for the
     # single-population solver's stationary rate)
     x = Cohort("X", popdens.Population(LIF, popdens.WhiteNoise(4.0)), 100, drive=18.0)
     e = Cohort("E", POP, 100, drive=10.0, sigma_ext=0.0, background=PoissonBackground(20.0, -1.0, 20, synapse="shot"))
