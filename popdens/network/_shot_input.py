@@ -165,12 +165,12 @@ EXTRA_LOWER_SPANS = 1.0
 class ShotStepper:
     """Cohort ``k``'s jump-density solver in the network integrator (module docstring).
 
-    ``weights`` map the pathways' delayed rates (1/ms, in ``circuit.pathways`` order) to the cohort's
-    excitatory and inhibitory input rates (Hz); ``s0`` are those delayed rates at t = 0, which set the
-    stationary initial state.
+    ``s0`` are the pathways' delayed rates (1/ms, in ``circuit.pathways`` order) at t = 0, which set the
+    stationary initial state at drive ``mu0`` (mV); ``drives`` (mV) are samples of the drive over the
+    run, for the grid's range.
     """
 
-    def __init__(self, circuit, k: int, dt: float, s0, mu0: float, options: dict | None = None):
+    def __init__(self, circuit, k: int, dt: float, s0, mu0: float, options: dict | None = None, drives=()):
         from ..solvers.jump_density import JumpDensitySolver  # noqa: PLC0415 - scipy-heavy, loaded on first use
 
         a = circuit.cohorts[k]
@@ -207,7 +207,8 @@ class ShotStepper:
         except TypeError as exc:
             raise ValueError(f"cohort {a.name!r}: bad solver option in {sorted(opts)}: {exc}") from None
         if "u_min" not in opts:
-            self.solver.plan([mu0, mu0 - EXTRA_LOWER_SPANS * (float(nrn.boundary) - float(nrn.reset))], None)
+            low = min([mu0, *np.asarray(drives, dtype=float).ravel()])
+            self.solver.plan([mu0, low - EXTRA_LOWER_SPANS * (float(nrn.boundary) - float(nrn.reset))], None)
         self.solver.initialize(float(mu0), None, "stationary")
 
     def rates(self, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -332,7 +332,7 @@ def simulate_network(circuit: Circuit, t_end: float, dt: float | None = None, *,
     steppers = {}  # shot-noise cohorts (popdens.network._shot_input)
     for k, a in enumerate(circuit.cohorts):
         if shot[k]:
-            steppers[k] = ShotStepper(circuit, k, dt, r0_q, float(mu0[k]), solver_options.get(a.name))
+            steppers[k] = ShotStepper(circuit, k, dt, r0_q, float(mu0[k]), solver_options.get(a.name), ext_mu[k])
             solvers.append(steppers[k].solver)
             continue
         cls = resolve_method(a.population, None)
