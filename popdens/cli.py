@@ -320,9 +320,7 @@ def _network_command(args, sc) -> int:
             return 1
         both = ", ".join(f"{k} {m['mean_field_second_half_hz'][k]:.4g} / {v:.4g} Hz"
                          for k, v in m["mean_rates_second_half_hz"].items())
-        held = summary.get("prediction", {}).get("method") == "fixed point"  # conductance synapses
-        print(f"  mean rates over the second half, {'stable fixed point' if held else 'mean field'} / spiking twin: "
-              f"{both}")
+        print(f"  mean rates over the second half, mean field / spiking twin: {both}")
         fl = m.get("fluctuations")
         if fl:
             per = "; ".join(f"{k} s.d. {v['sd_hz']:.3g} Hz (independent neurons {v['sd_independent_neurons_hz']:.3g} Hz), "

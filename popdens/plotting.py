@@ -466,16 +466,14 @@ _COHORT_STYLES = (("C0", "-"), ("C3", "--"), ("C2", "-."), ("C1", ":"), ("C4", "
 
 
 def plot_circuit_comparison(mean_field, twin=None, ax=None):
-    """Mean-field rates (thick; a held fixed point when its ``method`` is ``"fixed point"``) and, if given,
-    the spiking twin's (thin, same colour and dash) of every cohort against time (ms); returns the Figure."""
+    """Mean-field rates (thick) and, if given, the spiking twin's (thin, same colour and dash) of every cohort against time (ms); returns the Figure."""
     ax = _axes(ax)
     for k, nm in enumerate(mean_field.names):
         colour, dash = _COHORT_STYLES[k % len(_COHORT_STYLES)]
         if twin is not None:
             ax.plot(twin.t[1:], twin.rate[k, 1:], color=colour, ls=dash, lw=0.7, alpha=0.55,
                     label=f"{nm}: spiking twin (N = {twin.sizes[k]})")
-        what = "stable fixed point" if mean_field.method == "fixed point" else "mean field"
-        ax.plot(mean_field.t[1:], mean_field.rate[k, 1:], color=colour, ls=dash, lw=2.4, label=f"{nm}: {what}")
+        ax.plot(mean_field.t[1:], mean_field.rate[k, 1:], color=colour, ls=dash, lw=2.4, label=f"{nm}: mean field")
     ax.set_xlabel("time (ms)")
     ax.set_ylabel("population rate (Hz)")
     ax.legend(frameon=False, fontsize="small", ncol=2)
