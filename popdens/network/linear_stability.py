@@ -35,6 +35,7 @@ import numpy as np
 from .. import _validation as v
 from .._display import Displayable, fmt
 from ..exceptions import ConvergenceError
+from ..model.synaptic import ColouredNoise
 from ._conductance_input import add_conductance_terms
 from ._shot_input import add_shot_terms
 from .circuit import HZ_TO_PER_MS, Circuit
@@ -77,9 +78,19 @@ EDGE_BISECTIONS = 40
 
 
 def _default_transfer() -> Callable:
+    """``popdens.transfer``, with coloured-noise cohorts on the effective boundary shift (white noise for
+    cut-off models): the characteristic equation is solved at thousands of complex frequencies, and the
+    (potential, current) plane, the default mean response of hard thresholds beyond ``tau_syn = 0.1
+    tau_m``, costs ~0.1 s per frequency and has no noise response (contributor guide, "Synaptic
+    filtering")."""
     from ..theory.linear_response import transfer  # noqa: PLC0415
 
-    return transfer
+    def shifted(population, mu, freqs, modulate):
+        if isinstance(population.noise, ColouredNoise):
+            return transfer(population, mu, freqs, modulate, method="threshold-integration")
+        return transfer(population, mu, freqs, modulate)
+
+    return shifted
 
 
 def _freq_of(lam_per_ms):

@@ -71,24 +71,40 @@ def solver_gain(population, mu: float) -> float:
 
 
 def _one_dimensional(gain: Callable) -> Callable:
-    """``gain`` with coloured-noise populations of cut-off models (EIF, QIF) on the one-dimensional
-    effective problem instead of their default (potential, current) plane: 500-1400x cheaper, within
-    the white-noise result's error (a few %; contributor guide), so its fixed points are starting
-    points for the plane's."""
+    """``gain`` with coloured-noise populations on the one-dimensional effective problem (the boundary
+    shift; white noise for cut-off models) instead of their default (potential, current) plane: 200-1400x
+    cheaper, within the one-dimensional result's error (a few %; contributor guide), so its fixed points
+    are starting points for the plane's."""
+    from ..theory.steady_state import shift_method  # noqa: PLC0415 - scipy-heavy, loaded on first use
 
     def coarse(population, mu):
-        if (isinstance(population.noise, ColouredNoise) and population.neuron.has_cutoff
-                and not population.neuron.adapting):
-            return gain(population, mu, method="threshold-integration")
+        if isinstance(population.noise, ColouredNoise) and not population.neuron.adapting:
+            return gain(population, mu, method=shift_method(population))
         return gain(population, mu)
 
     return coarse
 
 
+def _slowest_input(circuit: Circuit, k: int) -> float:
+    """The longest synaptic time constant (ms) of cohort ``k``'s current input (its coloured external
+    noise, background, pathways): its effective time constant, a weighted mean of their square roots
+    squared, never exceeds it."""
+    a = circuit.cohorts[k]
+    taus = [a.ext_tau_syn] + [p.tau_syn for p in circuit.pathways if p.target == a.name and p.synapse == "current"]
+    if a.background is not None and a.background.synapse == "current":
+        taus.append(a.background.tau_syn)
+    return max(taus)
+
+
 def _on_plane(circuit: Circuit) -> bool:
-    """True when some cohort may reach the default gain as coloured noise of a cut-off model."""
-    return any(a.diffusive and a.population.neuron.has_cutoff and not a.population.neuron.adapting
-               for a in circuit.cohorts)
+    """True when some cohort may reach the default gain with a share of the (potential, current) plane:
+    a cut-off model, or a hard threshold with an input slower than ``SHIFT_UNTIL_RATIO tau_m``
+    (:func:`popdens.theory._filtered_plane.plane_weight`)."""
+    from ..theory._filtered_plane import SHIFT_UNTIL_RATIO  # noqa: PLC0415
+
+    return any(a.diffusive and not a.population.neuron.adapting
+               and (a.population.neuron.has_cutoff or _slowest_input(circuit, k) > SHIFT_UNTIL_RATIO * a.tau_m)
+               for k, a in enumerate(circuit.cohorts))
 
 
 def _default_gain() -> Callable:

@@ -708,13 +708,32 @@ def _conductance_transfer(population, mu, freqs, modulate, method):
 
 
 def _coloured_transfer(population, mu, f, modulate, method, progress, rtol):
-    """Effective-boundary transfer function of a coloured-noise population (module notes), and the
-    numerical error estimate of the white-noise problem (not the error of the approximation); the
-    (potential, current) plane for mean modulation of models with a spike cut-off or on request."""
+    """Transfer function of a coloured-noise population and its numerical error estimate (not the error
+    of an approximation): the effective boundary shift (module notes); by default for the mean drive of
+    hard thresholds (LIF, PIF) beyond ``tau_syn = SHIFT_UNTIL_RATIO tau_m`` the (potential, current)
+    plane, blended with the shift up to ``PLANE_FROM_RATIO tau_m`` as the rate is
+    (:func:`._filtered_plane.plane_weight`); the plane on request (``method="plane"``)."""
     if method == "renewal":
         raise ValueError("`method` = 'renewal' needs escape noise")
     if method == "plane":
         return _plane_transfer(population, mu, f, modulate)
+    from ._filtered_plane import plane_weight
+
+    nrn = population.neuron
+    share = (plane_weight(nrn, float(population.noise.tau_syn))
+             if method is None and modulate == "mean" and not nrn.has_cutoff and not nrn.adapting else 0.0)
+    if share == 1.0:
+        return _plane_transfer(population, mu, f, modulate)
+    out, err = _shift_transfer(population, mu, f, modulate, method, progress, rtol)
+    if share > 0.0:  # between SHIFT_UNTIL_RATIO and PLANE_FROM_RATIO: blended as the rate is
+        chi, chi_err = _plane_transfer(population, mu, f, modulate)
+        out, err = out + share * (chi - out), (1.0 - share) * err + share * chi_err
+    return out, err
+
+
+def _shift_transfer(population, mu, f, modulate, method, progress, rtol):
+    """The effective-boundary transfer function (module notes) and the numerical error estimate of the
+    white-noise problem."""
     white = white_equivalent(population)
     out, err = transfer(white, mu, f, modulate, method=method, progress=progress, rtol=rtol, return_error=True)
     nrn = population.neuron
@@ -826,6 +845,8 @@ def high_frequency_limit(population, mu) -> float:
 def _periodic_kernel(population, mu, dt, n, modulate, method, progress):
     """Kernel samples kappa(m dt), m = 0..n-1, of period n dt (negative lags at the end), Hz/(mV ms)."""
     freqs = np.arange(n // 2 + 1) * (1000.0 / (n * dt))  # Hz
+    if method is None and isinstance(population, Population) and isinstance(population.noise, ColouredNoise):
+        method = "threshold-integration"  # thousands of frequencies: the boundary shift (see response_kernel)
     chi = transfer(population, mu, freqs, modulate, method=method, progress=progress)
     return chi, np.fft.irfft(chi, n) / dt
 

@@ -76,8 +76,8 @@ from ..model.shot import ShotNoise
 from ..model.conductance import ConductanceNoise
 from ..model.synaptic import ColouredNoise
 from ._adapted import escape_adapted, white_adapted
-from ._filtered_plane import (PLANE_FLOOR_RATIO, PLANE_MIN_RATE_HZ, below_floor, extrapolated, filtered_rates,
-                              plane_pair)
+from ._filtered_plane import (PLANE_FLOOR_RATIO, PLANE_MIN_RATE_HZ, below_floor, extrapolated_levels,
+                              filtered_rates, plane_states, plane_weight)
 from ._shot_exact import exact_rate_applies
 from ._stationary_shot import shot_passage_density, shot_passage_moments, shot_potential_density, shot_rates
 from ._conductance import conductance_rates, conductance_stationary
@@ -175,18 +175,32 @@ def _as_white(population, sigma):
     return population, sigma
 
 
-def _on_plane(population, method) -> bool:
-    """True where the rate comes from the (potential, current) plane: coloured noise on a renewal
-    neuron with a spike cut-off (``method="auto"``), or any coloured-noise renewal neuron with
-    ``method="plane"``."""
+def _plane_share(population, method) -> float:
+    """Weight (0 to 1) of the (potential, current) plane in the rate: 1 with ``method="plane"`` (any
+    coloured-noise renewal neuron); with ``method="auto"`` :func:`._filtered_plane.plane_weight` (1 for
+    a spike cut-off; hard thresholds blend from the boundary shift to the plane between ``tau_syn/tau_m``
+    = ``SHIFT_UNTIL_RATIO`` and ``PLANE_FROM_RATIO``); 0 otherwise."""
     noise = population.noise
     if method == "plane" and not isinstance(noise, ColouredNoise):
         raise ValueError(f"`method` 'plane' is for ColouredNoise populations, not {type(noise).__name__}")
     if not isinstance(noise, ColouredNoise) or population.neuron.adapting:
         if method == "plane":
             raise ValueError("`method` 'plane' does not support `adaptation` yet; use method='auto'")
-        return False
-    return method == "plane" or (method == "auto" and population.neuron.has_cutoff)
+        return 0.0
+    if method == "plane":
+        return 1.0
+    return plane_weight(population.neuron, float(noise.tau_syn)) if method == "auto" else 0.0
+
+
+def shift_method(population) -> str:
+    """The default one-dimensional method of ``population``'s white-noise equivalent (for coloured
+    noise: the effective boundary shift): Siegert (LIF), inverse Gaussian (PIF), threshold integration."""
+    return {CODE_LIF: "siegert", CODE_PIF: "inverse-gaussian"}.get(population.neuron.code, "threshold-integration")
+
+
+def _blend(shift, plane, share: float):
+    """``shift + share (plane - shift)``: the default between the boundary shift and the plane."""
+    return np.asarray(shift) + share * (np.asarray(plane) - np.asarray(shift))
 
 
 def _plane_sigma(population, sigma) -> float:
@@ -326,8 +340,12 @@ def gain(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         if levels.size == 0:
             raise ValueError("`sigma` must hold at least one noise level (mV), got an empty list")
         return np.stack([gain(population, mu, sigma=float(s), method=method) for s in levels])
-    if _on_plane(population, method):
-        return _plane_rates(population, _drives(mu), sigma)
+    share = _plane_share(population, method)
+    if share > 0.0:
+        plane = _plane_rates(population, _drives(mu), sigma)
+        if share == 1.0:
+            return plane
+        return _blend(gain(population, mu, sigma=sigma, method=shift_method(population)), plane, share)
     population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
     mus = _drives(mu)
@@ -366,7 +384,8 @@ def gain_slope(population, mu, *, sigma=None, method="auto") -> np.ndarray:
         As in :func:`gain`.
     """
     _check_population(population)
-    if _shot(population, sigma) or _conductance(population, sigma) or _on_plane(population, method):
+    if (_shot(population, sigma) or _conductance(population, sigma)
+            or _plane_share(population, method) > 0.0):
         h = SLOPE_STEP_MV
         mus = _drives(mu)
         r = gain(population, np.stack([mus - 2 * h, mus - h, mus + h, mus + 2 * h]), sigma=sigma, method=method)
@@ -683,8 +702,9 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
         return _shot_stationary(population, v.as_finite_float("mu", mu), isi_t, method)
     if _conductance(population, sigma):
         return _conductance_stationary(population, v.as_finite_float("mu", mu), isi_t, method)
-    if _on_plane(population, method):
-        return _plane_stationary(population, v.as_finite_float("mu", mu), sigma, isi_t)
+    share = _plane_share(population, method)
+    if share > 0.0:
+        return _plane_stationary(population, v.as_finite_float("mu", mu), sigma, isi_t, share)
     original = population
     population, sigma = _as_white(population, sigma)
     sg = _constant_sigma(population, sigma)
@@ -702,13 +722,15 @@ def stationary(population, mu, *, sigma=None, isi_t=None, method="auto") -> Stea
                    diagnostics={**out.diagnostics, "boundary_shift_mV": shift})
 
 
-def _plane_stationary(population, mu: float, sigma, isi_t) -> SteadyState:
+def _plane_stationary(population, mu: float, sigma, isi_t, share: float = 1.0) -> SteadyState:
     """Coloured noise on the (potential, current) plane: rate and ISI CV (exact for the stationary
-    sequence of ISIs; extrapolated over two grids, scaled below the floor as in
+    sequence of ISIs; extrapolated over two or three grids, scaled below the floor as in
     :func:`._filtered_plane.below_floor`), and at ``tau_syn >= PLANE_FLOOR_RATIO tau_m`` the marginal
     potential density, flux and mean potential of the fine grid; the ISI density is that of the
     effective renewal problem (the white-noise population with the boundary shift; the current's memory
-    across spikes ignored), named in ``diagnostics["isi_density_from"]``."""
+    across spikes ignored), named in ``diagnostics["isi_density_from"]``.  With ``share < 1`` (hard
+    thresholds between ``SHIFT_UNTIL_RATIO`` and ``PLANE_FROM_RATIO``) rate and CV are blended with
+    the boundary shift's (:func:`._filtered_plane.plane_weight`)."""
     nrn, noise = population.neuron, population.noise
     sg = _plane_sigma(population, sigma)
     tau_syn = float(noise.tau_syn)
@@ -723,14 +745,18 @@ def _plane_stationary(population, mu: float, sigma, isi_t) -> SteadyState:
         return replace(renewal, population=population, method=f"{renewal.method} (boundary shift; rate below "
                        f"{PLANE_MIN_RATE_HZ:g} Hz, not solved on the plane)",
                        diagnostics={**renewal.diagnostics, "boundary_shift_mV": shift})
-    coarse, fine = plane_pair(nrn, mu, sg, max(tau_syn, floor))
-    rate = float(below_floor(nrn, tau_syn, extrapolated(coarse.rate, fine.rate),
+    grids = plane_states(nrn, mu, sg, max(tau_syn, floor))
+    fine = grids[-1]
+    rate = float(below_floor(nrn, tau_syn, extrapolated_levels([g.rate for g in grids]),
                              lambda t: float(gain(effective(t), mu))))
-    cv = float(below_floor(nrn, tau_syn, extrapolated(coarse.cv, fine.cv),
+    cv = float(below_floor(nrn, tau_syn, extrapolated_levels([g.cv for g in grids]),
                            lambda t: cv_diffusive(effective(t), mu, sg)))
+    if share < 1.0:
+        rate, cv = float(_blend(renewal.rate, rate, share)), float(_blend(renewal.cv, cv, share))
+    used = "plane" if share == 1.0 else f"plane blended with the boundary shift (plane weight {share:.3g})"
     out = replace(renewal, population=population, rate=rate, cv=cv, mean_isi=1000.0 / rate,
-                  refractory_fraction=rate * 1e-3 * nrn.refractory, method="plane",
-                  diagnostics={**renewal.diagnostics, "boundary_shift_mV": shift,
+                  refractory_fraction=rate * 1e-3 * nrn.refractory, method=used,
+                  diagnostics={**renewal.diagnostics, "boundary_shift_mV": shift, "plane_weight": share,
                                "isi_density_from": f"effective renewal problem ({renewal.method}, boundary shift "
                                                    f"{shift:.4g} mV)"})
     if tau_syn < floor:
