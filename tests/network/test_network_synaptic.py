@@ -195,3 +195,27 @@ def test_cut_off_models_search_cheaply_and_polish_on_the_plane():
         assert a.rates == pytest.approx(b.rates, rel=1e-9)  # brute-force scan on the plane
     white = fixed_points(c, (0.0, 120.0), gain=lambda p, mu: popdens.gain(p, mu, method="threshold-integration"))
     assert abs(white[0].rates[0] - polished[0].rates[0]) > 1e-3 * polished[0].rates[0]  # the plane matters here
+
+
+def test_lif_cohorts_with_slow_synapses_polish_on_the_plane():
+    """Beyond tau_syn/tau_m = 0.1 the LIF's default gain takes the (potential, current) plane (blended up to
+    0.15): the default search runs on the boundary shift (Siegert formula) and polishes on the default gain.
+    Reference: a plain scan-and-bisect of A - Phi(A) on the default gain itself (8 points; common practice).
+    The characteristic matrix stays on the boundary shift's transfer function (contributor guide)."""
+    pop = popdens.Population(LIF, popdens.ColouredNoise(3.0, 5.0))
+    c = Circuit([Cohort("E", pop, size=500, drive=14.0)], [Pathway("E", "E", 0.1, 80, 1.5, 5.0)])
+    polished = fixed_points(c, (0.0, 120.0))
+    scanned = fixed_points(c, (0.0, 120.0), gain=popdens.gain, scan_points=8)
+    assert len(polished) == len(scanned) >= 1
+    for a, b in zip(polished, scanned):
+        assert a.rates == pytest.approx(b.rates, rel=1e-9)
+    shifted = fixed_points(c, (0.0, 120.0), gain=lambda p, mu: popdens.gain(p, mu, method="siegert"))
+    assert abs(shifted[0].rates[0] / polished[0].rates[0] - 1.0) > 0.01  # the plane matters here
+    fp = polished[0]
+    lam = np.array([0.05 + 0.3j])
+
+    def shift_transfer(p, mu, f, modulate):
+        return popdens.transfer(p, mu, f, modulate, method="threshold-integration")
+
+    assert characteristic_matrix(c, fp, lam) == pytest.approx(characteristic_matrix(c, fp, lam, shift_transfer),
+                                                              rel=1e-12)
