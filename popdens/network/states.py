@@ -285,10 +285,13 @@ def fixed_points(circuit: Circuit, rate_range=DEFAULT_RATE_RANGE, *, gain: Calla
     as above) and polishes each with Powell's method: a shot-noise fixed
     point with no diffusion-approximation fixed point in its basin is missed.
     Likewise, with the default ``gain``, cohorts of cut-off models (EIF, QIF)
-    with coloured or filtered input take their rates from the (potential,
-    current) plane (about 0.1 s each): the search runs on their
-    one-dimensional effective rate and polishes what it finds on the plane
-    (an E-I pair: 4 s instead of 218 s CPU, the same fixed point).
+    with coloured or filtered input, and LIF cohorts with an input slower
+    than ``tau_syn = 0.1 tau_m``, take their rates from the (potential,
+    current) plane (0.1-0.3 s each): the search runs on their
+    one-dimensional effective rate (white noise, boundary shift) and polishes
+    what it finds on the plane (an E-I pair: 4 s instead of 218 s CPU, the
+    same fixed point).  A fixed point of the plane with no one-dimensional
+    fixed point in its basin is missed.
 
     Examples
     --------

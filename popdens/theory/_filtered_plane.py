@@ -34,7 +34,11 @@ rounding):
   the rate is Richardson-extrapolated from two widths (``u`` cells of a
   fraction of the current's correlation length ``sigma sqrt(tau_s/(2
   tau_m))``; on its logarithm, which keeps it positive), which makes it
-  second order (measured in the tests).  Far below threshold (rates of
+  second order (measured in the tests); for hard thresholds (LIF, PIF),
+  whose threshold is a discontinuity in ``z`` (only positive velocities
+  cross it), from three widths (``PLANE_LEVELS_HARD_THRESHOLD``: the
+  two-width rate of a LIF at 0.7-1 Hz was 4-6 % above the twin, the
+  three-width rate is within 2 %).  Far below threshold (rates of
   ~0.01 Hz and less) the upwind error sits in the exponent and the
   extrapolated rate converges slowly (measured +10 % at 0.008 Hz); below
   ``PLANE_MIN_RATE_HZ`` the plane is not solved.
@@ -51,6 +55,11 @@ effective-boundary rate the plane's correction at the floor scaled by
 ``tau_syn / (PLANE_FLOOR_RATIO tau_m)`` (the correction's leading order for
 models with a spike cut-off is ``tau_syn / tau_m``: Fourcaud-Trocme,
 Hansel, van Vreeswijk & Brunel 2003, J. Neurosci. 23:11628).
+
+Which result is the default (:func:`plane_weight`): the plane for models with a
+spike cut-off; for hard thresholds the effective boundary shift up to ``tau_syn
+= SHIFT_UNTIL_RATIO tau_m``, the plane from ``PLANE_FROM_RATIO tau_m``, blended
+linearly in ``tau_syn`` between (measured switch point: contributor guide).
 
 Units: mV, ms; rates in Hz.
 """

@@ -36,7 +36,12 @@ Methods
   (Fourcaud & Brunel 2002): :func:`high_frequency_limit`.  Models with a
   spike cut-off (EIF, QIF) are not shifted (white-noise response);
   ``method="plane"`` linearises the stationary (potential, current) density
-  instead (mean modulation, :mod:`popdens.theory._filtered_plane`).
+  instead (mean modulation, :mod:`popdens.theory._filtered_plane`), the
+  default for the mean drive of hard thresholds (LIF, PIF) beyond
+  ``tau_syn = 0.1 tau_m`` (blended with the shift up to ``0.15 tau_m``, as
+  :func:`popdens.gain` is).  Noise modulation, the time-domain kernels
+  (:func:`response_kernel`, :func:`linear_rate_response`: thousands of
+  frequencies) and network stability keep the effective boundary shift.
 
 Complex frequencies
 -------------------
@@ -575,10 +580,15 @@ def transfer(population, mu, freqs, modulate: str = "mean", *, method: str | Non
         white-noise LIF only, needs mpmath, ~10 ms per frequency.  Coloured
         noise, mean modulation, renewal neurons: ``"plane"`` linearises the
         stationary (potential, current) density, exact up to its grid and
-        consistent with :func:`popdens.gain` of models with a spike cut-off
-        (its zero-frequency value is their gain slope); about 0.07 s CPU per
-        frequency, so it is not the default (network stability analyses call
-        the transfer function thousands of times).
+        consistent with :func:`popdens.gain` (its zero-frequency value is the
+        plane's gain slope); 0.07 s (cut-off models, two grids) to 0.2 s
+        (hard thresholds, three grids) CPU per frequency.  It is the default
+        for the mean drive of hard thresholds (LIF, PIF) beyond ``tau_syn =
+        0.1 tau_m``, blended with the boundary shift up to ``0.15 tau_m`` as
+        the rate is; models with a spike cut-off keep the white-noise
+        response by default (network stability analyses, which call the
+        transfer function thousands of times, use the boundary shift for
+        every coloured-noise cohort).
     progress : bool, optional
         Progress line on stderr (default: on a terminal, for long runs).
     rtol : float, optional
@@ -892,6 +902,10 @@ def response_kernel(population, mu, dt: float, duration: float, modulate: str = 
     short of ``chi(0)`` by that part (measured 0.6 % for a white-noise LIF with
     ``dt = 0.1`` ms, shrinking like ``sqrt(dt)``).  :func:`linear_rate_response`
     keeps it.
+
+    Coloured noise: computed from the effective-boundary transfer function
+    (the default for ``method=None``, whatever ``tau_syn``): the plane costs
+    ~0.2 s per frequency.
     """
     dt = v.positive("dt", dt)
     duration = v.positive("duration", duration)
