@@ -100,10 +100,10 @@ def _on_plane(circuit: Circuit) -> bool:
     """True when some cohort may reach the default gain with a share of the (potential, current) plane:
     a cut-off model, or a hard threshold with an input slower than ``SHIFT_UNTIL_RATIO tau_m``
     (:func:`popdens.theory._filtered_plane.plane_weight`)."""
-    from ..theory._filtered_plane import SHIFT_UNTIL_RATIO  # noqa: PLC0415
+    from ..theory._filtered_plane import plane_weight  # noqa: PLC0415
 
     return any(a.diffusive and not a.population.neuron.adapting
-               and (a.population.neuron.has_cutoff or _slowest_input(circuit, k) > SHIFT_UNTIL_RATIO * a.tau_m)
+               and plane_weight(a.population.neuron, _slowest_input(circuit, k)) > 0.0
                for k, a in enumerate(circuit.cohorts))
 
 

@@ -109,6 +109,8 @@ PLANE_MIN_RATE_HZ = 1e-9
 #: in between the two rates are blended linearly in ``tau_syn`` (no jump for sweeps; contributor guide).
 SHIFT_UNTIL_RATIO = 0.1
 PLANE_FROM_RATIO = 0.15
+#: Plane weights within this of 0 or 1 are rounded to it (round-off in effective time constants).
+WEIGHT_ROUNDING = 1e-6
 #: Solved grids kept for repeated calls (each a few MB).
 PLANE_CACHE_SIZE = 16
 #: Largest number of u cells of one grid (memory: cells x z-cells x band).
@@ -478,7 +480,10 @@ def plane_weight(neuron, tau_syn: float) -> float:
     if neuron.has_cutoff:
         return 1.0
     x = float(tau_syn) / float(neuron.tau_m)
-    return min(max((x - SHIFT_UNTIL_RATIO) / (PLANE_FROM_RATIO - SHIFT_UNTIL_RATIO), 0.0), 1.0)
+    w = (x - SHIFT_UNTIL_RATIO) / (PLANE_FROM_RATIO - SHIFT_UNTIL_RATIO)
+    # within WEIGHT_ROUNDING of an end, the end: an effective time constant computed as 2.0000000000000004 ms
+    # must not cost a plane solve (the rate moves by < 1e-6 of the shift's distance from the plane, ~4e-8)
+    return 0.0 if w < WEIGHT_ROUNDING else 1.0 if w > 1.0 - WEIGHT_ROUNDING else w
 
 
 def filtered_rates(neuron, mus: np.ndarray, sigma: float, tau_syn: float, effective_rates) -> np.ndarray:

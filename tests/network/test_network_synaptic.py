@@ -181,6 +181,17 @@ def test_predicted_spectrum_of_a_filtered_network_tends_to_rate_over_size():
         assert abs(spec[0, k, k].real / (fp.rates[k] / size) - 1.0) <= 2 * m + 4 * m * m
 
 
+def polished_as_scanned(c):
+    """The default fixed points of ``c`` in (0, 120) Hz, checked against a brute-force scan-and-bisect on
+    the default gain (8 points); returns them."""
+    polished = fixed_points(c, (0.0, 120.0))
+    scanned = fixed_points(c, (0.0, 120.0), gain=popdens.gain, scan_points=8)
+    assert len(polished) == len(scanned) >= 1
+    for a, b in zip(polished, scanned):
+        assert a.rates == pytest.approx(b.rates, rel=1e-9)
+    return polished
+
+
 def test_cut_off_models_search_cheaply_and_polish_on_the_plane():
     """EIF cohorts with filtered input take their rates from the (potential, current) plane, 0.1 s each:
     the default search finds fixed points with the one-dimensional rate and polishes them on the plane.
@@ -190,11 +201,7 @@ def test_cut_off_models_search_cheaply_and_polish_on_the_plane():
     eif = popdens.EIF(20.0, 15.0, 2.0, 30.0, 10.0, 2.0)
     pop = popdens.Population(eif, popdens.ColouredNoise(3.0, 2.0))
     c = Circuit([Cohort("E", pop, size=500, drive=12.0)], [Pathway("E", "E", 0.1, 80, 1.5, 2.0)])
-    polished = fixed_points(c, (0.0, 120.0))
-    scanned = fixed_points(c, (0.0, 120.0), gain=popdens.gain, scan_points=8)
-    assert len(polished) == len(scanned) >= 1
-    for a, b in zip(polished, scanned):
-        assert a.rates == pytest.approx(b.rates, rel=1e-9)  # brute-force scan on the plane
+    polished = polished_as_scanned(c)
     white = fixed_points(c, (0.0, 120.0), gain=lambda p, mu: popdens.gain(p, mu, method="threshold-integration"))
     assert abs(white[0].rates[0] - polished[0].rates[0]) > 1e-3 * polished[0].rates[0]  # the plane matters here
 
@@ -206,11 +213,7 @@ def test_lif_cohorts_with_slow_synapses_polish_on_the_plane():
     The characteristic matrix stays on the boundary shift's transfer function (contributor guide)."""
     pop = popdens.Population(LIF, popdens.ColouredNoise(3.0, 5.0))
     c = Circuit([Cohort("E", pop, size=500, drive=14.0)], [Pathway("E", "E", 0.1, 80, 1.5, 5.0)])
-    polished = fixed_points(c, (0.0, 120.0))
-    scanned = fixed_points(c, (0.0, 120.0), gain=popdens.gain, scan_points=8)
-    assert len(polished) == len(scanned) >= 1
-    for a, b in zip(polished, scanned):
-        assert a.rates == pytest.approx(b.rates, rel=1e-9)
+    polished = polished_as_scanned(c)
     shifted = fixed_points(c, (0.0, 120.0), gain=lambda p, mu: popdens.gain(p, mu, method="siegert"))
     assert abs(shifted[0].rates[0] / polished[0].rates[0] - 1.0) > 0.01  # the plane matters here
     fp = polished[0]
