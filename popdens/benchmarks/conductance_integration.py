@@ -31,7 +31,7 @@ import numpy as np
 
 import popdens
 from popdens.benchmarks._timing import best_of
-from popdens.benchmarks.kernels import G, _thomas
+from popdens.benchmarks.kernels import G, _thomas, sg_face
 from popdens.solvers import FokkerPlanckSolver
 
 REPEATS = 5
@@ -48,15 +48,7 @@ def _mixed_coefficients(rows_f, rows_d, w, v, dist, tau_m, alpha, beta):  # prag
     for i in range(dist.shape[0]):
         a = (w[0] * rows_f[0, i] + w[1] + w[2] * rows_f[1, i]) / tau_m
         dd = max(v[0] + v[1] * rows_d[0, i] + v[2] * rows_d[1, i], 1e-300)
-        x = abs(a) * dist[i] / dd
-        bx = 1.0 - 0.5 * x + x * x / 12.0 if x < 1e-5 else x / math.expm1(x)
-        b = dd / dist[i] * bx
-        if a >= 0.0:
-            beta[i] = b
-            alpha[i] = b + a
-        else:
-            alpha[i] = b
-            beta[i] = b - a
+        alpha[i], beta[i] = sg_face(a, dd, dist[i])
 
 
 @numba.njit(cache=True)

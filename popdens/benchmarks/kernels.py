@@ -52,20 +52,23 @@ G = 2.0 - math.sqrt(2.0)  # TR-BDF2 stage fraction (Hosea & Shampine 1996)
 
 
 # ---------------------------------------------------------------- minimal loops
+@numba.njit(cache=True, inline="always")
+def sg_face(a, dd, dx):  # pragma: no cover - compiled
+    """Scharfetter--Gummel coefficients ``(alpha, beta)`` of one face: drift ``a`` (mV/ms), diffusion ``dd``
+    (mV^2/ms), centre distance ``dx`` (mV)."""
+    x = abs(a) * dx / dd
+    bx = 1.0 - 0.5 * x + x * x / 12.0 if x < 1e-5 else x / math.expm1(x)
+    b = dd / dx * bx
+    if a >= 0.0:
+        return b + a, b
+    return b, b - a
+
+
 @numba.njit(cache=True)
 def _sg_coefficients(ff, dist, mu, sigma, tau_m, alpha, beta):  # pragma: no cover - compiled
     dd = sigma * sigma / (2.0 * tau_m)
     for i in range(ff.shape[0]):
-        a = (ff[i] + mu) / tau_m
-        x = abs(a) * dist[i] / dd
-        bx = 1.0 - 0.5 * x + x * x / 12.0 if x < 1e-5 else x / math.expm1(x)
-        b = dd / dist[i] * bx
-        if a >= 0.0:
-            beta[i] = b
-            alpha[i] = b + a
-        else:
-            alpha[i] = b
-            beta[i] = b - a
+        alpha[i], beta[i] = sg_face((ff[i] + mu) / tau_m, dd, dist[i])
 
 
 @numba.njit(cache=True)
